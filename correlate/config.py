@@ -1,0 +1,386 @@
+"""Study file: read and validate the TOML study into frozen records.
+
+Stage: input. In: a study file path. Out: :class:`Study`. Paths in the study are relative to it.
+Unknown keys are refused with the nearest valid key suggested; every problem is reported at once.
+"""
+
+from __future__ import annotations
+
+import difflib
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from correlate.errors import StudyError
+from correlate.units import LENGTH_UNITS
+
+# The keys each table accepts. Free-text tables ([test], [model] description keys) accept any key.
+SCHEMA: dict[str, set[str]] = {
+    "": {"title", "model", "case", "material", "gauges", "test", "readings", "load", "criteria",
+         "override", "health", "report"},
+    "model": {"file", "length_unit", "stress_unit", "plane", "revision", "description", "solver",
+              "element", "mesh_size", "materials", "thickness"},
+    "case": {"name", "strain", "displacement", "stress", "components", "shear", "time_index", "file",
+             "average", "axes", "check_stress", "rotation", "match"},
+    "material": {"E", "nu", "blocks", "name"},
+    "gauges": {"file", "position_tol", "angle_tol", "snap_tol", "calibration_poisson", "grid_points",
+               "band"},
+    "readings": {"file", "zero", "zero_tol", "sentinels", "kt_corrected"},
+    "load": {"column", "case", "reference"},
+    "criteria": {"relative", "absolute_ue", "slope", "pass_fraction"},
+    "override": {"gauge", "action", "reason"},
+    "health": {"dead_ue", "rail_fraction", "drift_ue", "drift_fraction", "nonlinear_fraction",
+               "hysteresis_fraction", "reversed_ratio", "min_points"},
+    "report": {"steps", "views", "title"},
+}
+FREE_TEXT = {"test"}
+FIELD_KINDS = ("strain", "displacement", "stress")
+
+
+@dataclass(frozen=True)
+class Case:
+    """One FE load case: which array holds it and how to read it."""
+
+    name: str
+    kind: str                                # strain, displacement or stress
+    array: str | dict[str, str]              # array name, or {"top": ..., "bottom": ...} for shells
+    components: tuple[str, ...] | None       # None: the default for the component count
+    shear: str = "engineering"
+    time_index: int | str | tuple[int, int] | None = None
+    file: Path | None = None
+    average: str = "cell"                    # for cell data: "cell" (constant) or "nodal"
+    axes: str | None = None
+    check_stress: str | None = None
+    match: dict[str, Any] | None = None
+
+
+@dataclass(frozen=True)
+class Material:
+    E: float
+    nu: float
+    blocks: tuple[int, ...] | None = None
+
+
+@dataclass(frozen=True)
+class Load:
+    column: str
+    case: str
+    reference: float
+
+
+@dataclass(frozen=True)
+class Criteria:
+    relative: float = 0.10
+    absolute_ue: float = 50.0
+    slope: tuple[float, float] = (0.90, 1.10)
+    pass_fraction: float = 0.90
+
+
+@dataclass(frozen=True)
+class Override:
+    gauge: str
+    action: str
+    reason: str
+
+
+@dataclass(frozen=True)
+class Study:
+    """Everything the study file says, validated, with absolute paths."""
+
+    path: Path
+    title: str
+    model_file: Path
+    length_unit: str
+    stress_unit: str | None
+    plane: str | None
+    model_info: dict[str, Any]
+    cases: tuple[Case, ...]
+    materials: tuple[Material, ...]
+    gauges_file: Path
+    position_tol: float
+    angle_tol: float
+    snap_tol: float
+    calibration_poisson: float
+    grid_points: int
+    band: bool
+    test: dict[str, Any] = field(default_factory=dict)
+    readings_file: Path | None = None
+    zero: str = "first"
+    zero_tol: float = 0.01
+    sentinels: tuple[Any, ...] | None = None
+    kt_corrected: bool = False
+    loads: tuple[Load, ...] = ()
+    criteria: Criteria = Criteria()
+    overrides: tuple[Override, ...] = ()
+    health: dict[str, float] = field(default_factory=dict)
+    report: dict[str, Any] = field(default_factory=dict)
+    raw: dict[str, Any] = field(default_factory=dict)
+
+    @property
+    def material(self) -> Material | None:
+        """The single material, or the first when several are given per block."""
+        return self.materials[0] if self.materials else None
+
+
+def _unknown_keys(where: str, table: dict[str, Any], allowed: set[str], problems: list[str],
+                  name: str) -> None:
+    for key in table:
+        if key not in allowed:
+            near = difflib.get_close_matches(key, sorted(allowed), n=1)
+            hint = f"; did you mean '{near[0]}'?" if near else f"; valid keys: {', '.join(sorted(allowed))}"
+            problems.append(f"{name}: unknown key '{key}' in {where}{hint}")
+
+
+def _number(table: dict[str, Any], key: str, default: float | None, where: str, name: str,
+            problems: list[str], *, positive: bool = False) -> float | None:
+    value = table.get(key, default)
+    if value is None:
+        return None
+    if isinstance(value, bool) or not isinstance(value, int | float):
+        problems.append(f"{name}: {where} {key} = {value!r} is not a number")
+        return default
+    if positive and value <= 0:
+        problems.append(f"{name}: {where} {key} = {value} must be greater than zero")
+        return default
+    return float(value)
+
+
+def _path(base: Path, value: Any, where: str, name: str, problems: list[str],
+          *, must_exist: bool = True) -> Path | None:
+    if not isinstance(value, str) or not value:
+        problems.append(f"{name}: {where} file is missing; give the path relative to the study file")
+        return None
+    path = (base / value).resolve()
+    if must_exist and not path.exists():
+        problems.append(f"{name}: {where} file '{value}' does not exist (looked for {path})")
+    return path
+
+
+def _read_case(raw: dict[str, Any], i: int, base: Path, name: str, problems: list[str]) -> Case | None:
+    where = f"[[case]] #{i + 1}"
+    _unknown_keys(where, raw, SCHEMA["case"], problems, name)
+    case_name = raw.get("name")
+    if not isinstance(case_name, str) or not case_name:
+        problems.append(f"{name}: {where} has no name; add name = \"...\"")
+        return None
+    where = f"[[case]] '{case_name}'"
+    kinds = [k for k in FIELD_KINDS if k in raw]
+    if len(kinds) != 1:
+        found = ", ".join(kinds) if kinds else "none"
+        problems.append(f"{name}: {where} needs exactly one of strain / displacement / stress "
+                        f"(an array name); found {found}")
+        return None
+    kind = kinds[0]
+    array = raw[kind]
+    if isinstance(array, dict):
+        bad = set(array) - {"top", "bottom"}
+        if bad or not all(isinstance(v, str) for v in array.values()):
+            problems.append(f"{name}: {where} {kind} table takes top = \"...\" and bottom = \"...\"")
+            return None
+    elif not isinstance(array, str):
+        problems.append(f"{name}: {where} {kind} must be an array name or {{ top = ..., bottom = ... }}")
+        return None
+    shear = raw.get("shear", "engineering")
+    if shear not in ("engineering", "tensor"):
+        problems.append(f"{name}: {where} shear = '{shear}'; expected 'engineering' or 'tensor'")
+    components = raw.get("components")
+    if components is not None:
+        if not (isinstance(components, list) and len(components) in (3, 6, 9)
+                and all(isinstance(c, str) for c in components)):
+            problems.append(f"{name}: {where} components must list 3, 6 or 9 names such as \"xx\"")
+            components = None
+        else:
+            from correlate.tensors import _pair
+            for c in components:
+                try:
+                    _pair(c)
+                except ValueError as exc:
+                    problems.append(f"{name}: {where} {exc}")
+            components = tuple(components)
+    time_index = raw.get("time_index")
+    if time_index is not None:
+        ok = (isinstance(time_index, int) and not isinstance(time_index, bool) and time_index >= 0) \
+            or time_index == "all" \
+            or (isinstance(time_index, list) and len(time_index) == 2
+                and all(isinstance(t, int) for t in time_index))
+        if not ok:
+            problems.append(f"{name}: {where} time_index = {time_index!r}; expected a step number counted "
+                            "from 0, \"all\", or [first, last]")
+        if isinstance(time_index, list):
+            time_index = (time_index[0], time_index[1])
+    average = raw.get("average", "cell")
+    if average not in ("cell", "nodal"):
+        problems.append(f"{name}: {where} average = '{average}'; expected 'cell' or 'nodal'")
+    file = _path(base, raw["file"], where, name, problems) if "file" in raw else None
+    return Case(name=case_name, kind=kind, array=array, components=components, shear=shear,
+                time_index=time_index, file=file, average=average, axes=raw.get("axes"),
+                check_stress=raw.get("check_stress"), match=raw.get("match"))
+
+
+def parse_study(text: str, path: Path) -> Study:
+    """Validate a study given as TOML text; ``path`` locates the files it names."""
+    name = path.name
+    try:
+        raw = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise StudyError(f"{name}: not valid TOML: {exc}; fix the syntax at that line") from None
+    base = path.parent
+    problems: list[str] = []
+    _unknown_keys("the top level", raw, SCHEMA[""], problems, name)
+    for section, allowed in SCHEMA.items():
+        if not section or section not in raw:
+            continue
+        items = raw[section] if isinstance(raw[section], list) else [raw[section]]
+        for item in items:
+            if not isinstance(item, dict):
+                problems.append(f"{name}: [{section}] must be a table")
+            elif section not in ("case",):
+                _unknown_keys(f"[{section}]", item, allowed, problems, name)
+
+    model = raw.get("model")
+    if not isinstance(model, dict):
+        problems.append(f"{name}: the [model] table is missing; it needs file = \"...\" and length_unit")
+        model = {}
+    model_file = _path(base, model.get("file"), "[model]", name, problems) if model else None
+    length_unit = model.get("length_unit")
+    if length_unit is None:
+        problems.append(f"{name}: [model] length_unit is missing; give one of {', '.join(LENGTH_UNITS)}")
+    elif length_unit not in LENGTH_UNITS:
+        problems.append(f"{name}: [model] length_unit = '{length_unit}' is not known; "
+                        f"expected one of {', '.join(LENGTH_UNITS)}")
+    plane = model.get("plane")
+    if plane is not None and plane not in ("stress", "strain"):
+        problems.append(f"{name}: [model] plane = '{plane}'; expected \"stress\" or \"strain\"")
+
+    raw_cases = raw.get("case", [])
+    if isinstance(raw_cases, dict):
+        raw_cases = [raw_cases]
+    if not raw_cases:
+        problems.append(f"{name}: no [[case]] given; add one per FE load case with name and an array")
+    cases = []
+    for i, raw_case in enumerate(raw_cases):
+        if isinstance(raw_case, dict) and (c := _read_case(raw_case, i, base, name, problems)):
+            cases.append(c)
+    seen: set[str] = set()
+    for c in cases:
+        if c.name in seen:
+            problems.append(f"{name}: case name '{c.name}' is used twice; names must be unique")
+        seen.add(c.name)
+
+    raw_mat = raw.get("material", [])
+    raw_mat = [raw_mat] if isinstance(raw_mat, dict) else raw_mat
+    materials = []
+    for m in raw_mat:
+        E = _number(m, "E", None, "[material]", name, problems, positive=True)
+        nu = _number(m, "nu", None, "[material]", name, problems)
+        if E is None or nu is None:
+            problems.append(f"{name}: [material] needs E and nu")
+            continue
+        if not -1.0 < nu < 0.5:
+            problems.append(f"{name}: [material] nu = {nu} is outside (-1, 0.5)")
+        blocks = m.get("blocks")
+        materials.append(Material(E=E, nu=nu, blocks=tuple(blocks) if blocks is not None else None))
+    if any(c.kind == "stress" for c in cases) and not materials:
+        problems.append(f"{name}: a case gives stress, so [material] E and nu are needed to convert it "
+                        "to strain")
+
+    gauges = raw.get("gauges")
+    if not isinstance(gauges, dict):
+        problems.append(f"{name}: the [gauges] table is missing; it needs file = \"gauges.csv\"")
+        gauges = {}
+    gauges_file = _path(base, gauges.get("file"), "[gauges]", name, problems) if gauges else None
+    position_tol = _number(gauges, "position_tol", 1.0, "[gauges]", name, problems)
+    angle_tol = _number(gauges, "angle_tol", 2.0, "[gauges]", name, problems)
+    snap_tol = _number(gauges, "snap_tol", position_tol, "[gauges]", name, problems, positive=True)
+    nu0 = _number(gauges, "calibration_poisson", 0.285, "[gauges]", name, problems)
+    grid_points = gauges.get("grid_points", 5)
+    if not isinstance(grid_points, int) or not 1 <= grid_points <= 20:
+        problems.append(f"{name}: [gauges] grid_points = {grid_points!r}; expected a whole number 1 to 20")
+        grid_points = 5
+
+    readings = raw.get("readings", {})
+    readings_file = _path(base, readings.get("file"), "[readings]", name, problems) \
+        if readings else None
+    zero = readings.get("zero", "first")
+    if zero not in ("first", "zero-load", "none"):
+        problems.append(f"{name}: [readings] zero = '{zero}'; expected \"first\", \"zero-load\" or \"none\"")
+    zero_tol = _number(readings, "zero_tol", 0.01, "[readings]", name, problems)
+
+    loads = []
+    case_names = {c.name for c in cases}
+    for i, ld in enumerate(raw.get("load", [])):
+        column, case = ld.get("column"), ld.get("case")
+        ref = _number(ld, "reference", None, f"[[load]] #{i + 1}", name, problems)
+        if not isinstance(column, str) or not isinstance(case, str) or ref is None:
+            problems.append(f"{name}: [[load]] #{i + 1} needs column, case and reference")
+            continue
+        if ref == 0:
+            problems.append(f"{name}: [[load]] '{column}' reference = 0; give the value of {column} "
+                            f"that case '{case}' was solved for")
+            continue
+        if case not in case_names:
+            near = difflib.get_close_matches(case, sorted(case_names), n=1)
+            hint = f"; did you mean '{near[0]}'?" if near else ""
+            problems.append(f"{name}: [[load]] '{column}' names case '{case}', which is not a [[case]] "
+                            f"(cases: {', '.join(sorted(case_names))}){hint}")
+        loads.append(Load(column=column, case=case, reference=ref))
+
+    crit = raw.get("criteria", {})
+    slope = crit.get("slope", [0.90, 1.10])
+    if not (isinstance(slope, list) and len(slope) == 2 and slope[0] < slope[1]):
+        problems.append(f"{name}: [criteria] slope = {slope!r}; expected [low, high]")
+        slope = [0.90, 1.10]
+    criteria = Criteria(
+        relative=_number(crit, "relative", 0.10, "[criteria]", name, problems) or 0.10,
+        absolute_ue=_number(crit, "absolute_ue", 50.0, "[criteria]", name, problems) or 50.0,
+        slope=(float(slope[0]), float(slope[1])),
+        pass_fraction=_number(crit, "pass_fraction", 0.90, "[criteria]", name, problems) or 0.90)
+
+    overrides = []
+    for o in raw.get("override", []):
+        action = o.get("action")
+        if action not in ("keep", "exclude", "reverse"):
+            problems.append(f"{name}: [[override]] for gauge '{o.get('gauge')}' action = {action!r}; "
+                            "expected keep, exclude or reverse")
+            continue
+        if not o.get("reason"):
+            problems.append(f"{name}: [[override]] for gauge '{o.get('gauge')}' needs a reason")
+            continue
+        overrides.append(Override(gauge=str(o.get("gauge")), action=action, reason=str(o["reason"])))
+
+    if problems:
+        raise StudyError(*problems)
+    info = {k: v for k, v in model.items() if k not in ("file", "length_unit", "stress_unit", "plane")}
+    return Study(
+        path=path, title=str(raw.get("title", path.stem)), model_file=model_file,  # type: ignore[arg-type]
+        length_unit=length_unit, stress_unit=model.get("stress_unit"), plane=plane, model_info=info,
+        cases=tuple(cases), materials=tuple(materials), gauges_file=gauges_file,  # type: ignore[arg-type]
+        position_tol=position_tol or 0.0, angle_tol=angle_tol or 0.0,
+        snap_tol=snap_tol or position_tol or 1.0, calibration_poisson=nu0 if nu0 is not None else 0.285,
+        grid_points=grid_points, band=bool(gauges.get("band", True)),
+        test=dict(raw.get("test", {})), readings_file=readings_file, zero=zero,
+        zero_tol=zero_tol if zero_tol is not None else 0.01,
+        sentinels=tuple(readings["sentinels"]) if "sentinels" in readings else None,
+        kt_corrected=bool(readings.get("kt_corrected", False)), loads=tuple(loads),
+        criteria=criteria, overrides=tuple(overrides), health=dict(raw.get("health", {})),
+        report=dict(raw.get("report", {})), raw=raw)
+
+
+def read_study(path: str | Path) -> Study:
+    """Read and validate a study file.
+
+    Raises
+    ------
+    StudyError
+        With one line per problem: syntax (with line number), unknown keys (nearest valid key),
+        missing files and keys.
+    """
+    path = Path(path).resolve()
+    if not path.is_file():
+        raise StudyError(f"study file '{path}' does not exist; give the path to a .toml study")
+    try:
+        text = path.read_text(encoding="utf-8")
+    except UnicodeDecodeError:
+        raise StudyError(f"{path.name}: not UTF-8 text; save the study as UTF-8") from None
+    return parse_study(text, path)

@@ -1,0 +1,256 @@
+"""Model result reader: mesh and field arrays from any file meshio reads.
+
+Stage: input. In: a model file path and the study's cases. Out: :class:`Mesh` (points and the
+supported cell blocks) and, per case, a :class:`Field` in the package's conventions (full symmetric
+strain tensors in m/m with tensor shear, or displacement vectors), at nodes or per cell.
+
+Format notes (see the library notes): ``meshio.read`` exits the process on a file no reader takes,
+so that is caught here; XDMF time series are read with meshio's time-series reader, one step on
+demand; Exodus II is read through VTK's own reader because meshio misorders hex20 nodes there and
+reads only the first time step.
+"""
+
+from __future__ import annotations
+
+import difflib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from correlate.errors import MissingDependencyError, ModelError
+
+SUPPORTED = ("triangle", "triangle6", "quad", "quad8", "quad9", "tetra", "tetra10", "hexahedron",
+             "hexahedron20", "hexahedron27", "wedge")
+SOLID = {"tetra", "tetra10", "hexahedron", "hexahedron20", "hexahedron27", "wedge"}
+SHELL = {"triangle", "triangle6", "quad", "quad8", "quad9"}
+IGNORED = {"vertex", "line", "line3"}  # lower-dimension blocks that mesh writers add for groups
+# meshio names of the same cell types from other readers
+ALIASES = {"tri": "triangle", "tri6": "triangle6", "quad4": "quad", "tet": "tetra", "tet4": "tetra",
+           "tet10": "tetra10", "hex": "hexahedron", "hex8": "hexahedron", "hex20": "hexahedron20",
+           "hex27": "hexahedron27", "wedge6": "wedge"}
+# Exodus II hexahedron20 node k as VTK expects it (meshio issue 1538)
+EXODUS_HEX20 = np.array([0, 1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 16, 17, 18, 19, 12, 13, 14, 15])
+
+
+@dataclass(frozen=True)
+class Mesh:
+    """Points and the supported cell blocks of a model, in file order.
+
+    ``blocks`` holds (meshio cell type, connectivity) pairs; ``block_ids`` the index of each block
+    in the file's own cell list (cell data follows that list); ``family`` is solid, shell or plane.
+    """
+
+    points: NDArray[np.float64]
+    blocks: tuple[tuple[str, NDArray[np.int64]], ...]
+    block_ids: tuple[int, ...]
+    family: str
+    source: str
+
+    @property
+    def n_cells(self) -> int:
+        return sum(len(c) for _, c in self.blocks)
+
+    @property
+    def offsets(self) -> NDArray[np.int64]:
+        """Global id of the first cell of each block (plus the total at the end)."""
+        return np.concatenate([[0], np.cumsum([len(c) for _, c in self.blocks])]).astype(np.int64)
+
+
+@dataclass(frozen=True)
+class Field:
+    """One load case's field: tensors (n, 3, 3) in m/m or displacements (n, 3), at nodes or cells.
+
+    For shells with one array per face, ``values`` maps "top"/"bottom" to arrays.
+    """
+
+    case: str
+    kind: str                 # "strain" (after any stress conversion) or "displacement"
+    location: str             # "point" or "cell"
+    values: NDArray[np.float64] | dict[str, NDArray[np.float64]]
+    source_kind: str          # what the file held: strain, stress or displacement
+    array: str
+    notes: tuple[str, ...] = ()
+
+
+@dataclass
+class ModelSource:
+    """An opened model file: the mesh, and its arrays (one set, or one per time step)."""
+
+    path: Path
+    mesh: Mesh
+    point_data: dict[str, NDArray[np.float64]]
+    cell_data: dict[str, list[NDArray[np.float64]]]
+    times: tuple[float, ...] = ()
+    _reader: Any = None
+    _cache: dict[int, tuple[dict, dict]] = field(default_factory=dict)
+
+    def arrays(self, time_index: int | None) -> tuple[dict[str, Any], dict[str, Any]]:
+        """Point and cell data, of one step for a time series."""
+        if not self.times:
+            if time_index not in (None, 0):
+                raise ModelError(f"{self.path.name}: time_index = {time_index}, but the file holds "
+                                 "a single state; remove time_index or name a time-series file")
+            return self.point_data, self.cell_data
+        if time_index is None:
+            raise ModelError(f"{self.path.name} is a time series of {len(self.times)} steps; give "
+                             "time_index (counted from 0) in the [[case]]")
+        if not 0 <= time_index < len(self.times):
+            raise ModelError(f"{self.path.name}: time_index = {time_index} is out of range; the file "
+                             f"holds steps 0 to {len(self.times) - 1}")
+        if time_index not in self._cache:
+            _, pd_, cd_ = self._reader.read_data(time_index)
+            self._cache = {time_index: (dict(pd_), dict(cd_))}
+        return self._cache[time_index]
+
+
+def _mesh_from(points: NDArray, cells: list[tuple[str, NDArray]], source: str) -> Mesh:
+    points = np.asarray(points, dtype=float)
+    if points.ndim != 2 or len(points) == 0:
+        raise ModelError(f"{source}: the file holds no points; is it a mesh result?")
+    if points.shape[1] == 2:
+        points = np.c_[points, np.zeros(len(points))]
+    blocks, ids, unknown, seen_types = [], [], set(), set()
+    for i, (ctype, conn) in enumerate(cells):
+        ctype = ALIASES.get(ctype, ctype)
+        seen_types.add(ctype)
+        if ctype in SUPPORTED:
+            blocks.append((ctype, np.asarray(conn, dtype=np.int64)))
+            ids.append(i)
+        elif ctype not in IGNORED:
+            unknown.add(ctype)
+    if unknown:
+        raise ModelError(f"{source}: cell type(s) {', '.join(sorted(unknown))} are not supported; "
+                         f"supported: {', '.join(SUPPORTED)}")
+    if not blocks:
+        if seen_types & {"line", "line3"}:
+            raise ModelError(f"{source}: only line cells found; beam and truss models are out of "
+                             "scope (a gauge needs a surface): give a shell or solid model")
+        raise ModelError(f"{source}: no cells found; is it a mesh result?")
+    solid = [b for b in blocks if b[0] in SOLID]
+    if solid:
+        keep = [k for k, b in enumerate(blocks) if b[0] in SOLID]
+        blocks = [blocks[k] for k in keep]
+        ids = [ids[k] for k in keep]
+        family = "solid"
+    else:
+        family = "plane" if np.allclose(points[:, 2], 0.0) else "shell"
+    for ctype, conn in blocks:
+        if conn.size and (conn.min() < 0 or conn.max() >= len(points)):
+            raise ModelError(f"{source}: {ctype} cells refer to points that do not exist; the file "
+                             "is damaged or truncated")
+    return Mesh(points=points, blocks=tuple(blocks), block_ids=tuple(ids), family=family,
+                source=source)
+
+
+def _meshio_read(path: Path) -> Any:
+    import meshio
+
+    try:
+        return meshio.read(path)
+    except SystemExit:
+        # meshio exits the process when no reader accepts the file
+        raise ModelError(f"{path.name}: no reader recognises this file; give a format meshio reads "
+                         "(.vtu, .vtk, .xdmf, .msh, .med, .exo, ...)") from None
+    except (ValueError, KeyError, IndexError, OSError, EOFError, RuntimeError, TypeError,
+            AttributeError, AssertionError, UnicodeDecodeError) as exc:
+        raise ModelError(f"{path.name}: cannot be read ({type(exc).__name__}: {exc}); the file may "
+                         "be truncated or of another format than its suffix says") from None
+    except Exception as exc:  # noqa: BLE001 - readers of many formats raise many things
+        if type(exc).__name__ == "ReadError":
+            raise ModelError(f"{path.name}: cannot be read ({exc})") from None
+        raise
+
+
+def _open_series(path: Path) -> ModelSource | None:
+    import meshio
+
+    try:
+        reader = meshio.xdmf.TimeSeriesReader(str(path))
+        points, cells = reader.read_points_cells()
+        n = reader.num_steps
+    except Exception:  # noqa: BLE001 - not a time series: the plain reader decides
+        return None
+    if n == 0:
+        return None
+    times = []
+    for k in range(n):
+        t, _, _ = reader.read_data(k) if k == 0 else (None, None, None)
+        times.append(float(t) if t is not None else float(k))
+    cell_list = [(c.type, c.data) for c in cells]
+    mesh = _mesh_from(points, cell_list, path.name)
+    return ModelSource(path=path, mesh=mesh, point_data={}, cell_data={}, times=tuple(times),
+                       _reader=reader)
+
+
+def _open_exodus(path: Path) -> ModelSource:
+    try:
+        import netCDF4  # noqa: F401  - meshio needs it for Exodus; its absence says what to install
+    except ImportError:
+        raise MissingDependencyError(f"{path.name}: reading Exodus II needs netCDF4; "
+                                     "pip install netCDF4") from None
+    m = _meshio_read(path)
+    cells = []
+    for c in m.cells:
+        data = c.data
+        if c.type == "hexahedron20":
+            data = data[:, EXODUS_HEX20]
+        cells.append((c.type, data))
+    mesh = _mesh_from(m.points, cells, path.name)
+    return ModelSource(path=path, mesh=mesh, point_data=dict(m.point_data),
+                       cell_data={k: list(v) for k, v in m.cell_data.items()})
+
+
+def open_model(path: str | Path) -> ModelSource:
+    """Open a model result file; a time-series XDMF is read one step at a time."""
+    path = Path(path)
+    if not path.is_file():
+        raise ModelError(f"model file '{path}' does not exist")
+    if path.stat().st_size == 0:
+        raise ModelError(f"{path.name}: the file is empty")
+    suffix = path.suffix.lower()
+    if suffix in (".xdmf", ".xmf"):
+        series = _open_series(path)
+        if series is not None and len(series.times) > 1:
+            return series
+    if suffix in (".exo", ".e", ".ex2", ".exii"):
+        return _open_exodus(path)
+    m = _meshio_read(path)
+    mesh = _mesh_from(m.points, [(c.type, c.data) for c in m.cells], path.name)
+    return ModelSource(path=path, mesh=mesh, point_data=dict(m.point_data),
+                       cell_data={k: list(v) for k, v in m.cell_data.items()})
+
+
+def from_meshio(mesh: Any, name: str = "mesh") -> ModelSource:
+    """Wrap a ``meshio.Mesh`` (or anything with points, cells, point_data, cell_data)."""
+    cells = [(c.type, c.data) for c in mesh.cells]
+    m = _mesh_from(mesh.points, cells, name)
+    return ModelSource(path=Path(name), mesh=m, point_data=dict(mesh.point_data),
+                       cell_data={k: list(v) for k, v in mesh.cell_data.items()})
+
+
+def _available(point_data: dict, cell_data: dict) -> str:
+    names = [f"{k} (point, {np.asarray(v).shape[1] if np.asarray(v).ndim > 1 else 1})"
+             for k, v in point_data.items()]
+    names += [f"{k} (cell)" for k in cell_data]
+    return ", ".join(names) if names else "none"
+
+
+def find_array(source: ModelSource, name: str, time_index: int | None, *,
+               case: str) -> tuple[str, NDArray[np.float64]]:
+    """Return ("point" | "cell", values) for an array name; cell data joined over kept blocks."""
+    point_data, cell_data = source.arrays(time_index)
+    if name in point_data:
+        values = np.asarray(point_data[name], dtype=float)
+        return "point", values.reshape(len(values), -1)
+    if name in cell_data:
+        blocks = cell_data[name]
+        parts = [np.asarray(blocks[i], dtype=float) for i in source.mesh.block_ids]
+        values = np.concatenate([p.reshape(len(p), -1) for p in parts])
+        return "cell", values
+    near = difflib.get_close_matches(name, list(point_data) + list(cell_data), n=1)
+    hint = f"; did you mean '{near[0]}'?" if near else ""
+    raise ModelError(f"{source.path.name}: case '{case}' names array '{name}', which is not in the "
+                     f"file; arrays found: {_available(point_data, cell_data)}{hint}")

@@ -1,0 +1,366 @@
+"""Readings input: strain-gauge readings per load step from a data-acquisition CSV export.
+
+Input: a "wide" CSV file with one row per load step: a ``step`` column, the load columns named by the
+caller, one column per gauge channel in microstrain, an optional ``sequence`` column (repeated load
+runs), an optional units row under the header, and any other columns, which are ignored and listed.
+Output: :class:`Readings`, a table with columns step, sequence, the loads and one column per gauge id
+(microstrain), plus a record of every cell read as a sentinel of an open or overranged channel.
+"""
+
+from __future__ import annotations
+
+import csv
+import difflib
+import importlib.util
+import io
+import math
+import warnings
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from os import PathLike
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from numpy.typing import NDArray
+
+from correlate.errors import CorrelateWarning, ReadingsFormatError
+
+# Values a data-acquisition system writes for an open, overranged or unread channel (common
+# practice; 9.9e37 and 9.91e37 are the overload and not-a-number codes of SCPI instruments, from
+# memory). Text matches case-insensitively. Also always sentinels: any spelling of NaN or infinity
+# (never a reading) and a cell made only of '#' (a spreadsheet column too narrow for its number).
+DEFAULT_SENTINELS: tuple[float | str, ...] = (
+    -999999.0, 999999.0, -99999.0, 99999.0, 1e30, -1e30, 9.9e37, 9.91e37,
+    "OVER", "OVR", "OVERRANGE", "OVERLOAD", "UNDER", "UNDR", "OPEN", "ERR", "ERROR",
+    "NaN", "N/A", "#N/A", "####",
+)
+# Spellings of microstrain accepted in the units row: case-insensitive, spaces and enclosing
+# brackets removed; the micro sign and the Greek mu are one letter after case folding.
+MICROSTRAIN_UNITS: tuple[str, ...] = (
+    "µε", "με", "µe", "ue", "uE", "um/m", "µm/m", "μm/m", "microstrain", "micro-strain",
+    "ustrain", "µstrain", "μstrain",
+)
+STEP, SEQUENCE = "step", "sequence"
+STRAIN_LIMIT = 0.05  # all |readings| below this while loads vary: the file holds strain, not µε
+_PYARROW_MIN_BYTES = 1 << 18  # measured: below ~250 kB the C engine is faster than pyarrow
+_MAX_PROBLEMS = 20
+_FLAG_COLUMNS = ("gauge", "step", "sequence", "value", "reason")
+
+
+def _unit_key(unit: str) -> str:
+    return "".join(unit.split()).strip("[](){}").casefold()
+
+
+_MICROSTRAIN_KEYS = frozenset(_unit_key(u) for u in MICROSTRAIN_UNITS)
+
+
+@dataclass(frozen=True, eq=False)  # eq=False: comparing DataFrames field by field is ambiguous
+class Readings:
+    """Gauge readings per load step, in microstrain.
+
+    Attributes
+    ----------
+    table : pandas.DataFrame
+        Columns ``step`` (int), ``sequence`` (int, 0 when the file has none), the load columns
+        (float), then one float column per gauge id [µε]. Missing readings are NaN.
+    loads, gauges : tuple of str
+        Load column names and gauge ids, in table order.
+    load_units : dict of str to str
+        Unit of each load column from the units row, ``""`` when none is given.
+    ignored : tuple of str
+        Columns of the file that were not used.
+    flags : pandas.DataFrame
+        One row per sentinel cell read as NaN: ``gauge`` (gauge id, or load column name), ``step``,
+        ``sequence``, ``value`` (the cell text) and ``reason``.
+    lines : ndarray of int, shape (n,)
+        1-based line of the file that holds each table row.
+    path : str
+        The file read.
+    """
+
+    table: pd.DataFrame
+    loads: tuple[str, ...]
+    gauges: tuple[str, ...]
+    load_units: dict[str, str]
+    ignored: tuple[str, ...]
+    flags: pd.DataFrame
+    lines: NDArray[np.int64]
+    path: str
+
+
+def read_readings(path: str | PathLike[str], *, gauges: Mapping[str, str], loads: Sequence[str],
+                  sentinels: Sequence[float | str] | None = None) -> Readings:
+    """Read a wide CSV of gauge readings per load step.
+
+    Parameters
+    ----------
+    path : str or path-like
+        CSV file, comma- or semicolon-separated (semicolon files may use decimal commas), UTF-8
+        with or without BOM, or latin-1. The file is only read.
+    gauges : mapping of str to str
+        Gauge id -> name of its channel column in the file. [µε]
+    loads : sequence of str
+        Names of the load columns.
+    sentinels : sequence of float or str, optional
+        Cell values meaning "no reading"; they become NaN and are recorded in ``flags``. Default
+        :data:`DEFAULT_SENTINELS`.
+
+    Returns
+    -------
+    Readings
+
+    Raises
+    ------
+    ReadingsFormatError
+        With one line per problem found: undecodable or ragged file, missing or duplicate column,
+        unit not microstrain, cell that is not a number, step not an integer, repeated step.
+
+    Warns
+    -----
+    CorrelateWarning
+        When every reading is below :data:`STRAIN_LIMIT` in magnitude while the loads vary.
+    """
+    name = Path(path).name
+    loads = (loads,) if isinstance(loads, str) else tuple(str(x) for x in loads)
+    gauge_map = {str(g): str(c) for g, c in gauges.items()}
+    codes = _sentinel_sets(DEFAULT_SENTINELS if sentinels is None else sentinels)
+    try:
+        raw = Path(path).read_bytes()
+    except OSError as exc:
+        raise ReadingsFormatError(f"{name}: cannot read the file ({exc.strerror}); check the path") from None
+    rows = _text_lines(_decode(raw, name))
+    if not rows:
+        raise ReadingsFormatError(f"{name}: the file is empty; expected a header row with a 'step' column")
+    text = rows[0][1]
+    sep = max((";", "\t", ","), key=text.count) if any(s in text for s in ";\t,") else ","
+    decimal_comma = sep != ","  # a comma inside a number can only be a decimal comma there
+    header = [h.strip() for h in _fields(text, sep, name, rows[0][0])]
+    rows = [(k, t) for k, t in rows[1:] if t.strip(sep + " \t")]  # rows of empty cells are blank
+    columns, problems = _columns(header, gauge_map, loads, name)
+    widths = [len(_fields(t, sep, name, k)) for k, t in rows]
+    hint = ("check for a stray separator" if decimal_comma else "decimal commas in a comma-separated "
+            "file make the columns ambiguous; export with semicolons as separators or with decimal points")
+    problems += [f"{name} line {k}: {n} fields but the header has {len(header)}; {hint}"
+                 for (k, _), n in zip(rows, widths, strict=True) if n > len(header)]
+    _raise(problems, name)
+    load_units = dict.fromkeys(loads, "")
+    first = _fields(rows[0][1], sep, name, rows[0][0]) + [""] * len(header) if rows else []
+    if first and all(_number(first[j], decimal_comma) is None for j in columns.values() if j != columns.get(SEQUENCE)):
+        _check_units(first, header, [columns[g] for g in gauge_map], rows[0][0], name)
+        load_units = {ld: first[columns[ld]].strip() for ld in loads}
+        rows, widths = rows[1:], widths[1:]
+    if not rows:
+        raise ReadingsFormatError(f"{name}: no data rows under the header; expected one row per load step")
+    lines = np.array([k for k, _ in rows], dtype=np.int64)
+    used = sorted(set(columns.values()))
+    # pad short rows with empty cells: pandas' C engine with usecols and pyarrow refuse ragged rows
+    text = "\n".join(t + sep * (len(header) - n) for (_, t), n in zip(rows, widths, strict=True))
+    cells = _read_cells(text, sep, used, len(raw), name)
+    labels = [(ld, columns[ld]) for ld in loads] + [(g, columns[g]) for g in gauge_map]
+    table, flags = _convert(cells, header, columns, labels, lines, decimal_comma, codes, name)
+    _warn_if_strain(table, loads, tuple(gauge_map), name)
+    ignored = tuple(h or f"(column {j + 1})" for j, h in enumerate(header) if j not in used)
+    return Readings(table=table, loads=loads, gauges=tuple(gauge_map), load_units=load_units,
+                    ignored=ignored, flags=flags, lines=lines, path=str(path))
+
+
+def _check_units(units: list[str], header: list[str], gauge_columns: list[int], line: int, name: str) -> None:
+    """Refuse a units row in which a gauge column has a unit other than microstrain (blank is fine)."""
+    _raise([f"{name} line {line}, column {header[j]}: unit {units[j].strip()!r} is not microstrain; "
+            f"export the channel in µε (accepted: {', '.join(MICROSTRAIN_UNITS)})"
+            for j in gauge_columns if units[j].strip() and _unit_key(units[j]) not in _MICROSTRAIN_KEYS], name)
+
+
+def _convert(cells: pd.DataFrame, header: list[str], columns: dict[str, int], labels: list[tuple[str, int]],
+             lines: NDArray[np.int64], decimal_comma: bool, codes: tuple[NDArray[np.float64], frozenset[str]],
+             name: str) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Turn the text cells into the readings table and the sentinel flags, raising on bad cells."""
+    problems: list[tuple[int, int, str]] = []  # (row, column, message), sorted for the user
+    step = _integers(cells, columns[STEP], header, lines, decimal_comma, name, problems)
+    sequence = (np.zeros(len(lines), np.int64) if SEQUENCE not in columns
+                else _integers(cells, columns[SEQUENCE], header, lines, decimal_comma, name, problems))
+    numeric, words = codes
+    data, flags = {}, []
+    for label, col in labels:
+        values, strings, bad = _parse(cells[col], decimal_comma)
+        for i in np.flatnonzero(bad):
+            word = strings[i].casefold()
+            if word in words or set(word) == {"#"} or _nonfinite(word.replace(",", ".")):
+                flags.append((i, col, label, strings[i]))
+            else:
+                problems.append((i, col, f"{name} line {lines[i]}, column {header[col]}: {strings[i][:40]!r} "
+                                 "is not a number; correct the cell or list the text in sentinels"))
+        hit = np.isin(values, numeric) | np.isinf(values)
+        flags += [(i, col, label, strings[i]) for i in np.flatnonzero(hit)]
+        values[hit] = np.nan
+        data[label] = values
+    _raise([msg for *_, msg in sorted(problems)], name)
+    _check_duplicates(step, sequence, lines, SEQUENCE in columns, name)
+    table = pd.DataFrame({STEP: step, SEQUENCE: sequence, **data})
+    flag_rows = [(label, step[i], sequence[i], text, "sentinel") for i, _, label, text in sorted(flags)]
+    flag_table = pd.DataFrame(flag_rows, columns=list(_FLAG_COLUMNS))
+    return table, flag_table.astype({STEP: "int64", SEQUENCE: "int64"})
+
+
+def _raise(problems: list[str], name: str) -> None:
+    if problems:
+        more = len(problems) - _MAX_PROBLEMS
+        tail = [f"{name}: ... and {more} more problems like these"] if more > 0 else []
+        raise ReadingsFormatError(*problems[:_MAX_PROBLEMS], *tail)
+
+
+def _sentinel_sets(sentinels: Sequence[float | str]) -> tuple[NDArray[np.float64], frozenset[str]]:
+    numeric, text = [], set()
+    for item in sentinels:
+        value = _number(item, False) if isinstance(item, str) else float(item)
+        if value is not None and math.isfinite(value):
+            numeric.append(value)
+        else:
+            text.add(str(item).strip().casefold())
+    return np.array(numeric, dtype=float), frozenset(text)
+
+
+def _decode(raw: bytes, name: str) -> str:
+    if raw[:2] in (b"\xff\xfe", b"\xfe\xff"):
+        try:
+            text = raw.decode("utf-16")
+        except UnicodeDecodeError:
+            raise ReadingsFormatError(f"{name}: broken UTF-16 text; export the readings as UTF-8 CSV") from None
+    else:
+        try:
+            text = raw.decode("utf-8-sig")
+        except UnicodeDecodeError:
+            text = raw.decode("latin-1")  # never fails: every byte is a latin-1 character
+    if "\x00" in text:
+        raise ReadingsFormatError(f"{name}: contains NUL bytes, so it is not a text CSV; export as CSV text")
+    return text.lstrip("\ufeff")
+
+
+def _text_lines(text: str) -> list[tuple[int, str]]:
+    """Return (1-based line number, text) of the non-blank lines; \\r\\n, \\r and \\n all end a line."""
+    lines = text.replace("\r\n", "\n").replace("\r", "\n").split("\n")
+    return [(k + 1, t) for k, t in enumerate(lines) if t.strip()]
+
+
+def _fields(line: str, sep: str, name: str, number: int) -> list[str]:
+    if '"' not in line:
+        return line.split(sep)
+    if line.count('"') % 2:  # a quoted cell running over the line end
+        raise ReadingsFormatError(f"{name} line {number}: unbalanced quote character; remove it or close the quote")
+    try:
+        return next(csv.reader([line], delimiter=sep), [""])
+    except csv.Error as exc:
+        raise ReadingsFormatError(f"{name} line {number}: cannot split the row ({exc})") from None
+
+
+def _columns(header: list[str], gauges: dict[str, str], loads: tuple[str, ...],
+             name: str) -> tuple[dict[str, int], list[str]]:
+    """Map step, sequence, each load and each gauge id to a column index, listing every problem."""
+    problems, columns = [], {}
+    have = ", ".join(h for h in header if h)
+    wanted = [(STEP, STEP, "the load step number"), (SEQUENCE, SEQUENCE, None)]
+    wanted += [(ld, ld, f"load {ld!r}") for ld in loads] + [(g, c, f"gauge {g!r}") for g, c in gauges.items()]
+    for key, column, role in wanted:
+        fold = key in (STEP, SEQUENCE) and key == column
+        found = [j for j, h in enumerate(header) if (h.casefold() == column if fold else h == column)]
+        if len(found) == 1:
+            columns[key] = found[0]
+        elif found:
+            problems.append(f"{name}: column {column!r} appears {len(found)} times in the header "
+                            f"(columns {', '.join(str(j + 1) for j in found)}); rename the extra ones")
+        elif role is not None:
+            close = difflib.get_close_matches(column, [h for h in header if h], n=1)
+            hint = f"closest name: {close[0]!r}" if close else "no similar name"
+            problems.append(f"{name}: no column {column!r} for {role}; {hint}; the file has columns: {have}")
+    names = [STEP, SEQUENCE, *loads, *gauges]
+    for key in sorted({k for k in names if names.count(k) > 1}):
+        problems.append(f"{name}: {key!r} names two of step, sequence, the loads and the gauge ids; "
+                        "give each load and gauge its own name")
+    taken = [columns.get(k) for k in (STEP, SEQUENCE, *loads) if k in columns]
+    for g in gauges:
+        if columns.get(g) in taken:
+            problems.append(f"{name}: gauge {g!r} reads column {gauges[g]!r}, which is also the step, "
+                            "sequence or a load column; map the gauge to its own channel")
+    if not gauges:
+        problems.append(f"{name}: no gauges requested; map at least one gauge id to a channel column")
+    return columns, problems
+
+
+def _read_cells(text: str, sep: str, used: list[int], size: int, name: str) -> pd.DataFrame:
+    """Read the data rows (all as wide as the header) as text, one column per used file column."""
+    engine = "pyarrow" if size >= _PYARROW_MIN_BYTES and _pyarrow_available() else "c"
+    options = dict(sep=sep, header=None, usecols=used, dtype=str, keep_default_na=False, engine=engine)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", pd.errors.ParserWarning)
+        try:
+            cells = pd.read_csv(io.StringIO(text), **options)
+        except (ValueError, pd.errors.ParserWarning) as exc:
+            raise ReadingsFormatError(f"{name}: cannot split the rows into columns ({str(exc)[:120]})") from None
+    if len(cells) != text.count("\n") + 1 or cells.shape[1] != len(used):
+        raise ReadingsFormatError(f"{name}: rows and lines do not match (a quoted cell spanning lines?); "
+                                  "export one row per line")
+    cells.columns = used
+    return cells
+
+
+def _pyarrow_available() -> bool:
+    return importlib.util.find_spec("pyarrow") is not None
+
+
+def _number(cell: object, comma: bool) -> float | None:
+    text = str(cell).strip()
+    try:
+        return float(text.replace(",", ".") if comma else text)
+    except ValueError:
+        return None
+
+
+def _nonfinite(text: str) -> bool:
+    value = _number(text, False)
+    return value is not None and not math.isfinite(value)
+
+
+def _parse(cells: pd.Series, decimal_comma: bool) -> tuple[NDArray[np.float64], list[str], NDArray[np.bool_]]:
+    """Return values (NaN where blank or not a number), stripped texts and a not-a-number mask."""
+    strings = cells.fillna("").astype(str).str.strip()
+    clean = strings.str.replace(",", ".", regex=False) if decimal_comma else strings
+    values = pd.to_numeric(clean, errors="coerce").to_numpy(dtype=float, na_value=np.nan, copy=True)
+    return values, strings.tolist(), np.isnan(values) & (strings != "").to_numpy(dtype=bool)
+
+
+def _integers(cells: pd.DataFrame, col: int, header: list[str], lines: NDArray[np.int64], decimal_comma: bool,
+              name: str, problems: list[tuple[int, int, str]]) -> NDArray[np.int64]:
+    values, strings, _ = _parse(cells[col], decimal_comma)
+    good = np.isfinite(values) & (np.abs(values) < 2.0**53)  # exact integers in a double
+    good[good] = values[good] == np.round(values[good])
+    for i in np.flatnonzero(~good):
+        found = f"{strings[i][:40]!r} is not an integer" if strings[i] else "blank"
+        problems.append((i, col, f"{name} line {lines[i]}, column {header[col]}: {found}; "
+                         f"give every row an integer {header[col]}"))
+    return np.where(good, values, 0).astype(np.int64)
+
+
+def _check_duplicates(step: NDArray[np.int64], sequence: NDArray[np.int64], lines: NDArray[np.int64],
+                      has_sequence: bool, name: str) -> None:
+    keys = pd.DataFrame({SEQUENCE: sequence, STEP: step, "line": lines})
+    repeated = keys[keys.duplicated([SEQUENCE, STEP], keep=False)]
+    problems = []
+    for (seq, stp), group in repeated.groupby([SEQUENCE, STEP], sort=True):
+        where = f" in sequence {seq}" if has_sequence else ""
+        problems.append(f"{name}: step {stp}{where} appears {len(group)} times (lines "
+                        f"{', '.join(map(str, group['line']))}); give each load step one row, and "
+                        "number repeated load runs in a 'sequence' column")
+    _raise(problems, name)
+
+
+def _warn_if_strain(table: pd.DataFrame, loads: tuple[str, ...], gauges: tuple[str, ...], name: str) -> None:
+    readings = table[list(gauges)].to_numpy(dtype=float)
+    readings = np.abs(readings[np.isfinite(readings)])
+    spans = [np.ptp(v[np.isfinite(v)]) for v in (table[ld].to_numpy(dtype=float) for ld in loads)
+             if np.isfinite(v).any()]
+    if readings.size and readings.max() < STRAIN_LIMIT and any(s > 0 for s in spans):
+        msg = (f"{name}: every gauge reading is below {STRAIN_LIMIT} in magnitude (largest |value| "
+               f"{readings.max():.3g}) while the loads vary; the channels look like strain, not "
+               "microstrain: export in µε or multiply by 1e6")
+        warnings.warn(msg, CorrelateWarning, stacklevel=3)

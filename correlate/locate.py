@@ -1,0 +1,283 @@
+"""Locate: put gauge points on the model surface (or inside it) and find their cells.
+
+Stage: location. In: a :class:`~correlate.io.model.Mesh` and points. Out: for every point, the
+surface face it lies on, the closest point on that (possibly curved) face, the outward normal there,
+the cell that owns the face and the natural coordinates in that cell.
+
+A solid's boundary is the set of cell faces used by one cell only. VTK's static cell locator on the
+faces' corner triangles finds a first candidate; the face and its neighbours are then projected on
+exactly with the face's own shape functions (elements.closest_point_on_face), so curved quadratic
+faces are handled and a point near an edge lands on the face it is really closest to. Normals are the
+faces' own (split at every edge), never averaged across an edge.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import NDArray
+from scipy import sparse
+
+from correlate import elements
+from correlate.errors import GaugeError
+from correlate.io.model import Mesh
+
+LINEAR_FACE = {"triangle": "triangle", "triangle6": "triangle", "quad": "quad", "quad8": "quad",
+               "quad9": "quad"}
+
+
+@dataclass(frozen=True)
+class Surface:
+    """Boundary faces of a mesh, grouped by face type, with their owning cells.
+
+    ``conn[f]``, ``ftype[f]``: nodes and type name of face f; ``parent[f]``: global cell id;
+    ``local[f]``: face number within the parent (-1 when the face is the cell itself, shells);
+    ``sign[f]``: +1 or -1 so that sign times the right-hand-rule normal points out of the parent.
+    """
+
+    types: tuple[str, ...]
+    type_of: NDArray[np.int64]
+    conn: tuple[NDArray[np.int64], ...]   # per face: node ids (object-free: one array per type)
+    row: NDArray[np.int64]                # face f is row row[f] of conn[type_of[f]]
+    parent: NDArray[np.int64]
+    local: NDArray[np.int64]
+    sign: NDArray[np.float64]
+    node_faces: sparse.csr_matrix         # node x face incidence (corners only)
+    corner_conn: NDArray[np.int64]        # (F, 4) corners, -1 padded, for the locator
+    scale: float                          # model size, for relative tolerances
+
+    @property
+    def n_faces(self) -> int:
+        return len(self.parent)
+
+
+def _cell_centres(mesh: Mesh) -> NDArray[np.float64]:
+    return np.concatenate([mesh.points[conn].mean(axis=1) for _, conn in mesh.blocks])
+
+
+def build_surface(mesh: Mesh) -> Surface:
+    """Collect the boundary faces of a solid, or the cells of a shell or plane model."""
+    offsets = mesh.offsets
+    groups: dict[str, list[tuple[NDArray, NDArray, NDArray]]] = {}
+    if mesh.family == "solid":
+        keys, owners = [], []
+        for b, (ctype, conn) in enumerate(mesh.blocks):
+            for k, (ftype, ids) in enumerate(elements.ELEMENTS[ctype].faces):
+                fconn = conn[:, list(ids)]
+                n_corner = 3 if ftype.startswith("triangle") else 4
+                corners = np.sort(fconn[:, :n_corner], axis=1)
+                key = np.full((len(conn), 4), -1, dtype=np.int64)
+                key[:, :n_corner] = corners
+                keys.append(key)
+                owners.append((ftype, fconn, offsets[b] + np.arange(len(conn)), np.full(len(conn), k)))
+        allkeys = np.concatenate(keys)
+        _, inverse, counts = np.unique(allkeys, axis=0, return_inverse=True, return_counts=True)
+        once = counts[inverse.ravel()] == 1
+        start = 0
+        for ftype, fconn, par, loc in owners:
+            sel = once[start:start + len(fconn)]
+            start += len(fconn)
+            if sel.any():
+                groups.setdefault(ftype, []).append((fconn[sel], par[sel], loc[sel]))
+    else:
+        for b, (ctype, conn) in enumerate(mesh.blocks):
+            groups.setdefault(ctype, []).append(
+                (conn, offsets[b] + np.arange(len(conn)), np.full(len(conn), -1)))
+    types = tuple(groups)
+    conns, type_of, rows, parents, locals_ = [], [], [], [], []
+    for t, ftype in enumerate(types):
+        c = np.concatenate([g[0] for g in groups[ftype]])
+        conns.append(c)
+        type_of.append(np.full(len(c), t))
+        rows.append(np.arange(len(c)))
+        parents.append(np.concatenate([g[1] for g in groups[ftype]]))
+        locals_.append(np.concatenate([g[2] for g in groups[ftype]]))
+    type_of_a = np.concatenate(type_of)
+    row = np.concatenate(rows)
+    parent = np.concatenate(parents)
+    local = np.concatenate(locals_)
+    n_faces = len(parent)
+    corner = np.full((n_faces, 4), -1, dtype=np.int64)
+    sign = np.ones(n_faces)
+    pts = mesh.points
+    if mesh.family == "solid":
+        centres = _cell_centres(mesh)
+    for t, ftype in enumerate(types):
+        sel = type_of_a == t
+        c = conns[t]
+        nc = elements.ELEMENTS[ftype].n_corners
+        corner[sel, :nc] = c[:, :nc]
+        if mesh.family == "solid":
+            xi = np.tile(elements.ELEMENTS[ftype].reference_nodes[:nc].mean(axis=0), (len(c), 1))
+            normal = elements.face_normals(ftype, pts[c], xi)
+            centre = elements.map_to_physical(ftype, pts[c], xi)
+            outward = np.einsum("ij,ij->i", normal, centre - centres[parent[sel]])
+            sign[sel] = np.where(outward < 0, -1.0, 1.0)
+    face_ids = np.repeat(np.arange(n_faces), 4)
+    nodes = corner.ravel()
+    ok = nodes >= 0
+    node_faces = sparse.csr_matrix((np.ones(ok.sum()), (nodes[ok], face_ids[ok])),
+                                   shape=(len(pts), n_faces))
+    span = pts.max(axis=0) - pts.min(axis=0)
+    return Surface(types=types, type_of=type_of_a, conn=tuple(conns), row=row, parent=parent,
+                   local=local, sign=sign, node_faces=node_faces, corner_conn=corner,
+                   scale=float(np.linalg.norm(span)) or 1.0)
+
+
+@dataclass(frozen=True)
+class SurfacePoints:
+    """Points projected onto the surface, one entry per query point."""
+
+    face: NDArray[np.int64]
+    xi: NDArray[np.float64]          # (n, 2) natural coordinates on the face
+    point: NDArray[np.float64]       # (n, 3) closest point on the face
+    distance: NDArray[np.float64]    # (n,) distance from the query point
+    normal: NDArray[np.float64]      # (n, 3) outward unit normal of the face there
+    cell: NDArray[np.int64]          # (n,) global id of the owning cell
+
+
+class Locator:
+    """Closest points on a surface: VTK finds a candidate facet, our projection makes it exact."""
+
+    def __init__(self, mesh: Mesh, surface: Surface) -> None:
+        import pyvista as pv
+        import vtk
+
+        self.mesh, self.surface = mesh, surface
+        corner = surface.corner_conn
+        n_corner = (corner >= 0).sum(axis=1)
+        # VTK cell array [n, ids...] per face, without a Python loop: drop the -1 padding
+        flat = np.c_[n_corner, corner]
+        cells = flat[flat >= 0]
+        poly = pv.PolyData(mesh.points, faces=cells)
+        self._loc = vtk.vtkStaticCellLocator()
+        self._loc.SetDataSet(poly)
+        self._loc.BuildLocator()
+        self._poly = poly
+
+    def candidates(self, points: NDArray[np.float64]) -> NDArray[np.int64]:
+        """Nearest facet of each point by VTK's locator."""
+        import vtk
+
+        out = np.empty(len(points), dtype=np.int64)
+        closest = [0.0, 0.0, 0.0]
+        cid, sub, d2 = vtk.reference(0), vtk.reference(0), vtk.reference(0.0)
+        for i, p in enumerate(points):
+            self._loc.FindClosestPoint(p, closest, cid, sub, d2)
+            out[i] = int(cid)
+        return out
+
+    def project(self, points: NDArray[np.float64], *,
+                prefer: NDArray[np.float64] | None = None) -> SurfacePoints:
+        """Project points onto the surface exactly, choosing among the candidate's neighbours.
+
+        Parameters
+        ----------
+        points : ndarray, shape (n, 3)
+        prefer : ndarray, shape (n, 3), optional
+            A normal per point (NaN rows: none). Where several faces are equally close (an edge),
+            the face whose normal is nearest to it wins.
+        """
+        points = np.asarray(points, dtype=float)
+        surf = self.surface
+        first = self.candidates(points)
+        # candidate faces: every face sharing a corner node with the first candidate
+        corner = surf.corner_conn[first]
+        q_idx, f_idx = [], []
+        nf = surf.node_faces
+        for k in range(4):
+            nodes = corner[:, k]
+            has = nodes >= 0
+            sub = nf[nodes[has]]
+            counts = np.diff(sub.indptr)
+            q_idx.append(np.repeat(np.flatnonzero(has), counts))
+            f_idx.append(sub.indices)
+        pairs = np.unique(np.c_[np.concatenate(q_idx), np.concatenate(f_idx)], axis=0)
+        q, f = pairs[:, 0], pairs[:, 1]
+        xi = np.zeros((len(q), 2))
+        x = np.zeros((len(q), 3))
+        dist = np.zeros(len(q))
+        normal = np.zeros((len(q), 3))
+        for t, ftype in enumerate(surf.types):
+            sel = surf.type_of[f] == t
+            if not sel.any():
+                continue
+            nodes = self.mesh.points[surf.conn[t][surf.row[f[sel]]]]
+            xi[sel], x[sel], dist[sel] = elements.closest_point_on_face(ftype, nodes, points[q[sel]])
+            normal[sel] = elements.face_normals(ftype, nodes, xi[sel]) * surf.sign[f[sel], None]
+        # choose per point: smallest distance; near-ties (an edge) by the preferred normal
+        tol = 1e-9 * surf.scale
+        best = np.full(len(points), np.inf)
+        np.minimum.at(best, q, dist)
+        score = np.where(dist <= best[q] + tol, 0.0, np.inf)
+        if prefer is not None:
+            pref = prefer[q]
+            use = ~np.isnan(pref).any(axis=1)
+            score[use] = score[use] - np.einsum("ij,ij->i", normal[use], pref[use])
+        order = np.lexsort((f, score, q))  # ties: lowest face id, so the result is reproducible
+        q_sorted = q[order]
+        firsts = order[np.r_[True, q_sorted[1:] != q_sorted[:-1]]]
+        return SurfacePoints(face=f[firsts], xi=xi[firsts], point=x[firsts], distance=dist[firsts],
+                             normal=normal[firsts], cell=surf.parent[f[firsts]])
+
+
+def parent_coordinates(mesh: Mesh, surface: Surface, sp: SurfacePoints) -> NDArray[np.float64]:
+    """Natural coordinates of surface points in their owning cells (2 columns for shells)."""
+    if mesh.family != "solid":
+        return sp.xi
+    out = np.zeros((len(sp.face), 3))
+    ftypes = np.asarray(surface.types)[surface.type_of[sp.face]]
+    ctypes = cell_types(mesh)[sp.cell]
+    for ctype in np.unique(ctypes):
+        for k in np.unique(surface.local[sp.face][ctypes == ctype]):
+            sel = (ctypes == ctype) & (surface.local[sp.face] == k)
+            out[sel] = elements.face_to_parent(str(ctype), int(k), sp.xi[sel])
+    del ftypes
+    return out
+
+
+def cell_types(mesh: Mesh) -> NDArray[np.str_]:
+    """Type name of every cell, by global id."""
+    return np.concatenate([np.full(len(conn), ctype) for ctype, conn in mesh.blocks])
+
+
+def cell_nodes(mesh: Mesh, cells: NDArray[np.int64]) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
+    """Block index and local row of global cell ids."""
+    offsets = mesh.offsets
+    block = np.searchsorted(offsets, cells, side="right") - 1
+    return block, cells - offsets[block]
+
+
+def locate_inside(mesh: Mesh, points: NDArray[np.float64], names: list[str],
+                  ) -> tuple[NDArray[np.int64], NDArray[np.float64]]:
+    """Cells and natural coordinates of interior points (embedded gauges).
+
+    Raises
+    ------
+    GaugeError
+        Naming each point that no cell contains.
+    """
+    import pyvista as pv
+
+    grid = pv.from_meshio(_as_meshio(mesh))
+    ids = grid.find_containing_cell(points)
+    ids = np.atleast_1d(ids)
+    bad = [names[i] for i in np.flatnonzero(ids < 0)]
+    if bad:
+        raise GaugeError(*[f"embedded gauge '{n}' is not inside any element; check its coordinates "
+                           "or mount it on the surface" for n in bad])
+    xi = np.zeros((len(points), 3))
+    types = cell_types(mesh)[ids]
+    block, row = cell_nodes(mesh, ids)
+    for ctype in np.unique(types):
+        sel = types == ctype
+        conn = np.stack([mesh.blocks[b][1][r] for b, r in zip(block[sel], row[sel], strict=True)])
+        xi[sel], _ = elements.natural_coordinates(str(ctype), mesh.points[conn], points[sel])
+    return ids, xi
+
+
+def _as_meshio(mesh: Mesh):  # noqa: ANN202 - meshio is imported lazily
+    import meshio
+
+    return meshio.Mesh(mesh.points, [(t, c) for t, c in mesh.blocks])

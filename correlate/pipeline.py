@@ -1,0 +1,235 @@
+"""Pipeline: wire the stages for `check`, `predict` and `run`. No maths here.
+
+In: a :class:`~correlate.config.Study`. Out: tables and records that the command line writes.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from numpy.typing import NDArray
+
+from correlate import progress
+from correlate.config import Case, Study
+from correlate.errors import CorrelateError, ModelError
+from correlate.fields import read_field
+from correlate.io.gauges import read_gauges
+from correlate.io.model import ModelSource, open_model
+from correlate.predict import GaugeOperator, build_operator, centre_strain, evaluate_rows
+from correlate.units import MICROSTRAIN
+
+
+@dataclass
+class Model:
+    """The opened model files of a study and its gauge operator."""
+
+    study: Study
+    sources: dict[Path, ModelSource]
+    gauges: pd.DataFrame
+    operator: GaugeOperator
+    warnings: list[str] = field(default_factory=list)
+
+    def source(self, case: Case) -> ModelSource:
+        return self.sources[case.file or self.study.model_file]
+
+
+def open_sources(study: Study) -> dict[Path, ModelSource]:
+    """Open the model file and any per-case files; they must share one mesh."""
+    sources: dict[Path, ModelSource] = {}
+    for path in [study.model_file] + [c.file for c in study.cases if c.file is not None]:
+        if path not in sources:
+            sources[path] = open_model(path)
+    main = sources[study.model_file].mesh
+    for path, src in sources.items():
+        if len(src.mesh.points) != len(main.points) or src.mesh.n_cells != main.n_cells:
+            raise ModelError(f"{path.name}: its mesh ({len(src.mesh.points)} points, "
+                             f"{src.mesh.n_cells} cells) differs from {study.model_file.name} "
+                             f"({len(main.points)} points, {main.n_cells} cells); every case must "
+                             "be on the same mesh")
+    return sources
+
+
+def prepare(study: Study) -> Model:
+    """Read the gauge map and the model, locate every gauge, build the operator."""
+    with progress.step("reading the model"):
+        sources = open_sources(study)
+    gauges = read_gauges(study.gauges_file)
+    mesh = sources[study.model_file].mesh
+    if mesh.family == "plane" and study.plane is None:
+        raise ModelError(f"{study.model_file.name} is a 2D plane model (all z = 0); say "
+                         "[model] plane = \"stress\" or \"strain\" in the study")
+    with progress.step(f"locating {len(gauges)} gauges"):
+        op = build_operator(mesh, gauges, position_tol=study.position_tol,
+                            angle_tol=study.angle_tol, snap_tol=study.snap_tol,
+                            calibration_poisson=study.calibration_poisson,
+                            grid_points=study.grid_points, band=study.band)
+    return Model(study=study, sources=sources, gauges=gauges, operator=op)
+
+
+def case_steps(model: Model, case: Case) -> list[tuple[int | None, float | None]]:
+    """The (fe_index, fe_time) states a case stands for: one, or every step of a series."""
+    src = model.source(case)
+    ti = case.time_index
+    if ti == "all" or isinstance(ti, tuple):
+        if not src.times:
+            raise ModelError(f"case '{case.name}': time_index = {ti!r} needs a time series, but "
+                             f"{src.path.name} holds a single state")
+        first, last = (0, len(src.times) - 1) if ti == "all" else ti
+        if not 0 <= first <= last < len(src.times):
+            raise ModelError(f"case '{case.name}': time_index {ti!r} is outside the series "
+                             f"(steps 0 to {len(src.times) - 1})")
+        return [(k, src.times[k]) for k in range(first, last + 1)]
+    if isinstance(ti, int):
+        return [(ti, src.times[ti] if src.times and ti < len(src.times) else None)]
+    return [(None, None)]
+
+
+def case_rows(model: Model, case: Case, fe_index: int | None) -> dict[str, NDArray[np.float64]]:
+    """Operator rows of one case (one FE state), in m/m."""
+    fld = read_field(model.source(case), case, model.study.materials, fe_index)
+    rows = evaluate_rows(model.operator, fld)
+    if fld.kind == "displacement":
+        rows.update(_displacement_checks(model, case, fld))
+    rows["location"] = fld.location  # type: ignore[assignment]
+    return rows
+
+
+def _displacement_checks(model: Model, case: Case, fld: Any) -> dict[str, Any]:
+    """Nodal-averaged gradient reading (mesh check) and rotation at each gauge centre."""
+    from correlate.gradients import nodal_strain, rotation_at_points
+
+    op = model.operator
+    nodal = nodal_strain(op, fld.values)
+    avg = evaluate_rows(op, type(fld)(case=fld.case, kind="strain", location="point", values=nodal,
+                                      source_kind="displacement", array=fld.array))
+    return {"averaged_indicated": avg["indicated"], "rotation": rotation_at_points(op, fld.values)}
+
+
+def _sensitivities(op: GaugeOperator, ind: NDArray) -> tuple[NDArray, NDArray]:
+    g = len(op.gauges)
+    sens_pos = np.full(g, np.nan)
+    sens_ang = np.full(g, np.nan)
+    nominal = ind[op.row_kind == 0]
+    off = op.row_offset
+    for gi in range(g):
+        rows = np.flatnonzero((op.row_gauge == gi) & (op.row_kind == 2))
+        if not len(rows):
+            continue
+        pos = rows[(off[rows, 2] == 0) & (np.hypot(off[rows, 0], off[rows, 1]) > 0)]
+        if len(pos):
+            r = np.hypot(off[pos, 0], off[pos, 1])
+            sens_pos[gi] = np.max(np.abs(ind[pos] - nominal[gi]) / r)
+        ang = rows[(off[rows, 0] == 0) & (off[rows, 1] == 0) & (off[rows, 2] != 0)]
+        if len(ang) == 2:
+            a = off[ang, 2]
+            sens_ang[gi] = (ind[ang[1]] - ind[ang[0]]) / (a[1] - a[0])
+    return sens_pos, sens_ang
+
+
+def band_limits(op: GaugeOperator, indicated: NDArray) -> tuple[NDArray, NDArray]:
+    """Lowest and highest reading over each gauge's nominal and band rows.
+
+    ``indicated`` may be (rows,) or (rows, steps): combine cases first, then take the band.
+    """
+    sel = op.row_kind != 1
+    g = len(op.gauges)
+    shape = (g,) + indicated.shape[1:]
+    low = np.full(shape, np.inf)
+    high = np.full(shape, -np.inf)
+    np.minimum.at(low, op.row_gauge[sel], indicated[sel])
+    np.maximum.at(high, op.row_gauge[sel], indicated[sel])
+    return low, high
+
+
+def predict_table(model: Model) -> pd.DataFrame:
+    """Model readings of every gauge and case (the content of model_readings.csv)."""
+    op = model.operator
+    place = op.placement.table
+    parts = []
+    for case in model.study.cases:
+        for fe_index, fe_time in case_steps(model, case):
+            rows = case_rows(model, case, fe_index)
+            ind = rows["indicated"]
+            low, high = band_limits(op, ind)
+            sens_pos, sens_ang = _sensitivities(op, ind)
+            nominal = op.row_kind == 0
+            point = op.row_kind == 1
+            df = pd.DataFrame({
+                "gauge": place["gauge"],
+                "case": case.name,
+                "predicted_ue": ind[nominal] * MICROSTRAIN,
+                "axial_ue": rows["axial"][nominal] * MICROSTRAIN,
+                "transverse_ue": rows["transverse"][nominal] * MICROSTRAIN,
+                "point_ue": ind[point] * MICROSTRAIN,
+                "band_low_ue": low * MICROSTRAIN,
+                "band_high_ue": high * MICROSTRAIN,
+                "snap_distance": place["snap_distance"],
+                "element": place["element"],
+                "cell_type": place["cell_type"],
+                "field_location": rows["location"],
+                "sens_position_ue_per_unit": sens_pos * MICROSTRAIN,
+                "sens_angle_ue_per_deg": sens_ang * MICROSTRAIN,
+            })
+            if "averaged_indicated" in rows:
+                df["mesh_check_ue"] = (rows["averaged_indicated"][nominal] - ind[nominal]) * MICROSTRAIN
+                df["rotation_rad"] = rows["rotation"]
+            if fe_index is not None and (case.time_index == "all" or isinstance(case.time_index, tuple)):
+                df["fe_index"] = fe_index
+                df["fe_time"] = fe_time
+            parts.append(df)
+    table = pd.concat(parts, ignore_index=True)
+    _warn_displacement(model, table)
+    return table
+
+
+def _warn_displacement(model: Model, table: pd.DataFrame) -> None:
+    if "rotation_rad" in table:
+        big = table[table["rotation_rad"] > 0.01]
+        if len(big):
+            warnings.warn(
+                "rotation above 0.01 rad at gauge(s) "
+                f"{', '.join(sorted(set(big['gauge'])))}: the small-strain tensor from total "
+                "displacement is wrong there; give the solver's strain instead", stacklevel=2,
+                category=_warning())
+    if "mesh_check_ue" in table:
+        floor = model.study.criteria.absolute_ue
+        coarse = table[table["mesh_check_ue"].abs() > floor]
+        if len(coarse):
+            warnings.warn(
+                f"element and nodal-averaged strain differ by more than {floor:g} microstrain at "
+                f"gauge(s) {', '.join(sorted(set(coarse['gauge'])))}: the mesh may be too coarse "
+                "there (see mesh_check_ue)", stacklevel=2, category=_warning())
+
+
+def _warning() -> type[Warning]:
+    from correlate.errors import CorrelateWarning
+
+    return CorrelateWarning
+
+
+def centre_tensors(model: Model, case: Case, fe_index: int | None = None) -> NDArray[np.float64]:
+    """Full strain tensor at every gauge centre for one case (for checks and rosettes)."""
+    fld = read_field(model.source(case), case, model.study.materials, fe_index)
+    return centre_strain(model.operator, fld)
+
+
+def check_study(study: Study) -> tuple[Model, pd.DataFrame, list[str]]:
+    """Read everything; return the model, the placement table and the warnings raised."""
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        model = prepare(study)
+        problems = []
+        for case in study.cases:
+            try:
+                for fe_index, _ in case_steps(model, case)[:1]:
+                    case_rows(model, case, fe_index)
+            except CorrelateError as exc:
+                problems.extend(exc.problems)
+        if problems:
+            raise CorrelateError(*problems)
+    return model, model.operator.placement.table, [str(w.message) for w in caught]

@@ -1,0 +1,384 @@
+"""Model readings: what each gauge would indicate on the model.
+
+Stage: evaluation. In: a mesh, its surface locator, the gauge map and the study's placement
+settings. Out: a :class:`GaugeOperator` (located sample points and the weights that turn a field
+into readings), then per case the axial, transverse and indicated readings of every gauge, its
+centre (point) reading and the rows of its placement band.
+
+For every gauge the operator holds rows: 0 the nominal grid-averaged reading, 1 the reading from the
+centre point alone, then the placement-band samples (the centre moved by ``position_tol`` in eight
+directions on the surface, times the grid angle turned by 0 and +/- ``angle_tol``). Each row is the
+mean over Gauss-Legendre points along the grid, each re-snapped to the surface with its own normal.
+Because readings are linear in the field, cases are combined row by row first and the band (lowest
+and highest row) is taken after: min and max do not superpose.
+
+What a gauge indicates with transverse sensitivity Kt, calibrated on a material of Poisson's ratio
+nu0 (Vishay Micro-Measurements Tech Note TN-509):  e_ind = (e_a + Kt e_t) / (1 - nu0 Kt).
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+from numpy.typing import NDArray
+from scipy import sparse
+
+from correlate import elements
+from correlate.errors import GaugeError, GaugeOutsideMeshError, ModelError
+from correlate.io.model import Field, Mesh
+from correlate.locate import (Locator, SurfacePoints, build_surface, cell_nodes, cell_types,
+                              locate_inside, parent_coordinates)
+from correlate.errors import CorrelateWarning
+
+OUT_OF_PLANE_ERROR = 45.0    # degrees: refuse a grid direction further out of the tangent plane
+OUT_OF_PLANE_WARN = 10.0     # degrees: warn beyond this
+OVERHANG_COS = np.cos(np.radians(45.0))  # a grid point whose normal turns more has left the face
+BAND_DIRECTIONS = 8
+
+
+@dataclass(frozen=True)
+class Placement:
+    """Where each gauge landed (one row per gauge, in gauge-map order)."""
+
+    table: pd.DataFrame     # gauge, element, cell_type, snap_distance, normal_x..z, dir_x..z, ...
+    normal: NDArray[np.float64]      # (g, 3) outward normal of the gauged face at the centre
+    direction: NDArray[np.float64]   # (g, 3) grid direction in the tangent plane
+    centre: NDArray[np.float64]      # (g, 3) the centre on the surface
+
+
+@dataclass(frozen=True)
+class GaugeOperator:
+    """Sample points and weights: field -> per-row axial and transverse strain.
+
+    ``row_gauge[r]``: gauge index of row r; ``row_kind[r]``: 0 nominal, 1 centre point, 2 band.
+    ``weights`` (rows x points) averages sample points into rows.
+    """
+
+    mesh: Mesh
+    placement: Placement
+    cell: NDArray[np.int64]          # (p,) global cell of each sample point
+    xi: NDArray[np.float64]          # (p, dim) natural coordinates in that cell
+    direction: NDArray[np.float64]   # (p, 3) grid direction at the point
+    transverse: NDArray[np.float64]  # (p, 3) in-plane transverse direction
+    face: NDArray[np.str_]           # (p,) "top", "bottom" or "" (shells with per-face arrays)
+    weights: sparse.csr_matrix
+    row_gauge: NDArray[np.int64]
+    row_kind: NDArray[np.int64]
+    row_offset: NDArray[np.float64]  # (r, 3): along-grid offset, across offset, angle [deg]
+    kt: NDArray[np.float64]          # (g,)
+    nu0: NDArray[np.float64]         # (g,)
+    _cache: dict
+
+    @property
+    def gauges(self) -> list[str]:
+        return list(self.placement.table["gauge"])
+
+
+def _unit(v: NDArray) -> NDArray:
+    return v / np.linalg.norm(v, axis=-1, keepdims=True)
+
+
+def _tangent(d: NDArray, n: NDArray) -> NDArray:
+    return _unit(d - np.sum(d * n, axis=-1, keepdims=True) * n)
+
+
+def _face_normal_sign(mesh: Mesh, faces: NDArray[np.str_], normal: NDArray) -> NDArray:
+    """Outward normal of the gauged face: shells flip it for bottom; plane models face +z."""
+    if mesh.family == "shell":
+        return normal * np.where(faces == "bottom", -1.0, 1.0)[:, None]
+    if mesh.family == "plane":
+        return normal * np.sign(normal[:, 2:3] + (normal[:, 2:3] == 0))
+    return normal
+
+
+def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.0,
+                   angle_tol: float = 0.0, snap_tol: float = 1.0, calibration_poisson: float = 0.285,
+                   grid_points: int = 5, band: bool = True,
+                   locator: Locator | None = None) -> GaugeOperator:
+    """Locate every gauge and build its sampling operator.
+
+    Parameters
+    ----------
+    mesh : Mesh
+    gauges : DataFrame
+        Validated gauge map (:func:`correlate.io.gauges.validate_gauges`).
+    position_tol, angle_tol : float
+        Placement tolerances [length unit], [deg]; per-gauge columns override them.
+    snap_tol : float
+        Largest accepted distance from a gauge centre to the model surface. [length unit]
+    calibration_poisson : float
+        Poisson's ratio of the gauge manufacturer's calibration beam (nu0).
+    grid_points : int
+        Gauss-Legendre points along a grid of non-zero length.
+
+    Raises
+    ------
+    GaugeOutsideMeshError
+        A gauge farther than ``snap_tol`` from the surface (names the gauge and the distance).
+    GaugeError
+        A grid direction along the normal, a grid overhanging an edge, an unknown face.
+    """
+    names = gauges["gauge"].tolist()
+    n = len(names)
+    faces = gauges["face"].to_numpy(dtype=str)
+    if mesh.family == "solid":
+        bad = [g for g, f in zip(names, faces, strict=True) if f]
+        if bad:
+            raise GaugeError(*[f"gauge '{g}' has face '{f}', but the model is a solid; face applies "
+                               "to shell models only: leave it blank" for g, f in
+                               zip(names, faces, strict=True) if f])
+    surface = build_surface(mesh)
+    if locator is None:
+        locator = Locator(mesh, surface)
+    centre_in = gauges[["x", "y", "z"]].to_numpy(dtype=float)
+    d_in = gauges[["dir_x", "dir_y", "dir_z"]].to_numpy(dtype=float)
+    prefer = gauges[["normal_x", "normal_y", "normal_z"]].to_numpy(dtype=float)
+    embedded = gauges["mount"].to_numpy(dtype=str) == "embedded"
+
+    def project(points: NDArray, pref: NDArray | None = None) -> tuple[SurfacePoints, NDArray]:
+        sp = locator.project(points, prefer=pref)
+        return sp, parent_coordinates(mesh, surface, sp)
+
+    sp, xi_c = project(centre_in, prefer)
+    problems = []
+    for i in np.flatnonzero((sp.distance > snap_tol) & ~embedded):
+        problems.append(f"gauge '{names[i]}' is {sp.distance[i]:.3g} from the model surface "
+                        f"(snap_tol {snap_tol:g}); check the gauge coordinates and length_unit, or "
+                        "raise snap_tol in [gauges]")
+    if problems:
+        raise GaugeOutsideMeshError(*problems)
+    normal = _face_normal_sign(mesh, faces, sp.normal)
+    centre = np.where(embedded[:, None], centre_in, sp.point)
+    cell_c = sp.cell.copy()
+    if embedded.any():
+        if mesh.family != "solid":
+            raise GaugeError("mount = embedded applies to solid models only")
+        cells_e, xi_e = locate_inside(mesh, centre_in[embedded], [names[i] for i in
+                                                                   np.flatnonzero(embedded)])
+        cell_c[embedded] = cells_e
+        xi_c = xi_c.copy()
+        xi_c[embedded] = xi_e
+    # grid direction in the tangent plane
+    cos_out = np.abs(np.sum(d_in * normal, axis=1))
+    out_deg = np.degrees(np.arcsin(np.clip(cos_out, 0, 1)))
+    for i in np.flatnonzero(~embedded & (out_deg > OUT_OF_PLANE_ERROR)):
+        problems.append(f"gauge '{names[i]}': grid direction is {out_deg[i]:.0f} degrees out of the "
+                        f"surface plane (limit {OUT_OF_PLANE_ERROR:.0f}); it points along the surface "
+                        "normal: check dir_x, dir_y, dir_z or the face the gauge is on")
+    if problems:
+        raise GaugeError(*problems)
+    warn = [names[i] for i in np.flatnonzero(~embedded & (out_deg > OUT_OF_PLANE_WARN))]
+    if warn:
+        warnings.warn(f"grid directions more than {OUT_OF_PLANE_WARN:.0f} degrees out of the surface "
+                      f"plane were projected into it: {', '.join(warn)}", CorrelateWarning,
+                      stacklevel=2)
+    direction = np.where(embedded[:, None], _unit(d_in), _tangent(d_in, normal))
+    across = np.cross(normal, direction)
+
+    ptol = gauges["position_tol"].fillna(position_tol).to_numpy(dtype=float) if band else np.zeros(n)
+    atol = gauges["angle_tol"].fillna(angle_tol).to_numpy(dtype=float) if band else np.zeros(n)
+    length = gauges["length"].to_numpy(dtype=float)
+    kt = gauges["kt"].to_numpy(dtype=float)
+    nu0 = gauges["nu0"].fillna(calibration_poisson).to_numpy(dtype=float)
+
+    # rows: nominal, point, band samples (position offset on a circle x angle)
+    rows_g, rows_k, rows_off = [], [], []
+    phis = np.linspace(0, 2 * np.pi, BAND_DIRECTIONS, endpoint=False)
+    for g in range(n):
+        rows_g += [g, g]
+        rows_k += [0, 1]
+        rows_off += [(0.0, 0.0, 0.0), (0.0, 0.0, 0.0)]
+        offs = [(0.0, 0.0)]
+        if ptol[g] > 0 and not embedded[g]:
+            offs += [(ptol[g] * np.cos(p), ptol[g] * np.sin(p)) for p in phis]
+        angs = [0.0] + ([-atol[g], atol[g]] if atol[g] > 0 else [])
+        for a, b in offs:
+            for ang in angs:
+                if a == 0 and b == 0 and ang == 0:
+                    continue
+                rows_g.append(g)
+                rows_k.append(2)
+                rows_off.append((a, b, ang))
+    row_gauge = np.array(rows_g)
+    row_kind = np.array(rows_k)
+    row_off = np.array(rows_off, dtype=float).reshape(-1, 3)
+    n_rows = len(row_gauge)
+
+    # row centres and directions
+    rc = centre[row_gauge] + row_off[:, :1] * direction[row_gauge] + row_off[:, 1:2] * across[row_gauge]
+    moved = (row_off[:, 0] != 0) | (row_off[:, 1] != 0)
+    rn = normal[row_gauge].copy()
+    if moved.any():
+        spm, _ = project(rc[moved], normal[row_gauge[moved]])
+        rc[moved] = spm.point
+        rn[moved] = _face_normal_sign(mesh, faces[row_gauge[moved]], spm.normal)
+    rd = np.where(embedded[row_gauge, None], direction[row_gauge], _tangent(direction[row_gauge], rn))
+    theta = np.radians(row_off[:, 2])[:, None]
+    rd = np.cos(theta) * rd + np.sin(theta) * np.cross(rn, rd)
+
+    # sample points along each row's grid
+    gp, gw = np.polynomial.legendre.leggauss(grid_points)
+    pts_row, pts_s, pts_w = [], [], []
+    for r in range(n_rows):
+        L = length[row_gauge[r]]
+        if L > 0 and row_kind[r] != 1:
+            pts_row.append(np.full(grid_points, r))
+            pts_s.append(gp * L / 2)
+            pts_w.append(gw / 2)
+        else:
+            pts_row.append(np.array([r]))
+            pts_s.append(np.array([0.0]))
+            pts_w.append(np.array([1.0]))
+    p_row = np.concatenate(pts_row)
+    p_s = np.concatenate(pts_s)
+    p_w = np.concatenate(pts_w)
+    p_emb = embedded[row_gauge[p_row]]
+    p_x = rc[p_row] + p_s[:, None] * rd[p_row]
+    p_cell = cell_c[row_gauge[p_row]].copy()
+    dim = 3 if mesh.family == "solid" else 2
+    p_xi = np.zeros((len(p_row), dim))
+    p_n = rn[p_row].copy()
+    # the nominal, unmoved, zero-offset point of each row reuses the centre location
+    at_centre = (p_s == 0) & ~moved[p_row]
+    p_xi[at_centre] = xi_c[row_gauge[p_row[at_centre]]]
+    need = ~at_centre & ~p_emb
+    valid_row = np.ones(n_rows, dtype=bool)
+    if need.any():
+        spg, xig = project(p_x[need], rn[p_row[need]])
+        new_n = _face_normal_sign(mesh, faces[row_gauge[p_row[need]]], spg.normal)
+        turned = np.sum(new_n * rn[p_row[need]], axis=1) < OVERHANG_COS
+        off = spg.distance > max(snap_tol, 1e-9)
+        bad_pt = turned | off
+        p_x[need] = spg.point
+        p_cell[need] = spg.cell
+        p_xi[need] = xig
+        p_n[need] = new_n
+        bad_rows = np.unique(p_row[need][bad_pt])
+        nominal_bad = bad_rows[row_kind[bad_rows] == 0]
+        if len(nominal_bad):
+            raise GaugeError(*[f"gauge '{names[row_gauge[r]]}': its grid (length "
+                               f"{length[row_gauge[r]]:g}) overhangs an edge of the face it is on; "
+                               "check the position, direction and length" for r in nominal_bad])
+        valid_row[bad_rows] = False
+    if (need & p_emb).any():
+        raise GaugeError("embedded gauges with a grid length are not supported; give length 0")
+    p_d = np.where(p_emb[:, None], rd[p_row], _tangent(rd[p_row], p_n))
+    p_t = np.cross(p_n, p_d)
+    keep_pt = valid_row[p_row]
+    # drop band rows whose grid left the face (a misplaced gauge cannot overhang an edge either)
+    keep_rows = np.flatnonzero(valid_row)
+    remap = -np.ones(n_rows, dtype=np.int64)
+    remap[keep_rows] = np.arange(len(keep_rows))
+    W = sparse.csr_matrix((p_w[keep_pt], (remap[p_row[keep_pt]], np.arange(keep_pt.sum()))),
+                          shape=(len(keep_rows), keep_pt.sum()))
+
+    ctype = cell_types(mesh)
+    table = pd.DataFrame({
+        "gauge": names,
+        "element": cell_c,
+        "cell_type": ctype[cell_c],
+        "snap_distance": np.where(embedded, 0.0, sp.distance),
+        "x": centre[:, 0], "y": centre[:, 1], "z": centre[:, 2],
+        "normal_x": normal[:, 0], "normal_y": normal[:, 1], "normal_z": normal[:, 2],
+        "dir_x": direction[:, 0], "dir_y": direction[:, 1], "dir_z": direction[:, 2],
+        "out_of_plane_deg": np.where(embedded, 0.0, out_deg),
+        "mount": np.where(embedded, "embedded", "surface"),
+        "face": faces,
+    })
+    placement = Placement(table=table, normal=normal, direction=direction, centre=centre)
+    return GaugeOperator(mesh=mesh, placement=placement, cell=p_cell[keep_pt], xi=p_xi[keep_pt],
+                         direction=p_d[keep_pt], transverse=p_t[keep_pt],
+                         face=faces[row_gauge[p_row[keep_pt]]], weights=W,
+                         row_gauge=row_gauge[keep_rows], row_kind=row_kind[keep_rows],
+                         row_offset=row_off[keep_rows], kt=kt, nu0=nu0, _cache={})
+
+
+def _interpolation(op: GaugeOperator, *, gradient: bool) -> list[sparse.csr_matrix]:
+    """Sparse matrices (points x nodes): shape functions, or their x, y, z derivatives."""
+    key = "grad" if gradient else "values"
+    if key in op._cache:
+        return op._cache[key]
+    mesh = op.mesh
+    types = cell_types(mesh)[op.cell]
+    block, row = cell_nodes(mesh, op.cell)
+    n_pts, n_nodes = len(op.cell), len(mesh.points)
+    mats: list[list] = [[], [], []] if gradient else [[]]
+    for ctype in np.unique(types):
+        sel = np.flatnonzero(types == ctype)
+        b = block[sel]
+        conn = np.empty((len(sel), elements.ELEMENTS[str(ctype)].n_nodes), dtype=np.int64)
+        for bb in np.unique(b):
+            conn[b == bb] = mesh.blocks[bb][1][row[sel][b == bb]]
+        rows = np.repeat(sel, conn.shape[1])
+        if gradient:
+            dN, _ = elements.physical_gradients(str(ctype), mesh.points[conn], op.xi[sel])
+            for j in range(3):
+                mats[j].append((dN[:, :, j].ravel(), rows, conn.ravel()))
+        else:
+            N = elements.shape_functions(str(ctype), op.xi[sel])
+            mats[0].append((N.ravel(), rows, conn.ravel()))
+    out = []
+    for parts in mats:
+        v = np.concatenate([p[0] for p in parts])
+        r = np.concatenate([p[1] for p in parts])
+        c = np.concatenate([p[2] for p in parts])
+        out.append(sparse.csr_matrix((v, (r, c)), shape=(n_pts, n_nodes)))
+    op._cache[key] = out
+    return out
+
+
+def strain_at_points(op: GaugeOperator, field: Field) -> NDArray[np.float64]:
+    """Strain tensors (p, 3, 3) at the operator's sample points for one field."""
+    def one(values: NDArray) -> NDArray:
+        if field.kind == "displacement":
+            G = _interpolation(op, gradient=True)
+            H = np.stack([g @ values for g in G], axis=2)  # H[p, i, j] = du_i/dx_j
+            return 0.5 * (H + np.swapaxes(H, 1, 2))
+        if field.location == "cell":
+            return values[op.cell]
+        (N,) = _interpolation(op, gradient=False)
+        return (N @ values.reshape(len(values), 9)).reshape(-1, 3, 3)
+
+    if isinstance(field.values, dict):
+        out = np.zeros((len(op.cell), 3, 3))
+        for face, values in field.values.items():
+            sel = op.face == face
+            if face == "top":
+                sel = sel | (op.face == "")
+            out[sel] = one(values)[sel]
+        return out
+    return one(field.values)
+
+
+def check_finite(op: GaugeOperator, field: Field, strain: NDArray) -> None:
+    """Refuse NaN or infinite values at any gauge."""
+    bad = ~np.isfinite(strain).all(axis=(1, 2))
+    if bad.any():
+        rows = np.unique(op.weights[:, np.flatnonzero(bad)].nonzero()[0])
+        gauges = sorted({op.gauges[g] for g in op.row_gauge[rows]})
+        raise ModelError(f"case '{field.case}': array '{field.array}' has NaN or infinite values at "
+                         f"gauge(s) {', '.join(gauges)}; check the result file there")
+
+
+def evaluate_rows(op: GaugeOperator, field: Field) -> dict[str, NDArray[np.float64]]:
+    """Axial, transverse and indicated strain [m/m] of every operator row for one field."""
+    eps = strain_at_points(op, field)
+    check_finite(op, field, eps)
+    ea = np.einsum("pi,pij,pj->p", op.direction, eps, op.direction)
+    et = np.einsum("pi,pij,pj->p", op.transverse, eps, op.transverse)
+    axial = op.weights @ ea
+    trans = op.weights @ et
+    kt = op.kt[op.row_gauge]
+    nu0 = op.nu0[op.row_gauge]
+    return {"axial": axial, "transverse": trans, "indicated": (axial + kt * trans) / (1 - nu0 * kt)}
+
+
+def centre_strain(op: GaugeOperator, field: Field) -> NDArray[np.float64]:
+    """Full strain tensor (g, 3, 3) at each gauge centre (the point rows)."""
+    eps = strain_at_points(op, field)
+    point_rows = np.flatnonzero(op.row_kind == 1)
+    pts = op.weights[point_rows].indices
+    return eps[pts]
