@@ -125,13 +125,17 @@ _FACE_TYPE = {(3, False): "triangle", (3, True): "triangle6", (4, False): "quad"
               (4, True): "quad8", (4, "centre"): "quad9"}
 
 
-def _reference_nodes(corners: tuple, edges: tuple, faces: tuple, centre: bool) -> Array:
+_Ints = tuple[tuple[int, ...], ...]
+
+
+def _reference_nodes(corners: _Ints, edges: _Ints, faces: _Ints, centre: bool) -> Array:
     c = np.array(corners, dtype=float)
     groups = [*edges, *faces, *([range(len(c))] if centre else [])]
     return np.vstack([c, *[c[list(g)].mean(axis=0) for g in groups]]) if groups else c
 
 
-def _face_table(ref: Array, corner_faces: tuple, quadratic: bool, centres: bool) -> tuple:
+def _face_table(ref: Array, corner_faces: _Ints, quadratic: bool, centres: bool
+                ) -> tuple[tuple[str, tuple[int, ...]], ...]:
     """Add the mid-side (and face-centre) nodes to each corner face, found by their coordinates."""
 
     def node_at(point: Array) -> int:

@@ -20,6 +20,7 @@ from correlate.errors import CorrelateError, ModelError
 from correlate.fields import read_field
 from correlate.io.gauges import read_gauges
 from correlate.io.model import ModelSource, open_model
+from correlate.locate import Locator, build_surface
 from correlate.predict import GaugeOperator, build_operator, centre_strain, evaluate_rows
 from correlate.units import MICROSTRAIN
 
@@ -32,7 +33,16 @@ class Model:
     sources: dict[Path, ModelSource]
     gauges: pd.DataFrame
     operator: GaugeOperator
+    locator: Locator
     warnings: list[str] = field(default_factory=list)
+    fields: dict[tuple[str, int | None], Any] = field(default_factory=dict)
+
+    def case_field(self, case: Case, fe_index: int | None) -> Any:
+        """The case's field in the package convention, read once."""
+        key = (case.name, fe_index)
+        if key not in self.fields:
+            self.fields[key] = read_field(self.source(case), case, self.study.materials, fe_index)
+        return self.fields[key]
 
     def source(self, case: Case) -> ModelSource:
         return self.sources[case.file or self.study.model_file]
@@ -64,11 +74,12 @@ def prepare(study: Study) -> Model:
         raise ModelError(f"{study.model_file.name} is a 2D plane model (all z = 0); say "
                          "[model] plane = \"stress\" or \"strain\" in the study")
     with progress.step(f"locating {len(gauges)} gauges"):
+        locator = Locator(mesh, build_surface(mesh))
         op = build_operator(mesh, gauges, position_tol=study.position_tol,
                             angle_tol=study.angle_tol, snap_tol=study.snap_tol,
                             calibration_poisson=study.calibration_poisson,
-                            grid_points=study.grid_points, band=study.band)
-    return Model(study=study, sources=sources, gauges=gauges, operator=op)
+                            grid_points=study.grid_points, band=study.band, locator=locator)
+    return Model(study=study, sources=sources, gauges=gauges, operator=op, locator=locator)
 
 
 def case_steps(model: Model, case: Case) -> list[tuple[int | None, float | None]]:
@@ -89,10 +100,13 @@ def case_steps(model: Model, case: Case) -> list[tuple[int | None, float | None]
     return [(None, None)]
 
 
-def case_rows(model: Model, case: Case, fe_index: int | None) -> dict[str, NDArray[np.float64]]:
+def case_rows(model: Model, case: Case, fe_index: int | None,
+              operator: GaugeOperator | None = None) -> dict[str, NDArray[np.float64]]:
     """Operator rows of one case (one FE state), in m/m."""
-    fld = read_field(model.source(case), case, model.study.materials, fe_index)
-    rows = evaluate_rows(model.operator, fld)
+    fld = model.case_field(case, fe_index)
+    rows = evaluate_rows(operator or model.operator, fld)
+    if operator is not None:
+        return rows
     if fld.kind == "displacement":
         rows.update(_displacement_checks(model, case, fld))
     rows["location"] = fld.location  # type: ignore[assignment]

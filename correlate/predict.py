@@ -37,6 +37,7 @@ OUT_OF_PLANE_ERROR = 45.0    # degrees: refuse a grid direction further out of t
 OUT_OF_PLANE_WARN = 10.0     # degrees: warn beyond this
 OVERHANG_COS = np.cos(np.radians(45.0))  # a grid point whose normal turns more has left the face
 BAND_DIRECTIONS = 8
+SLIP_FRACTION = 0.02  # a grid point that slides back more than this share of the grid left its face
 
 
 @dataclass(frozen=True)
@@ -130,9 +131,9 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
             raise GaugeError(*[f"gauge '{g}' has face '{f}', but the model is a solid; face applies "
                                "to shell models only: leave it blank" for g, f in
                                zip(names, faces, strict=True) if f])
-    surface = build_surface(mesh)
     if locator is None:
-        locator = Locator(mesh, surface)
+        locator = Locator(mesh, build_surface(mesh))
+    surface = locator.surface
     centre_in = gauges[["x", "y", "z"]].to_numpy(dtype=float)
     d_in = gauges[["dir_x", "dir_y", "dir_z"]].to_numpy(dtype=float)
     prefer = gauges[["normal_x", "normal_y", "normal_z"]].to_numpy(dtype=float)
@@ -251,7 +252,10 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
         new_n = _face_normal_sign(mesh, faces[row_gauge[p_row[need]]], spg.normal)
         turned = np.sum(new_n * rn[p_row[need]], axis=1) < OVERHANG_COS
         off = spg.distance > max(snap_tol, 1e-9)
-        bad_pt = turned | off
+        # a point past an edge snaps back along the grid; on a curved face it moves along the normal
+        slip = np.abs(np.sum((spg.point - p_x[need]) * rd[p_row[need]], axis=1))
+        slipped = slip > SLIP_FRACTION * length[row_gauge[p_row[need]]] + 1e-9 * locator.surface.scale
+        bad_pt = turned | off | slipped
         p_x[need] = spg.point
         p_cell[need] = spg.cell
         p_xi[need] = xig

@@ -1,0 +1,117 @@
+"""Diagnosis of failing gauges: gather the evidence from the model, then try the explanations.
+
+Stage: comparison (diagnosis). In: the correlation arrays and the model. Out: a table of qualified
+explanations per failing gauge (see :mod:`correlate.diagnose` for the tests each must pass) and the
+global load checks. The model is re-evaluated at moved and turned grids for the position and angle
+searches, so those explain a gauge only with the model's own gradients.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from numpy.typing import NDArray
+
+from correlate.config import Study
+from correlate.correlation import Steps
+from correlate.units import MICROSTRAIN
+
+
+def _alternatives(study: Study, model: Any, steps: Steps, rows_by_case: dict, j: int
+                  ) -> dict[str, NDArray]:
+    op = model.operator
+    nominal = np.flatnonzero(op.row_kind == 0)[j]
+    kt, nu0 = op.kt[j], op.nu0[j]
+    names = [c.name for c in study.cases]
+    ax = np.array([rows_by_case[c]["axial"][nominal] for c in names])
+    tr = np.array([rows_by_case[c]["transverse"][nominal] for c in names])
+    f = steps.factors * MICROSTRAIN
+    out = {"rotated_90": f @ ((tr + kt * ax) / (1 - nu0 * kt))}
+    out["no_kt"] = f @ (((ax + kt * tr) / (1 - nu0 * kt)) if study.kt_corrected else ax)
+    if all("averaged_indicated" in rows_by_case[c] for c in names):
+        out["nodal_average"] = f @ np.array([rows_by_case[c]["averaged_indicated"][nominal]
+                                             for c in names])
+    return out
+
+
+def _evaluator(study: Study, model: Any, steps: Steps, j: int
+               ) -> Callable[[NDArray, NDArray], NDArray]:
+    """Readings of gauge j moved by (along, across) offsets and turned by angles, per step."""
+    from correlate.pipeline import case_rows
+    from correlate.predict import build_operator
+
+    op = model.operator
+    place = op.placement
+    g = model.gauges.iloc[[j]]
+    centre, d, n = place.centre[j], place.direction[j], place.normal[j]
+    t = np.cross(n, d)
+
+    def evaluate(offsets: NDArray, angles: NDArray) -> NDArray:
+        offsets = np.atleast_2d(np.asarray(offsets, dtype=float))
+        angles = np.atleast_1d(np.asarray(angles, dtype=float))
+        k = len(offsets)
+        rad = np.radians(angles)[:, None]
+        pos = centre + offsets[:, :1] * d + offsets[:, 1:2] * t
+        dirs = np.cos(rad) * d + np.sin(rad) * t
+        mini = pd.concat([g] * k, ignore_index=True)
+        mini["gauge"] = [f"{g['gauge'].iloc[0]}#{i}" for i in range(k)]
+        mini[["x", "y", "z"]] = pos
+        mini[["dir_x", "dir_y", "dir_z"]] = dirs
+        mini[["normal_x", "normal_y", "normal_z"]] = n
+        mini_op = build_operator(op.mesh, mini, snap_tol=np.inf, band=False,
+                                 calibration_poisson=study.calibration_poisson,
+                                 grid_points=study.grid_points, locator=model.locator)
+        key = "axial" if study.kt_corrected else "indicated"
+        nominal = mini_op.row_kind == 0
+        R = np.stack([case_rows(model, c, c.time_index if isinstance(c.time_index, int) else None,
+                                operator=mini_op)[key][nominal] for c in study.cases], axis=1)
+        return R @ steps.factors.T * MICROSTRAIN   # (k, s)
+
+    return evaluate
+
+
+def _neighbours_pass(model: Any, j: int, passing: NDArray, healthy: NDArray) -> bool | None:
+    centres = model.operator.placement.centre
+    others = np.flatnonzero(healthy & (np.arange(len(passing)) != j))
+    if not len(others):
+        return None
+    dist = np.linalg.norm(centres[others] - centres[j], axis=1)
+    near = others[np.argsort(dist)[:3]]
+    return bool(passing[near].mean() >= 0.5)
+
+
+def diagnose_failures(study: Study, model: Any, steps: Steps, names: list[str], measured: NDArray,
+                      predicted: NDArray, st: dict, rows_by_case: dict, contributions: NDArray,
+                      per_gauge: pd.DataFrame) -> pd.DataFrame:
+    """Explanations for every failing gauge (empty table when none qualifies)."""
+    from correlate.diagnose import Criterion, GaugeEvidence, diagnose
+
+    ev = st["evaluated"]
+    failing = ((st["status"] == "fail") & ev).any(axis=0)
+    healthy = ev.any(axis=0)
+    passing = healthy & ~failing
+    cols = ["gauge", "explanation", "detail", "rms_before_ue", "rms_after_ue", "plausible",
+            "parameter"]
+    if not failing.any():
+        return pd.DataFrame(columns=cols)
+    crit = Criterion(relative=study.criteria.relative, absolute_ue=study.criteria.absolute_ue)
+    gauges = model.gauges
+    evidence = []
+    for j in np.flatnonzero(failing):
+        m = np.where(ev[:, j], measured[:, j], np.nan)
+        ptol = gauges["position_tol"].iloc[j]
+        atol = gauges["angle_tol"].iloc[j]
+        evidence.append(GaugeEvidence(
+            gauge=names[j], measured=m, predicted=predicted[:, j], active=steps.active & ev[:, j],
+            alternatives=_alternatives(study, model, steps, rows_by_case, j),
+            contributions=contributions[:, j, :],
+            evaluate_at=_evaluator(study, model, steps, j),
+            position_tol=float(study.position_tol if np.isnan(ptol) else ptol),
+            angle_tol=float(study.angle_tol if np.isnan(atol) else atol),
+            neighbours_pass=_neighbours_pass(model, j, passing, healthy),
+            rosette=gauges["rosette"].iloc[j] or None))
+    table = diagnose(evidence, crit)
+    return table[cols] if len(table) else pd.DataFrame(columns=cols)

@@ -1,0 +1,111 @@
+"""Shared fixtures: tiny meshes of every cell type, built from a structured box.
+
+Quadratic cells get their extra nodes by mapping the linear cell's corners with the quadratic
+element's own reference nodes, so straight-sided cells are affine; `curve` then bends the whole
+mesh by a smooth map (which keeps linear fields in physical coordinates exactly representable,
+the isoparametric property).
+"""
+
+from __future__ import annotations
+
+import os
+
+import numpy as np
+import pandas as pd
+import pytest
+
+os.environ.setdefault("MESA_SHADER_CACHE_DISABLE", "true")
+
+from correlate import elements  # noqa: E402
+from correlate.io.gauges import validate_gauges  # noqa: E402
+from correlate.io.model import Mesh  # noqa: E402
+
+KUHN = ((0, 1, 3, 7), (0, 1, 5, 7), (0, 2, 3, 7), (0, 2, 6, 7), (0, 4, 5, 7), (0, 4, 6, 7))
+
+
+def box_points(nx: int, ny: int, nz: int, size=(4.0, 3.0, 2.0)) -> tuple[np.ndarray, np.ndarray]:
+    xs, ys, zs = (np.linspace(0, s, n + 1) for s, n in zip(size, (nx, ny, nz), strict=True))
+    X, Y, Z = np.meshgrid(xs, ys, zs, indexing="ij")
+    pts = np.c_[X.ravel(), Y.ravel(), Z.ravel()]
+    nid = np.arange(len(pts)).reshape(X.shape)
+    hexes = []
+    for i in range(nx):
+        for j in range(ny):
+            for k in range(nz):
+                c = [nid[i + a, j + b, k + d] for (a, b, d) in
+                     ((0, 0, 0), (1, 0, 0), (1, 1, 0), (0, 1, 0),
+                      (0, 0, 1), (1, 0, 1), (1, 1, 1), (0, 1, 1))]
+                hexes.append(c)
+    return pts, np.array(hexes)
+
+
+def _linear_cells(kind: str, hexes: np.ndarray) -> tuple[str, np.ndarray]:
+    if kind == "hexahedron":
+        return kind, hexes
+    if kind == "tetra":
+        # Kuhn split uses the lexicographic corner order (x fastest)
+        lex = hexes[:, [0, 1, 3, 2, 4, 5, 7, 6]]
+        return kind, np.concatenate([lex[:, list(t)] for t in KUHN])
+    if kind == "wedge":
+        return kind, np.concatenate([hexes[:, [0, 1, 2, 4, 5, 6]], hexes[:, [0, 2, 3, 4, 6, 7]]])
+    raise ValueError(kind)
+
+
+def _orient(points: np.ndarray, ctype: str, conn: np.ndarray) -> np.ndarray:
+    """Flip cells with a negative Jacobian at their centre (swap two corners consistently)."""
+    el = elements.ELEMENTS[ctype]
+    xi = np.tile(el.reference_nodes.mean(axis=0), (len(conn), 1))
+    _, det = elements.physical_gradients(ctype, points[conn], xi)
+    bad = det < 0
+    if ctype == "tetra":
+        conn[bad] = conn[bad][:, [0, 2, 1, 3]]
+    elif ctype == "wedge":
+        conn[bad] = conn[bad][:, [0, 2, 1, 3, 5, 4]]
+    return conn
+
+
+QUADRATIC = {"tetra10": "tetra", "hexahedron20": "hexahedron", "hexahedron27": "hexahedron"}
+SOLID_TYPES = ["tetra", "tetra10", "hexahedron", "hexahedron20", "hexahedron27", "wedge"]
+
+
+def solid_mesh(ctype: str, n=(3, 2, 2), size=(4.0, 3.0, 2.0), curve: float = 0.0,
+               warp=None) -> Mesh:
+    """A box of cells of one type; quadratic nodes merged by position; optionally bent.
+
+    ``warp`` maps the box's points (n, 3) to new positions after the quadratic nodes are made;
+    points that land on each other (a seam) are merged.
+    """
+    pts, hexes = box_points(*n, size=size)
+    lin = QUADRATIC.get(ctype, ctype)
+    _, conn = _linear_cells(lin, hexes)
+    conn = _orient(pts, lin, conn.copy())
+    if ctype in QUADRATIC:
+        ref = elements.ELEMENTS[ctype].reference_nodes
+        xi = np.tile(ref, (len(conn), 1))
+        corners = np.repeat(pts[conn], len(ref), axis=0)
+        new = elements.map_to_physical(lin, corners, xi)
+        key = np.round(new, 9)
+        uniq, inv = np.unique(key, axis=0, return_inverse=True)
+        pts = uniq.astype(float)
+        conn = inv.reshape(len(conn), len(ref))
+    if curve:
+        x, y, z = pts.T
+        pts = np.c_[x + curve * np.sin(y) * np.sin(z), y + curve * np.sin(x) * z, z + curve * np.sin(x)]
+    if warp is not None:
+        pts = warp(pts)
+        uniq, inv = np.unique(np.round(pts, 9), axis=0, return_inverse=True)
+        pts, conn = uniq.astype(float), inv.ravel()[conn]
+    return Mesh(points=pts, blocks=((ctype, np.asarray(conn, dtype=np.int64)),), block_ids=(0,),
+                family="solid", source=f"{ctype} box")
+
+
+def gauge_frame(rows: list[dict]) -> pd.DataFrame:
+    """A validated gauge map from a list of partial rows."""
+    base = {"rosette": "", "face": "", "length": "", "kt": ""}
+    df = pd.DataFrame([{**base, **{k: str(v) for k, v in r.items()}} for r in rows]).astype(str)
+    return validate_gauges(df, source="test gauges")
+
+
+@pytest.fixture
+def rng() -> np.random.Generator:
+    return np.random.default_rng(20261201)
