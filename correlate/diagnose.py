@@ -512,7 +512,7 @@ def diagnose_loads(measured: ArrayLike, contributions: ArrayLike, active: ArrayL
                              "pass_fraction_after": passed(p)})
 
     for j in range(k):
-        finding("load_sign", [names[j]], pred - X[:, j])
+        finding("load_sign", [names[j]], pred - 2 * X[:, j])
     L, U, bad = _histories(np.where(np.isfinite(c), c, 0.0), lo)
     if bad:
         reasons.append("swap check skipped for " + ", ".join(names[j] for j in bad) + ": not a "

@@ -157,6 +157,16 @@ def test_small_angle_error_is_found_and_plausible():
     assert row["plausible"].tolist() == [True]
 
 
+def test_two_fitting_angles_report_the_smaller():
+    # One load case: e(theta) = 175 + 325 cos 2 theta is even in theta, so a grid at 30 deg turned
+    # by +3 deg (reading at 33 deg) reads the same as one turned by -63 deg (reading at -33 deg).
+    ev = _gauge("SG-12", phi=30.0, cases=(CASE_A,), loads=RAMP, angle=3.0)
+    assert _fails(ev)
+    row = diagnose([ev], CRIT).query("explanation == 'grid angle'")
+    np.testing.assert_allclose(row["parameter"], 3.0, atol=0.01)  # bounded search, xatol 1e-6
+    assert "also fits at -63.00 deg" in row["detail"].iloc[0]
+
+
 def test_noisy_gauge_gets_no_explanation():
     rng = np.random.default_rng(20240611)
     ev = _gauge("SG-8", phi=10.0)
