@@ -15,7 +15,7 @@ from __future__ import annotations
 
 import itertools
 from collections.abc import Callable, Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
@@ -39,17 +39,18 @@ ALTERNATIVES = {"rotated_90": "grid rotated 90 degrees",
                 "nodal_average": "mesh too coarse"}
 _ORDER = ("sign reversed", "channels swapped", "channel gain", "grid rotated 90 degrees",
           "grid angle", "position offset", "transverse sensitivity in data reduction",
-          "gauge on the other face", "mesh too coarse")
+          "gauge on the other face", "mesh too coarse", "rosette grids permuted",
+          "rosette mirrored")
 #: An explanation must cut the RMS difference at least this many times.
 RMS_FACTOR = 3.0
-#: Two load cases count as varied independently at a gauge when the second singular value of its
-#: active contributions is at least this fraction of the first (our judgement, not a published value).
+#: Two load cases vary independently at a gauge when the second singular value of its active
+#: contributions is at least this fraction of the first (our judgement, not a published value).
 INDEPENDENT = 0.1
 
 
 @dataclass(frozen=True)
 class Criterion:
-    """The analyst's pass criterion: ``|measured - predicted| <= max(relative |predicted|, absolute_ue)``.
+    """The analyst's pass criterion: ``|measured - predicted| <= max(relative |p|, absolute_ue)``.
 
     Parameters
     ----------
@@ -64,8 +65,8 @@ class Criterion:
 
     def __post_init__(self) -> None:
         if not (self.relative >= 0.0 and self.absolute_ue >= 0.0):  # also rejects NaN
-            msg = (f"criterion relative={self.relative}, absolute_ue={self.absolute_ue}: both must "
-                   "be finite and >= 0; give the fraction and the microstrain floor of the criterion")
+            msg = (f"criterion relative={self.relative}, absolute_ue={self.absolute_ue}: both "
+                   "must be finite and >= 0; give a fraction and a microstrain floor")
             raise StudyError(msg)
 
     def passes(self, measured: ArrayLike, predicted: ArrayLike) -> NDArray[np.bool_]:
@@ -85,7 +86,7 @@ class Criterion:
         return np.asarray(ok | np.isnan(m))
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)  # eq on array fields would be ambiguous
 class GaugeEvidence:
     """What is known about one gauge, s load steps and C load cases (see the module docstring)."""
 
@@ -104,32 +105,27 @@ class GaugeEvidence:
 
 def _checked(ev: GaugeEvidence) -> GaugeEvidence:
     """Return ``ev`` with float arrays; raise ReadingsFormatError naming the gauge and array."""
-    m = np.asarray(ev.measured, dtype=float)
+    m, p = np.asarray(ev.measured, dtype=float), np.asarray(ev.predicted, dtype=float)
+    alt = {k: np.asarray(v, dtype=float) for k, v in ev.alternatives.items()}
     s = m.shape[0] if m.ndim == 1 else -1
-    arrays = {"measured": m, "predicted": np.asarray(ev.predicted, dtype=float),
-              "active": np.asarray(ev.active, dtype=bool)}
-    arrays.update({f"alternatives[{k!r}]": np.asarray(v, dtype=float)
-                   for k, v in ev.alternatives.items()})
+    arrays = {"measured": m, "predicted": p, "active": np.asarray(ev.active, dtype=bool),
+              **{f"alternatives[{k!r}]": v for k, v in alt.items()}}
     for name, a in arrays.items():
         if a.shape != (s,):
-            msg = (f"gauge {ev.gauge!r}: {name} has shape {a.shape}, expected ({max(s, 0)},) "
-                   "(one value per load step); pass 1-D arrays of the same length")
+            msg = (f"gauge {ev.gauge!r}: {name} has shape {a.shape}, expected ({max(s, 0)},), "
+                   "one value per load step; pass 1-D arrays of the same length")
             raise ReadingsFormatError(msg)
-    unknown = sorted(set(ev.alternatives) - set(ALTERNATIVES))
-    if unknown:
-        msg = f"gauge {ev.gauge!r}: unknown alternatives {unknown}; use keys from {list(ALTERNATIVES)}"
-        raise ReadingsFormatError(msg)
+    if set(alt) - set(ALTERNATIVES):
+        msg = f"gauge {ev.gauge!r}: unknown alternatives {sorted(set(alt) - set(ALTERNATIVES))}; "
+        raise ReadingsFormatError(msg + f"use keys from {list(ALTERNATIVES)}")
     c = np.asarray(ev.contributions, dtype=float)
-    p = arrays["predicted"]
-    if c.ndim != 2 or c.shape[0] != s or not np.allclose(c.sum(axis=1), p, rtol=1e-6,
-                                                         atol=1e-6 * np.max(np.abs(p), initial=1)):
+    if c.ndim != 2 or c.shape[0] != s or not np.allclose(
+            c.sum(axis=1), p, rtol=1e-6, atol=1e-6 * np.max(np.abs(p), initial=1.0)):
         msg = (f"gauge {ev.gauge!r}: contributions (shape {c.shape}) must be (steps, load cases) "
                "and sum over load cases to predicted; rebuild them from the same model run")
         raise ReadingsFormatError(msg)
-    return GaugeEvidence(ev.gauge, m, p, arrays["active"],
-                         {k: arrays[f"alternatives[{k!r}]"] for k in ev.alternatives}, c,
-                         ev.evaluate_at, ev.position_tol, ev.angle_tol, ev.neighbours_pass,
-                         ev.rosette)
+    return replace(ev, measured=m, predicted=p, active=arrays["active"], alternatives=alt,
+                   contributions=c)
 
 
 def _score(m: Array, p: Array, mask: NDArray[np.bool_], criterion: Criterion) -> tuple[bool, float]:
@@ -138,6 +134,13 @@ def _score(m: Array, p: Array, mask: NDArray[np.bool_], criterion: Criterion) ->
         return False, NAN
     d = m[mask] - p[mask]
     return bool(criterion.passes(m[mask], p[mask]).all()), float(np.sqrt(np.mean(d**2)))
+
+
+def _fits(data: Array, model: Array, mask: NDArray[np.bool_], criterion: Criterion,
+          before: float) -> float | None:
+    """RMS difference with an explanation applied if it qualifies, else None."""
+    ok, after = _score(data, model, mask, criterion)
+    return after if ok and before > 0 and after * RMS_FACTOR <= before else None
 
 
 def _rms_rows(m: Array, P: Array, mask: NDArray[np.bool_]) -> Array:
@@ -189,21 +192,21 @@ def _best_angle(ev: GaugeEvidence, criterion: Criterion, mask: NDArray[np.bool_]
     grid = np.linspace(-90.0, 90.0, 181)
     r = _rms_rows(m, _evaluate(ev, np.zeros((grid.size, 2)), grid), mask)
     low = (r <= np.r_[np.inf, r[:-1]]) & (r <= np.r_[r[1:], np.inf])
-    fits = []
+    fits: list[tuple[float, float, float]] = []
     for i in np.flatnonzero(low)[np.argsort(r[low])][:4]:
         res = optimize.minimize_scalar(
             lambda a: _rms_rows(m, _evaluate(ev, np.zeros((1, 2)), np.array([a])), mask)[0],
             bounds=(max(grid[i] - 1.0, -90.0), min(grid[i] + 1.0, 90.0)), method="bounded",
             options={"xatol": 1e-6})
         a = float(res.x)
-        ok, after = _score(m, _evaluate(ev, np.zeros((1, 2)), np.array([a]))[0], mask, criterion)
-        if ok and after * RMS_FACTOR <= before:
+        after = _fits(m, _evaluate(ev, np.zeros((1, 2)), np.array([a]))[0], mask, criterion, before)
+        if after is not None:
             fits.append((abs(a), a, after))
     if not fits:
         return None
     fits.sort()
     _, a, after = fits[0]
-    detail = f"grid turned {a:+.2f} deg from the model's grid direction (tolerance {ev.angle_tol:g})"
+    detail = f"grid turned {a:+.2f} deg from the model's direction (tolerance {ev.angle_tol:g})"
     if len(fits) > 1:
         detail += "; also fits at " + ", ".join(f"{f[1]:+.2f}" for f in fits[1:]) + " deg"
     return _row(ev.gauge, "grid angle", detail, before, after, abs(a) <= ev.angle_tol, a)
@@ -241,11 +244,11 @@ def _best_offset(ev: GaugeEvidence, criterion: Criterion, mask: NDArray[np.bool_
     P = _evaluate(ev, x + np.array([[e, 0], [-e, 0], [0, e], [0, -e]]), np.zeros(4))[:, mask]
     sv, vt = np.linalg.svd(np.column_stack([P[0] - P[1], P[2] - P[3]]) / (2 * e))[1:]
     note = ""
-    if sv[1] < 1e-3 * sv[0]:
+    if sv.size < 2 or sv[1] < 1e-3 * sv[0]:
         x = x - (x @ vt[1]) * vt[1]
         note = "; only the component along the strain gradient is determined, shortest shown"
-    ok, after = _score(m, _evaluate(ev, x[None], np.zeros(1))[0], mask, criterion)
-    if not (ok and after * RMS_FACTOR <= before):
+    after = _fits(m, _evaluate(ev, x[None], np.zeros(1))[0], mask, criterion, before)
+    if after is None:
         return None
     d = float(np.hypot(*x))
     detail = (f"grid centre moved by (along, across) = ({x[0]:+.3g}, {x[1]:+.3g}), distance "
@@ -258,11 +261,11 @@ def _explain(ev: GaugeEvidence, criterion: Criterion, radius: float) -> list[dic
     m, p = ev.measured, ev.predicted
     mask = ev.active & np.isfinite(m)
     before = _score(m, p, mask, criterion)[1]
-    rows = []
+    rows: list[dict[str, Any]] = []
 
     def check(name: str, data: Array, model: Array, detail: str, parameter: float = NAN) -> None:
-        ok, after = _score(data, model, mask, criterion)
-        if ok and after * RMS_FACTOR <= before:
+        after = _fits(data, model, mask, criterion, before)
+        if after is not None:
             rows.append(_row(ev.gauge, name, detail, before, after, None, parameter))
 
     check("sign reversed", -m, p, "-1 x measured fits the model reading")
@@ -282,30 +285,27 @@ def _explain(ev: GaugeEvidence, criterion: Criterion, radius: float) -> list[dic
 
 def _swaps(failing: list[GaugeEvidence], criterion: Criterion) -> list[dict[str, Any]]:
     """Rows for pairs of failing gauges that both pass with their measured columns exchanged."""
-    rows = []
+    rows: list[dict[str, Any]] = []
     for a, b in itertools.combinations(failing, 2):
         if a.measured.shape != b.measured.shape:
             continue
-        found = []
+        found: list[dict[str, Any]] = []
         for x, y in ((a, b), (b, a)):
             before = _score(x.measured, x.predicted, x.active & np.isfinite(x.measured),
                             criterion)[1]
-            ok, after = _score(y.measured, x.predicted, x.active & np.isfinite(y.measured),
-                               criterion)
-            found.append(_row(x.gauge, "channels swapped", f"swapped with gauge {y.gauge!r}",
-                              before, after) if ok and after * RMS_FACTOR <= before else None)
-        rows += found if all(found) else []
+            after = _fits(y.measured, x.predicted, x.active & np.isfinite(y.measured), criterion,
+                          before)
+            if after is not None:
+                found.append(_row(x.gauge, "channels swapped", f"swapped with gauge {y.gauge!r}",
+                                  before, after))
+        rows += found if len(found) == 2 else []
     return rows
 
 
 def _frame(rows: list[dict[str, Any]], gauges: list[str]) -> pd.DataFrame:
-    df = pd.DataFrame(rows, columns=list(COLUMNS))
-    df["plausible"] = df["plausible"].astype(object)
-    if df.empty:
-        return df
-    key = df["gauge"].map(gauges.index) * 100 + df["explanation"].map(
-        lambda e: _ORDER.index(e) if e in _ORDER else 99)
-    return df.iloc[np.argsort(key.to_numpy(), kind="stable")].reset_index(drop=True)
+    """Rows in gauge order, then in the order of ``_ORDER``."""
+    rows = sorted(rows, key=lambda r: (gauges.index(r["gauge"]), _ORDER.index(r["explanation"])))
+    return pd.DataFrame(rows, columns=list(COLUMNS)).astype({"plausible": object})
 
 
 def diagnose(evidence: Sequence[GaugeEvidence], criterion: Criterion, *,
@@ -325,10 +325,9 @@ def diagnose(evidence: Sequence[GaugeEvidence], criterion: Criterion, *,
     Returns
     -------
     pandas.DataFrame
-        Columns ``gauge, explanation, detail, rms_before_ue, rms_after_ue, plausible, parameter``,
-        one row per (failing gauge, qualifying explanation). ``parameter`` is the gain k, the grid
-        angle [deg] or the offset distance [length unit], else NaN; ``plausible`` compares the
-        angle or offset with the gauge's placement tolerance, else None.
+        ``COLUMNS``, one row per (failing gauge, qualifying explanation). ``parameter`` is the gain
+        k, the grid angle [deg] or the offset distance [length unit], else NaN; ``plausible``
+        compares the angle or offset with the gauge's tolerance, else None.
 
     Raises
     ------
@@ -339,21 +338,18 @@ def diagnose(evidence: Sequence[GaugeEvidence], criterion: Criterion, *,
 
     Notes
     -----
-    An explanation qualifies when, with it applied, the gauge passes at every evaluated active
-    step and its RMS difference falls at least ``RMS_FACTOR`` (3) times. Explanations tried:
-    measured x -1; measured columns of two failing gauges exchanged (both must qualify); measured
-    / k (see ``_gain``); each alternative model reading; the best grid angle and grid-centre offset
-    found with ``evaluate_at``.
+    Tried: measured x -1; the measured columns of two failing gauges exchanged (both must
+    qualify); measured / k (see ``_gain``); each alternative model reading; the best grid angle
+    and grid-centre offset found with ``evaluate_at``.
     """
     if search_radius is not None and not search_radius > 0:
         msg = f"search_radius is {search_radius}; give a positive length in the model's unit"
         raise StudyError(msg)
     checked = [_checked(ev) for ev in evidence]
-    failing = [ev for ev in checked if not _score(ev.measured, ev.predicted,
-                                                  ev.active & np.isfinite(ev.measured),
-                                                  criterion)[0]
-               and (ev.active & np.isfinite(ev.measured)).any()]
-    rows = []
+    masks = [ev.active & np.isfinite(ev.measured) for ev in checked]
+    failing = [ev for ev, mask in zip(checked, masks, strict=True)
+               if mask.any() and not _score(ev.measured, ev.predicted, mask, criterion)[0]]
+    rows: list[dict[str, Any]] = []
     for ev in failing:
         radius = search_radius if search_radius is not None else max(5 * ev.position_tol, 3.0)
         rows += _explain(ev, criterion, radius)
@@ -372,23 +368,23 @@ def diagnose_rosette(name: str, grids: list[str], measured: ArrayLike, predicted
     grids : list of str
         Grid labels in column order (e.g. ``["A", "B", "C"]``).
     measured, predicted, mirrored : array_like, shape (s, m)
-        Grid readings: tared measurements, model readings, and model readings of the mirror-image
-        rosette (grid angles negated). [microstrain]
+        Tared measurements, model readings, and model readings of the mirror-image rosette (grid
+        angles negated). [microstrain]
     active : array_like of bool, shape (s,)
         Non-zero-load steps that count.
     criterion : Criterion
-        The analyst's pass criterion.
 
     Returns
     -------
     pandas.DataFrame
-        Same columns as :func:`diagnose`; explanation ``rosette grids permuted`` (detail gives the
-        order of measured columns that fits grids in order) or ``rosette mirrored``.
+        ``COLUMNS``; ``rosette grids permuted`` (detail: the order of measured columns that fits
+        the grids in order) or ``rosette mirrored``.
     """
     m, p, mir = (np.asarray(a, dtype=float) for a in (measured, predicted, mirrored))
     act = np.asarray(active, dtype=bool)
     for label, a in (("predicted", p), ("mirrored", mir)):
-        if m.ndim != 2 or a.shape != m.shape or m.shape[1] != len(grids) or act.shape != m.shape[:1]:
+        if m.ndim != 2 or a.shape != m.shape or m.shape[1] != len(grids) \
+                or act.shape != m.shape[:1]:
             msg = (f"rosette {name!r}: measured {m.shape}, {label} {a.shape}, active {act.shape} "
                    f"with {len(grids)} grids; pass (steps, grids) arrays and (steps,) active")
             raise ReadingsFormatError(msg)
@@ -397,15 +393,15 @@ def diagnose_rosette(name: str, grids: list[str], measured: ArrayLike, predicted
     rows: list[dict[str, Any]] = []
     if ok or not mask.any():
         return _frame(rows, [name])
-    for perm in itertools.permutations(range(len(grids))):
+    for perm in list(itertools.permutations(range(len(grids))))[1:]:  # [0] is the identity
         mp = m[:, list(perm)]
-        ok, after = _score(mp, p, act[:, None] & np.isfinite(mp), criterion)
-        if perm != tuple(range(len(grids))) and ok and after * RMS_FACTOR <= before:
-            order = ", ".join(grids[i] for i in perm)
-            rows.append(_row(name, "rosette grids permuted",
-                             f"measured columns {order} fit grids {', '.join(grids)}", before, after))
-    ok, after = _score(m, mir, mask, criterion)
-    if ok and after * RMS_FACTOR <= before:
+        after = _fits(mp, p, act[:, None] & np.isfinite(mp), criterion, before)
+        if after is not None:
+            detail = (f"measured columns {', '.join(grids[i] for i in perm)} fit grids "
+                      f"{', '.join(grids)}")
+            rows.append(_row(name, "rosette grids permuted", detail, before, after))
+    after = _fits(m, mir, mask, criterion, before)
+    if after is not None:
         rows.append(_row(name, "rosette mirrored", "mirrored grid layout fits", before, after))
     return _frame(rows, [name])
 
@@ -417,13 +413,15 @@ def _histories(c: Array, loads: Array | None) -> tuple[Array, Array, list[int]]:
     not rank 1 are listed and left out of the swap check.
     """
     s, g, n = c.shape
-    L, U, bad = np.zeros((s, n)), np.zeros((g, n)), []
+    L, U = np.zeros((s, n)), np.zeros((g, n))
+    bad: list[int] = []
     for j in range(n):
-        u, sv, _ = np.linalg.svd(c[:, :, j], full_matrices=False)
         if loads is not None:
             L[:, j] = loads[:, j]
-        elif sv[0] > 0 and (sv.size < 2 or sv[1] <= 1e-9 * sv[0]):
-            L[:, j] = u[:, 0] / u[np.argmax(np.abs(u[:, 0])), 0]
+        else:
+            u, sv, _ = np.linalg.svd(c[:, :, j], full_matrices=False)
+            if sv[0] > 0 and (sv.size < 2 or sv[1] <= 1e-9 * sv[0]):
+                L[:, j] = u[:, 0] / u[np.argmax(np.abs(u[:, 0])), 0]
         if not L[:, j] @ L[:, j] > 0:
             bad.append(j)
             continue
@@ -453,18 +451,16 @@ def diagnose_loads(measured: ArrayLike, contributions: ArrayLike, active: ArrayL
     Returns
     -------
     dict
-        ``factors`` and ``standard_errors`` per load name (least squares measured = sum_j k_j
-        contribution_j over all finite active pairs; SE = sqrt(diag(s^2 (X'X)^-1)), s^2 = RSS /
-        (n - C)); ``n_pairs``; ``rms_before_ue`` and ``rms_after_ue`` (with the factors);
-        ``swapped_loads`` and ``load_sign``: lists of findings whose correction cuts the overall
-        RMS difference at least 3 times, each with ``loads``, ``rms_before_ue``, ``rms_after_ue``,
-        ``factor`` (the RMS ratio) and ``pass_fraction_before``/``_after``; ``reason`` when a
-        value is NaN or a check was skipped.
+        ``factors`` and ``standard_errors`` by load name: least squares measured = sum_j k_j
+        contribution_j over the finite active pairs, SE = sqrt(diag(s^2 (X'X)^-1)), s^2 = RSS /
+        (n - C); ``n_pairs``; ``rms_before_ue``, ``rms_after_ue`` (with the factors);
+        ``swapped_loads``, ``load_sign``: findings whose correction cuts the overall RMS
+        difference at least 3 times, with ``loads``, ``rms_before_ue``, ``rms_after_ue``,
+        ``factor`` (RMS ratio), ``pass_fraction_before``/``_after``; ``reason`` if anything is NaN
+        or skipped.
     """
-    m = np.asarray(measured, dtype=float)
-    c = np.asarray(contributions, dtype=float)
-    act = np.asarray(active, dtype=bool)
-    names = [str(n) for n in load_names]
+    m, c = np.asarray(measured, dtype=float), np.asarray(contributions, dtype=float)
+    act, names = np.asarray(active, dtype=bool), [str(n) for n in load_names]
     if m.ndim != 2 or c.shape != (*m.shape, len(names)) or act.shape != m.shape[:1]:
         msg = (f"measured {m.shape}, contributions {c.shape}, active {act.shape} with "
                f"{len(names)} load names: pass (steps, gauges), (steps, gauges, loads), (steps,)")
@@ -477,7 +473,7 @@ def diagnose_loads(measured: ArrayLike, contributions: ArrayLike, active: ArrayL
     y, X = m[mask], c[mask]
     pred = X.sum(axis=1)
     n, k = X.shape
-    reasons = []
+    reasons: list[str] = []
 
     def rms(p: Array) -> float:
         return float(np.sqrt(np.mean((y - p) ** 2))) if n else NAN
@@ -505,7 +501,7 @@ def diagnose_loads(measured: ArrayLike, contributions: ArrayLike, active: ArrayL
 
     def finding(key: str, which: list[str], p: Array) -> None:
         after = rms(p)
-        if after * RMS_FACTOR <= before:
+        if before > 0 and after * RMS_FACTOR <= before:
             out[key].append({"loads": which, "rms_before_ue": before, "rms_after_ue": after,
                              "factor": before / after if after > 0 else float("inf"),
                              "pass_fraction_before": passed(pred),
@@ -515,8 +511,8 @@ def diagnose_loads(measured: ArrayLike, contributions: ArrayLike, active: ArrayL
         finding("load_sign", [names[j]], pred - 2 * X[:, j])
     L, U, bad = _histories(np.where(np.isfinite(c), c, 0.0), lo)
     if bad:
-        reasons.append("swap check skipped for " + ", ".join(names[j] for j in bad) + ": not a "
-                       "load history times a unit case (pass loads=)")
+        reasons.append("swap check skipped for " + ", ".join(names[j] for j in bad) + ": no "
+                       "load history (all zero, or not rank 1 without loads=)")
     for i, j in itertools.combinations([j for j in range(k) if j not in bad], 2):
         if np.allclose(U[:, i], U[:, j], rtol=1e-9, atol=1e-12 * np.max(np.abs(U))):
             continue  # same unit case: exchanging the loads changes nothing

@@ -63,7 +63,8 @@ def _evaluator(study: Study, model: Any, steps: Steps, j: int
         mini[["normal_x", "normal_y", "normal_z"]] = n
         mini_op = build_operator(op.mesh, mini, snap_tol=np.inf, band=False,
                                  calibration_poisson=study.calibration_poisson,
-                                 grid_points=study.grid_points, locator=model.locator)
+                                 grid_points=study.grid_points, locator=model.locator,
+                                 strict=False)
         key = "axial" if study.kt_corrected else "indicated"
         nominal = mini_op.row_kind == 0
         R = np.stack([case_rows(model, c, c.time_index if isinstance(c.time_index, int) else None,

@@ -71,6 +71,7 @@ class GaugeOperator:
     row_offset: NDArray[np.float64]  # (r, 3): along-grid offset, across offset, angle [deg]
     kt: NDArray[np.float64]          # (g,)
     nu0: NDArray[np.float64]         # (g,)
+    invalid: NDArray[np.bool_]       # (g,) gauges whose grid left the face (non-strict builds)
     _cache: dict
 
     @property
@@ -98,7 +99,7 @@ def _face_normal_sign(mesh: Mesh, faces: NDArray[np.str_], normal: NDArray) -> N
 def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.0,
                    angle_tol: float = 0.0, snap_tol: float = 1.0, calibration_poisson: float = 0.285,
                    grid_points: int = 5, band: bool = True,
-                   locator: Locator | None = None) -> GaugeOperator:
+                   locator: Locator | None = None, strict: bool = True) -> GaugeOperator:
     """Locate every gauge and build its sampling operator.
 
     Parameters
@@ -114,6 +115,9 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
         Poisson's ratio of the gauge manufacturer's calibration beam (nu0).
     grid_points : int
         Gauss-Legendre points along a grid of non-zero length.
+    strict : bool
+        Refuse a gauge whose grid overhangs an edge (default). When False (model searches), such a
+        gauge is marked in ``invalid`` and its readings are NaN.
 
     Raises
     ------
@@ -247,6 +251,7 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
     p_xi[at_centre] = xi_c[row_gauge[p_row[at_centre]]]
     need = ~at_centre & ~p_emb
     valid_row = np.ones(n_rows, dtype=bool)
+    invalid = np.zeros(n, dtype=bool)
     if need.any():
         spg, xig = project(p_x[need], rn[p_row[need]])
         new_n = _face_normal_sign(mesh, faces[row_gauge[p_row[need]]], spg.normal)
@@ -262,7 +267,10 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
         p_n[need] = new_n
         bad_rows = np.unique(p_row[need][bad_pt])
         nominal_bad = bad_rows[row_kind[bad_rows] == 0]
-        if len(nominal_bad):
+        if len(nominal_bad) and not strict:
+            invalid[row_gauge[nominal_bad]] = True
+            bad_rows = bad_rows[row_kind[bad_rows] != 0]
+        elif len(nominal_bad):
             raise GaugeError(*[f"gauge '{names[row_gauge[r]]}': its grid (length "
                                f"{length[row_gauge[r]]:g}) overhangs an edge of the face it is on; "
                                "check the position, direction and length" for r in nominal_bad])
@@ -297,7 +305,8 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
                          direction=p_d[keep_pt], transverse=p_t[keep_pt],
                          face=faces[row_gauge[p_row[keep_pt]]], weights=W,
                          row_gauge=row_gauge[keep_rows], row_kind=row_kind[keep_rows],
-                         row_offset=row_off[keep_rows], kt=kt, nu0=nu0, _cache={})
+                         row_offset=row_off[keep_rows], kt=kt, nu0=nu0, invalid=invalid,
+                         _cache={})
 
 
 def _interpolation(op: GaugeOperator, *, gradient: bool) -> list[sparse.csr_matrix]:
@@ -377,6 +386,8 @@ def evaluate_rows(op: GaugeOperator, field: Field) -> dict[str, NDArray[np.float
     trans = op.weights @ et
     kt = op.kt[op.row_gauge]
     nu0 = op.nu0[op.row_gauge]
+    bad = op.invalid[op.row_gauge]
+    axial, trans = np.where(bad, np.nan, axial), np.where(bad, np.nan, trans)
     return {"axial": axial, "transverse": trans, "indicated": (axial + kt * trans) / (1 - nu0 * kt)}
 
 

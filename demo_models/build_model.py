@@ -48,13 +48,13 @@ FLANGE_LENGTH = 20.0  # x extent of the bolted root flange
 FLANGE_HALF_WIDTH = 35.0
 ARM_HALF_WIDTH = 20.0  # arm width 40
 FILLET_RADIUS = 10.0  # flange-to-arm shoulder fillet (vertical edges at x = 20, y = +-20)
-PIN_CENTRE = (170.0, 0.0)
+PIN_CENTRE = (180.0, 0.0)
 PIN_RADIUS = 8.0  # pin hole, diameter 16
 LUG_RADIUS = 20.0  # round lug end, concentric with the pin hole
-HOLE_CENTRE = (125.0, 0.0)
+HOLE_CENTRE = (140.0, 0.0)
 HOLE_RADIUS = 6.0  # lightening hole, diameter 12
-STRETCH = (30.0, 119.0)  # prismatic arm between the fillet end and the lightening hole
-BEAM_SECTION_X = 75.0  # 45 mm (> arm width) from both ends of the stretch: St-Venant distance
+STRETCH = (30.0, 134.0)  # prismatic arm between the fillet end and the lightening hole
+BEAM_SECTION_X = 82.0  # 52 mm (> arm width 40) from both ends of the stretch: St-Venant distance
 
 # Unit load cases: total pin load applied as a cosine bearing pressure on the pin-hole bore.
 CASES = {"pull": (10000.0, 0.0), "side": (0.0, 2000.0)}  # (Fx, Fy) [N]
@@ -344,14 +344,18 @@ def solve_cases(points: NDArray[np.float64], tet10: NDArray[np.int64],
     bore = FacetBasis(mesh, element, facets=facets_of(faces["pin_bore"]), intorder=6)
     cx, cy = PIN_CENTRE
 
-    @LinearForm
-    def bearing(v, w):
-        # Cosine bearing pressure of a pin pulled along w.d: radial, peak on the loaded side.
-        rx, ry = w.x[0] - cx, w.x[1] - cy
-        r = np.sqrt(rx**2 + ry**2)
-        er = np.array([rx / r, ry / r, 0 * r])
-        cos = np.maximum(er[0] * w.d[0] + er[1] * w.d[1], 0.0)
-        return dot(cos * er, v)
+    def bearing(direction: NDArray[np.float64]) -> LinearForm:
+        @LinearForm
+        def form(v, w):
+            # Cosine bearing pressure of a pin pulled along `direction`: radial, peak on the
+            # loaded side, zero on the unloaded half of the bore.
+            rx, ry = w.x[0] - cx, w.x[1] - cy
+            r = np.sqrt(rx**2 + ry**2)
+            er = np.array([rx / r, ry / r, 0 * r])
+            cos = np.maximum(er[0] * direction[0] + er[1] * direction[1], 0.0)
+            return dot(cos * er, v)
+
+        return form
 
     free = np.setdiff1d(np.arange(basis.N), clamped)
     kff = stiffness[free][:, free].tocsc()
@@ -376,7 +380,7 @@ def solve_cases(points: NDArray[np.float64], tet10: NDArray[np.int64],
     results = {}
     for case, (fx, fy) in CASES.items():
         direction = np.array([fx, fy]) / np.hypot(fx, fy)
-        load = asm(bearing, bore, d=direction)
+        load = asm(bearing(direction), bore)
         # The P2 basis sums to one, so the component sums of the load vector are the resultant.
         resultant = np.array([load[basis.nodal_dofs[c]].sum() + load[basis.edge_dofs[c]].sum()
                               for c in range(3)])
@@ -401,3 +405,51 @@ def _stress(strain: NDArray[np.float64]) -> NDArray[np.float64]:
     mu = E_MODULUS / (2 * (1 + POISSON))
     trace = strain[:, :3].sum(axis=1, keepdims=True)
     return np.hstack([lam * trace + 2 * mu * strain[:, :3], mu * strain[:, 3:]])
+
+
+# ---------------------------------------------------------------------------------------------
+# Output files
+
+def write_results(out_dir: Path, points: NDArray[np.float64], tet10: NDArray[np.int64],
+                  results: dict[str, dict[str, NDArray[np.float64]]]) -> None:
+    """Write ``bracket.vtu`` and the time series ``bracket_series.xdmf`` / ``.h5``.
+
+    Parameters
+    ----------
+    out_dir : Path
+        Target folder (created if missing).
+    points : ndarray, shape (n, 3)
+        Node coordinates. [mm]
+    tet10 : ndarray, shape (m, 10)
+        Connectivity in VTK node order.
+    results : dict
+        Output of :func:`solve_cases`.
+    """
+    import meshio
+
+    out_dir.mkdir(parents=True, exist_ok=True)
+    # Single precision keeps the shipped files small: 7 significant digits are 1e-5 microstrain
+    # at these strain levels, far below any gauge resolution.
+    cells = [("tetra10", tet10.astype(np.int32))]
+    point_data = {f"{field}_{case}": values.astype(np.float32)
+                  for field in ("U", "E", "S") for case, fields in results.items()
+                  for name, values in fields.items() if name == field}
+    meshio.write(out_dir / "bracket.vtu", meshio.Mesh(points, cells, point_data=point_data),
+                 binary=True, compression="zlib")
+    # meshio's TimeSeriesWriter puts the .h5 in the current directory (meshio issue 1442).
+    with _working_directory(out_dir):
+        with meshio.xdmf.TimeSeriesWriter("bracket_series.xdmf") as writer:
+            writer.write_points_cells(points, cells)
+            for t, case in enumerate(CASES):
+                writer.write_data(float(t), point_data={name: values.astype(np.float32)
+                                                       for name, values in results[case].items()})
+
+
+@contextlib.contextmanager
+def _working_directory(path: Path):
+    previous = Path.cwd()
+    os.chdir(path)
+    try:
+        yield
+    finally:
+        os.chdir(previous)

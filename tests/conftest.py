@@ -109,3 +109,60 @@ def gauge_frame(rows: list[dict]) -> pd.DataFrame:
 @pytest.fixture
 def rng() -> np.random.Generator:
     return np.random.default_rng(20261201)
+
+
+def write_block_study(folder, *, readings_rows=None, extra_toml: str = "", gauges=None,
+                      ctype: str = "hexahedron20"):
+    """A 4 x 3 x 2 (mm) block with two linear strain cases and a gauge map, written to ``folder``.
+
+    Case 'pull' is a linear field along x, case 'side' a shear-dominated one; both are analytic, so
+    the model readings that tests compare against come from the fields, not from the tool.
+    Returns the study path.
+    """
+    import meshio
+
+    mesh = solid_mesh(ctype, n=(4, 3, 2))
+    x = mesh.points
+    pull = np.zeros((len(x), 6))
+    pull[:, 0] = 1e-3 * (1.0 + 0.1 * x[:, 0])
+    pull[:, 1] = pull[:, 2] = -0.3 * pull[:, 0]
+    side = np.zeros((len(x), 6))
+    side[:, 0] = 2e-4 * (1.0 + 0.2 * x[:, 1])
+    side[:, 1] = 4e-4
+    side[:, 3] = 6e-4                      # engineering shear xy
+    meshio.write(folder / "block.vtu", meshio.Mesh(x, [(ctype, mesh.blocks[0][1])],
+                                                   point_data={"E_pull": pull, "E_side": side}))
+    if gauges is None:
+        gauges = default_gauges()
+    gauges.to_csv(folder / "gauges.csv", index=False)
+    if readings_rows is not None:
+        readings_rows.to_csv(folder / "readings.csv", index=False)
+    study = folder / "study.toml"
+    study.write_text(
+        'title = "Synthetic block"\n'
+        '[model]\nfile = "block.vtu"\nlength_unit = "mm"\nstress_unit = "MPa"\n'
+        '[[case]]\nname = "pull"\nstrain = "E_pull"\n'
+        '[[case]]\nname = "side"\nstrain = "E_side"\n'
+        "[material]\nE = 70000.0\nnu = 0.3\n"
+        '[gauges]\nfile = "gauges.csv"\nposition_tol = 0.2\nangle_tol = 2.0\n'
+        + ('[readings]\nfile = "readings.csv"\nzero = "first"\n'
+           '[[load]]\ncolumn = "P_kN"\ncase = "pull"\nreference = 10.0\n'
+           '[[load]]\ncolumn = "S_kN"\ncase = "side"\nreference = 2.0\n'
+           "[criteria]\nrelative = 0.10\nabsolute_ue = 20.0\n" if readings_rows is not None else "")
+        + extra_toml)
+    return study
+
+
+def default_gauges() -> pd.DataFrame:
+    """Ten single gauges on the top face and a 0/45/90 rosette; directions vary."""
+    rows = []
+    for i in range(10):
+        th = np.radians(18.0 * i)
+        rows.append(dict(gauge=f"S{i:02d}", x=0.6 + 0.3 * i, y=0.8 + 0.15 * (i % 4), z=2.0,
+                         dir_x=round(np.cos(th), 6), dir_y=round(np.sin(th), 6), dir_z=0,
+                         length=0.3, kt=0.01, rosette=""))
+    for k, th in enumerate((0, 45, 90)):
+        t = np.radians(th)
+        rows.append(dict(gauge=f"R-{'abc'[k]}", x=2.0, y=2.2, z=2.0, dir_x=round(np.cos(t), 6),
+                         dir_y=round(np.sin(t), 6), dir_z=0, length=0.3, kt=0.005, rosette="R"))
+    return pd.DataFrame(rows)

@@ -133,10 +133,10 @@ def read_readings(path: str | PathLike[str], *, gauges: Mapping[str, str], loads
     rows = _text_lines(_decode(raw, name))
     if not rows:
         raise ReadingsFormatError(f"{name}: the file is empty; expected a header with 'step'")
-    text = rows[0][1]
-    sep = max((";", "\t", ","), key=text.count) if any(s in text for s in ";\t,") else ","
+    head = rows[0][1]
+    sep = max((";", "\t", ","), key=head.count) if any(s in head for s in ";\t,") else ","
     decimal_comma = sep != ","  # there a comma inside a number can only be a decimal comma
-    header = [h.strip() for h in _fields(text, sep, name, rows[0][0])]
+    header = [h.strip() for h in _fields(head, sep, name, rows[0][0])]
     rows = [(k, t) for k, t in rows[1:] if t.strip(sep + " \t")]  # rows of empty cells are blank
     columns, problems = _columns(header, gauge_map, loads, name)
     widths = [len(_fields(t, sep, name, k)) for k, t in rows]

@@ -1,0 +1,154 @@
+"""`correlate run` end to end on synthetic readings whose expected values are built in.
+
+The readings are the model readings (computed from the analytic fields by `predict`, whose own
+accuracy is tested against closed forms in test_predict.py) times a known ratio, plus a known
+offset and noise, with a preload in the tare row and invented faults on named channels.
+"""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+from conftest import write_block_study
+from scipy import stats as sps
+
+from correlate.cli import main
+from correlate.config import read_study
+from correlate.pipeline import predict_table, prepare
+
+RATIO = 1.05
+LOADS = [(0.3, 0.05), (2.5, 0.0), (5.0, 0.0), (7.5, 0.0), (10.0, 0.0), (10.0, 1.0), (10.0, 2.0),
+         (5.0, 2.0), (0.3, 2.0), (0.3, 0.05)]
+
+
+def synthetic_readings(folder, rng, *, faults=True):
+    study_path = write_block_study(folder)
+    model = prepare(read_study(study_path))
+    table = predict_table(model)
+    pred = table.pivot(index="gauge", columns="case", values="predicted_ue")
+    names = list(model.gauges["gauge"])
+    loads = np.array(LOADS)
+    f = np.c_[loads[:, 0] / 10.0, loads[:, 1] / 2.0]
+    truth = f @ pred.loc[names, ["pull", "side"]].to_numpy().T * RATIO     # (steps, gauges)
+    offsets = rng.uniform(-150, 150, len(names))
+    data = truth + offsets + rng.normal(0, 1.0, truth.shape)
+    col = {g: j for j, g in enumerate(names)}
+    if faults:
+        data[:, col["S02"]] *= -1                                  # wired reversed
+        data[:, col["S04"]] = 7.0 + rng.normal(0, 0.2, len(loads))  # dead
+        data[:, col["S06"]] += 15.0 * np.arange(len(loads))          # drifts 15 ue per step
+        data[:, [col["S07"], col["S08"]]] = data[:, [col["S08"], col["S07"]]]  # swapped
+    df = pd.DataFrame(np.round(data, 2), columns=names)
+    df.insert(0, "S_kN", loads[:, 1])
+    df.insert(0, "P_kN", loads[:, 0])
+    df.insert(0, "step", np.arange(len(loads)))
+    df.to_csv(folder / "readings.csv", index=False)
+    (folder / "study.toml").write_text(
+        (folder / "study.toml").read_text()
+        + '[readings]\nfile = "readings.csv"\nzero = "first"\n'
+        '[[load]]\ncolumn = "P_kN"\ncase = "pull"\nreference = 10.0\n'
+        '[[load]]\ncolumn = "S_kN"\ncase = "side"\nreference = 2.0\n'
+        "[criteria]\nrelative = 0.10\nabsolute_ue = 20.0\n")
+    return study_path, names
+
+
+@pytest.fixture(scope="module")
+def faulty_run(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("faulty")
+    rng = np.random.default_rng(7)
+    study, names = synthetic_readings(folder, rng)
+    assert main(["--quiet", "run", str(study), "--out", str(folder / "out"), "--no-report"]) == 0
+    out = folder / "out"
+    return {"gauges": pd.read_csv(out / "gauges.csv"), "summary": json.loads((out / "summary.json").read_text()),
+            "flags": pd.read_csv(out / "flags.csv"), "names": names, "folder": folder}
+
+
+def test_ratio_is_recovered_with_a_cluster_robust_interval(faulty_run):
+    # Built in: measured = 1.05 x predicted + noise (sd 1 ue) after the tare removes offsets.
+    fit = faulty_run["summary"]["fit"]
+    lo, hi = fit["slope_origin_ci"]
+    assert lo <= RATIO <= hi
+    assert fit["slope_origin"] == pytest.approx(RATIO, abs=0.01)  # noise of 1 ue on ~1000 ue
+    assert "cluster" in fit["ci_method"]
+
+
+def test_fit_agrees_with_scipy_on_the_healthy_pairs(faulty_run):
+    # Reference: scipy.stats.linregress on the pass/fail rows of gauges.csv (the healthy pairs).
+    g = faulty_run["gauges"]
+    pairs = g[g["status"].isin(["pass", "fail"])]
+    ref = sps.linregress(pairs["predicted_ue"], pairs["measured_ue"])
+    fit = faulty_run["summary"]["fit"]
+    # tolerance: gauges.csv rounds microstrain to 0.001
+    assert fit["slope"] == pytest.approx(ref.slope, rel=1e-6)
+    assert fit["intercept"] == pytest.approx(ref.intercept, abs=1e-3)
+    assert fit["r2"] == pytest.approx(ref.rvalue ** 2, rel=1e-6)
+    assert fit["n"] == len(pairs)
+
+
+def test_each_invented_fault_is_flagged_and_no_other(faulty_run):
+    flags = faulty_run["flags"]
+    gauge_flags = flags[flags["scope"] == "gauge"]
+    found = {(r.gauge, r.flag) for r in gauge_flags.itertuples()}
+    assert ("S02", "reversed") in found
+    assert ("S04", "dead") in found
+    assert ("S06", "drift") in found
+    assert {g for g, _ in found} == {"S02", "S04", "S06"}
+
+
+def test_swapped_channels_are_diagnosed(faulty_run):
+    diag = pd.DataFrame(faulty_run["summary"]["diagnoses"])
+    swaps = diag[diag["explanation"] == "channels swapped"]
+    assert set(swaps["gauge"]) == {"S07", "S08"}
+
+
+def test_tare_removes_offsets_and_preload(faulty_run):
+    # The tare row (step 0) carries the 0.3 kN preload and the zero offsets; the last row returns to
+    # the same loads, so it is a zero-load row whose healthy readings are back near zero.
+    g = faulty_run["gauges"]
+    assert set(g.loc[g["step"] == 0, "status"]) == {"tare"}
+    last = g[(g["step"] == 9) & ~g["gauge"].isin(["S02", "S04", "S06"])]
+    assert set(last["status"]) == {"zero-load"}
+    assert last["measured_ue"].abs().max() < 6.0  # noise of 1 ue, sd; 6 sd
+    assert last["predicted_ue"].abs().max() < 1e-9
+
+
+def test_statuses_follow_the_criterion(faulty_run):
+    g = faulty_run["gauges"]
+    ev = g[g["status"].isin(["pass", "fail"])]
+    allowed = np.maximum(0.10 * ev["predicted_ue"].abs(), 20.0)
+    expect = np.where(ev["difference_ue"].abs() <= allowed, "pass", "fail")
+    assert (ev["status"].to_numpy() == expect).all()
+    rel = ev["relative"].dropna()
+    assert (ev.loc[rel.index, "predicted_ue"].abs() >= 200.0).all()
+
+
+def test_outputs_are_byte_identical_between_runs(tmp_path):
+    rng = np.random.default_rng(3)
+    study, _ = synthetic_readings(tmp_path, rng, faults=False)
+    for out in ("a", "b"):
+        assert main(["--quiet", "run", str(study), "--out", str(tmp_path / out), "--no-report"]) == 0
+    for name in ("gauges.csv", "rosettes.csv", "gauge_stats.csv", "flags.csv"):
+        assert (tmp_path / "a" / name).read_bytes() == (tmp_path / "b" / name).read_bytes()
+    a = json.loads((tmp_path / "a" / "summary.json").read_text())
+    b = json.loads((tmp_path / "b" / "summary.json").read_text())
+    a["provenance"].pop("generated"), b["provenance"].pop("generated")
+    assert a == b
+
+
+def test_existing_output_needs_force_and_inputs_are_untouched(tmp_path, capsys):
+    rng = np.random.default_rng(5)
+    study, _ = synthetic_readings(tmp_path, rng, faults=False)
+    before = {p.name: p.read_bytes() for p in tmp_path.iterdir() if p.is_file()}
+    out = tmp_path / "out"
+    out.mkdir()
+    (out / "keep.txt").write_text("previous run")
+    assert main(["--quiet", "run", str(study), "--out", str(out), "--no-report"]) == 2
+    assert "--force" in capsys.readouterr().err
+    assert (out / "keep.txt").read_text() == "previous run"
+    assert main(["--quiet", "run", str(study), "--out", str(out), "--no-report", "--force"]) == 0
+    assert not (out / "keep.txt").exists()
+    after = {p.name: p.read_bytes() for p in tmp_path.iterdir() if p.is_file()}
+    assert before == after
