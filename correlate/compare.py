@@ -44,6 +44,9 @@ class RunFolder:
 def read_run(folder: Path) -> RunFolder:
     """Read ``gauges.csv`` and ``summary.json`` of a run folder; raise RunFolderError if unusable."""
     folder = Path(folder)
+    if not folder.is_dir():
+        raise RunFolderError(f"run folder '{folder}' does not exist; give a folder written by "
+                             "`correlate run`")
     for name in ("gauges.csv", "summary.json"):
         if not (folder / name).is_file():
             raise RunFolderError(f"'{folder}' is not a run folder: {name} is missing; give a folder "
@@ -89,7 +92,7 @@ def gauge_summary(rows: pd.DataFrame, reference: tuple[int, int]) -> pd.DataFram
     ev = rows[rows["status"].isin(["pass", "fail"])]
     d = ev["difference_ue"].to_numpy(dtype=float)
     by = ev.assign(sq=d ** 2, failed=ev["status"].eq("fail")).groupby("gauge", sort=False)
-    rms = np.sqrt(by["sq"].mean()).reindex(gauges)
+    rms = np.sqrt(by["sq"].sum()).reindex(gauges)
     failed = by["failed"].any()
     at_ref = ev[(ev["step"] == reference[0]) & (ev["sequence"] == reference[1])]
     ref = at_ref.set_index("gauge")["difference_ue"].abs().reindex(gauges)
@@ -127,11 +130,9 @@ def compare_gauges(old: RunFolder, new: RunFolder) -> pd.DataFrame:
     reference = (int(ref["step"]), int(ref["sequence"]))
     a, b = gauge_summary(old.rows, reference), gauge_summary(new.rows, reference)
     out = []
+    absent = pd.Series({"status": "", "rms_ue": np.nan, "reference_ue": np.nan})
     for g in dict.fromkeys([*a.index, *b.index]):
-        o = a.loc[g] if g in a.index else pd.Series({"status": "", "rms_ue": np.nan,
-                                                     "reference_ue": np.nan})
-        n = b.loc[g] if g in b.index else pd.Series({"status": "", "rms_ue": np.nan,
-                                                     "reference_ue": np.nan})
+        o, n = (a.loc[g] if g in a.index else absent), (b.loc[g] if g in b.index else absent)
         out.append([g, classify(o["status"], n["status"], o["rms_ue"], n["rms_ue"]), o["status"],
                     n["status"], o["rms_ue"], n["rms_ue"], n["rms_ue"] - o["rms_ue"],
                     o["reference_ue"], n["reference_ue"]])

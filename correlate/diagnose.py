@@ -144,8 +144,11 @@ def _fits(data: Array, model: Array, mask: NDArray[np.bool_], criterion: Criteri
 
 
 def _rms_rows(m: Array, P: Array, mask: NDArray[np.bool_]) -> Array:
-    """RMS difference of each row of model readings ``P`` (k, s) against ``m`` on the mask."""
-    return np.sqrt(np.mean((P[:, mask] - m[mask]) ** 2, axis=1))
+    """RMS difference of each row of model readings ``P`` (k, s) against ``m`` on the mask.
+
+    Infinite where the model has no reading (a moved grid off the part): never a best fit.
+    """
+    return np.nan_to_num(np.sqrt(np.mean((P[:, mask] - m[mask]) ** 2, axis=1)), nan=np.inf)
 
 
 def _row(gauge: str, explanation: str, detail: str, before: float, after: float,
@@ -171,7 +174,8 @@ def _gain(ev: GaugeEvidence, mask: NDArray[np.bool_]) -> float | None:
     cases in varying proportions (a model error would scale them differently) and the nearby gauges
     pass. A negative k is a sign reversal with a gain, reported as ``sign reversed`` if it fits.
     """
-    if ev.neighbours_pass is not True or mask.sum() < 2:
+    if ev.neighbours_pass is not True or mask.sum() < 2 or not np.all(
+            np.isfinite(ev.contributions[mask])):
         return None
     sv = np.linalg.svd(ev.contributions[mask], compute_uv=False)
     p = ev.predicted[mask]
@@ -234,7 +238,7 @@ def _best_offset(ev: GaugeEvidence, criterion: Criterion, mask: NDArray[np.bool_
     r = _rms_rows(m, _evaluate(ev, X, np.zeros(len(X))), mask)
     if not np.any(np.isfinite(r)):
         return None
-    x0 = X[np.nanargmin(r)]
+    x0 = X[np.argmin(r)]
     res = optimize.minimize(rms, x0, method="Nelder-Mead", options={
         "initial_simplex": x0 + np.array([[0.0, 0.0], [h / 2, 0.0], [0.0, h / 2]]),
         "xatol": 1e-6 * radius, "fatol": 1e-9})
@@ -242,7 +246,8 @@ def _best_offset(ev: GaugeEvidence, criterion: Criterion, mask: NDArray[np.bool_
     # Jacobian of the readings with respect to the offset, by central differences.
     e = 1e-3 * radius
     P = _evaluate(ev, x + np.array([[e, 0], [-e, 0], [0, e], [0, -e]]), np.zeros(4))[:, mask]
-    sv, vt = np.linalg.svd(np.column_stack([P[0] - P[1], P[2] - P[3]]) / (2 * e))[1:]
+    J = np.column_stack([P[0] - P[1], P[2] - P[3]]) / (2 * e)
+    sv, vt = np.linalg.svd(J)[1:] if np.all(np.isfinite(J)) else (np.ones(2), np.eye(2))
     note = ""
     if sv.size < 2 or sv[1] < 1e-3 * sv[0]:
         x = x - (x @ vt[1]) * vt[1]

@@ -83,8 +83,12 @@ def _unit(v: NDArray) -> NDArray:
     return v / np.linalg.norm(v, axis=-1, keepdims=True)
 
 
-def _tangent(d: NDArray, n: NDArray) -> NDArray:
-    return _unit(d - np.sum(d * n, axis=-1, keepdims=True) * n)
+def _tangent(d: NDArray, n: NDArray, keep: NDArray | None = None) -> NDArray:
+    """d projected into the plane normal to n and normalised; rows where ``keep`` stay as d."""
+    t = d - np.sum(d * n, axis=-1, keepdims=True) * n
+    if keep is not None:
+        t = np.where(keep[:, None], d, t)
+    return _unit(t)
 
 
 def _face_normal_sign(mesh: Mesh, faces: NDArray[np.str_], normal: NDArray) -> NDArray:
@@ -180,7 +184,7 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
         warnings.warn(f"grid directions more than {OUT_OF_PLANE_WARN:.0f} degrees out of the surface "
                       f"plane were projected into it: {', '.join(warn)}", CorrelateWarning,
                       stacklevel=2)
-    direction = np.where(embedded[:, None], _unit(d_in), _tangent(d_in, normal))
+    direction = _tangent(d_in, normal, embedded)
     across = np.cross(normal, direction)
 
     ptol = gauges["position_tol"].fillna(position_tol).to_numpy(dtype=float) if band else np.zeros(n)
@@ -220,7 +224,7 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
         spm, _ = project(rc[moved], normal[row_gauge[moved]])
         rc[moved] = spm.point
         rn[moved] = _face_normal_sign(mesh, faces[row_gauge[moved]], spm.normal)
-    rd = np.where(embedded[row_gauge, None], direction[row_gauge], _tangent(direction[row_gauge], rn))
+    rd = _tangent(direction[row_gauge], rn, embedded[row_gauge])
     theta = np.radians(row_off[:, 2])[:, None]
     rd = np.cos(theta) * rd + np.sin(theta) * np.cross(rn, rd)
 
@@ -271,13 +275,23 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
             invalid[row_gauge[nominal_bad]] = True
             bad_rows = bad_rows[row_kind[bad_rows] != 0]
         elif len(nominal_bad):
-            raise GaugeError(*[f"gauge '{names[row_gauge[r]]}': its grid (length "
-                               f"{length[row_gauge[r]]:g}) overhangs an edge of the face it is on; "
-                               "check the position, direction and length" for r in nominal_bad])
+            flipped = set(p_row[need][turned & (np.sum(new_n * rn[p_row[need]], axis=1) < 0)])
+            lines = []
+            for r in nominal_bad:
+                gname = names[row_gauge[r]]
+                if mesh.family == "shell" and r in flipped:
+                    lines.append(f"gauge '{gname}': its grid crosses shell elements with opposed "
+                                 "normals, so top and bottom swap under it; orient the shell "
+                                 "normals consistently in the model")
+                else:
+                    lines.append(f"gauge '{gname}': its grid (length {length[row_gauge[r]]:g}) "
+                                 "overhangs an edge of the face it is on; check the position, "
+                                 "direction and length")
+            raise GaugeError(*lines)
         valid_row[bad_rows] = False
     if (need & p_emb).any():
         raise GaugeError("embedded gauges with a grid length are not supported; give length 0")
-    p_d = np.where(p_emb[:, None], rd[p_row], _tangent(rd[p_row], p_n))
+    p_d = _tangent(rd[p_row], p_n, p_emb)
     p_t = np.cross(p_n, p_d)
     keep_pt = valid_row[p_row]
     # drop band rows whose grid left the face (a misplaced gauge cannot overhang an edge either)
