@@ -92,7 +92,7 @@ def gauge_summary(rows: pd.DataFrame, reference: tuple[int, int]) -> pd.DataFram
     ev = rows[rows["status"].isin(["pass", "fail"])]
     d = ev["difference_ue"].to_numpy(dtype=float)
     by = ev.assign(sq=d ** 2, failed=ev["status"].eq("fail")).groupby("gauge", sort=False)
-    rms = np.sqrt(by["sq"].sum()).reindex(gauges)
+    rms = np.sqrt(by["sq"].mean()).reindex(gauges)
     failed = by["failed"].any()
     at_ref = ev[(ev["step"] == reference[0]) & (ev["sequence"] == reference[1])]
     ref = at_ref.set_index("gauge")["difference_ue"].abs().reindex(gauges)

@@ -198,6 +198,8 @@ def predict_table(model: Model) -> pd.DataFrame:
             parts.append(df)
     table = pd.concat(parts, ignore_index=True)
     _warn_displacement(model, table)
+    for line in convention_warnings(model):
+        warnings.warn(line, _warning(), stacklevel=2)
     return table
 
 
@@ -246,4 +248,56 @@ def check_study(study: Study) -> tuple[Model, pd.DataFrame, list[str]]:
                 problems.extend(exc.problems)
         if problems:
             raise CorrelateError(*problems)
-    return model, model.operator.placement.table, [str(w.message) for w in caught]
+        notes = convention_warnings(model)
+    return model, model.operator.placement.table, [str(w.message) for w in caught] + notes
+
+
+def convention_warnings(model: Model) -> list[str]:
+    """Warnings from the order/convention checks (traction-free surface, Hooke against stress)."""
+    from correlate.checks import convention_evidence, describe
+    from correlate.io.model import find_array
+    from correlate.predict import _interpolation
+    from correlate.tensors import from_voigt, strain_from_stress
+
+    study, op = model.study, model.operator
+    mat = study.material
+    if op.mesh.family != "solid" or mat is None:
+        return []
+    surface = (op.placement.table["mount"] == "surface").to_numpy()
+    point_rows = np.flatnonzero(op.row_kind == 1)
+    pts = op.weights[point_rows].indices
+    out = []
+    for case in study.cases:
+        if case.kind != "strain" or isinstance(case.array, dict):
+            continue
+        fe_index = case.time_index if isinstance(case.time_index, int) else None
+        if case.time_index == "all" or isinstance(case.time_index, tuple):
+            fe_index = case_steps(model, case)[0][0]
+        src = model.source(case)
+        location, raw = find_array(src, case.array, fe_index, case=case.name)
+        if raw.shape[1] != 6:
+            continue
+
+        def at_gauges(values: NDArray, location: str = location) -> NDArray:
+            if location == "cell":
+                return values[op.cell[pts]]
+            (N,) = _interpolation(op, gradient=False)
+            return (N @ values)[pts]
+
+        raw_g = at_gauges(raw)[surface]
+        stress_strain = None
+        if case.check_stress:
+            s_loc, s_raw = find_array(src, case.check_stress, fe_index, case=case.name)
+            if s_raw.shape[1] == 6:
+                sig = from_voigt(at_gauges(s_raw, s_loc)[surface], DEFAULT_STRESS, shear="tensor")
+                stress_strain = strain_from_stress(sig, mat.E, mat.nu)
+        ev = convention_evidence(raw_g, case.components, case.shear, op.placement.normal[surface],
+                                 op.placement.direction[surface], mat.nu,
+                                 stress_strain=stress_strain)
+        line = describe(case.name, ev)
+        if line:
+            out.append(line)
+    return out
+
+
+DEFAULT_STRESS = ("xx", "yy", "zz", "xy", "yz", "xz")

@@ -137,6 +137,22 @@ def test_position_offset_three_units_is_found_and_implausible():
     np.testing.assert_allclose([along, across], [2.4, -1.8], atol=0.01)
 
 
+def test_offset_search_tolerates_model_with_no_reading_off_the_part():
+    # A free edge at along = +3.5: a moved grid beyond it has no model reading (NaN), as when a
+    # real model is evaluated off the mesh. The true offset lies inside, so it is still found.
+    base = _gauge("SG-5", phi=30.0, offset=(2.4, -1.8))
+
+    def edge(off, ang):
+        out = base.evaluate_at(off, ang)
+        out[np.asarray(off)[:, 0] > 3.5] = np.nan
+        return out
+
+    ev = GaugeEvidence(base.gauge, base.measured, base.predicted, base.active, base.alternatives,
+                       base.contributions, edge, 1.0, 5.0, True)
+    row = diagnose([ev], CRIT).query("explanation == 'position offset'")
+    np.testing.assert_allclose(row["parameter"], 3.0, atol=0.2)  # brief's tolerance
+
+
 def test_position_offset_with_one_load_case_gives_shortest_offset():
     # One load case, gradient along x: only the x-component of the offset is determined. The true
     # offset (3, 2) along/across on a grid at 0 deg; the shortest offset that fits is (3, 0).

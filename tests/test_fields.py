@@ -161,3 +161,34 @@ def test_from_voigt_matches_to_voigt_inverse():
     rng = np.random.default_rng(2)
     v = rng.normal(size=(5, 6))
     np.testing.assert_allclose(to_voigt(from_voigt(v, ORDER), ORDER), v, rtol=0, atol=1e-15)
+
+
+def test_convention_checks_name_the_order_that_fits():
+    # Reference: the traction-free condition of a free surface (Timoshenko & Goodier, Theory of
+    # Elasticity: sigma . n = 0 on a free boundary) with isotropic Hooke's law gives e_nt = 0 and
+    # e_nn = -nu/(1-nu)(e_11 + e_22); and Hooke's law against a stress array.
+    from correlate.checks import convention_evidence, describe
+
+    rng = np.random.default_rng(4)
+    nu = 0.3
+    g = 12
+    # plane stress states on the top face z = const, so the surface condition holds exactly
+    sx, sy, txy = rng.normal(0, 100, (3, g))
+    sig = np.zeros((g, 3, 3))
+    sig[:, 0, 0], sig[:, 1, 1], sig[:, 0, 1], sig[:, 1, 0] = sx, sy, txy, txy
+    eps = strain_from_stress(sig, 70000.0, nu)
+    normal = np.tile([0, 0, 1.0], (g, 1))
+    direction = np.tile([1.0, 0, 0], (g, 1))
+    right = to_voigt(eps, ("xx", "yy", "zz", "xy", "yz", "xz"))
+    ev = convention_evidence(right, None, "engineering", normal, direction, nu)
+    assert ev["declared"] < 1e-12 and describe("c", ev) is None
+    # an array that holds tensor shear, declared engineering: the xy shear is doubled; the surface
+    # check cannot see in-plane shear, Hooke's law can
+    wrong = to_voigt(eps, ("xx", "yy", "zz", "xy", "yz", "xz"), shear="tensor")
+    ev = convention_evidence(wrong, None, "engineering", normal, direction, nu, stress_strain=eps)
+    assert ev["best"][1] == "tensor" and ev["best"][2] < 1e-12
+    assert "would fit" in describe("c", ev)
+    # an order with zz and xy swapped fails the surface check (e_nn is no longer -nu/(1-nu)(e11+e22))
+    swapped = to_voigt(eps, ("xx", "yy", "xy", "zz", "yz", "xz"))
+    ev = convention_evidence(swapped, None, "engineering", normal, direction, nu)
+    assert ev["declared"] > 0.25 and describe("c", ev) is not None
