@@ -148,7 +148,7 @@ def _rms_rows(m: Array, P: Array, mask: NDArray[np.bool_]) -> Array:
 
     Infinite where the model has no reading (a moved grid off the part): never a best fit.
     """
-    return np.nan_to_num(np.sqrt(np.mean((P[:, mask] - m[mask]) ** 2, axis=1)), nan=np.nan)
+    return np.nan_to_num(np.sqrt(np.mean((P[:, mask] - m[mask]) ** 2, axis=1)), nan=np.inf)
 
 
 def _row(gauge: str, explanation: str, detail: str, before: float, after: float,
@@ -247,7 +247,7 @@ def _best_offset(ev: GaugeEvidence, criterion: Criterion, mask: NDArray[np.bool_
     e = 1e-3 * radius
     P = _evaluate(ev, x + np.array([[e, 0], [-e, 0], [0, e], [0, -e]]), np.zeros(4))[:, mask]
     J = np.column_stack([P[0] - P[1], P[2] - P[3]]) / (2 * e)
-    sv, vt = np.linalg.svd(J)[1:]
+    sv, vt = np.linalg.svd(J)[1:] if np.all(np.isfinite(J)) else (np.ones(2), np.eye(2))
     note = ""
     if sv.size < 2 or sv[1] < 1e-3 * sv[0]:
         x = x - (x @ vt[1]) * vt[1]

@@ -1,0 +1,545 @@
+"""Report 3D views and VTK files: the model surface, the gauges and their discrepancies.
+
+Stage: report. In: a :class:`~correlate.run.Correlation`. Out: PNG views rendered off-screen with
+PyVista (an isometric view plus views against the clustered gauge normals), the list of gauges that
+no view shows, and ``gauges.vtp`` / ``surface.vtp`` for any VTK viewer.
+
+The surface is coloured by the predicted maximum principal strain at the reference step: each case's
+field times the reference step's factor, summed (readings and fields are linear in the loads). Each
+gauge is a short bar along its grid, lifted off the surface along the normal, coloured by
+measured - predicted at the reference step on a diverging map with symmetric limits; gauges that were
+not evaluated there are grey. Grids that share a centre (rosettes) are drawn as a fan from the centre
+so that each grid keeps a spot of its own colour.
+
+A gauge counts as visible in a view when its marker point faces the camera (normal within 75 degrees
+of the view direction), projects inside the picture, and the depth buffer of the bare surface holds
+nothing nearer to the camera than the point (tolerance 1 % of the model size).
+
+pyvista is imported inside the functions so that ``import correlate`` stays light.
+"""
+
+from __future__ import annotations
+
+import inspect
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from correlate import elements
+from correlate.units import MICROSTRAIN
+
+SIZE = (1200, 900)                  # picture size [px]
+DIVERGING = "RdBu_r"                # gauge discrepancy: blue below zero, red above
+SEQUENTIAL = "viridis"              # surface strain
+GREY = (0.55, 0.55, 0.55)           # gauges not evaluated at the reference step
+BAR_FRACTION = 0.02                 # shortest bar: 2 % of the model size
+RADIUS_FRACTION = 0.003             # bar radius: 0.3 % of the model size
+FAN_ANCHOR = 0.65                   # marker point of a fanned grid, as a share of its bar length
+FACING_COS = np.cos(np.radians(75.0))
+DEPTH_TOL = 0.01                    # occlusion tolerance, share of the model size
+CLUSTER_COS = np.cos(np.radians(30.0))
+MAX_VIEWS = 6
+TOP_BAND, BOTTOM_BAND = 50, 150     # pixels kept free for the title and the colour bars
+LABEL_CHARS = 24
+FONT = 13
+
+# meshio cell type -> VTK cell type id (VTK node order is meshio's; see the library notes)
+VTK_TYPES = {"triangle": 5, "triangle6": 22, "quad": 9, "quad8": 23, "quad9": 28, "tetra": 10,
+             "tetra10": 24, "hexahedron": 12, "hexahedron20": 25, "hexahedron27": 29, "wedge": 13}
+STATUS_CODES = {"pass": 0, "fail": 1}
+STATUS_LEGEND = ("0 pass", "1 fail", "2 not evaluated (tare, zero-load, missing, flagged or excluded)")
+
+
+@dataclass(frozen=True)
+class Glyphs:
+    """Gauge bars in model coordinates (one row per gauge, in gauge order).
+
+    ``anchor`` is the marker point on the bar axis (label, visibility and colour checks);
+    ``base`` is the same point on the surface, before the lift along the normal.
+    """
+
+    gauges: tuple[str, ...]
+    start: NDArray[np.float64]        # (g, 3)
+    end: NDArray[np.float64]          # (g, 3)
+    anchor: NDArray[np.float64]       # (g, 3)
+    base: NDArray[np.float64]         # (g, 3)
+    normal: NDArray[np.float64]       # (g, 3)
+    discrepancy: NDArray[np.float64]  # (g,) measured - predicted at the reference step [ue]; NaN: grey
+    limit: float                      # symmetric colour limit [ue]
+    radius: float
+    size: float                       # model size (bounding-box diagonal)
+
+
+@dataclass(frozen=True)
+class View:
+    """One rendered picture and the parallel-projection camera that made it."""
+
+    name: str
+    file: str
+    title: str
+    position: tuple[float, float, float]
+    focal_point: tuple[float, float, float]
+    view_up: tuple[float, float, float]
+    parallel_scale: float
+    size: tuple[int, int]
+    visible: tuple[str, ...]
+
+
+@dataclass(frozen=True)
+class Rendering:
+    """The views, the gauges no view shows, the glyphs and a note on the surface colouring."""
+
+    views: tuple[View, ...]
+    not_visible: tuple[str, ...]
+    glyphs: Glyphs
+    note: str
+
+
+# ----------------------------------------------------------------------------- reference field
+
+def reference_index(corr: Any) -> int:
+    """Index in ``corr.steps`` of the reference step named in the summary."""
+    ref = corr.summary["reference_step"]
+    hit = np.flatnonzero((corr.steps.step == ref["step"]) & (corr.steps.sequence == ref["sequence"]))
+    return int(hit[0]) if len(hit) else 0
+
+
+def _cell_mean(mesh: Any, values: NDArray) -> NDArray:
+    """Mean of nodal values over each cell's nodes (global cell order)."""
+    return np.concatenate([values[conn].mean(axis=1) for _, conn in mesh.blocks])
+
+
+def _cell_strain_from_displacement(mesh: Any, u: NDArray) -> NDArray:
+    """Small-strain tensor at each cell's centre from nodal displacements (m/m)."""
+    parts = []
+    for ctype, conn in mesh.blocks:
+        ref = elements.ELEMENTS[ctype].reference_nodes
+        xi = np.tile(ref[: elements.ELEMENTS[ctype].n_corners].mean(axis=0), (len(conn), 1))
+        dN, _ = elements.physical_gradients(ctype, mesh.points[conn], xi)
+        H = np.einsum("cni,cnj->cij", u[conn], dN)
+        parts.append(0.5 * (H + np.swapaxes(H, 1, 2)))
+    return np.concatenate(parts)
+
+
+def reference_strain(corr: Any) -> tuple[str, NDArray[np.float64] | None, str]:
+    """Predicted strain tensors at the reference step: ("point" | "cell", (n, 3, 3) m/m, note).
+
+    Returns ``(location, None, note)`` when a case field cannot be combined.
+    """
+    model, study = corr.model, corr.study
+    mesh = model.operator.mesh
+    factors = corr.steps.factors[reference_index(corr)]
+    parts: list[tuple[str, NDArray]] = []
+    notes: list[str] = []
+    for case, f in zip(study.cases, factors, strict=True):
+        fe_index = case.time_index if isinstance(case.time_index, int) else None
+        fld = model.case_field(case, fe_index)
+        values = fld.values
+        if isinstance(values, dict):
+            face = "top" if "top" in values else next(iter(values))
+            values = values[face]
+            notes.append(f"shell surface shows the {face} face")
+        if fld.kind == "displacement":
+            try:
+                values = _cell_strain_from_displacement(mesh, np.asarray(values))
+            except (ValueError, KeyError, np.linalg.LinAlgError):
+                return "cell", None, (f"case '{case.name}' gives displacement and its strain could "
+                                      "not be derived on these cells: the surface is not coloured")
+            parts.append(("cell", f * values))
+            notes.append("strain from displacement, constant per element")
+        else:
+            parts.append((fld.location, f * np.asarray(values)))
+    if not parts:
+        return "point", None, "no case field: the surface is not coloured"
+    if all(loc == "point" for loc, _ in parts):
+        return "point", sum(v for _, v in parts), "; ".join(dict.fromkeys(notes))
+    total = sum(v if loc == "cell" else _cell_mean(mesh, v) for loc, v in parts)
+    return "cell", total, "; ".join(dict.fromkeys(notes))
+
+
+def _strain_arrays(tensors: NDArray) -> dict[str, NDArray]:
+    """Principal and component arrays in microstrain (engineering shear for gxy, gyz, gxz)."""
+    t = np.nan_to_num(tensors) * MICROSTRAIN
+    eig = np.linalg.eigvalsh(t)
+    return {
+        "max_principal_ue": eig[:, -1], "min_principal_ue": eig[:, 0],
+        "exx_ue": t[:, 0, 0], "eyy_ue": t[:, 1, 1], "ezz_ue": t[:, 2, 2],
+        "gxy_ue": 2 * t[:, 0, 1], "gyz_ue": 2 * t[:, 1, 2], "gxz_ue": 2 * t[:, 0, 2],
+        "strain_tensor_ue": t.reshape(len(t), 9),
+    }
+
+
+def model_grid(mesh: Any) -> Any:
+    """The model as a ``pyvista.UnstructuredGrid`` (cells in global order)."""
+    import pyvista as pv
+
+    cells, types = [], []
+    for ctype, conn in mesh.blocks:
+        cells.append(np.c_[np.full(len(conn), conn.shape[1]), conn].ravel())
+        types.append(np.full(len(conn), VTK_TYPES[ctype], dtype=np.uint8))
+    return pv.UnstructuredGrid(np.concatenate(cells), np.concatenate(types),
+                               np.asarray(mesh.points, dtype=float))
+
+
+def model_surface(corr: Any) -> tuple[Any, str]:
+    """Outer surface with the reference-step strain arrays, and a note on the colouring."""
+    mesh = corr.model.operator.mesh
+    grid = model_grid(mesh)
+    location, tensors, note = reference_strain(corr)
+    if tensors is not None:
+        data = grid.point_data if location == "point" else grid.cell_data
+        for name, arr in _strain_arrays(tensors).items():
+            data[name] = arr
+    options: dict[str, Any] = {"pass_pointid": False, "pass_cellid": False}
+    if "algorithm" in inspect.signature(grid.extract_surface).parameters:
+        options["algorithm"] = "dataset_surface"   # handles quadratic faces; pyvista >= 0.47
+    surface = grid.extract_surface(**options)
+    return surface, note
+
+
+# ----------------------------------------------------------------------------- gauge glyphs
+
+def gauge_glyphs(corr: Any) -> Glyphs:
+    """Bars, marker points and discrepancy colours of every gauge at the reference step."""
+    place = corr.model.operator.placement
+    pts = corr.model.operator.mesh.points
+    size = float(np.linalg.norm(pts.max(axis=0) - pts.min(axis=0))) or 1.0
+    ref = reference_index(corr)
+    centre, d, n = place.centre, place.direction, place.normal
+    length = np.nan_to_num(corr.model.gauges["length"].to_numpy(dtype=float))
+    L = np.maximum(length, BAR_FRACTION * size)
+    radius = RADIUS_FRACTION * size
+    lift = (radius + 0.002 * size) * n
+    key = np.round(centre / (1e-6 * size)).astype(np.int64)
+    _, inverse, counts = np.unique(key, axis=0, return_inverse=True, return_counts=True)
+    fan = counts[inverse.ravel()] > 1
+    start = np.where(fan[:, None], centre, centre - 0.5 * L[:, None] * d) + lift
+    end = np.where(fan[:, None], centre + L[:, None] * d, centre + 0.5 * L[:, None] * d) + lift
+    base = np.where(fan[:, None], centre + FAN_ANCHOR * L[:, None] * d, centre)
+    evaluated = corr.status["evaluated"][ref]
+    disc = np.where(evaluated, corr.measured[ref] - corr.predicted[ref], np.nan)
+    finite = np.isfinite(disc)
+    limit = float(np.max(np.abs(disc[finite]))) if finite.any() else 0.0
+    return Glyphs(gauges=tuple(corr.gauges), start=start, end=end, anchor=base + lift, base=base,
+                  normal=n, discrepancy=disc, limit=limit if limit > 0 else 1.0, radius=radius,
+                  size=size)
+
+
+def discrepancy_colours(values: NDArray, limit: float) -> NDArray[np.float64]:
+    """RGB (g, 3) in [0, 1] of discrepancies on the diverging map; grey where NaN."""
+    from matplotlib import colormaps
+
+    cmap = colormaps[DIVERGING]
+    rgb = cmap(np.clip((np.nan_to_num(values) + limit) / (2 * limit), 0.0, 1.0))[:, :3]
+    return np.where(np.isfinite(values)[:, None], rgb, np.array(GREY)[None, :])
+
+
+def _bars(glyphs: Glyphs, select: NDArray[np.bool_]) -> Any:
+    import pyvista as pv
+
+    idx = np.flatnonzero(select)
+    pts = np.empty((2 * len(idx), 3))
+    pts[0::2], pts[1::2] = glyphs.start[idx], glyphs.end[idx]
+    lines = np.c_[np.full(len(idx), 2), 2 * np.arange(len(idx)), 2 * np.arange(len(idx)) + 1]
+    poly = pv.PolyData(pts, lines=lines.ravel())
+    poly.point_data["discrepancy_ue"] = np.repeat(glyphs.discrepancy[idx], 2)
+    return poly.tube(radius=glyphs.radius, n_sides=16, capping=True)
+
+
+# ----------------------------------------------------------------------------- cameras
+
+def _unit(v: NDArray) -> NDArray:
+    return v / np.linalg.norm(v)
+
+
+def cluster_normals(normals: NDArray[np.float64]) -> list[NDArray[np.int64]]:
+    """Group unit normals within 30 degrees of a group's mean; largest group first."""
+    sums: list[NDArray] = []
+    members: list[list[int]] = []
+    for i, v in enumerate(normals):
+        cos = [float(np.dot(_unit(s), v)) for s in sums]
+        k = int(np.argmax(cos)) if cos else -1
+        if k >= 0 and cos[k] >= CLUSTER_COS:
+            sums[k] = sums[k] + v
+            members[k].append(i)
+        else:
+            sums.append(v.copy())
+            members.append([i])
+    order = sorted(range(len(members)), key=lambda k: -len(members[k]))
+    return [np.array(members[k]) for k in order]
+
+
+def _iso_direction(normals: NDArray) -> NDArray:
+    """Octant diagonal (camera side) that faces the most gauges; ties prefer +z, then -y, +x."""
+    best, score = None, -1.0
+    for sz in (1, -1):
+        for sy in (-1, 1):
+            for sx in (1, -1):
+                v = _unit(np.array([sx, sy, sz], dtype=float))
+                s = float(np.clip(normals @ v, 0, None).sum()) if len(normals) else 0.0
+                if s > score + 1e-9:
+                    best, score = v, s
+    return best  # type: ignore[return-value]
+
+
+def _camera(points: NDArray, towards_camera: NDArray, size: tuple[int, int],
+            ) -> tuple[NDArray, NDArray, NDArray, float]:
+    """Parallel camera seeing ``points`` from the side ``towards_camera``, leaving text bands free.
+
+    Returns position, focal point, view up and parallel scale (half the picture height in model
+    units).
+    """
+    w = _unit(np.asarray(towards_camera, dtype=float))
+    up = np.array([0.0, 0.0, 1.0]) if abs(w[2]) < 0.95 else np.array([0.0, 1.0, 0.0])
+    right = _unit(np.cross(up, w))
+    up = np.cross(w, right)
+    lo, hi = points.min(axis=0), points.max(axis=0)
+    centre = 0.5 * (lo + hi)
+    corners = np.array([[x, y, z] for x in (lo[0], hi[0]) for y in (lo[1], hi[1])
+                        for z in (lo[2], hi[2])]) - centre
+    hx = float(np.abs(corners @ right).max()) or 1.0
+    hy = float(np.abs(corners @ up).max()) or 1.0
+    W, H = size
+    usable = H - TOP_BAND - BOTTOM_BAND
+    scale = max(hy * H / (0.92 * usable), hx * H / (0.92 * W))
+    shift = 0.5 * (BOTTOM_BAND - TOP_BAND) * 2 * scale / H      # model units
+    focal = centre - shift * up
+    diag = float(np.linalg.norm(hi - lo)) or 1.0
+    return focal + 3 * diag * w, focal, up, scale
+
+
+def _set_camera(plotter: Any, position: NDArray, focal: NDArray, up: NDArray, scale: float) -> None:
+    cam = plotter.camera
+    cam.SetParallelProjection(True)
+    cam.SetPosition(*position)
+    cam.SetFocalPoint(*focal)
+    cam.SetViewUp(*up)
+    cam.SetParallelScale(scale)
+    plotter.renderer.ResetCameraClippingRange()
+
+
+def project(plotter: Any, points: NDArray) -> NDArray[np.float64]:
+    """Display coordinates (x right, y up from the bottom, in pixels) of model points."""
+    ren = plotter.renderer
+    out = np.empty((len(points), 2))
+    for i, p in enumerate(points):
+        ren.SetWorldPoint(float(p[0]), float(p[1]), float(p[2]), 1.0)
+        ren.WorldToDisplay()
+        out[i] = ren.GetDisplayPoint()[:2]
+    return out
+
+
+def visible_gauges(plotter: Any, glyphs: Glyphs, size: tuple[int, int]) -> NDArray[np.bool_]:
+    """Depth-buffer test on the bare surface now rendered in ``plotter``."""
+    depth = -np.asarray(plotter.get_image_depth(fill_value=np.inf))   # distance along the view
+    cam = plotter.camera
+    position = np.array(cam.GetPosition())
+    view = _unit(np.array(cam.GetFocalPoint()) - position)
+    W, H = size
+    xy = project(plotter, glyphs.base)
+    col = np.round(xy[:, 0]).astype(int)
+    row = np.round(H - 1 - xy[:, 1]).astype(int)
+    dist = (glyphs.base - position) @ view
+    tol = DEPTH_TOL * glyphs.size
+    facing = glyphs.normal @ (-view) >= FACING_COS
+    inside = (col >= 4) & (col < W - 4) & (row >= TOP_BAND // 2) & (row < H - 4)
+    out = np.zeros(len(col), dtype=bool)
+    for i in np.flatnonzero(facing & inside):
+        window = depth[row[i] - 1: row[i] + 2, col[i] - 1: col[i] + 2]
+        out[i] = bool(np.any(window >= dist[i] - tol))
+    return out
+
+
+# ----------------------------------------------------------------------------- drawing
+
+def _label_text(gauge: str) -> str:
+    text = gauge if len(gauge) <= LABEL_CHARS else gauge[: LABEL_CHARS - 3] + "..."
+    return text.replace("$", "\\$")   # VTK renders $...$ as math text otherwise
+
+
+def _free(box: tuple[float, float, float, float], taken: list[tuple[float, float, float, float]],
+          size: tuple[int, int]) -> bool:
+    x0, y0, x1, y1 = box
+    if x0 < 2 or y0 < BOTTOM_BAND or x1 > size[0] - 2 or y1 > size[1] - TOP_BAND:
+        return False
+    return all(x1 < a0 or x0 > a1 or y1 < b0 or y0 > b1 for a0, b0, a1, b1 in taken)
+
+
+def _add_labels(plotter: Any, glyphs: Glyphs, shown: NDArray[np.bool_],
+                size: tuple[int, int]) -> None:
+    """Gauge ids beside the bar ends, moved around to avoid each other and the marker points."""
+    import vtk
+
+    idx = np.flatnonzero(shown)
+    if not len(idx):
+        return
+    anchors = project(plotter, glyphs.anchor[idx])
+    ends = project(plotter, glyphs.end[idx])
+    pad = 7.0
+    taken = [(x - pad, y - pad, x + pad, y + pad) for x, y in anchors]
+    for k, i in enumerate(idx):
+        actor = vtk.vtkTextActor()
+        actor.SetInput(_label_text(glyphs.gauges[i]))
+        prop = actor.GetTextProperty()
+        prop.SetFontSize(FONT)
+        prop.SetColor(0.05, 0.05, 0.05)
+        prop.SetBackgroundColor(1.0, 1.0, 1.0)
+        prop.SetBackgroundOpacity(0.85)
+        prop.SetFrame(True)
+        prop.SetFrameColor(0.4, 0.4, 0.4)
+        prop.SetFrameWidth(1)
+        bbox = [0.0, 0.0, 0.0, 0.0]
+        actor.GetBoundingBox(plotter.renderer, bbox)
+        w, h = bbox[1] - bbox[0] + 4, bbox[3] - bbox[2] + 4
+        ex, ey = ends[k]
+        away = ends[k] - anchors[k]
+        sx = 1.0 if away[0] >= 0 else -1.0
+        sy = 1.0 if away[1] >= 0 else -1.0
+        choice = None
+        for r in (6.0, 18.0, 32.0, 50.0, 75.0):
+            for dx, dy in ((sx, sy), (sx, -sy), (-sx, sy), (-sx, -sy), (0, sy), (0, -sy)):
+                x0 = ex + dx * r - (w if dx < 0 else 0) - (w / 2 if dx == 0 else 0)
+                y0 = ey + dy * r - (h if dy < 0 else 0)
+                box = (x0, y0, x0 + w, y0 + h)
+                if _free(box, taken, size):
+                    choice = box
+                    break
+            if choice:
+                break
+        if choice is None:
+            x0 = min(max(ex + 6, 2), size[0] - w - 2)
+            y0 = min(max(ey + 6, BOTTOM_BAND), size[1] - TOP_BAND - h)
+            choice = (x0, y0, x0 + w, y0 + h)
+        taken.append(choice)
+        actor.SetDisplayPosition(int(round(choice[0] + 2)), int(round(choice[1] + 2)))
+        plotter.renderer.AddActor2D(actor)
+
+
+def _scalar_bar(title: str, x: float, fmt: str) -> dict[str, Any]:
+    return {"title": title, "vertical": False, "position_x": x, "position_y": 0.035,
+            "width": 0.36, "height": 0.075, "n_labels": 5, "fmt": fmt, "color": "black",
+            "title_font_size": 16, "label_font_size": 13, "font_family": "arial"}
+
+
+def _draw_scene(plotter: Any, surface: Any, edges: Any, glyphs: Glyphs, clim: tuple[float, float] | None
+                ) -> None:
+    """Add the surface (the only thing in the depth test) to an empty plotter."""
+    if clim is not None:
+        plotter.add_mesh(surface, scalars="max_principal_ue", cmap=SEQUENTIAL, clim=clim,
+                         show_scalar_bar=False, ambient=0.25, diffuse=0.8, specular=0.0)
+    else:
+        plotter.add_mesh(surface, color=(0.85, 0.85, 0.82), ambient=0.25, diffuse=0.8)
+    if edges is not None and edges.n_points:
+        plotter.add_mesh(edges, color=(0.2, 0.2, 0.2), line_width=1.0, lighting=False)
+
+
+def _draw_overlay(plotter: Any, glyphs: Glyphs, clim: tuple[float, float] | None, title: str,
+                  shown: NDArray[np.bool_], size: tuple[int, int]) -> None:
+    """Gauge bars, labels, colour bars and the title (after the depth test)."""
+    if clim is not None:
+        plotter.add_scalar_bar(**_scalar_bar("max principal strain [ue]", 0.05, "%.0f"))
+    finite = np.isfinite(glyphs.discrepancy)
+    if finite.any():
+        plotter.add_mesh(_bars(glyphs, finite), scalars="discrepancy_ue", cmap=DIVERGING,
+                         clim=(-glyphs.limit, glyphs.limit), lighting=False, n_colors=256,
+                         scalar_bar_args=_scalar_bar("measured - predicted [ue]", 0.59, "%.0f"))
+    if (~finite).any():
+        plotter.add_mesh(_bars(glyphs, ~finite), color=GREY, lighting=False)
+    plotter.add_text(title, position=(12, size[1] - 34), font_size=12, color="black",
+                     font="arial")
+    if (~finite).any():
+        plotter.add_text("grey bars: not evaluated at the reference step", position=(12, 122),
+                         font_size=9, color=(0.3, 0.3, 0.3), font="arial")
+    _add_labels(plotter, glyphs, shown, size)
+
+
+def _direction_name(towards_camera: NDArray) -> str:
+    axes = "xyz"
+    k = int(np.argmax(np.abs(towards_camera)))
+    if abs(towards_camera[k]) > 0.97:
+        return f"looking along {'-' if towards_camera[k] > 0 else '+'}{axes[k]}"
+    v = -towards_camera
+    return "looking along ({:+.2f}, {:+.2f}, {:+.2f})".format(*v)
+
+
+def render_views(corr: Any, folder: Path, *, size: tuple[int, int] = SIZE,
+                 max_views: int = MAX_VIEWS) -> Rendering:
+    """Render the isometric view and the normal-cluster views into ``folder`` as PNG.
+
+    Parameters
+    ----------
+    corr : Correlation
+        The run's results.
+    folder : Path
+        Where ``view_iso.png``, ``view_1.png``, ... are written.
+    size : (int, int)
+        Picture width and height. [px]
+    max_views : int
+        Views besides the isometric one (at most).
+
+    Returns
+    -------
+    Rendering
+        Views with their cameras and visible gauges, and the gauges no view shows.
+    """
+    import pyvista as pv
+
+    surface, note = model_surface(corr)
+    glyphs = gauge_glyphs(corr)
+    clim = None
+    if "max_principal_ue" in surface.array_names:
+        v = np.asarray(surface["max_principal_ue"])
+        lo, hi = float(np.min(v)), float(np.max(v))
+        clim = (lo, hi) if hi - lo > 1e-9 * max(1.0, abs(hi)) else (lo - 1.0, hi + 1.0)
+    edges = surface.extract_feature_edges(feature_angle=30.0, boundary_edges=True,
+                                          non_manifold_edges=False, manifold_edges=False)
+    pts = np.asarray(surface.points)
+    normals = glyphs.normal
+    candidates: list[tuple[str, NDArray]] = [("iso", _iso_direction(normals))]
+    for members in cluster_normals(normals)[:max_views]:
+        candidates.append(("", _unit(normals[members].sum(axis=0))))
+
+    seen = np.zeros(len(glyphs.gauges), dtype=bool)
+    views: list[View] = []
+    extra = 0
+    retried = False
+    queue = list(candidates)
+    while queue:
+        kind, w = queue.pop(0)
+        if kind != "iso" and extra >= max_views:
+            break
+        position, focal, up, scale = _camera(pts, w, size)
+        plotter = pv.Plotter(off_screen=True, window_size=list(size),
+                             theme=pv.themes.DocumentTheme())
+        try:
+            plotter.set_background("white")
+            _draw_scene(plotter, surface, edges, glyphs, clim)
+            _set_camera(plotter, position, focal, up, scale)
+            plotter.render()
+            shown = visible_gauges(plotter, glyphs, size)
+            if kind != "iso" and not (shown & ~seen).any():
+                continue
+            extra += kind != "iso"
+            name = "iso" if kind == "iso" else str(extra)
+            title = ("isometric view" if kind == "iso" else f"view {extra}: {_direction_name(w)}")
+            title += f" - {int(shown.sum())} of {len(shown)} gauges visible"
+            _draw_overlay(plotter, glyphs, clim, title, shown, size)
+            _set_camera(plotter, position, focal, up, scale)
+            file = f"view_{name}.png"
+            plotter.screenshot(str(folder / file))
+        finally:
+            plotter.close()
+        seen |= shown
+        views.append(View(name=name, file=file, title=title, position=tuple(map(float, position)),
+                          focal_point=tuple(map(float, focal)), view_up=tuple(map(float, up)),
+                          parallel_scale=float(scale), size=tuple(size),  # type: ignore[arg-type]
+                          visible=tuple(g for g, s in zip(glyphs.gauges, shown, strict=True) if s)))
+        if not queue and not retried:
+            # gauges still hidden: try a view against each one's own normal (kept if it adds one)
+            retried = True
+            queue = [("", normals[i]) for i in np.flatnonzero(~seen)[: max_views - extra]]
+    not_visible = tuple(g for g, s in zip(glyphs.gauges, seen, strict=True) if not s)
+    return Rendering(views=tuple(views), not_visible=not_visible, glyphs=glyphs, note=note)

@@ -1,0 +1,118 @@
+"""Generate the invented test log of the demo campaign: seeded, so the log is reproducible.
+
+The "truth" is the shipped FE model with a modulus 0.95 times the analysis value, so every true strain
+is the model's divided by 0.95 and the expected measured/predicted ratio is 1/0.95 = 1.053. On top of
+the truth come the faults real tests have: noise, zero offsets, a seating preload in the tare row,
+slight hysteresis on unloading, and five invented channel faults (see FAULTS). Nothing here describes
+a real test.
+
+Run:  python demo_models/make_test_log.py      (writes correlate/data/demo/readings.csv)
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import meshio
+import numpy as np
+import pandas as pd
+
+from correlate.api import predict_readings
+
+DEMO = Path(__file__).resolve().parent.parent / "correlate" / "data" / "demo"
+SEED = 20261201
+STIFFNESS = 0.95               # truth modulus / analysis modulus
+NOISE_UE = 2.0                 # channel noise, standard deviation
+OFFSET_UE = 300.0              # zero offsets, uniform +/- this
+HYSTERESIS = 0.006             # unloading reads this share of the gauge's peak higher
+PRELOAD = (0.4, 0.05)          # seating preload in the tare row: F_pull_kN, F_side_kN
+# (F_pull_kN, F_side_kN) per step: load the pull, add the side load, unload in a different order
+PROFILE = [PRELOAD, (2.5, 0.0), (5.0, 0.0), (7.5, 0.0), (10.0, 0.0), (10.0, 1.0), (10.0, 2.0),
+           (7.5, 2.0), (5.0, 1.0), (2.5, 0.0), PRELOAD]
+SEQUENCES = 2
+REFERENCE = {"pull": 10.0, "side": 2.0}
+# The invented faults: gauge id -> what happened on the rig.
+FAULTS = {
+    "reversed": "G07",          # bridge wired with reversed sign
+    "offset": "G03",            # bonded a few millimetres off its position, in the hole's gradient
+    "rotated": "G05",           # grid turned 90 degrees where |e1| >= 2 |e2|
+    "dead": "G11",              # open channel reading a constant
+    "drift": "G13",             # zero drifts through the test
+}
+OFFSET_MM = (3.0, 0.0)         # (along grid, across grid) of the offset gauge
+DRIFT_UE_PER_STEP = 9.0
+
+
+def model_readings(gauges: pd.DataFrame) -> pd.DataFrame:
+    mesh = meshio.read(DEMO / "bracket.vtu")
+    return predict_readings(mesh, gauges, {"pull": "E_pull", "side": "E_side"},
+                            snap_tol=0.5).pivot(index="gauge", columns="case",
+                                                values="predicted_ue")
+
+
+def faulted_gauge_map(gauges: pd.DataFrame) -> pd.DataFrame:
+    """The gauges as actually bonded: one moved, one turned 90 degrees in its surface."""
+    real = gauges.copy()
+    i = real.index[real["gauge"] == FAULTS["offset"]][0]
+    d = real.loc[i, ["dir_x", "dir_y", "dir_z"]].to_numpy(float)
+    d /= np.linalg.norm(d)
+    real.loc[i, ["x", "y", "z"]] = real.loc[i, ["x", "y", "z"]].to_numpy(float) + OFFSET_MM[0] * d
+    j = real.index[real["gauge"] == FAULTS["rotated"]][0]
+    real.loc[j, ["dir_x", "dir_y", "dir_z"]] = _turned_90(real.loc[j])
+    return real
+
+
+def _turned_90(row: pd.Series) -> np.ndarray:
+    """Grid direction turned 90 degrees about the surface normal at the gauge (from the mesh)."""
+    from correlate.io.gauges import validate_gauges
+    from correlate.io.model import open_model
+    from correlate.locate import Locator, build_surface
+
+    src = open_model(DEMO / "bracket.vtu")
+    loc = Locator(src.mesh, build_surface(src.mesh))
+    sp = loc.project(np.array([row[["x", "y", "z"]].to_numpy(float)]))
+    d = row[["dir_x", "dir_y", "dir_z"]].to_numpy(float)
+    del validate_gauges
+    return np.cross(sp.normal[0], d / np.linalg.norm(d))
+
+
+def make_log() -> pd.DataFrame:
+    rng = np.random.default_rng(SEED)
+    gauges = pd.read_csv(DEMO / "gauges.csv", dtype=str, keep_default_na=False)
+    names = list(gauges["gauge"])
+    truth_cases = model_readings(faulted_gauge_map(gauges)).loc[names] / STIFFNESS
+    profile = np.array(PROFILE * SEQUENCES)
+    seq = np.repeat(np.arange(1, SEQUENCES + 1), len(PROFILE))
+    f = np.c_[profile[:, 0] / REFERENCE["pull"], profile[:, 1] / REFERENCE["side"]]
+    truth = f @ truth_cases[["pull", "side"]].to_numpy().T                     # (steps, gauges)
+    peak = np.max(np.abs(truth), axis=0)
+    size = np.hypot(f[:, 0], f[:, 1])
+    unloading = np.r_[False, np.diff(size) < 0] & (np.r_[1, np.diff(seq)] == 0)
+    data = truth + HYSTERESIS * peak * np.sign(truth) * unloading[:, None]
+    data += rng.uniform(-OFFSET_UE, OFFSET_UE, len(names))                     # zero offsets
+    data += rng.normal(0.0, NOISE_UE, data.shape)
+    col = {g: k for k, g in enumerate(names)}
+    data[:, col[FAULTS["reversed"]]] *= -1.0
+    data[:, col[FAULTS["dead"]]] = -12.0 + rng.normal(0.0, 0.3, len(profile))
+    data[:, col[FAULTS["drift"]]] += DRIFT_UE_PER_STEP * np.arange(len(profile))
+    log = pd.DataFrame(np.round(data, 1), columns=names)
+    log.insert(0, "temp_C", np.round(21.0 + 0.02 * np.arange(len(profile)), 2))
+    log.insert(0, "F_side_kN", profile[:, 1])
+    log.insert(0, "F_pull_kN", profile[:, 0])
+    log.insert(0, "time_s", 30 * np.arange(len(profile)))
+    log.insert(0, "sequence", seq)
+    log.insert(0, "step", np.arange(1, len(profile) + 1))
+    return log
+
+
+def write_log(log: pd.DataFrame, path: Path) -> None:
+    units = ["", "", "s", "kN", "kN", "degC"] + ["µε"] * (log.shape[1] - 6)
+    with open(path, "w", encoding="utf-8", newline="\n") as fh:
+        fh.write(",".join(log.columns) + "\n")
+        fh.write(",".join(units) + "\n")
+        log.to_csv(fh, index=False, header=False, lineterminator="\n")
+
+
+if __name__ == "__main__":
+    write_log(make_log(), DEMO / "readings.csv")
+    print(f"wrote {DEMO / 'readings.csv'}")
