@@ -201,7 +201,7 @@ def _best_angle(ev: GaugeEvidence, criterion: Criterion, mask: NDArray[np.bool_]
         res = optimize.minimize_scalar(
             lambda a: _rms_rows(m, _evaluate(ev, np.zeros((1, 2)), np.array([a])), mask)[0],
             bounds=(max(grid[i] - 1.0, -90.0), min(grid[i] + 1.0, 90.0)), method="bounded",
-            options={"xatol": 1e-6})
+            options={"xatol": 0.01, "maxiter": 30})  # 0.01 deg is far below any angle_tol
         a = float(res.x)
         after = _fits(m, _evaluate(ev, np.zeros((1, 2)), np.array([a]))[0], mask, criterion, before)
         if after is not None:
@@ -241,7 +241,8 @@ def _best_offset(ev: GaugeEvidence, criterion: Criterion, mask: NDArray[np.bool_
     x0 = X[np.argmin(r)]
     res = optimize.minimize(rms, x0, method="Nelder-Mead", options={
         "initial_simplex": x0 + np.array([[0.0, 0.0], [h / 2, 0.0], [0.0, h / 2]]),
-        "xatol": 1e-6 * radius, "fatol": 1e-9})
+        # a thousandth of the search radius and 0.01 ue are far below what the analyst can act on
+        "xatol": 1e-3 * radius, "fatol": 1e-2, "maxfev": 80})
     x = clip(res.x)
     # Jacobian of the readings with respect to the offset, by central differences.
     e = 1e-3 * radius

@@ -129,6 +129,7 @@ def write_block_study(folder, *, readings_rows=None, extra_toml: str = "", gauge
     side = np.zeros((len(x), 6))
     side[:, 0] = 2e-4 * (1.0 + 0.2 * x[:, 1])
     side[:, 1] = 4e-4
+    side[:, 2] = -0.3 / 0.7 * (side[:, 0] + side[:, 1])  # traction-free top face, nu = 0.3
     side[:, 3] = 6e-4                      # engineering shear xy
     meshio.write(folder / "block.vtu", meshio.Mesh(x, [(ctype, mesh.blocks[0][1])],
                                                    point_data={"E_pull": pull, "E_side": side}))

@@ -313,11 +313,12 @@ def _camera(points: NDArray, towards_camera: NDArray, size: tuple[int, int],
 
 def _set_camera(plotter: Any, position: NDArray, focal: NDArray, up: NDArray, scale: float) -> None:
     cam = plotter.camera
-    cam.SetParallelProjection(True)
+    cam.enable_parallel_projection()   # pyvista's own flag: get_image_depth reads it
     cam.SetPosition(*position)
     cam.SetFocalPoint(*focal)
     cam.SetViewUp(*up)
     cam.SetParallelScale(scale)
+    plotter.camera_set = True   # else pyvista's show() replaces the camera with its default
     plotter.renderer.ResetCameraClippingRange()
 
 
@@ -334,7 +335,8 @@ def project(plotter: Any, points: NDArray) -> NDArray[np.float64]:
 
 def visible_gauges(plotter: Any, glyphs: Glyphs, size: tuple[int, int]) -> NDArray[np.bool_]:
     """Depth-buffer test on the bare surface now rendered in ``plotter``."""
-    depth = -np.asarray(plotter.get_image_depth(fill_value=np.inf))   # distance along the view
+    # distance along the view; background (nothing drawn) is infinitely far
+    depth = -np.asarray(plotter.get_image_depth(fill_value=-np.inf))
     cam = plotter.camera
     position = np.array(cam.GetPosition())
     view = _unit(np.array(cam.GetFocalPoint()) - position)
@@ -415,7 +417,7 @@ def _add_labels(plotter: Any, glyphs: Glyphs, shown: NDArray[np.bool_],
             choice = (x0, y0, x0 + w, y0 + h)
         taken.append(choice)
         actor.SetDisplayPosition(int(round(choice[0] + 2)), int(round(choice[1] + 2)))
-        plotter.renderer.AddActor2D(actor)
+        plotter.renderer.AddViewProp(actor)
 
 
 def _scalar_bar(title: str, x: float, fmt: str) -> dict[str, Any]:
@@ -518,7 +520,7 @@ def render_views(corr: Any, folder: Path, *, size: tuple[int, int] = SIZE,
             plotter.set_background("white")
             _draw_scene(plotter, surface, edges, glyphs, clim)
             _set_camera(plotter, position, focal, up, scale)
-            plotter.render()
+            plotter.show(auto_close=False)
             shown = visible_gauges(plotter, glyphs, size)
             if kind != "iso" and not (shown & ~seen).any():
                 continue
