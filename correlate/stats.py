@@ -14,7 +14,7 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-import statsmodels.api as sm
+from statsmodels.regression.linear_model import OLS  # not statsmodels.api: 2 s to import
 from numpy.typing import ArrayLike, NDArray
 from scipy import stats as sps
 from statsmodels.stats.outliers_influence import OLSInfluence
@@ -70,13 +70,13 @@ def _ols(y: NDArray[np.float64], X: NDArray[np.float64], codes: NDArray[np.intp]
     """
     n, k = X.shape
     if n <= k:
-        return sm.OLS(y, X).fit(), np.full(k, NAN), np.full((k, 2), NAN)
+        return OLS(y, X).fit(), np.full(k, NAN), np.full((k, 2), NAN)
     if codes.max() >= 1:
         # use_t: t with G - 1 degrees of freedom (statsmodels' df_resid_inference), the critical
         # value Cameron & Miller (2015, sec. VI) recommend when there are few clusters.
-        res = sm.OLS(y, X).fit(cov_type="cluster", cov_kwds={"groups": codes}, use_t=True)
+        res = OLS(y, X).fit(cov_type="cluster", cov_kwds={"groups": codes}, use_t=True)
     else:
-        res = sm.OLS(y, X).fit()
+        res = OLS(y, X).fit()
     return res, np.asarray(res.bse), np.asarray(res.conf_int(alpha))
 
 
@@ -350,7 +350,7 @@ def influence_by_gauge(measured: ArrayLike, predicted: ArrayLike, groups: ArrayL
                   f"found {m.size} pair(s)")
     else:
         X = np.column_stack([np.ones(m.size), p])
-        res = sm.OLS(m, X).fit()
+        res = OLS(m, X).fit()
         xtx, s2 = X.T @ X, float(res.scale)
         # a pair with leverage 1 divides by zero inside statsmodels; that residual is undefined
         with np.errstate(divide="ignore", invalid="ignore"):

@@ -36,7 +36,8 @@ DIVERGING = "RdBu_r"                # gauge discrepancy: blue below zero, red ab
 SEQUENTIAL = "viridis"              # surface strain
 GREY = (0.55, 0.55, 0.55)           # gauges not evaluated at the reference step
 BAR_FRACTION = 0.02                 # shortest bar: 2 % of the model size
-RADIUS_FRACTION = 0.003             # bar radius: 0.3 % of the model size
+FAN_FRACTION = 0.03                 # shortest grid of a rosette fan: 3 % of the model size
+RADIUS_FRACTION = 0.0035            # bar radius: 0.35 % of the model size
 FAN_ANCHOR = 0.65                   # marker point of a fanned grid, as a share of its bar length
 FACING_COS = np.cos(np.radians(75.0))
 DEPTH_TOL = 0.01                    # occlusion tolerance, share of the model size
@@ -90,11 +91,12 @@ class View:
 
 @dataclass(frozen=True)
 class Rendering:
-    """The views, the gauges no view shows, the glyphs and a note on the surface colouring."""
+    """The views, the gauges no view shows, the glyphs and the coloured surface with its note."""
 
     views: tuple[View, ...]
     not_visible: tuple[str, ...]
     glyphs: Glyphs
+    surface: Any        # pyvista.PolyData with the reference-step strain arrays
     note: str
 
 
@@ -210,12 +212,12 @@ def gauge_glyphs(corr: Any) -> Glyphs:
     ref = reference_index(corr)
     centre, d, n = place.centre, place.direction, place.normal
     length = np.nan_to_num(corr.model.gauges["length"].to_numpy(dtype=float))
-    L = np.maximum(length, BAR_FRACTION * size)
-    radius = RADIUS_FRACTION * size
-    lift = (radius + 0.002 * size) * n
     key = np.round(centre / (1e-6 * size)).astype(np.int64)
     _, inverse, counts = np.unique(key, axis=0, return_inverse=True, return_counts=True)
     fan = counts[inverse.ravel()] > 1
+    L = np.maximum(length, np.where(fan, FAN_FRACTION, BAR_FRACTION) * size)
+    radius = RADIUS_FRACTION * size
+    lift = (radius + 0.002 * size) * n
     start = np.where(fan[:, None], centre, centre - 0.5 * L[:, None] * d) + lift
     end = np.where(fan[:, None], centre + L[:, None] * d, centre + 0.5 * L[:, None] * d) + lift
     base = np.where(fan[:, None], centre + FAN_ANCHOR * L[:, None] * d, centre)
@@ -357,6 +359,29 @@ def visible_gauges(plotter: Any, glyphs: Glyphs, size: tuple[int, int]) -> NDArr
 
 # ----------------------------------------------------------------------------- drawing
 
+def _font(prop: Any, size: int, color: tuple[float, float, float] = (0.05, 0.05, 0.05)) -> None:
+    """Use matplotlib's DejaVu Sans: VTK's built-in sans font draws '[' and ']' as parentheses."""
+    from matplotlib import get_data_path
+
+    prop.SetFontFamily(4)   # VTK_FONT_FILE
+    prop.SetFontFile(str(Path(get_data_path()) / "fonts" / "ttf" / "DejaVuSans.ttf"))
+    prop.SetFontSize(size)
+    prop.SetColor(*color)
+
+
+def _text(plotter: Any, text: str, x: int, y: int, size: int,
+          color: tuple[float, float, float] = (0.05, 0.05, 0.05)) -> Any:
+    """A 2D text actor at pixel (x, y) from the lower left corner."""
+    from vtkmodules.vtkRenderingCore import vtkTextActor
+
+    actor = vtkTextActor()
+    actor.SetInput(text)
+    _font(actor.GetTextProperty(), size, color)
+    actor.SetDisplayPosition(int(x), int(y))
+    plotter.renderer.AddViewProp(actor)
+    return actor
+
+
 def _label_text(gauge: str) -> str:
     text = gauge if len(gauge) <= LABEL_CHARS else gauge[: LABEL_CHARS - 3] + "..."
     return text.replace("$", "\\$")   # VTK renders $...$ as math text otherwise
@@ -371,23 +396,22 @@ def _free(box: tuple[float, float, float, float], taken: list[tuple[float, float
 
 
 def _add_labels(plotter: Any, glyphs: Glyphs, shown: NDArray[np.bool_],
-                size: tuple[int, int]) -> None:
+                size: tuple[int, int]) -> list[Any]:
     """Gauge ids beside the bar ends, moved around to avoid each other and the marker points."""
-    import vtk
-
     idx = np.flatnonzero(shown)
+    actors: list[Any] = []
     if not len(idx):
-        return
+        return actors
     anchors = project(plotter, glyphs.anchor[idx])
     ends = project(plotter, glyphs.end[idx])
-    pad = 7.0
-    taken = [(x - pad, y - pad, x + pad, y + pad) for x, y in anchors]
+    pad = 5.0
+    along = np.linspace(0.0, 1.0, 6)
+    bars = project(plotter, (glyphs.start[idx, None, :] + along[None, :, None]
+                             * (glyphs.end - glyphs.start)[idx, None, :]).reshape(-1, 3))
+    taken = [(x - pad, y - pad, x + pad, y + pad) for x, y in np.r_[anchors, bars]]
     for k, i in enumerate(idx):
-        actor = vtk.vtkTextActor()
-        actor.SetInput(_label_text(glyphs.gauges[i]))
+        actor = _text(plotter, _label_text(glyphs.gauges[i]), 0, 0, FONT)
         prop = actor.GetTextProperty()
-        prop.SetFontSize(FONT)
-        prop.SetColor(0.05, 0.05, 0.05)
         prop.SetBackgroundColor(1.0, 1.0, 1.0)
         prop.SetBackgroundOpacity(0.85)
         prop.SetFrame(True)
@@ -417,59 +441,126 @@ def _add_labels(plotter: Any, glyphs: Glyphs, shown: NDArray[np.bool_],
             choice = (x0, y0, x0 + w, y0 + h)
         taken.append(choice)
         actor.SetDisplayPosition(int(round(choice[0] + 2)), int(round(choice[1] + 2)))
-        plotter.renderer.AddViewProp(actor)
+        actors.append(actor)
+    return actors
 
 
-def _scalar_bar(title: str, x: float, fmt: str) -> dict[str, Any]:
-    return {"title": title, "vertical": False, "position_x": x, "position_y": 0.035,
-            "width": 0.36, "height": 0.075, "n_labels": 5, "fmt": fmt, "color": "black",
-            "title_font_size": 16, "label_font_size": 13, "font_family": "arial"}
+def _scalar_bar(plotter: Any, mapper: Any, title: str, x: float) -> list[Any]:
+    """A horizontal colour bar in the bottom band, tick labels under it, its title above it.
 
-
-def _draw_scene(plotter: Any, surface: Any, edges: Any, glyphs: Glyphs, clim: tuple[float, float] | None
-                ) -> None:
-    """Add the surface (the only thing in the depth test) to an empty plotter."""
-    if clim is not None:
-        plotter.add_mesh(surface, scalars="max_principal_ue", cmap=SEQUENTIAL, clim=clim,
-                         show_scalar_bar=False, ambient=0.25, diffuse=0.8, specular=0.0)
-    else:
-        plotter.add_mesh(surface, color=(0.85, 0.85, 0.82), ambient=0.25, diffuse=0.8)
-    if edges is not None and edges.n_points:
-        plotter.add_mesh(edges, color=(0.2, 0.2, 0.2), line_width=1.0, lighting=False)
-
-
-def _draw_overlay(plotter: Any, glyphs: Glyphs, clim: tuple[float, float] | None, title: str,
-                  shown: NDArray[np.bool_], size: tuple[int, int]) -> None:
-    """Gauge bars, labels, colour bars and the title (after the depth test)."""
-    if clim is not None:
-        plotter.add_scalar_bar(**_scalar_bar("max principal strain [ue]", 0.05, "%.0f"))
-    finite = np.isfinite(glyphs.discrepancy)
-    if finite.any():
-        plotter.add_mesh(_bars(glyphs, finite), scalars="discrepancy_ue", cmap=DIVERGING,
-                         clim=(-glyphs.limit, glyphs.limit), lighting=False, n_colors=256,
-                         scalar_bar_args=_scalar_bar("measured - predicted [ue]", 0.59, "%.0f"))
-    if (~finite).any():
-        plotter.add_mesh(_bars(glyphs, ~finite), color=GREY, lighting=False)
-    plotter.add_text(title, position=(12, size[1] - 34), font_size=12, color="black",
-                     font="arial")
-    if (~finite).any():
-        plotter.add_text("grey bars: not evaluated at the reference step", position=(12, 122),
-                         font_size=9, color=(0.3, 0.3, 0.3), font="arial")
-    _add_labels(plotter, glyphs, shown, size)
+    The title is a separate text actor: VTK's own scalar-bar title overlaps the tick labels of a
+    horizontal bar.
+    """
+    width, height = plotter.window_size
+    bar = plotter.add_scalar_bar(
+        title=" " * (1 + len(plotter.scalar_bars)), mapper=mapper, vertical=False,
+        position_x=x, position_y=0.025, width=0.38, height=0.09, n_labels=5, fmt="%.0f",
+        color="black", label_font_size=14, font_family="arial", render=False)
+    bar.SetTextPositionToPrecedeScalarBar()
+    bar.SetBarRatio(0.45)
+    _font(bar.GetLabelTextProperty(), 14)
+    bar.GetLabelTextProperty().SetBold(False)
+    bar.GetLabelTextProperty().SetShadow(False)
+    text = _text(plotter, title, int(x * width) + 2, int(0.115 * height) + 4, 15)
+    return [bar, text]
 
 
 def _direction_name(towards_camera: NDArray) -> str:
-    axes = "xyz"
     k = int(np.argmax(np.abs(towards_camera)))
     if abs(towards_camera[k]) > 0.97:
-        return f"looking along {'-' if towards_camera[k] > 0 else '+'}{axes[k]}"
-    v = -towards_camera
-    return "looking along ({:+.2f}, {:+.2f}, {:+.2f})".format(*v)
+        return f"looking along {'-' if towards_camera[k] > 0 else '+'}{'xyz'[k]}"
+    return "looking along ({:+.2f}, {:+.2f}, {:+.2f})".format(*(-towards_camera))
+
+
+class _Scene:
+    """One off-screen plotter holding the surface and the gauge bars; one camera per view."""
+
+    def __init__(self, surface: Any, glyphs: Glyphs, size: tuple[int, int]) -> None:
+        import pyvista as pv
+
+        theme = pv.themes.DocumentTheme()
+        theme.multi_samples = 1          # 4 samples cost 4x on software rendering; FXAA instead
+        self.plotter = pv.Plotter(off_screen=True, window_size=list(size), theme=theme)
+        self.plotter.set_background("white")
+        # no anti-aliasing: SSAA, the only kind software OpenGL offers, costs 10x per frame
+        self.size = size
+        self.glyphs = glyphs
+        self.overlay: list[Any] = []     # hidden during the depth test
+        self.clim = None
+        if "max_principal_ue" in surface.array_names:
+            v = np.asarray(surface["max_principal_ue"])
+            lo, hi = float(np.min(v)), float(np.max(v))
+            self.clim = (lo, hi) if hi - lo > 1e-9 * max(1.0, abs(hi)) else (lo - 1.0, hi + 1.0)
+        pl = self.plotter
+        if self.clim is not None:
+            actor = pl.add_mesh(surface, scalars="max_principal_ue", cmap=SEQUENTIAL, clim=self.clim,
+                                show_scalar_bar=False, ambient=0.3, diffuse=0.75, specular=0.0,
+                                render=False)
+            self.overlay += _scalar_bar(pl, actor.mapper, "max principal strain [ue]", 0.05)
+        else:
+            pl.add_mesh(surface, color=(0.85, 0.85, 0.82), ambient=0.3, diffuse=0.75, render=False)
+        edges = surface.extract_feature_edges(feature_angle=30.0, boundary_edges=True,
+                                              non_manifold_edges=False, manifold_edges=False)
+        if edges.n_points:
+            pl.add_mesh(edges, color=(0.15, 0.15, 0.15), line_width=1.0, lighting=False,
+                        render=False)
+        finite = np.isfinite(glyphs.discrepancy)
+        if finite.any():
+            actor = pl.add_mesh(_bars(glyphs, finite), scalars="discrepancy_ue", cmap=DIVERGING,
+                                clim=(-glyphs.limit, glyphs.limit), lighting=False, n_colors=256,
+                                show_scalar_bar=False, render=False)
+            self.overlay.append(actor)
+            self.overlay += _scalar_bar(pl, actor.mapper, "measured - predicted [ue]", 0.57)
+        if (~finite).any():
+            self.overlay.append(pl.add_mesh(_bars(glyphs, ~finite), color=GREY, lighting=False,
+                                            render=False))
+            self.overlay.append(_text(pl, "grey bars: not evaluated at the reference step",
+                                      12, 8, 13, (0.3, 0.3, 0.3)))
+        self.title = _text(pl, "", 14, size[1] - 34, 17)
+        self.overlay.append(self.title)
+        self.labels: list[Any] = []
+        self.first = True
+
+    def look(self, towards_camera: NDArray, points: NDArray) -> tuple[NDArray, NDArray, NDArray,
+                                                                       float]:
+        camera = _camera(points, towards_camera, self.size)
+        _set_camera(self.plotter, *camera)
+        return camera
+
+    def visible(self) -> NDArray[np.bool_]:
+        """Render the bare surface and run the depth test."""
+        for actor in self.overlay + self.labels:
+            actor.SetVisibility(False)
+        if self.first:
+            self.plotter.show(auto_close=False)   # pyvista reads depth only after a show()
+            self.first = False
+        else:
+            self.plotter.render()
+        shown = visible_gauges(self.plotter, self.glyphs, self.size)
+        for actor in self.overlay:
+            actor.SetVisibility(True)
+        return shown
+
+    def save(self, path: Path, title: str, shown: NDArray[np.bool_]) -> None:
+        renderer = self.plotter.renderer
+        for actor in self.labels:
+            renderer.RemoveViewProp(actor)
+        self.title.SetInput(title)
+        self.labels = _add_labels(self.plotter, self.glyphs, shown, self.size)
+        self.plotter.render()
+        self.plotter.screenshot(str(path))
+
+    def close(self) -> None:
+        self.plotter.close()
 
 
 def render_views(corr: Any, folder: Path, *, size: tuple[int, int] = SIZE,
                  max_views: int = MAX_VIEWS) -> Rendering:
     """Render the isometric view and the normal-cluster views into ``folder`` as PNG.
+
+    Views: the octant diagonal facing the most gauges; then one view against the mean normal of each
+    group of gauge normals (30 degrees), largest group first, kept when it shows one of its group;
+    then, for gauges still hidden, a view against each one's own normal, kept when it shows one.
 
     Parameters
     ----------
@@ -487,61 +578,108 @@ def render_views(corr: Any, folder: Path, *, size: tuple[int, int] = SIZE,
     Rendering
         Views with their cameras and visible gauges, and the gauges no view shows.
     """
-    import pyvista as pv
-
     surface, note = model_surface(corr)
     glyphs = gauge_glyphs(corr)
-    clim = None
-    if "max_principal_ue" in surface.array_names:
-        v = np.asarray(surface["max_principal_ue"])
-        lo, hi = float(np.min(v)), float(np.max(v))
-        clim = (lo, hi) if hi - lo > 1e-9 * max(1.0, abs(hi)) else (lo - 1.0, hi + 1.0)
-    edges = surface.extract_feature_edges(feature_angle=30.0, boundary_edges=True,
-                                          non_manifold_edges=False, manifold_edges=False)
     pts = np.asarray(surface.points)
     normals = glyphs.normal
-    candidates: list[tuple[str, NDArray]] = [("iso", _iso_direction(normals))]
+    queue: list[tuple[str, NDArray, NDArray]] = [("iso", _iso_direction(normals),
+                                                  np.arange(len(normals)))]
     for members in cluster_normals(normals)[:max_views]:
-        candidates.append(("", _unit(normals[members].sum(axis=0))))
-
+        queue.append(("group", _unit(normals[members].sum(axis=0)), members))
     seen = np.zeros(len(glyphs.gauges), dtype=bool)
     views: list[View] = []
-    extra = 0
     retried = False
-    queue = list(candidates)
-    while queue:
-        kind, w = queue.pop(0)
-        if kind != "iso" and extra >= max_views:
-            break
-        position, focal, up, scale = _camera(pts, w, size)
-        plotter = pv.Plotter(off_screen=True, window_size=list(size),
-                             theme=pv.themes.DocumentTheme())
-        try:
-            plotter.set_background("white")
-            _draw_scene(plotter, surface, edges, glyphs, clim)
-            _set_camera(plotter, position, focal, up, scale)
-            plotter.show(auto_close=False)
-            shown = visible_gauges(plotter, glyphs, size)
-            if kind != "iso" and not (shown & ~seen).any():
+    scene = _Scene(surface, glyphs, size)
+    try:
+        while queue:
+            kind, w, members = queue.pop(0)
+            if kind != "iso" and len(views) > max_views:
+                break
+            position, focal, up, scale = scene.look(w, pts)
+            shown = scene.visible()
+            wanted = shown[members] if kind == "group" else (shown & ~seen)
+            if kind != "iso" and not wanted.any():
                 continue
-            extra += kind != "iso"
-            name = "iso" if kind == "iso" else str(extra)
-            title = ("isometric view" if kind == "iso" else f"view {extra}: {_direction_name(w)}")
+            name = "iso" if kind == "iso" else str(len(views))
+            title = ("isometric view" if kind == "iso"
+                     else f"view {name}: {_direction_name(w)}")
             title += f" - {int(shown.sum())} of {len(shown)} gauges visible"
-            _draw_overlay(plotter, glyphs, clim, title, shown, size)
-            _set_camera(plotter, position, focal, up, scale)
             file = f"view_{name}.png"
-            plotter.screenshot(str(folder / file))
-        finally:
-            plotter.close()
-        seen |= shown
-        views.append(View(name=name, file=file, title=title, position=tuple(map(float, position)),
-                          focal_point=tuple(map(float, focal)), view_up=tuple(map(float, up)),
-                          parallel_scale=float(scale), size=tuple(size),  # type: ignore[arg-type]
-                          visible=tuple(g for g, s in zip(glyphs.gauges, shown, strict=True) if s)))
-        if not queue and not retried:
-            # gauges still hidden: try a view against each one's own normal (kept if it adds one)
-            retried = True
-            queue = [("", normals[i]) for i in np.flatnonzero(~seen)[: max_views - extra]]
+            scene.save(folder / file, title, shown)
+            seen |= shown
+            views.append(View(
+                name=name, file=file, title=title, position=tuple(map(float, position)),
+                focal_point=tuple(map(float, focal)), view_up=tuple(map(float, up)),
+                parallel_scale=float(scale), size=(int(size[0]), int(size[1])),
+                visible=tuple(g for g, s in zip(glyphs.gauges, shown, strict=True) if s)))
+            if not queue and not retried:
+                retried = True
+                queue = [("single", normals[i], np.array([i])) for i in np.flatnonzero(~seen)]
+    finally:
+        scene.close()
     not_visible = tuple(g for g, s in zip(glyphs.gauges, seen, strict=True) if not s)
-    return Rendering(views=tuple(views), not_visible=not_visible, glyphs=glyphs, note=note)
+    return Rendering(views=tuple(views), not_visible=not_visible, glyphs=glyphs, surface=surface,
+                     note=note)
+
+
+# ----------------------------------------------------------------------------- VTK files
+
+def gauge_points(corr: Any) -> Any:
+    """One point per gauge centre with its reference-step readings, status and statistics.
+
+    Point data: ``gauge`` (string), ``predicted_ue``, ``measured_ue``, ``difference_ue``,
+    ``ratio``, ``band_low_ue``, ``band_high_ue``, ``status`` (string) and ``status_code`` (int,
+    legend in the field data ``status_legend``), ``unconservative``, ``grid_length``, the
+    all-step fit of each gauge as ``stats_<column of gauge_stats.csv>``, and the vectors
+    ``grid_direction`` and ``normal``.
+    """
+    import pyvista as pv
+
+    place = corr.model.operator.placement
+    ref = reference_index(corr)
+    st = corr.status
+    poly = pv.PolyData(np.asarray(place.centre, dtype=float))
+    status = np.asarray(st["status"][ref]).astype(str)
+    data = {
+        "predicted_ue": corr.predicted[ref], "measured_ue": corr.measured[ref],
+        "difference_ue": st["difference"][ref], "ratio": st["ratio"][ref],
+        "band_low_ue": corr.band_low[ref], "band_high_ue": corr.band_high[ref],
+        "grid_length": corr.model.gauges["length"].to_numpy(dtype=float),
+    }
+    for name, values in data.items():
+        poly.point_data[name] = np.asarray(values, dtype=float)
+    poly.point_data["status_code"] = np.array([STATUS_CODES.get(s, 2) for s in status],
+                                              dtype=np.int32)
+    poly.point_data["unconservative"] = np.asarray(st["unconservative"][ref], dtype=np.int32)
+    per = corr.per_gauge.set_index("gauge") if len(corr.per_gauge) else None
+    if per is not None:
+        for col in per.columns:
+            values = per[col].reindex(corr.gauges)
+            if np.issubdtype(values.dtype, np.number):
+                poly.point_data[f"stats_{col}"] = values.to_numpy(dtype=float)
+    poly.point_data["grid_direction"] = np.asarray(place.direction, dtype=float)
+    poly.point_data["normal"] = np.asarray(place.normal, dtype=float)
+    poly.point_data["gauge"] = np.array(corr.gauges, dtype=str)
+    poly.point_data["status"] = status
+    poly.field_data["status_legend"] = np.array(STATUS_LEGEND, dtype=str)
+    step = corr.steps
+    poly.field_data["reference_step"] = np.array([step.step[ref], step.sequence[ref]], dtype=np.int64)
+    poly.field_data["units"] = np.array(["strain in microstrain (ue), tension positive",
+                                         f"lengths in {corr.study.length_unit}"], dtype=str)
+    return poly
+
+
+def write_vtk(corr: Any, folder: Path, surface: Any | None = None) -> None:
+    """Write ``gauges.vtp`` (gauge centres) and ``surface.vtp`` (reference-step strain field)."""
+    gauge_points(corr).save(str(folder / "gauges.vtp"))
+    if surface is None:
+        surface, _ = model_surface(corr)
+    out = surface.copy()
+    ref = reference_index(corr)
+    out.field_data["reference_step"] = np.array([corr.steps.step[ref], corr.steps.sequence[ref]],
+                                                dtype=np.int64)
+    out.field_data["units"] = np.array([
+        "strain in microstrain (ue), tension positive",
+        "gxy_ue, gyz_ue, gxz_ue: engineering shear; strain_tensor_ue: full tensor, tensor shear",
+        f"coordinates in {corr.study.length_unit}"], dtype=str)
+    out.save(str(folder / "surface.vtp"))

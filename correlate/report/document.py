@@ -1,0 +1,342 @@
+"""The correlation report: one self-contained HTML file, its pictures and VTK files.
+
+Stage: report. In: a :class:`~correlate.run.Correlation` and an output folder. Out, in that folder:
+``report.html`` (every picture inline as a ``data:`` PNG, the CSS inline, no external request),
+the pictures as PNG files beside it (``view_*.png``, ``scatter.png``, ``load_strain_*.png``,
+``rosettes.png``), ``gauges.vtp`` and ``surface.vtp``.
+
+Text from the inputs (titles, gauge ids, file names, reasons) is untrusted: the Jinja2 template
+escapes everything except the package's own CSS.
+"""
+
+from __future__ import annotations
+
+import base64
+import json
+import struct
+import warnings
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from correlate.report import figures
+from correlate.report.render import Rendering, reference_index, render_views, write_vtk
+
+HERE = Path(__file__).parent
+CAUTION = ("These results support, but do not replace, engineering judgement, the applicable codes "
+           "and licensed practice.")
+CRITERIA_SOURCE = "the analyst's choice for this programme, not a standard"
+
+
+def num(value: Any, fmt: str = ".1f") -> str:
+    """Format a number; a dash for None or NaN."""
+    if value is None:
+        return "\u2013"
+    try:
+        x = float(value)
+    except (TypeError, ValueError):
+        return str(value)
+    return "\u2013" if not np.isfinite(x) else format(x, fmt)
+
+
+def text(value: Any) -> str:
+    """Plain text for a free-text study value (lists and tables shown compactly)."""
+    if isinstance(value, dict | list | tuple):
+        return json.dumps(value, ensure_ascii=False, default=str)
+    return str(value)
+
+
+def data_uri(path: Path) -> dict[str, Any]:
+    """The PNG at ``path`` as a ``data:`` URI, with its pixel size (from the IHDR chunk)."""
+    raw = path.read_bytes()
+    width, height = struct.unpack(">II", raw[16:24])
+    return {"uri": "data:image/png;base64," + base64.b64encode(raw).decode("ascii"),
+            "width": width, "height": height}
+
+
+def _step_label(corr: Any, i: int) -> str:
+    steps = corr.steps
+    label = f"step {int(steps.step[i])}"
+    if len(np.unique(steps.sequence)) > 1:
+        label += f", sequence {int(steps.sequence[i])}"
+    return label
+
+
+def report_rows(spec: Any, corr: Any) -> list[int]:
+    """Step rows named by ``[report] steps``: step numbers, or [step, sequence] pairs."""
+    if spec is None:
+        return []
+    steps = corr.steps
+    items = spec if isinstance(spec, list | tuple) else [spec]
+    rows: list[int] = []
+    for item in items:
+        if isinstance(item, list | tuple) and len(item) == 2:
+            hit = np.flatnonzero((steps.step == item[0]) & (steps.sequence == item[1]))
+        elif isinstance(item, int | np.integer) and not isinstance(item, bool):
+            hit = np.flatnonzero(steps.step == item)
+        else:
+            continue
+        rows.extend(int(h) for h in hit if int(h) not in rows)
+    return rows
+
+
+def diagnosis_text(diagnoses: Any) -> dict[str, str]:
+    """Per gauge, its diagnoses joined with '; '."""
+    out: dict[str, list[str]] = {}
+    if diagnoses is None or not len(diagnoses):
+        return {}
+    for _, d in diagnoses.iterrows():
+        detail = str(d.get("detail", "") or "")
+        line = str(d["explanation"]) + (f": {detail}" if detail and detail != "nan" else "")
+        out.setdefault(str(d["gauge"]), []).append(line)
+    return {g: "; ".join(v) for g, v in out.items()}
+
+
+def gauge_rows(corr: Any, i: int) -> list[dict[str, str]]:
+    """Rows of the per-gauge table at step row ``i``, worst first by |difference|."""
+    st = corr.status
+    diff = st["difference"][i]
+    order = np.argsort(np.where(np.isfinite(diff) & st["evaluated"][i], -np.abs(diff), np.inf),
+                       kind="stable")
+    diag = diagnosis_text(corr.diagnoses)
+    rows = []
+    for j in order:
+        status = str(st["status"][i, j])
+        rows.append({
+            "gauge": corr.gauges[j],
+            "predicted": num(corr.predicted[i, j]),
+            "measured": num(corr.measured[i, j]),
+            "difference": num(diff[j], "+.1f"),
+            "ratio": num(st["ratio"][i, j], ".3f"),
+            "band": f"{num(corr.band_low[i, j])} to {num(corr.band_high[i, j])}",
+            "status": status,
+            "basis": str(st["basis"][i, j]),
+            "unconservative": "yes" if st["unconservative"][i, j] else "",
+            "diagnosis": diag.get(corr.gauges[j], ""),
+            "css": status if status in ("pass", "fail") else "other",
+        })
+    return rows
+
+
+def _gauge_status(corr: Any) -> list[str]:
+    """One word per gauge over all steps: pass, fail, or the flag that removed it."""
+    st = corr.status
+    ev = st["evaluated"]
+    out = []
+    flags = corr.flags
+    for j, g in enumerate(corr.gauges):
+        if ((st["status"][:, j] == "fail") & ev[:, j]).any():
+            out.append("fail")
+        elif ev[:, j].any():
+            out.append("pass")
+        else:
+            hit = flags[(flags["gauge"] == g) & (flags["drops"] == "gauge")] if len(flags) else []
+            out.append(str(hit["flag"].iloc[0]) if len(hit) else "not evaluated")
+    return out
+
+
+def _flag_rows(corr: Any) -> list[dict[str, str]]:
+    rows = []
+    for _, f in corr.flags.iterrows():
+        step = f.get("step")
+        whole = step is None or (isinstance(step, int | float | np.integer | np.floating)
+                                 and (not np.isfinite(step) or int(step) == -1))
+        scope = "all steps" if whole else f"step {int(step)}, sequence {int(f['sequence'])}"
+        rows.append({"gauge": str(f["gauge"]), "scope": scope, "flag": str(f["flag"]),
+                     "reason": str(f.get("reason", "")),
+                     "disposition": str(f.get("disposition", "") or "")})
+    return rows
+
+
+def _rosettes(corr: Any, ref: int) -> tuple[list[dict[str, str]], list[dict[str, Any]]]:
+    """Table rows and plot records of the rosettes at the reference step."""
+    table = corr.rosettes
+    if table is None or not len(table):
+        return [], []
+    from correlate.rosettes import rosette_angles
+
+    steps = corr.steps
+    at = table[(table["step"] == steps.step[ref]) & (table["sequence"] == steps.sequence[ref])]
+    try:
+        angles = rosette_angles(corr.model, corr.model.gauges)
+    except ValueError:
+        angles = {}
+    rows, records = [], []
+    for rid in dict.fromkeys(table["rosette"].astype(str)):
+        rec: dict[str, Any] = {"name": rid, "grid_angles": list(angles.get(rid, [])),
+                               "measured": None, "predicted": None}
+        for source in ("measured", "predicted"):
+            hit = at[(at["rosette"].astype(str) == rid) & (at["source"] == source)]
+            if not len(hit):
+                rows.append({"rosette": rid, "source": source, "e1": "\u2013", "e2": "\u2013",
+                             "angle": "\u2013", "shear": "\u2013", "s1": "\u2013",
+                             "s2": "\u2013", "vm": "\u2013", "note": "not evaluated"})
+                continue
+            r = hit.iloc[0]
+            rows.append({"rosette": rid, "source": source, "e1": num(r["e1_ue"]),
+                         "e2": num(r["e2_ue"]), "angle": num(r["angle_deg"]),
+                         "shear": num(r["shear_max_ue"]), "s1": num(r["s1"], ".2f"),
+                         "s2": num(r["s2"], ".2f"), "vm": num(r["von_mises"], ".2f"),
+                         "note": "" if str(r["note"]) == "nan" else str(r["note"])})
+            rec[source] = {"e1": float(r["e1_ue"]), "e2": float(r["e2_ue"]),
+                           "angle": float(r["angle_deg"]) if r["angle_deg"] == r["angle_deg"]
+                           else float("nan")}
+        records.append(rec)
+    return rows, records
+
+
+def _load_axis(corr: Any) -> tuple[NDArray, str, str]:
+    """The load column with the largest tared range, its label and a note."""
+    loads = corr.steps.loads
+    names = corr.steps.load_names
+    j = int(np.argmax(np.ptp(loads, axis=0))) if loads.size else 0
+    note = "" if len(names) < 2 else " (the load with the largest range)"
+    return loads[:, j], f"{names[j]} (tared)", note
+
+
+def _render(corr: Any, folder: Path) -> tuple[Rendering | None, str]:
+    """Render the 3D views; a machine without OpenGL gets a report without them."""
+    views = corr.study.report.get("views")
+    kwargs = {"max_views": int(views)} if isinstance(views, int) and not isinstance(views, bool) \
+        else {}
+    try:
+        with warnings.catch_warnings():
+            # pyvista announces future default changes; they do not change these pictures
+            warnings.filterwarnings("ignore", category=FutureWarning, module="pyvista")
+            return render_views(corr, folder, **kwargs), ""
+    except (ImportError, RuntimeError) as exc:
+        return None, f"The 3D views could not be rendered on this machine ({exc})."
+
+
+def write_report(corr: Any, folder: Path) -> None:
+    """Write report.html, its PNG pictures, gauges.vtp and surface.vtp into ``folder``.
+
+    Parameters
+    ----------
+    corr : Correlation
+        Everything the run computed (:func:`correlate.run.correlate_study`).
+    folder : Path
+        An existing folder (the run's staging folder).
+    """
+    from jinja2 import Environment, FileSystemLoader, StrictUndefined
+
+    from correlate.health import load_direction
+
+    folder = Path(folder)
+    study, steps, summary = corr.study, corr.steps, corr.summary
+    st = corr.status
+    ref = reference_index(corr)
+    rendering, render_note = _render(corr, folder)
+    write_vtk(corr, folder, rendering.surface if rendering else None)
+    if rendering is not None and rendering.note:
+        render_note = f"Note: {rendering.note}."
+
+    crit = study.criteria
+    active = steps.active[:, None]
+    finite = np.isfinite(corr.measured)
+    flagged = active & finite & ~st["evaluated"]
+    scatter = figures.plot_scatter(
+        corr.measured, corr.predicted, st["evaluated"], flagged, ref, fit=summary["fit"],
+        relative=crit.relative, absolute_ue=crit.absolute_ue, path=folder / "scatter.png",
+        ref_label=f"reference step ({_step_label(corr, ref)})", names=list(corr.gauges))
+
+    load, load_label, load_note = _load_axis(corr)
+    direction = load_direction(steps.loads, steps.sequence, tol=study.zero_tol)
+    on_path = finite & (st["evaluated"] | steps.tare[:, None] | steps.zero_load[:, None])
+    off_path = finite & ~on_path
+    words = _gauge_status(corr)
+    titles = [f"{figures.short(g)} \u00b7 {w}" for g, w in zip(corr.gauges, words, strict=True)]
+    load_files = figures.plot_load_strain(load, load_label, direction, steps.sequence,
+                                          corr.measured, corr.predicted, on_path, off_path,
+                                          list(corr.gauges), titles, folder)
+
+    rosette_rows, rosette_records = _rosettes(corr, ref)
+    rosette_figure = (data_uri(figures.plot_rosettes(rosette_records, folder / "rosettes.png"))
+                      if rosette_records else None)
+
+    gauge_tables = [{"title": f"At the reference step ({_step_label(corr, ref)})",
+                     "rows": gauge_rows(corr, ref)}]
+    for i in report_rows(study.report.get("steps"), corr):
+        if i != ref:
+            gauge_tables.append({"title": f"At {_step_label(corr, i)}", "rows": gauge_rows(corr, i)})
+
+    fit = summary["fit"]
+    verdict = summary["verdict"]
+    ci = fit.get("slope_origin_ci") or [None, None]
+    numbers = [
+        ("measured/predicted strain ratio", num(fit.get("slope_origin"), ".3f")),
+        ("95 % interval of the ratio", f"{num(ci[0], '.3f')} to {num(ci[1], '.3f')}"),
+        ("fit intercept [ue]", num(fit.get("intercept"), "+.1f")),
+        ("fit slope", num(fit.get("slope"), ".3f")),
+        ("R\u00b2", num(fit.get("r2"), ".4f")),
+        ("RMS difference [ue]", num(fit.get("rms_ue"), ".1f")),
+        ("largest |difference| [ue]", num(fit.get("max_abs_ue"), ".1f")),
+        ("gauge-step pairs", str(fit.get("n", "\u2013"))),
+        ("gauges passing", f"{verdict['passing']} of {verdict['healthy']} healthy"),
+        ("gauges failing", str(verdict["failing"])),
+        ("unconservative gauges", str(verdict["unconservative"])),
+        ("flagged gauges", f"{verdict['flagged']} of {verdict['gauges']}"),
+    ]
+    prov = summary.get("provenance", {})
+    units = summary.get("units", {})
+    tare = summary.get("tare", {})
+    model_items = [("file", summary.get("model", {}).get("file", study.model_file.name))]
+    model_items += [(str(k), text(v)) for k, v in study.model_info.items()]
+    ref_info = summary.get("reference_step", {})
+    context = {
+        "title": str(study.report.get("title") or summary.get("title") or study.title),
+        "version": str(prov.get("version", "")),
+        "generated": str(prov.get("generated", "")),
+        "css": (HERE / "report.css").read_text(encoding="utf-8"),
+        "test_items": [(str(k), text(v)) for k, v in study.test.items()],
+        "model_items": model_items,
+        "inputs": [{"name": k, "path": v.get("path", ""), "sha256": v.get("sha256", "")}
+                   for k, v in prov.get("inputs", {}).items()],
+        "criteria_items": [
+            ("relative tolerance", f"{crit.relative:.0%} of |predicted|"),
+            ("absolute floor", f"{crit.absolute_ue:g} ue"),
+            ("allowed difference", "max(relative x |predicted|, floor)"),
+            ("ratio range", f"{crit.slope[0]:g} to {crit.slope[1]:g}"),
+            ("gauges that must pass", f"{crit.pass_fraction:.0%} of the healthy gauges")],
+        "criteria_source": verdict.get("criteria", {}).get("source", CRITERIA_SOURCE),
+        "conventions": [
+            ("strain", f"{units.get('strain', 'microstrain (ue)')}; 1 ue = 1e-6 m/m"),
+            ("length", str(units.get("length", study.length_unit))),
+            ("stress", str(units.get("stress", study.stress_unit or "unit of E"))),
+            ("sign", "tension positive; difference = measured - predicted; "
+                     "ratio = measured / predicted"),
+            ("shear", "engineering shear strain (gamma = 2 x tensor shear) in rosette outputs"),
+            ("rosette angles", "from grid A, counterclockwise about the outward normal, "
+                               "seen from outside"),
+            ("tare", f"rule '{tare.get('rule', study.zero)}', zero tolerance "
+                     f"{tare.get('zero_tol', study.zero_tol):g} of each load's peak; "
+                     f"{tare.get('note', '')}")],
+        "ref_label": _step_label(corr, ref),
+        "ref_rule": str(ref_info.get("rule", "")),
+        "verdict": {"result": verdict["result"], "ok": verdict["result"] == "meets the criteria",
+                    "reasons": list(verdict.get("reasons", [])), "numbers": numbers,
+                    "ci_method": str(fit.get("ci_method", "")),
+                    "note": str(summary.get("caution_note", ""))},
+        "views": [{**data_uri(folder / v.file), "title": v.title} for v in rendering.views]
+        if rendering else [],
+        "not_visible": list(rendering.not_visible) if rendering else [],
+        "render_note": render_note,
+        "scatter": data_uri(scatter),
+        "relative_pct": f"{crit.relative:.0%}",
+        "absolute_ue": f"{crit.absolute_ue:g}",
+        "gauge_tables": gauge_tables,
+        "load_label": load_label,
+        "load_note": load_note,
+        "load_figures": [data_uri(p) for p in load_files],
+        "rosette_rows": rosette_rows,
+        "rosette_figure": rosette_figure,
+        "stress_unit": str(study.stress_unit or "unit of E"),
+        "flag_rows": _flag_rows(corr),
+        "caution": str(summary.get("caution") or CAUTION),
+    }
+    env = Environment(loader=FileSystemLoader(str(HERE)), autoescape=True,
+                      undefined=StrictUndefined, trim_blocks=True, lstrip_blocks=True)
+    html = env.get_template("template.html").render(**context)
+    (folder / "report.html").write_text(html, encoding="utf-8")
