@@ -100,7 +100,7 @@ class Study:
     gauges_file: Path
     position_tol: float
     angle_tol: float
-    snap_tol: float
+    snap_tol: float | None
     calibration_poisson: float
     grid_points: int
     band: bool
@@ -292,7 +292,8 @@ def parse_study(text: str, path: Path) -> Study:
     gauges_file = _path(base, gauges.get("file"), "[gauges]", name, problems) if gauges else None
     position_tol = _number(gauges, "position_tol", 1.0, "[gauges]", name, problems)
     angle_tol = _number(gauges, "angle_tol", 2.0, "[gauges]", name, problems)
-    snap_tol = _number(gauges, "snap_tol", position_tol, "[gauges]", name, problems, positive=True)
+    snap_tol = _number(gauges, "snap_tol", position_tol or None, "[gauges]", name, problems,
+                       positive=True)  # None: 1 % of the model size, decided when it is read
     nu0 = _number(gauges, "calibration_poisson", 0.285, "[gauges]", name, problems)
     grid_points = gauges.get("grid_points", 5)
     if not isinstance(grid_points, int) or not 1 <= grid_points <= 20:
@@ -357,7 +358,7 @@ def parse_study(text: str, path: Path) -> Study:
         length_unit=length_unit, stress_unit=model.get("stress_unit"), plane=plane, model_info=info,
         cases=tuple(cases), materials=tuple(materials), gauges_file=gauges_file,  # type: ignore[arg-type]
         position_tol=position_tol or 0.0, angle_tol=angle_tol or 0.0,
-        snap_tol=snap_tol or position_tol or 1.0, calibration_poisson=nu0 if nu0 is not None else 0.285,
+        snap_tol=snap_tol, calibration_poisson=nu0 if nu0 is not None else 0.285,
         grid_points=grid_points, band=bool(gauges.get("band", True)),
         test=dict(raw.get("test", {})), readings_file=readings_file, zero=zero,
         zero_tol=zero_tol if zero_tol is not None else 0.01,

@@ -25,7 +25,10 @@ def _alternatives(study: Study, model: Any, steps: Steps, rows_by_case: dict, j:
     op = model.operator
     nominal = np.flatnonzero(op.row_kind == 0)[j]
     kt, nu0 = op.kt[j], op.nu0[j]
+    # series cases (matched by load, not superposed) add nothing to these alternatives
     names = [c.name for c in study.cases]
+    zero = {"axial": np.zeros(len(op.row_kind)), "transverse": np.zeros(len(op.row_kind))}
+    rows_by_case = {c: rows_by_case.get(c, zero) for c in names}
     ax = np.array([rows_by_case[c]["axial"][nominal] for c in names])
     tr = np.array([rows_by_case[c]["transverse"][nominal] for c in names])
     f = steps.factors * MICROSTRAIN
@@ -67,7 +70,9 @@ def _evaluator(study: Study, model: Any, steps: Steps, j: int
                                  strict=False)
         key = "axial" if study.kt_corrected else "indicated"
         nominal = mini_op.row_kind == 0
-        R = np.stack([case_rows(model, c, c.time_index if isinstance(c.time_index, int) else None,
+        R = np.stack([np.zeros(int(nominal.sum())) if c.time_index == "all"
+                      or isinstance(c.time_index, tuple) else
+                      case_rows(model, c, c.time_index if isinstance(c.time_index, int) else None,
                                 operator=mini_op)[key][nominal] for c in study.cases], axis=1)
         return R @ steps.factors.T * MICROSTRAIN   # (k, s)
 

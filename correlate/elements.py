@@ -490,14 +490,28 @@ def closest_point_on_face(cell_type: str, nodes: Array, points: Array, tol: floa
                          tol, max_iter)
     best_x = map_to_physical(cell_type, nodes, best)
     best_d = np.linalg.norm(best_x - points, axis=1)
+    # an interior stationary point needs no edge search; a clipped one does
+    edge = np.flatnonzero(~_strictly_inside(cell_type, best))
+    if edge.size == 0:
+        return best, best_x, best_d
+    sub_nodes, sub_points = nodes[edge], points[edge]
     for a, b in zip(corners, np.roll(corners, -1, axis=0), strict=True):
-        xi = _gauss_newton(cell_type, nodes, points, a, (b - a)[None, :],
-                           lambda t: np.clip(t, 0.0, 1.0), np.full((n, 1), 0.5), tol, max_iter)
-        x = map_to_physical(cell_type, nodes, xi)
-        d = np.linalg.norm(x - points, axis=1)
-        closer = d < best_d
-        best[closer], best_x[closer], best_d[closer] = xi[closer], x[closer], d[closer]
+        xi = _gauss_newton(cell_type, sub_nodes, sub_points, a, (b - a)[None, :],
+                           lambda t: np.clip(t, 0.0, 1.0), np.full((edge.size, 1), 0.5), tol,
+                           max_iter)
+        x = map_to_physical(cell_type, sub_nodes, xi)
+        d = np.linalg.norm(x - sub_points, axis=1)
+        closer = d < best_d[edge]
+        idx = edge[closer]
+        best[idx], best_x[idx], best_d[idx] = xi[closer], x[closer], d[closer]
     return best, best_x, best_d
+
+
+def _strictly_inside(cell_type: str, xi: Array, margin: float = 1e-9) -> NDArray[np.bool_]:
+    """True where xi lies inside the reference face with a margin (not on its boundary)."""
+    if cell_type.startswith("triangle"):
+        return (xi > margin).all(axis=1) & (xi.sum(axis=1) < 1 - margin)
+    return (np.abs(xi) < 1 - margin).all(axis=1)
 
 
 def physical_gradients(cell_type: str, nodes: Array, xi: Array) -> tuple[Array, Array]:

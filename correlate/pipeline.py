@@ -75,8 +75,11 @@ def prepare(study: Study) -> Model:
                          "[model] plane = \"stress\" or \"strain\" in the study")
     with progress.step(f"locating {len(gauges)} gauges"):
         locator = Locator(mesh, build_surface(mesh))
+        snap_tol = study.snap_tol
+        if snap_tol is None:  # neither snap_tol nor position_tol given: 1 % of the model size
+            snap_tol = 0.01 * float(np.linalg.norm(np.ptp(mesh.points, axis=0)))
         op = build_operator(mesh, gauges, position_tol=study.position_tol,
-                            angle_tol=study.angle_tol, snap_tol=study.snap_tol,
+                            angle_tol=study.angle_tol, snap_tol=snap_tol,
                             calibration_poisson=study.calibration_poisson,
                             grid_points=study.grid_points, band=study.band, locator=locator)
     return Model(study=study, sources=sources, gauges=gauges, operator=op, locator=locator)

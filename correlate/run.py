@@ -97,7 +97,8 @@ def correlate_study(study: Study, model: Model | None = None) -> Correlation:
     from correlate.health import assess_channels, load_direction
     from correlate.io.readings import read_readings
 
-    if study.readings_file is None or not study.loads:
+    matched = [c.match["column"] for c in study.cases if c.match and "column" in c.match]
+    if study.readings_file is None or not (study.loads or matched):
         raise StudyError(f"{study.path.name}: run needs [readings] file = \"...\" and at least one "
                          "[[load]] mapping a load column to a case; use predict for model "
                          "readings alone")
@@ -108,7 +109,7 @@ def correlate_study(study: Study, model: Model | None = None) -> Correlation:
         if o.gauge not in names:
             raise StudyError(f"{study.path.name}: [[override]] names gauge '{o.gauge}', which is not "
                              "in the gauge map")
-    load_cols = tuple(dict.fromkeys(ld.column for ld in study.loads))
+    load_cols = tuple(dict.fromkeys([ld.column for ld in study.loads] + matched))
     readings = read_readings(study.readings_file, gauges=_gauge_channel_map(gauges_df),
                              loads=load_cols, sentinels=study.sentinels)
     table = readings.table
@@ -132,21 +133,32 @@ def correlate_study(study: Study, model: Model | None = None) -> Correlation:
     # model rows per case, combined with the step factors, then the band
     op = model.operator
     rows_by_case = {}
+    series = [c for c in study.cases if c.time_index == "all" or isinstance(c.time_index, tuple)]
     for case in study.cases:
-        if case.time_index == "all" or isinstance(case.time_index, tuple):
-            raise StudyError(f"case '{case.name}': series cases (time_index = \"all\") are not yet "
-                             "supported by run; use predict, or one time_index per case")
+        if case in series:
+            continue
         rows_by_case[case.name] = case_rows(model, case, case.time_index
                                             if isinstance(case.time_index, int) else None)
     key = "axial" if study.kt_corrected else "indicated"
-    R = np.stack([rows_by_case[c][key] for c in case_names], axis=1)          # (rows, C)
+    n_rows = len(op.row_kind)
+    R = np.stack([rows_by_case[c][key] if c in rows_by_case else np.zeros(n_rows)
+                  for c in case_names], axis=1)                               # (rows, C)
+    R_axial = np.stack([rows_by_case[c]["axial"] if c in rows_by_case else np.zeros(n_rows)
+                        for c in case_names], axis=1)
     combined = R @ steps.factors.T * MICROSTRAIN                              # (rows, s)
+    combined_axial = R_axial @ steps.factors.T * MICROSTRAIN
     nominal = op.row_kind == 0
-    predicted = combined[nominal].T                                           # (s, g)
-    axial = (np.stack([rows_by_case[c]["axial"] for c in case_names], axis=1)
-             @ steps.factors.T * MICROSTRAIN)[nominal].T
-    low, high = band_limits(op, combined)
     contributions = steps.factors[:, None, :] * R[nominal][None, :, :] * MICROSTRAIN
+    not_modelled = np.zeros(len(steps.step), dtype=bool)
+    for case in series:
+        add, add_axial, modelled = _series_rows(study, model, case, steps, load_cols, key)
+        combined += np.nan_to_num(add)
+        combined_axial += np.nan_to_num(add_axial)
+        contributions[:, :, case_names.index(case.name)] = np.nan_to_num(add[nominal]).T
+        not_modelled |= ~modelled
+    predicted = combined[nominal].T                                           # (s, g)
+    axial = combined_axial[nominal].T
+    low, high = band_limits(op, combined)
     _pause("model")
 
     # channel health
@@ -214,6 +226,8 @@ def correlate_study(study: Study, model: Model | None = None) -> Correlation:
             dropped_gauges[j] = True
             flag_text[:, j] = np.where(flag_text[:, j] == "", "reversed", flag_text[:, j])
     flag_text = np.where(flag_text == "", "flagged", flag_text)
+    dropped_steps[not_modelled] = True
+    flag_text[not_modelled] = "not-modelled"
     _pause("health")
 
     st = status_table(measured, predicted, study.criteria, steps, dropped_steps, dropped_gauges,
@@ -239,6 +253,31 @@ def correlate_study(study: Study, model: Model | None = None) -> Correlation:
                        summary=summary, rows_by_case=rows_by_case,
                        readings_info={"ignored": list(readings.ignored),
                                       "load_units": readings.load_units})
+
+
+def _series_rows(study: Study, model: Model, case: Any, steps: Steps, load_cols: tuple[str, ...],
+                 key: str) -> tuple[NDArray, NDArray, NDArray]:
+    """Rows of a series case at every readings row's load (matched by load, interpolated)."""
+    from correlate.health import load_direction
+    from correlate.pipeline import case_steps
+    from correlate.series import interpolate_series
+
+    match = case.match or {}
+    column, scale = match.get("column"), match.get("value_at_time_1")
+    if column not in load_cols or not isinstance(scale, int | float) or scale == 0:
+        raise StudyError(f"case '{case.name}' is a series (time_index = {case.time_index!r}); run "
+                         "needs match = { column = \"<load column>\", value_at_time_1 = <value> } "
+                         f"naming one of the [[load]] columns ({', '.join(load_cols)})")
+    states = case_steps(model, case)
+    per_step = [case_rows(model, case, k) for k, _ in states]
+    fe_load = np.array([t * scale for _, t in states])
+    load = steps.loads[:, load_cols.index(column)]
+    direction = load_direction(load[:, None], steps.sequence, tol=study.zero_tol)
+    ind, modelled = interpolate_series(fe_load, np.stack([r[key] for r in per_step], axis=1),
+                                       load, direction)
+    ax, _ = interpolate_series(fe_load, np.stack([r["axial"] for r in per_step], axis=1), load,
+                               direction)
+    return ind * MICROSTRAIN, ax * MICROSTRAIN, modelled
 
 
 def _gauge_table(names: list[str], steps: Steps, measured: NDArray, predicted: NDArray,

@@ -64,7 +64,8 @@ def validate_gauges(raw: pd.DataFrame, *, source: str = "gauge map") -> pd.DataF
     ------
     GaugeError
         One line per problem: missing columns, duplicate ids, non-numbers, zero-length directions,
-        Kt given in percent, unknown face, rosettes with fewer than three grids.
+        Kt given in percent, unknown face, rosettes with fewer than three grids
+        or with grids too close in angle to determine the strain state.
     """
     raw = raw.copy()
     raw.columns = [str(c).strip() for c in raw.columns]
@@ -125,8 +126,36 @@ def validate_gauges(raw: pd.DataFrame, *, source: str = "gauge map") -> pd.DataF
         if len(group) < 3:
             problems.append(f"{source}: rosette '{rid}' has {len(group)} grid(s) "
                             f"({', '.join(group['gauge'])}); a rosette needs at least three")
+        elif np.all(np.linalg.norm(group[["dir_x", "dir_y", "dir_z"]].to_numpy(), axis=1) > 0):
+            problems += _rosette_angle_problems(str(rid), group, source)
     if problems:
         raise GaugeError(*problems)
     norm = np.linalg.norm(d, axis=1)
     out[["dir_x", "dir_y", "dir_z"]] = d / norm[:, None]
     return out
+
+
+def _rosette_angle_problems(rid: str, group: pd.DataFrame, source: str) -> list[str]:
+    """Refuse rosette grids whose directions cannot determine the in-plane strain state.
+
+    The grid map does not know the face yet, so the grids' plane is the one their directions
+    span (the eigenvector of the smallest eigenvalue of sum d d^T is its normal); the angles in
+    it go through the same condition-number test the reduction applies once the gauges are
+    located (:func:`correlate.rosette.check_angles`).
+    """
+    from correlate.rosette import check_angles, grid_angles
+
+    if (group["grid"] != "").all():
+        group = group.sort_values("grid", kind="stable")
+    d = group[["dir_x", "dir_y", "dir_z"]].to_numpy(dtype=float)
+    d = d / np.linalg.norm(d, axis=1, keepdims=True)
+    w, v = np.linalg.eigh(d.T @ d)
+    ids = ", ".join(group["gauge"])
+    if w[1] <= 1e-12 * w[2]:
+        return [f"{source}: rosette '{rid}' grids ({ids}) all lie along one direction; a rosette "
+                "needs grids at three different angles - check dir_x, dir_y, dir_z"]
+    try:
+        check_angles(grid_angles(d, v[:, 0]), name=rid)
+    except GaugeError as exc:
+        return [f"{source}: {line} (grids {ids})" for line in exc.problems]
+    return []

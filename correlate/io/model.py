@@ -12,7 +12,9 @@ reads only the first time step.
 
 from __future__ import annotations
 
+import contextlib
 import difflib
+import io
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -145,15 +147,37 @@ def _mesh_from(points: NDArray, cells: list[tuple[str, NDArray]], source: str) -
                 source=source)
 
 
+def _meshio_formats(path: Path) -> list[str]:
+    """meshio's readers for the file's suffix (".vtu", or ".tar.gz"-like double suffixes)."""
+    import meshio
+
+    formats: list[str] = []
+    ext = ""
+    for suffix in reversed(path.suffixes):
+        ext = (suffix + ext).lower()
+        formats += meshio.extension_to_filetypes.get(ext, [])
+    return formats
+
+
 def _meshio_read(path: Path) -> Any:
     import meshio
 
+    formats = _meshio_formats(path)
+    if not formats:
+        raise ModelError(f"{path.name}: no reader recognises files ending '{path.suffix}'; give a "
+                         "format meshio reads (.vtu, .vtk, .xdmf, .msh, .med, .exo, ...)")
+    # meshio prints its readers' complaints (stdout) and an error line (stderr) before it exits
+    # the process: keep both off the terminal, and put the complaint in our one line instead
+    said, shouted = io.StringIO(), io.StringIO()
     try:
-        return meshio.read(path)
+        with contextlib.redirect_stdout(said), contextlib.redirect_stderr(shouted):
+            return meshio.read(path)
     except SystemExit:
-        # meshio exits the process when no reader accepts the file
-        raise ModelError(f"{path.name}: no reader recognises this file; give a format meshio reads "
-                         "(.vtu, .vtk, .xdmf, .msh, .med, .exo, ...)") from None
+        reason = " ".join(said.getvalue().split())
+        raise ModelError(f"{path.name}: cannot be read as {' or '.join(formats)}"
+                         + (f" ({reason[:200]})" if reason else "")
+                         + "; the file may be truncated or damaged, or of another format than "
+                         "its suffix says") from None
     except (ValueError, KeyError, IndexError, OSError, EOFError, RuntimeError, TypeError,
             AttributeError, AssertionError, UnicodeDecodeError) as exc:
         raise ModelError(f"{path.name}: cannot be read ({type(exc).__name__}: {exc}); the file may "
@@ -175,10 +199,12 @@ def _open_series(path: Path) -> ModelSource | None:
         return None
     if n == 0:
         return None
+    # the times from the light data alone (reading each step's arrays here would cost a full read)
     times = []
     for k in range(n):
-        t, _, _ = reader.read_data(k) if k == 0 else (None, None, None)
-        times.append(float(t) if t is not None else float(k))
+        t = next((float(c.attrib["Value"]) for c in list(reader.collection[k]) if c.tag == "Time"),
+                 float(k))
+        times.append(t)
     cell_list = [(c.type, c.data) for c in cells]
     mesh = _mesh_from(points, cell_list, path.name)
     return ModelSource(path=path, mesh=mesh, point_data={}, cell_data={}, times=tuple(times),

@@ -9,8 +9,12 @@ Strain is in microstrain, tension positive; the difference is measured - predict
 
 from __future__ import annotations
 
+import functools
 import math
+import warnings
+from collections.abc import Callable
 from pathlib import Path
+from typing import Any, TypeVar
 
 import numpy as np
 from numpy.typing import NDArray
@@ -24,6 +28,23 @@ FLAGGED = "#9a9a9a"
 FIT = "#b2182b"
 PER_FIGURE = 16             # load-strain panels per figure (4 x 4)
 TITLE_CHARS = 28
+
+
+F = TypeVar("F", bound=Callable[..., Any])
+
+
+def _quiet(func: F) -> F:
+    """Drop matplotlib's warning for a character its font lacks (ids in any script): the
+    character shows as a box, which is all that can be done without shipping fonts."""
+
+    @functools.wraps(func)
+    def wrapper(*args: Any, **kwargs: Any) -> Any:
+        with warnings.catch_warnings():
+            warnings.filterwarnings("ignore", message="Glyph .* missing from font",
+                                    category=UserWarning)
+            return func(*args, **kwargs)
+
+    return wrapper  # type: ignore[return-value]
 
 
 def plain(text: str) -> str:
@@ -60,6 +81,7 @@ def band_lines(x: NDArray[np.float64], relative: float, absolute_ue: float) -> t
     return x - allowed, x + allowed
 
 
+@_quiet
 def plot_scatter(measured: NDArray, predicted: NDArray, evaluated: NDArray[np.bool_],
                  flagged: NDArray[np.bool_], ref: int, *, fit: dict, relative: float,
                  absolute_ue: float, path: Path, ref_label: str = "reference step",
@@ -149,6 +171,7 @@ def plot_scatter(measured: NDArray, predicted: NDArray, evaluated: NDArray[np.bo
     return _save(fig, path)
 
 
+@_quiet
 def plot_load_strain(load: NDArray, load_label: str, direction: NDArray, sequence: NDArray,
                      measured: NDArray, predicted: NDArray, healthy: NDArray[np.bool_],
                      flagged: NDArray[np.bool_], gauges: list[str], titles: list[str],
@@ -252,6 +275,7 @@ def _cross(ax, angle_deg: float, e1: float, e2: float, scale: float, color: str,
                 solid_capstyle="butt")
 
 
+@_quiet
 def plot_rosettes(rosettes: list[dict], path: Path) -> Path:
     """Principal directions of each rosette at the reference step, measured against predicted.
 

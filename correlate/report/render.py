@@ -624,6 +624,17 @@ def render_views(corr: Any, folder: Path, *, size: tuple[int, int] = SIZE,
 
 # ----------------------------------------------------------------------------- VTK files
 
+def _strings(name: str, values: Any) -> Any:
+    """A ``vtkStringArray`` filled one value at a time (UTF-8; pyvista refuses non-ASCII text)."""
+    from vtkmodules.vtkCommonCore import vtkStringArray
+
+    array = vtkStringArray()
+    array.SetName(name)
+    for v in values:
+        array.InsertNextValue(str(v))
+    return array
+
+
 def gauge_points(corr: Any) -> Any:
     """One point per gauge centre with its reference-step readings, status and statistics.
 
@@ -659,13 +670,13 @@ def gauge_points(corr: Any) -> Any:
                 poly.point_data[f"stats_{col}"] = values.to_numpy(dtype=float)
     poly.point_data["grid_direction"] = np.asarray(place.direction, dtype=float)
     poly.point_data["normal"] = np.asarray(place.normal, dtype=float)
-    poly.point_data["gauge"] = np.array(corr.gauges, dtype=str)
-    poly.point_data["status"] = status
-    poly.field_data["status_legend"] = np.array(STATUS_LEGEND, dtype=str)
+    poly.GetPointData().AddArray(_strings("gauge", corr.gauges))
+    poly.GetPointData().AddArray(_strings("status", status))
+    poly.GetFieldData().AddArray(_strings("status_legend", STATUS_LEGEND))
     step = corr.steps
     poly.field_data["reference_step"] = np.array([step.step[ref], step.sequence[ref]], dtype=np.int64)
-    poly.field_data["units"] = np.array(["strain in microstrain (ue), tension positive",
-                                         f"lengths in {corr.study.length_unit}"], dtype=str)
+    poly.GetFieldData().AddArray(_strings("units", [
+        "strain in microstrain (ue), tension positive", f"lengths in {corr.study.length_unit}"]))
     return poly
 
 
@@ -678,8 +689,8 @@ def write_vtk(corr: Any, folder: Path, surface: Any | None = None) -> None:
     ref = reference_index(corr)
     out.field_data["reference_step"] = np.array([corr.steps.step[ref], corr.steps.sequence[ref]],
                                                 dtype=np.int64)
-    out.field_data["units"] = np.array([
+    out.GetFieldData().AddArray(_strings("units", [
         "strain in microstrain (ue), tension positive",
         "gxy_ue, gyz_ue, gxz_ue: engineering shear; strain_tensor_ue: full tensor, tensor shear",
-        f"coordinates in {corr.study.length_unit}"], dtype=str)
+        f"coordinates in {corr.study.length_unit}"]))
     out.save(str(folder / "surface.vtp"))
