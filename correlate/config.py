@@ -138,7 +138,14 @@ def _number(table: dict[str, Any], key: str, default: float | None, where: str, 
     if value is None:
         return None
     if isinstance(value, bool) or not isinstance(value, int | float):
-        problems.append(f"{name}: {where} {key} = {value!r} is not a number")
+        hint = ""
+        if isinstance(value, str):
+            try:
+                float(value)
+                hint = "; write it without quotes"
+            except ValueError:
+                hint = "; give a number"
+        problems.append(f"{name}: {where} {key} = {value!r} is not a number{hint}")
         return default
     if positive and value <= 0:
         problems.append(f"{name}: {where} {key} = {value} must be greater than zero")
@@ -259,6 +266,9 @@ def parse_study(text: str, path: Path) -> Study:
     if not raw_cases:
         problems.append(f"{name}: no [[case]] given; add one per FE load case with name and an array")
     cases = []
+    # names of every [[case]] that has one, valid or not: a [[load]] naming an invalid case is
+    # reported once, at the case, not again at the load
+    declared = {c["name"] for c in raw_cases if isinstance(c, dict) and isinstance(c.get("name"), str)}
     for i, raw_case in enumerate(raw_cases):
         if isinstance(raw_case, dict) and (c := _read_case(raw_case, i, base, name, problems)):
             cases.append(c)
@@ -314,13 +324,19 @@ def parse_study(text: str, path: Path) -> Study:
         column, case = ld.get("column"), ld.get("case")
         ref = _number(ld, "reference", None, f"[[load]] #{i + 1}", name, problems)
         if not isinstance(column, str) or not isinstance(case, str) or ref is None:
-            problems.append(f"{name}: [[load]] #{i + 1} needs column, case and reference")
+            label = f"[[load]] #{i + 1}" + (f" ('{column}')" if isinstance(column, str) else "")
+            missing = [k for k in ("column", "case", "reference") if k not in ld]
+            if missing:
+                problems.append(f"{name}: {label} has no {', '.join(missing)}; each [[load]] needs "
+                                "column, case and reference")
+            elif not isinstance(column, str) or not isinstance(case, str):
+                problems.append(f"{name}: {label}: column and case must be text (names in quotes)")
             continue
         if ref == 0:
             problems.append(f"{name}: [[load]] '{column}' reference = 0; give the value of {column} "
                             f"that case '{case}' was solved for")
             continue
-        if case not in case_names:
+        if case not in case_names | declared:
             near = difflib.get_close_matches(case, sorted(case_names), n=1)
             hint = f"; did you mean '{near[0]}'?" if near else ""
             problems.append(f"{name}: [[load]] '{column}' names case '{case}', which is not a [[case]] "

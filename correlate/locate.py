@@ -182,8 +182,20 @@ class Locator:
         points = np.asarray(points, dtype=float)
         surf = self.surface
         first = self.candidates(points)
+        # Fast path: the exact projection on VTK's nearest facet lands strictly inside that face.
+        # Only points on a face's boundary (edges, corners) need the neighbouring faces.
+        fx, fp, fd, fn = self._project_pairs(points, np.arange(len(points)), first)
+        inside = np.zeros(len(points), dtype=bool)
+        for t, ftype in enumerate(surf.types):
+            sel = surf.type_of[first] == t
+            inside[sel] = elements._strictly_inside(ftype, fx[sel], margin=1e-7)
+        out = SurfacePoints(face=first.copy(), xi=fx, point=fp, distance=fd, normal=fn,
+                            cell=surf.parent[first])
+        edge = np.flatnonzero(~inside)
+        if edge.size == 0:
+            return out
         # candidate faces: every face sharing a corner node with the first candidate
-        corner = surf.corner_conn[first]
+        corner = surf.corner_conn[first[edge]]
         q_idx, f_idx = [], []
         nf = surf.node_faces
         for k in range(4):
@@ -195,6 +207,29 @@ class Locator:
             f_idx.append(sub.indices)
         pairs = np.unique(np.c_[np.concatenate(q_idx), np.concatenate(f_idx)], axis=0)
         q, f = pairs[:, 0], pairs[:, 1]
+        xi, x, dist, normal = self._project_pairs(points[edge], q, f)
+        # choose per point: smallest distance; near-ties (an edge) by the preferred normal
+        tol = 1e-9 * surf.scale
+        best = np.full(len(edge), np.inf)
+        np.minimum.at(best, q, dist)
+        score = np.where(dist <= best[q] + tol, 0.0, np.inf)
+        if prefer is not None:
+            pref = prefer[edge][q]
+            use = ~np.isnan(pref).any(axis=1)
+            score[use] = score[use] - np.einsum("ij,ij->i", normal[use], pref[use])
+        order = np.lexsort((f, score, q))  # ties: lowest face id, so the result is reproducible
+        q_sorted = q[order]
+        firsts = order[np.r_[True, q_sorted[1:] != q_sorted[:-1]]]
+        out.face[edge] = f[firsts]
+        out.xi[edge], out.point[edge] = xi[firsts], x[firsts]
+        out.distance[edge], out.normal[edge] = dist[firsts], normal[firsts]
+        out.cell[edge] = surf.parent[f[firsts]]
+        return out
+
+    def _project_pairs(self, points: NDArray[np.float64], q: NDArray[np.int64],
+                       f: NDArray[np.int64]) -> tuple[NDArray, NDArray, NDArray, NDArray]:
+        """Exact closest points of points[q] on faces f (natural coords, point, distance, normal)."""
+        surf = self.surface
         xi = np.zeros((len(q), 2))
         x = np.zeros((len(q), 3))
         dist = np.zeros(len(q))
@@ -206,20 +241,7 @@ class Locator:
             nodes = self.mesh.points[surf.conn[t][surf.row[f[sel]]]]
             xi[sel], x[sel], dist[sel] = elements.closest_point_on_face(ftype, nodes, points[q[sel]])
             normal[sel] = elements.face_normals(ftype, nodes, xi[sel]) * surf.sign[f[sel], None]
-        # choose per point: smallest distance; near-ties (an edge) by the preferred normal
-        tol = 1e-9 * surf.scale
-        best = np.full(len(points), np.inf)
-        np.minimum.at(best, q, dist)
-        score = np.where(dist <= best[q] + tol, 0.0, np.inf)
-        if prefer is not None:
-            pref = prefer[q]
-            use = ~np.isnan(pref).any(axis=1)
-            score[use] = score[use] - np.einsum("ij,ij->i", normal[use], pref[use])
-        order = np.lexsort((f, score, q))  # ties: lowest face id, so the result is reproducible
-        q_sorted = q[order]
-        firsts = order[np.r_[True, q_sorted[1:] != q_sorted[:-1]]]
-        return SurfacePoints(face=f[firsts], xi=xi[firsts], point=x[firsts], distance=dist[firsts],
-                             normal=normal[firsts], cell=surf.parent[f[firsts]])
+        return xi, x, dist, normal
 
 
 def parent_coordinates(mesh: Mesh, surface: Surface, sp: SurfacePoints) -> NDArray[np.float64]:

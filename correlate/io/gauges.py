@@ -45,8 +45,10 @@ def _numeric(raw: pd.DataFrame, col: str, source: str, problems: list[str]) -> n
         try:
             out[i] = float(text)
         except ValueError:
+            hint = ("write decimal points, not decimal commas" if "," in text
+                    else "give a number or leave the cell blank")
             problems.append(f"{source} row {i + 2} (gauge '{raw['gauge'].iloc[i]}'), column {col}: "
-                            f"'{text}' is not a number")
+                            f"'{text}' is not a number; {hint}")
     return out
 
 
@@ -92,7 +94,7 @@ def validate_gauges(raw: pd.DataFrame, *, source: str = "gauge map") -> pd.DataF
 
     empty = out["gauge"] == ""
     for row in out.loc[empty, "row"]:
-        problems.append(f"{source} row {row}: gauge id is blank")
+        problems.append(f"{source} row {row}: gauge id is blank; give every grid an id")
     dup = out["gauge"][out["gauge"].duplicated(keep=False) & ~empty]
     for gid in dict.fromkeys(dup):
         rows = out.loc[out["gauge"] == gid, "row"].tolist()
@@ -120,8 +122,9 @@ def validate_gauges(raw: pd.DataFrame, *, source: str = "gauge map") -> pd.DataF
         problems.append(f"{source} row {r['row']} (gauge '{r['gauge']}'): mount '{r['mount']}' is "
                         "not known; use surface or embedded")
     pol = out["polarity"].dropna()
-    for gid in out.loc[pol.index[~pol.isin([1.0, -1.0])], "gauge"]:
-        problems.append(f"{source}: gauge '{gid}' polarity must be +1 or -1")
+    for _, r in out.loc[pol.index[~pol.isin([1.0, -1.0])]].iterrows():
+        problems.append(f"{source} row {r['row']} (gauge '{r['gauge']}'): polarity "
+                        f"{r['polarity']:g}; expected +1 or -1 (or blank)")
     for rid, group in out[out["rosette"] != ""].groupby("rosette", sort=False):
         if len(group) < 3:
             problems.append(f"{source}: rosette '{rid}' has {len(group)} grid(s) "
@@ -155,7 +158,8 @@ def _rosette_angle_problems(rid: str, group: pd.DataFrame, source: str) -> list[
         return [f"{source}: rosette '{rid}' grids ({ids}) all lie along one direction; a rosette "
                 "needs grids at three different angles - check dir_x, dir_y, dir_z"]
     try:
-        check_angles(grid_angles(d, v[:, 0]), name=rid)
+        # angles to 0.001 deg: the message shows them, and float noise would only obscure them
+        check_angles(np.round(grid_angles(d, v[:, 0]), 3), name=rid)
     except GaugeError as exc:
         return [f"{source}: {line} (grids {ids})" for line in exc.problems]
     return []

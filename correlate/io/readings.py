@@ -14,6 +14,7 @@ import difflib
 import importlib.util
 import io
 import math
+import re
 import warnings
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
@@ -47,6 +48,11 @@ STRAIN_LIMIT = 0.05  # every |reading| below this while the loads vary: strain, 
 _STEP, _SEQUENCE = "step", "sequence"
 _PYARROW_MIN_BYTES = 1 << 18  # measured: below about 250 kB pandas' C engine is faster
 _MAX_PROBLEMS = 20
+_DECIMAL_COMMA = re.compile(r"[+-]?\d*,\d+(?:[eE][+-]?\d+)?")  # "324,129": a quoted decimal comma
+
+
+def _loose(name: str) -> str:
+    return re.sub(r"[\s_\-]+", "", name).casefold()
 
 
 def _unit_key(unit: str) -> str:
@@ -236,7 +242,9 @@ def _columns(header: list[str], gauges: dict[str, str], loads: tuple[str, ...],
             problems.append(f"{name}: column {column!r} appears {len(found)} times in the header "
                             f"(columns {', '.join(str(j + 1) for j in found)}); rename the others")
         elif role is not None:
-            close = difflib.get_close_matches(column, named, n=1)
+            # a name that differs only in case, spaces, '_' or '-' first, then difflib's nearest
+            same = [h for h in named if _loose(h) == _loose(column)]
+            close = same[:1] or difflib.get_close_matches(column, named, n=1)
             hint = f"closest name: {close[0]!r}" if close else "no similar name"
             problems.append(f"{name}: no column {column!r} for {role}; {hint}; "
                             f"the file has columns: {have}")
@@ -321,8 +329,12 @@ def _convert(cells: pd.DataFrame, header: list[str], columns: dict[str, int],
             if word in words or set(word) == {"#"} or (value is not None and math.isnan(value)):
                 flags.append((i, col, label, strings[i]))
             else:
+                hint = ("a decimal comma in a comma-separated file; export with decimal points, or "
+                        "separate the columns with semicolons"
+                        if not decimal_comma and _DECIMAL_COMMA.fullmatch(strings[i])
+                        else "correct the cell or list the text in sentinels")
                 msg = (f"{name} line {lines[i]}, column {header[col]}: {strings[i][:40]!r} is not "
-                       "a number; correct the cell or list the text in sentinels")
+                       f"a number; {hint}")
                 problems.append((i, col, msg))
         hit = np.isin(values, numeric) | np.isinf(values)
         flags += [(i, col, label, strings[i]) for i in np.flatnonzero(hit)]

@@ -319,7 +319,8 @@ def write_report(corr: Any, folder: Path) -> None:
                     "reasons": list(verdict.get("reasons", [])), "numbers": numbers,
                     "ci_method": str(fit.get("ci_method", "")),
                     "note": str(summary.get("caution_note", ""))},
-        "views": [{**data_uri(folder / v.file), "title": v.title} for v in rendering.views]
+        "views": [{**data_uri(folder / v.file), "title": v.title, "visible": list(v.visible)}
+                  for v in rendering.views]
         if rendering else [],
         "not_visible": list(rendering.not_visible) if rendering else [],
         "render_note": render_note,
