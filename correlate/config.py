@@ -7,6 +7,7 @@ Unknown keys are refused with the nearest valid key suggested; every problem is 
 from __future__ import annotations
 
 import difflib
+import math
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -123,6 +124,19 @@ class Study:
         return self.materials[0] if self.materials else None
 
 
+def _table(raw: dict[str, Any], key: str) -> dict[str, Any]:
+    """The table ``key``, or {} when absent or of another shape (already reported as a problem)."""
+    value = raw.get(key, {})
+    return value if isinstance(value, dict) else {}
+
+
+def _tables(raw: dict[str, Any], key: str) -> list[dict[str, Any]]:
+    """The array of tables ``key`` (a single table counts as one); items of another shape dropped."""
+    value = raw.get(key, [])
+    items = [value] if isinstance(value, dict) else value if isinstance(value, list) else []
+    return [item for item in items if isinstance(item, dict)]
+
+
 def _unknown_keys(where: str, table: dict[str, Any], allowed: set[str], problems: list[str],
                   name: str) -> None:
     for key in table:
@@ -146,6 +160,9 @@ def _number(table: dict[str, Any], key: str, default: float | None, where: str, 
             except ValueError:
                 hint = "; give a number"
         problems.append(f"{name}: {where} {key} = {value!r} is not a number{hint}")
+        return default
+    if not math.isfinite(value):
+        problems.append(f"{name}: {where} {key} = {value} is not a finite number")
         return default
     if positive and value <= 0:
         problems.append(f"{name}: {where} {key} = {value} must be greater than zero")
@@ -214,11 +231,14 @@ def _read_case(raw: dict[str, Any], i: int, base: Path, name: str, problems: lis
         if not ok:
             problems.append(f"{name}: {where} time_index = {time_index!r}; expected a step number counted "
                             "from 0, \"all\", or [first, last]")
-        if isinstance(time_index, list):
+        if ok and isinstance(time_index, list):
             time_index = (time_index[0], time_index[1])
     average = raw.get("average", "cell")
     if average not in ("cell", "nodal"):
         problems.append(f"{name}: {where} average = '{average}'; expected 'cell' or 'nodal'")
+    for key in ("axes", "check_stress"):
+        if key in raw and not (isinstance(raw[key], str) and raw[key]):
+            problems.append(f"{name}: {where} {key} = {raw[key]!r}; expected an array name")
     file = _path(base, raw["file"], where, name, problems) if "file" in raw else None
     return Case(name=case_name, kind=kind, array=array, components=components, shear=shear,
                 time_index=time_index, file=file, average=average, axes=raw.get("axes"),
@@ -245,6 +265,8 @@ def parse_study(text: str, path: Path) -> Study:
             elif section not in ("case",):
                 _unknown_keys(f"[{section}]", item, allowed, problems, name)
 
+    if "test" in raw and not isinstance(raw["test"], dict):
+        problems.append(f"{name}: [test] must be a table of free-text entries")
     model = raw.get("model")
     if not isinstance(model, dict):
         problems.append(f"{name}: the [model] table is missing; it needs file = \"...\" and length_unit")
@@ -253,16 +275,14 @@ def parse_study(text: str, path: Path) -> Study:
     length_unit = model.get("length_unit")
     if length_unit is None:
         problems.append(f"{name}: [model] length_unit is missing; give one of {', '.join(LENGTH_UNITS)}")
-    elif length_unit not in LENGTH_UNITS:
+    elif not isinstance(length_unit, str) or length_unit not in LENGTH_UNITS:
         problems.append(f"{name}: [model] length_unit = '{length_unit}' is not known; "
                         f"expected one of {', '.join(LENGTH_UNITS)}")
     plane = model.get("plane")
     if plane is not None and plane not in ("stress", "strain"):
         problems.append(f"{name}: [model] plane = '{plane}'; expected \"stress\" or \"strain\"")
 
-    raw_cases = raw.get("case", [])
-    if isinstance(raw_cases, dict):
-        raw_cases = [raw_cases]
+    raw_cases = _tables(raw, "case")
     if not raw_cases:
         problems.append(f"{name}: no [[case]] given; add one per FE load case with name and an array")
     cases = []
@@ -278,10 +298,8 @@ def parse_study(text: str, path: Path) -> Study:
             problems.append(f"{name}: case name '{c.name}' is used twice; names must be unique")
         seen.add(c.name)
 
-    raw_mat = raw.get("material", [])
-    raw_mat = [raw_mat] if isinstance(raw_mat, dict) else raw_mat
     materials = []
-    for m in raw_mat:
+    for m in _tables(raw, "material"):
         E = _number(m, "E", None, "[material]", name, problems, positive=True)
         nu = _number(m, "nu", None, "[material]", name, problems)
         if E is None or nu is None:
@@ -290,6 +308,11 @@ def parse_study(text: str, path: Path) -> Study:
         if not -1.0 < nu < 0.5:
             problems.append(f"{name}: [material] nu = {nu} is outside (-1, 0.5)")
         blocks = m.get("blocks")
+        if blocks is not None and not (isinstance(blocks, list) and all(
+                isinstance(b, int) and not isinstance(b, bool) for b in blocks)):
+            problems.append(f"{name}: [material] blocks = {blocks!r}; expected a list of cell block "
+                            "numbers such as [0, 2]")
+            continue
         materials.append(Material(E=E, nu=nu, blocks=tuple(blocks) if blocks is not None else None))
     if any(c.kind == "stress" for c in cases) and not materials:
         problems.append(f"{name}: a case gives stress, so [material] E and nu are needed to convert it "
@@ -305,22 +328,28 @@ def parse_study(text: str, path: Path) -> Study:
     snap_tol = _number(gauges, "snap_tol", position_tol or None, "[gauges]", name, problems,
                        positive=True)  # None: 1 % of the model size, decided when it is read
     nu0 = _number(gauges, "calibration_poisson", 0.285, "[gauges]", name, problems)
+    for key, value in (("position_tol", position_tol), ("angle_tol", angle_tol)):
+        if value is not None and value < 0:
+            problems.append(f"{name}: [gauges] {key} = {value:g} is negative; give 0 or more")
     grid_points = gauges.get("grid_points", 5)
     if not isinstance(grid_points, int) or not 1 <= grid_points <= 20:
         problems.append(f"{name}: [gauges] grid_points = {grid_points!r}; expected a whole number 1 to 20")
         grid_points = 5
 
-    readings = raw.get("readings", {})
+    readings = _table(raw, "readings")
     readings_file = _path(base, readings.get("file"), "[readings]", name, problems) \
         if readings else None
     zero = readings.get("zero", "first")
     if zero not in ("first", "zero-load", "none"):
         problems.append(f"{name}: [readings] zero = '{zero}'; expected \"first\", \"zero-load\" or \"none\"")
     zero_tol = _number(readings, "zero_tol", 0.01, "[readings]", name, problems)
+    if zero_tol is not None and not 0 <= zero_tol < 1:
+        problems.append(f"{name}: [readings] zero_tol = {zero_tol:g}; expected a fraction of each "
+                        "load's peak from 0 to below 1 (0.01 for 1 %)")
 
     loads = []
     case_names = {c.name for c in cases}
-    for i, ld in enumerate(raw.get("load", [])):
+    for i, ld in enumerate(_tables(raw, "load")):
         column, case = ld.get("column"), ld.get("case")
         ref = _number(ld, "reference", None, f"[[load]] #{i + 1}", name, problems)
         if not isinstance(column, str) or not isinstance(case, str) or ref is None:
@@ -343,23 +372,53 @@ def parse_study(text: str, path: Path) -> Study:
                             f"(cases: {', '.join(sorted(case_names))}){hint}")
         loads.append(Load(column=column, case=case, reference=ref))
 
-    crit = raw.get("criteria", {})
+    crit = _table(raw, "criteria")
     slope = crit.get("slope", [0.90, 1.10])
-    if not (isinstance(slope, list) and len(slope) == 2 and slope[0] < slope[1]):
+    if not (isinstance(slope, list) and len(slope) == 2
+            and all(isinstance(v, int | float) and not isinstance(v, bool) for v in slope)
+            and slope[0] < slope[1]):
         problems.append(f"{name}: [criteria] slope = {slope!r}; expected [low, high]")
         slope = [0.90, 1.10]
+    # a value of 0 is a choice (no relative term, no floor): keep it, never fall back to a default
+    relative = _number(crit, "relative", 0.10, "[criteria]", name, problems)
+    absolute_ue = _number(crit, "absolute_ue", 50.0, "[criteria]", name, problems)
+    pass_fraction = _number(crit, "pass_fraction", 0.90, "[criteria]", name, problems)
+    for key, value in (("relative", relative), ("absolute_ue", absolute_ue)):
+        if value is not None and value < 0:
+            problems.append(f"{name}: [criteria] {key} = {value:g} is negative; give 0 or more")
+    if relative == 0 and absolute_ue == 0:
+        problems.append(f"{name}: [criteria] relative and absolute_ue are both 0, so no gauge could "
+                        "pass; give at least one of them")
+    if pass_fraction is not None and not 0 <= pass_fraction <= 1:
+        problems.append(f"{name}: [criteria] pass_fraction = {pass_fraction:g}; expected a fraction "
+                        "from 0 to 1 (0.9 for 90 %)")
     criteria = Criteria(
-        relative=_number(crit, "relative", 0.10, "[criteria]", name, problems) or 0.10,
-        absolute_ue=_number(crit, "absolute_ue", 50.0, "[criteria]", name, problems) or 50.0,
+        relative=0.10 if relative is None else relative,
+        absolute_ue=50.0 if absolute_ue is None else absolute_ue,
         slope=(float(slope[0]), float(slope[1])),
-        pass_fraction=_number(crit, "pass_fraction", 0.90, "[criteria]", name, problems) or 0.90)
+        pass_fraction=0.90 if pass_fraction is None else pass_fraction)
+
+    sentinels = readings.get("sentinels")
+    if sentinels is not None and not (isinstance(sentinels, list) and all(
+            isinstance(v, int | float | str) and not isinstance(v, bool) for v in sentinels)):
+        problems.append(f"{name}: [readings] sentinels = {sentinels!r}; expected a list of numbers "
+                        "and words, such as [-999999, \"OVER\"]")
+        sentinels = None
+    health = _table(raw, "health")
+    for key, value in health.items():
+        if isinstance(value, bool) or not isinstance(value, int | float):
+            problems.append(f"{name}: [health] {key} = {value!r} is not a number")
 
     overrides = []
-    for o in raw.get("override", []):
+    for o in _tables(raw, "override"):
         action = o.get("action")
         if action not in ("keep", "exclude", "reverse"):
             problems.append(f"{name}: [[override]] for gauge '{o.get('gauge')}' action = {action!r}; "
                             "expected keep, exclude or reverse")
+            continue
+        if not isinstance(o.get("gauge"), str) or not o["gauge"]:
+            problems.append(f"{name}: [[override]] with action = '{action}' names no gauge; add "
+                            "gauge = \"...\"")
             continue
         if not o.get("reason"):
             problems.append(f"{name}: [[override]] for gauge '{o.get('gauge')}' needs a reason")
@@ -376,12 +435,12 @@ def parse_study(text: str, path: Path) -> Study:
         position_tol=position_tol or 0.0, angle_tol=angle_tol or 0.0,
         snap_tol=snap_tol, calibration_poisson=nu0 if nu0 is not None else 0.285,
         grid_points=grid_points, band=bool(gauges.get("band", True)),
-        test=dict(raw.get("test", {})), readings_file=readings_file, zero=zero,
+        test=dict(_table(raw, "test")), readings_file=readings_file, zero=zero,
         zero_tol=zero_tol if zero_tol is not None else 0.01,
-        sentinels=tuple(readings["sentinels"]) if "sentinels" in readings else None,
+        sentinels=tuple(sentinels) if sentinels is not None else None,
         kt_corrected=bool(readings.get("kt_corrected", False)), loads=tuple(loads),
-        criteria=criteria, overrides=tuple(overrides), health=dict(raw.get("health", {})),
-        report=dict(raw.get("report", {})), raw=raw)
+        criteria=criteria, overrides=tuple(overrides), health=dict(health),
+        report=dict(_table(raw, "report")), raw=raw)
 
 
 def read_study(path: str | Path) -> Study:

@@ -121,3 +121,71 @@ def diagnose_failures(study: Study, model: Any, steps: Steps, names: list[str], 
             rosette=gauges["rosette"].iloc[j] or None))
     table = diagnose(evidence, crit)
     return table[cols] if len(table) else pd.DataFrame(columns=cols)
+
+
+def load_checks(study: Study, steps: Steps, measured: NDArray, st: dict,
+                rows_by_case: dict, op: Any) -> dict[str, Any]:
+    """Global checks: a factor per load column, swapped or sign-reversed load columns."""
+    from correlate.diagnose import Criterion, diagnose_loads
+
+    ev = st["evaluated"]
+    nominal = op.row_kind == 0
+    entries = [ld for ld in study.loads if ld.case in rows_by_case]
+    if not entries:
+        return {"reason": "no superposed load cases"}
+    contrib = np.stack([
+        (steps.loads[:, steps.load_names.index(ld.column)] / ld.reference)[:, None]
+        * (rows_by_case[ld.case]["axial" if study.kt_corrected else "indicated"][nominal]
+           * MICROSTRAIN)[None, :] for ld in entries], axis=2)                       # (s, g, L)
+    loads = np.stack([steps.loads[:, steps.load_names.index(ld.column)] for ld in entries], axis=1)
+    crit = Criterion(relative=study.criteria.relative, absolute_ue=study.criteria.absolute_ue)
+    m = np.where(ev, measured, np.nan)
+    out = diagnose_loads(m, contrib, steps.active, [f"{ld.column} -> {ld.case}" for ld in entries],
+                         crit, loads=loads)
+    out["note"] = ("measured = sum_j k_j x (contribution of load j); k_j far from the overall ratio "
+                   "points at that load path or its load cell")
+    return out
+
+
+def rosette_diagnoses(study: Study, model: Any, steps: Steps, measured: NDArray, st: dict,
+                      predicted: NDArray) -> pd.DataFrame:
+    """Permuted or mirrored grids for every rosette with a failing grid."""
+    from correlate.diagnose import Criterion, diagnose_rosette
+    from correlate.rosettes import rosette_angles, rosette_groups
+
+    crit = Criterion(relative=study.criteria.relative, absolute_ue=study.criteria.absolute_ue)
+    ev = st["evaluated"]
+    failing = ((st["status"] == "fail") & ev).any(axis=0)
+    gauges = model.gauges
+    op = model.operator
+    place = op.placement
+    parts = []
+    angles = rosette_angles(model, gauges)
+    for rid, idx in rosette_groups(gauges).items():
+        if not failing[idx].any():
+            continue
+        # mirrored layout: grid i at -theta_i instead of +theta_i (centre tensor, step factors)
+        n, dA = place.normal[idx[0]], place.direction[idx[0]]
+        th = -np.radians(angles[rid])
+        dirs = np.cos(th)[:, None] * dA + np.sin(th)[:, None] * np.cross(n, dA)
+        trans = np.cross(n, dirs)
+        T = np.zeros((len(steps.step), len(idx), 3, 3))
+        for k, case in enumerate(study.cases):
+            if case.time_index == "all" or isinstance(case.time_index, tuple):
+                continue
+            fld = model.case_field(case, case.time_index if isinstance(case.time_index, int)
+                                   else None)
+            from correlate.predict import centre_strain
+
+            Tc = centre_strain(op, fld)[idx]
+            T += steps.factors[:, k, None, None, None] * Tc[None]
+        ea = np.einsum("gi,sgij,gj->sg", dirs, T, dirs)
+        et = np.einsum("gi,sgij,gj->sg", trans, T, trans)
+        kt, nu0 = op.kt[idx], op.nu0[idx]
+        mirrored = (ea + kt * et) / (1 - nu0 * kt) * MICROSTRAIN
+        active = steps.active & ev[:, idx].all(axis=1)
+        grids = [gauges["gauge"].iloc[i] for i in idx]
+        parts.append(diagnose_rosette(rid, grids, measured[:, idx], predicted[:, idx], mirrored,
+                                      active, crit))
+    parts = [p for p in parts if len(p)]
+    return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame()

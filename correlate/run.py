@@ -244,6 +244,13 @@ def correlate_study(study: Study, model: Model | None = None) -> Correlation:
 
     diag = diagnose_failures(study, model, steps, names, measured, predicted, st, rows_by_case,
                              contributions, per_gauge)
+    from correlate.diagnosis import load_checks, rosette_diagnoses
+
+    ros_diag = rosette_diagnoses(study, model, steps, measured, st, predicted)
+    if len(ros_diag):
+        diag = pd.concat([diag, ros_diag[[c for c in diag.columns if c in ros_diag.columns]]],
+                         ignore_index=True)
+    result["load_checks"] = load_checks(study, steps, measured, st, rows_by_case, op)
     summary = _summary(study, model, readings, steps, names, result, per_gauge, flags, diag, ref,
                        st, reversed_)
     return Correlation(study=study, model=model, steps=steps, gauges=names, measured=measured,
@@ -415,6 +422,8 @@ def _summary(study: Study, model: Model, readings: Any, steps: Steps, names: lis
         "reference_step": {"step": int(steps.step[ref]), "sequence": int(steps.sequence[ref]),
                            "rule": "largest RMS predicted reading"},
         "metrics": result["metrics"], "area_metric": result["area_metric"],
+        "load_checks": result["load_checks"],
+        "gauge_map": model.gauges.drop(columns=["row"]).to_dict(orient="records"),
         "influence": result["influence"].to_dict(orient="records"),
         "per_gauge": per_gauge_records,
         "flags": flags.to_dict(orient="records"),

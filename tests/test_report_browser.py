@@ -49,7 +49,7 @@ def _chromium(tmp: Path, *args: str) -> str:
 
 
 @pytest.fixture(scope="module")
-def report(tmp_path_factory: pytest.TempPathFactory):  # noqa: ANN201
+def report(tmp_path_factory: pytest.TempPathFactory):
     if not CHROMIUM.exists():
         pytest.skip("chromium not installed: apt-get install chromium")
     from correlate.report import write_report
@@ -62,7 +62,7 @@ def report(tmp_path_factory: pytest.TempPathFactory):  # noqa: ANN201
     return corr, out, folder
 
 
-def test_tables_hold_every_gauge_after_load(report) -> None:  # noqa: ANN001
+def test_tables_hold_every_gauge_after_load(report) -> None:
     corr, out, tmp = report
     dom = _chromium(tmp, "--dump-dom", (out / "report.html").as_uri())
     page = _Page()
@@ -74,7 +74,7 @@ def test_tables_hold_every_gauge_after_load(report) -> None:  # noqa: ANN001
     assert not any(tag == "script" for tag, _ in page.tags)
 
 
-def test_every_picture_decodes(report) -> None:  # noqa: ANN001
+def test_every_picture_decodes(report) -> None:
     from matplotlib.image import imread
 
     _, out, tmp = report
@@ -98,7 +98,7 @@ def test_every_picture_decodes(report) -> None:  # noqa: ANN001
     assert [(ok, w, h) for ok, w, h in states] == [(True, w, h) for w, h in sizes]
 
 
-def test_screenshot_for_a_person(report) -> None:  # noqa: ANN001
+def test_screenshot_for_a_person(report) -> None:
     from matplotlib.image import imread
 
     _, out, tmp = report

@@ -43,7 +43,8 @@ def _field(points: np.ndarray) -> np.ndarray:
     return t
 
 
-def _block(path: Path) -> None:
+def _block(path: Path, gradient: np.ndarray | None = None) -> None:
+    """The tet block with the strain field, or with displacement u = gradient @ x."""
     xs, ys, zs = np.linspace(0, 60, 7), np.linspace(0, 30, 4), np.linspace(0, 10, 3)
     X, Y, Z = np.meshgrid(xs, ys, zs, indexing="ij")
     pts = np.c_[X.ravel(), Y.ravel(), Z.ravel()]
@@ -61,7 +62,8 @@ def _block(path: Path) -> None:
                     tets.append(q)
     t = _field(pts)
     voigt = np.c_[t[:, 0, 0], t[:, 1, 1], t[:, 2, 2], 2 * t[:, 0, 1], 2 * t[:, 1, 2], 2 * t[:, 0, 2]]
-    meshio.write(path, meshio.Mesh(pts, [("tetra", np.array(tets))], point_data={"E": voigt}))
+    data = {"E": voigt} if gradient is None else {"U": pts @ gradient.T}
+    meshio.write(path, meshio.Mesh(pts, [("tetra", np.array(tets))], point_data=data))
 
 
 # gauge id, centre, grid direction, gain of the measured reading against the model
@@ -78,7 +80,7 @@ GAUGES = [
 EXCLUDED = DOLLAR_ID
 
 
-def model_reading(centre, direction) -> float:  # noqa: ANN001
+def model_reading(centre, direction) -> float:
     """d . eps . d at the centre for the reference case [ue] (a grid on a linear field reads its
     centre value; transverse sensitivity 0)."""
     d = np.asarray(direction, dtype=float)
@@ -128,7 +130,7 @@ DIAGNOSES = pd.DataFrame({
     "rms_after_ue": [0.1, 0.2], "plausible": [False, False], "parameter": [12.0, 2.0]})
 
 
-def build_correlation(folder: Path):  # noqa: ANN201
+def build_correlation(folder: Path):
     """Run the study; the failure diagnosis (slow, tested in its own module) is replaced by a
     fixed table, which the report must show joined with '; '."""
     import correlate.diagnosis
@@ -181,7 +183,7 @@ class _Page(HTMLParser):
 
 
 @pytest.fixture(scope="module")
-def report(tmp_path_factory: pytest.TempPathFactory):  # noqa: ANN201
+def report(tmp_path_factory: pytest.TempPathFactory):
     from correlate.report import write_report
 
     folder = tmp_path_factory.mktemp("report")
@@ -203,7 +205,7 @@ def _table(page: _Page, *header: str) -> list[list[str]]:
     return _tables(page, *header)[0]
 
 
-def test_reference_table_lists_every_gauge_worst_first(report) -> None:  # noqa: ANN001
+def test_reference_table_lists_every_gauge_worst_first(report) -> None:
     corr, _, page = report
     rows = _table(page, "gauge", "predicted [ue]")[1:]
     assert [r[0] for r in rows if r[0] in corr.gauges] == [r[0] for r in rows]
@@ -216,8 +218,8 @@ def test_reference_table_lists_every_gauge_worst_first(report) -> None:  # noqa:
     assert [r[0] for r in rows] == expected
 
 
-def test_reference_table_shows_the_analytic_model_reading(report) -> None:  # noqa: ANN001
-    corr, _, page = report
+def test_reference_table_shows_the_analytic_model_reading(report) -> None:
+    _, _, page = report
     rows = {r[0]: r for r in _table(page, "gauge", "predicted [ue]")[1:]}
     for g, c, d, _ in GAUGES:
         # closed form d.eps.d of the linear field at 8/10 of the case; printed to 0.1 ue
@@ -225,7 +227,7 @@ def test_reference_table_shows_the_analytic_model_reading(report) -> None:  # no
         assert float(rows[g][1]) == pytest.approx(expected, abs=0.051)
 
 
-def test_every_resource_is_inline(report) -> None:  # noqa: ANN001
+def test_every_resource_is_inline(report) -> None:
     _, out, page = report
     assert not any(tag in ("script", "link", "iframe", "object", "embed") for tag, _ in page.tags)
     refs = [(tag, k, v) for tag, attrs in page.tags for k, v in attrs.items()
@@ -233,7 +235,7 @@ def test_every_resource_is_inline(report) -> None:  # noqa: ANN001
     assert refs, "the report should hold pictures"
     for tag, key, value in refs:
         assert value is not None
-        assert value.startswith("data:image/png;base64,") or value.startswith("#"), (tag, key)
+        assert value.startswith(("data:image/png;base64,", "#")), (tag, key)
     html = (out / "report.html").read_text(encoding="utf-8")
     assert "@import" not in html
     assert "url(" not in html
@@ -241,8 +243,8 @@ def test_every_resource_is_inline(report) -> None:  # noqa: ANN001
     assert len([1 for tag, a in page.tags if tag == "img"]) == len(pngs)
 
 
-def test_untrusted_text_is_escaped_and_intact(report) -> None:  # noqa: ANN001
-    corr, _, page = report
+def test_untrusted_text_is_escaped_and_intact(report) -> None:
+    _, _, page = report
     assert page.h1.strip() == TITLE
     assert not any(tag == "script" for tag, _ in page.tags)
     # the lab field is text, not an element: every img is one of ours
@@ -254,14 +256,14 @@ def test_untrusted_text_is_escaped_and_intact(report) -> None:  # noqa: ANN001
     assert len(LONG_ID) == 500
 
 
-def test_diagnoses_are_joined(report) -> None:  # noqa: ANN001
-    corr, _, page = report
+def test_diagnoses_are_joined(report) -> None:
+    _, _, page = report
     rows = {r[0]: r for r in _table(page, "gauge", "predicted [ue]")[1:]}
     assert rows[UNICODE_ID][-1] == "grid angle: turned 12 deg; position: moved 2 mm"
 
 
-def test_requested_step_has_its_own_table(report) -> None:  # noqa: ANN001
-    corr, _, page = report
+def test_requested_step_has_its_own_table(report) -> None:
+    _, _, page = report
     tables = _tables(page, "gauge", "predicted [ue]")
     assert len(tables) == 2
     rows = {r[0]: r for r in tables[1][1:]}
@@ -270,8 +272,8 @@ def test_requested_step_has_its_own_table(report) -> None:  # noqa: ANN001
     assert float(rows[g][1]) == pytest.approx(model_reading(c, d) * 0.4, abs=0.051)
 
 
-def test_flags_rosettes_and_caution(report) -> None:  # noqa: ANN001
-    corr, _, page = report
+def test_flags_rosettes_and_caution(report) -> None:
+    _, _, page = report
     flags = _table(page, "gauge", "applies to", "flag")
     assert any(r[0] == EXCLUDED and "lead wire <cut>" in r[4] for r in flags[1:])
     ros = _table(page, "rosette", "source")
@@ -281,7 +283,7 @@ def test_flags_rosettes_and_caution(report) -> None:  # noqa: ANN001
             "codes and licensed practice.") in text
 
 
-def test_gauges_vtp_holds_the_reference_step(report) -> None:  # noqa: ANN001
+def test_gauges_vtp_holds_the_reference_step(report) -> None:
     import pyvista as pv
 
     corr, out, _ = report
@@ -307,7 +309,7 @@ def test_gauges_vtp_holds_the_reference_step(report) -> None:  # noqa: ANN001
     assert "status_legend" in poly.field_data
 
 
-def test_surface_vtp_holds_the_analytic_strain(report) -> None:  # noqa: ANN001
+def test_surface_vtp_holds_the_analytic_strain(report) -> None:
     import pyvista as pv
 
     _, out, _ = report
@@ -324,3 +326,35 @@ def test_surface_vtp_holds_the_analytic_strain(report) -> None:  # noqa: ANN001
     on_face = (np.isclose(p[:, 0], 0) | np.isclose(p[:, 0], 60) | np.isclose(p[:, 1], 0)
                | np.isclose(p[:, 1], 30) | np.isclose(p[:, 2], 0) | np.isclose(p[:, 2], 10))
     assert on_face.all()
+
+
+def test_surface_from_displacement_is_the_exact_strain(tmp_path: Path) -> None:
+    """A displacement case: the surface carries the small strain of each cell (linear field)."""
+    import correlate.diagnosis
+    from correlate.config import read_study
+    from correlate.report.render import model_surface
+    from correlate.run import correlate_study
+
+    rng = np.random.default_rng(11)
+    G = rng.normal(0.0, 5e-4, (3, 3))
+    _block(tmp_path / "block.vtu", gradient=G)
+    (tmp_path / "gauges.csv").write_text("gauge,x,y,z,dir_x,dir_y,dir_z\nA,20,15,10,1,0,0\n"
+                                         "B,30,0,5,1,0,0\nC,40,15,10,0,1,0\n")
+    (tmp_path / "readings.csv").write_text("step,F,A,B,C\n0,0,0,0,0\n1,5,130,-40,61\n"
+                                           "2,10,270,-95,118\n")
+    (tmp_path / "study.toml").write_text(
+        'title = "displacement"\n[model]\nfile = "block.vtu"\nlength_unit = "mm"\n'
+        '[[case]]\nname = "c"\ndisplacement = "U"\n[gauges]\nfile = "gauges.csv"\n'
+        '[readings]\nfile = "readings.csv"\n[[load]]\ncolumn = "F"\ncase = "c"\nreference = 4.0\n')
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setattr(correlate.diagnosis, "diagnose_failures", lambda *a, **k: DIAGNOSES.iloc[:0])
+        corr = correlate_study(read_study(tmp_path / "study.toml"))
+    surface, note = model_surface(corr)
+    # reference: small strain sym(G) of u = G x, times the factor 10 / 4 of the 10 kN step; a
+    # linear tetrahedron differentiates a linear field exactly (rounding only)
+    eps = 0.5 * (G + G.T) * 2.5 * 1e6
+    assert "displacement" in note
+    np.testing.assert_allclose(surface.cell_data["exx_ue"], eps[0, 0], rtol=0, atol=1e-6)
+    np.testing.assert_allclose(surface.cell_data["gyz_ue"], 2 * eps[1, 2], rtol=0, atol=1e-6)
+    np.testing.assert_allclose(surface.cell_data["max_principal_ue"], np.linalg.eigvalsh(eps)[-1],
+                               rtol=0, atol=1e-6)

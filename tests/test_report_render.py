@@ -62,7 +62,7 @@ def _slotted_block(path: Path) -> None:
                                    point_data={"E": voigt}))
 
 
-def _reading(centre, direction) -> float:  # noqa: ANN001
+def _reading(centre, direction) -> float:
     d = np.asarray(direction, dtype=float)
     exx = 1e-3 * (0.6 + centre[0] / 40.0)
     t = np.diag([exx, -0.3 * exx, -0.3 * exx])
@@ -71,7 +71,7 @@ def _reading(centre, direction) -> float:  # noqa: ANN001
 
 
 @pytest.fixture(scope="module")
-def rendered(tmp_path_factory: pytest.TempPathFactory):  # noqa: ANN201
+def rendered(tmp_path_factory: pytest.TempPathFactory):
     import correlate.diagnosis
     from correlate.config import read_study
     from correlate.report.render import render_views
@@ -108,7 +108,7 @@ def rendered(tmp_path_factory: pytest.TempPathFactory):  # noqa: ANN201
     return corr, render_views(corr, out, size=SIZE), out
 
 
-def _pixels(view, points: np.ndarray) -> np.ndarray:  # noqa: ANN001
+def _pixels(view, points: np.ndarray) -> np.ndarray:
     """(column, row) of model points in a view's picture, by VTK's own camera matrices."""
     from vtkmodules.vtkRenderingCore import vtkCamera
 
@@ -133,7 +133,7 @@ def _image(path: Path) -> np.ndarray:
     return (imread(path)[..., :3] * 255).round()
 
 
-def test_views_have_the_requested_size_and_are_not_blank(rendered) -> None:  # noqa: ANN001
+def test_views_have_the_requested_size_and_are_not_blank(rendered) -> None:
     _, result, out = rendered
     assert result.views[0].name == "iso"
     assert 2 <= len(result.views) <= 7
@@ -146,7 +146,7 @@ def test_views_have_the_requested_size_and_are_not_blank(rendered) -> None:  # n
         assert len(np.unique(packed)) > 50
 
 
-def test_each_visible_gauge_shows_its_discrepancy_colour(rendered) -> None:  # noqa: ANN001
+def test_each_visible_gauge_shows_its_discrepancy_colour(rendered) -> None:
     from matplotlib import colormaps
 
     from correlate.report.render import GREY
@@ -165,7 +165,7 @@ def test_each_visible_gauge_shows_its_discrepancy_colour(rendered) -> None:  # n
         img = _image(out / view.file)
         idx = [corr.gauges.index(g) for g in view.visible]
         for j, (c, r) in zip(idx, _pixels(view, result.glyphs.anchor[idx]), strict=True):
-            c, r = int(round(c)), int(round(r))
+            c, r = round(c), round(r)
             window = img[r - 3:r + 4, c - 3:c + 4].reshape(-1, 3)
             # 8 of 255 per channel: a 256-entry colour table and 8-bit pixels
             close = np.abs(window - rgb[j]).max(axis=1) <= 8
@@ -174,7 +174,7 @@ def test_each_visible_gauge_shows_its_discrepancy_colour(rendered) -> None:  # n
     assert checked >= len(corr.gauges) - 1
 
 
-def test_gauge_deep_in_the_slot_is_not_visible(rendered) -> None:  # noqa: ANN001
+def test_gauge_deep_in_the_slot_is_not_visible(rendered) -> None:
     corr, result, _ = rendered
     assert result.not_visible == ("S1",)
     assert not any("S1" in v.visible for v in result.views)
@@ -182,7 +182,7 @@ def test_gauge_deep_in_the_slot_is_not_visible(rendered) -> None:  # noqa: ANN00
     assert seen == set(corr.gauges) - {"S1"}
 
 
-def test_marker_points_lie_on_their_gauges(rendered) -> None:  # noqa: ANN001
+def test_marker_points_lie_on_their_gauges(rendered) -> None:
     corr, result, _ = rendered
     place = corr.model.operator.placement
     g = result.glyphs

@@ -43,12 +43,17 @@ def _numeric(raw: pd.DataFrame, col: str, source: str, problems: list[str]) -> n
         if not text:
             continue
         try:
-            out[i] = float(text)
+            value = float(text)
         except ValueError:
+            value = None
+        if value is None or not np.isfinite(value):  # 'nan', 'inf' and 1e999 are no coordinates
             hint = ("write decimal points, not decimal commas" if "," in text
                     else "give a number or leave the cell blank")
             problems.append(f"{source} row {i + 2} (gauge '{raw['gauge'].iloc[i]}'), column {col}: "
-                            f"'{text}' is not a number; {hint}")
+                            f"'{text}' is not a {'number' if value is None else 'finite number'}; "
+                            f"{hint}")
+            continue
+        out[i] = value
     return out
 
 
@@ -105,7 +110,7 @@ def validate_gauges(raw: pd.DataFrame, *, source: str = "gauge map") -> pd.DataF
             if f"column {col}:" not in " ".join(problems):
                 problems.append(f"{source} row {r['row']} (gauge '{r['gauge']}'): {col} is blank")
     d = out[["dir_x", "dir_y", "dir_z"]].to_numpy()
-    for i in np.flatnonzero(np.linalg.norm(np.nan_to_num(d), axis=1) == 0):
+    for i in np.flatnonzero(np.all(np.nan_to_num(d) == 0, axis=1)):
         problems.append(f"{source} row {out['row'].iloc[i]} (gauge '{out['gauge'].iloc[i]}'): grid "
                         "direction dir_x, dir_y, dir_z has zero length; give the grid axis")
     if (out["length"] < 0).any():
@@ -129,13 +134,20 @@ def validate_gauges(raw: pd.DataFrame, *, source: str = "gauge map") -> pd.DataF
         if len(group) < 3:
             problems.append(f"{source}: rosette '{rid}' has {len(group)} grid(s) "
                             f"({', '.join(group['gauge'])}); a rosette needs at least three")
-        elif np.all(np.linalg.norm(group[["dir_x", "dir_y", "dir_z"]].to_numpy(), axis=1) > 0):
-            problems += _rosette_angle_problems(str(rid), group, source)
+        else:
+            gd = group[["dir_x", "dir_y", "dir_z"]].to_numpy(dtype=float)
+            if np.isfinite(gd).all() and np.any(gd != 0, axis=1).all():  # else reported above
+                problems += _rosette_angle_problems(str(rid), group, source)
     if problems:
         raise GaugeError(*problems)
-    norm = np.linalg.norm(d, axis=1)
-    out[["dir_x", "dir_y", "dir_z"]] = d / norm[:, None]
+    out[["dir_x", "dir_y", "dir_z"]] = _unit_rows(d)
     return out
+
+
+def _unit_rows(d: np.ndarray) -> np.ndarray:
+    """Rows scaled to unit length; scaled by their largest entry first, so 1e200 cannot overflow."""
+    d = d / np.max(np.abs(d), axis=1, keepdims=True)
+    return d / np.linalg.norm(d, axis=1, keepdims=True)
 
 
 def _rosette_angle_problems(rid: str, group: pd.DataFrame, source: str) -> list[str]:
@@ -150,8 +162,7 @@ def _rosette_angle_problems(rid: str, group: pd.DataFrame, source: str) -> list[
 
     if (group["grid"] != "").all():
         group = group.sort_values("grid", kind="stable")
-    d = group[["dir_x", "dir_y", "dir_z"]].to_numpy(dtype=float)
-    d = d / np.linalg.norm(d, axis=1, keepdims=True)
+    d = _unit_rows(group[["dir_x", "dir_y", "dir_z"]].to_numpy(dtype=float))
     w, v = np.linalg.eigh(d.T @ d)
     ids = ", ".join(group["gauge"])
     if w[1] <= 1e-12 * w[2]:

@@ -305,20 +305,19 @@ def write_report(corr: Any, folder: Path) -> None:
             ("strain", f"{units.get('strain', 'microstrain (ue)')}; 1 ue = 1e-6 m/m"),
             ("length", str(units.get("length", study.length_unit))),
             ("stress", str(units.get("stress", study.stress_unit or "unit of E"))),
-            ("sign", "tension positive; difference = measured - predicted; "
-                     "ratio = measured / predicted"),
+            ("sign", ("tension positive; difference = measured - predicted; "
+                      "ratio = measured / predicted")),
             ("shear", "engineering shear strain (gamma = 2 x tensor shear) in rosette outputs"),
-            ("rosette angles", "from grid A, counterclockwise about the outward normal, "
-                               "seen from outside"),
-            ("tare", f"rule '{tare.get('rule', study.zero)}', zero tolerance "
-                     f"{tare.get('zero_tol', study.zero_tol):g} of each load's peak; "
-                     f"{tare.get('note', '')}")],
+            ("rosette angles", ("from grid A, counterclockwise about the outward normal, "
+                                "seen from outside")),
+            ("tare", (f"rule '{tare.get('rule', study.zero)}', zero tolerance "
+                      f"{tare.get('zero_tol', study.zero_tol):g} of each load's peak; "
+                      f"{tare.get('note', '')}"))],
         "ref_label": _step_label(corr, ref),
         "ref_rule": str(ref_info.get("rule", "")),
         "verdict": {"result": verdict["result"], "ok": verdict["result"] == "meets the criteria",
                     "reasons": list(verdict.get("reasons", [])), "numbers": numbers,
-                    "ci_method": str(fit.get("ci_method", "")),
-                    "note": str(summary.get("caution_note", ""))},
+                    "ci_method": str(fit.get("ci_method", ""))},
         "views": [{**data_uri(folder / v.file), "title": v.title, "visible": list(v.visible)}
                   for v in rendering.views]
         if rendering else [],

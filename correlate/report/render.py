@@ -9,7 +9,8 @@ field times the reference step's factor, summed (readings and fields are linear 
 gauge is a short bar along its grid, lifted off the surface along the normal, coloured by
 measured - predicted at the reference step on a diverging map with symmetric limits; gauges that were
 not evaluated there are grey. Grids that share a centre (rosettes) are drawn as a fan from the centre
-so that each grid keeps a spot of its own colour.
+so that each grid keeps a spot of its own colour. Each view draws and labels only the gauges it shows;
+labels are moved clear of each other and of the bars, with a leader line when moved far.
 
 A gauge counts as visible in a view when its marker point faces the camera (normal within 75 degrees
 of the view direction), projects inside the picture, and the depth buffer of the bare surface holds
@@ -21,6 +22,8 @@ pyvista is imported inside the functions so that ``import correlate`` stays ligh
 from __future__ import annotations
 
 import inspect
+from collections.abc import Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -230,15 +233,6 @@ def gauge_glyphs(corr: Any) -> Glyphs:
                   size=size)
 
 
-def discrepancy_colours(values: NDArray, limit: float) -> NDArray[np.float64]:
-    """RGB (g, 3) in [0, 1] of discrepancies on the diverging map; grey where NaN."""
-    from matplotlib import colormaps
-
-    cmap = colormaps[DIVERGING]
-    rgb = cmap(np.clip((np.nan_to_num(values) + limit) / (2 * limit), 0.0, 1.0))[:, :3]
-    return np.where(np.isfinite(values)[:, None], rgb, np.array(GREY)[None, :])
-
-
 def _bars(glyphs: Glyphs, select: NDArray[np.bool_]) -> Any:
     import pyvista as pv
 
@@ -405,7 +399,8 @@ def _add_labels(plotter: Any, glyphs: Glyphs, shown: NDArray[np.bool_],
     anchors = project(plotter, glyphs.anchor[idx])
     ends = project(plotter, glyphs.end[idx])
     pad = 5.0
-    along = np.linspace(0.0, 1.0, 6)
+    leaders: list[tuple[tuple[float, float], tuple[float, float]]] = []
+    along = np.linspace(0.0, 1.0, 9)
     bars = project(plotter, (glyphs.start[idx, None, :] + along[None, :, None]
                              * (glyphs.end - glyphs.start)[idx, None, :]).reshape(-1, 3))
     taken = [(x - pad, y - pad, x + pad, y + pad) for x, y in np.r_[anchors, bars]]
@@ -425,7 +420,7 @@ def _add_labels(plotter: Any, glyphs: Glyphs, shown: NDArray[np.bool_],
         sx = 1.0 if away[0] >= 0 else -1.0
         sy = 1.0 if away[1] >= 0 else -1.0
         choice = None
-        for r in (6.0, 18.0, 32.0, 50.0, 75.0):
+        for r in (6.0, 16.0, 28.0, 42.0, 60.0, 85.0, 115.0):
             for dx, dy in ((sx, sy), (sx, -sy), (-sx, sy), (-sx, -sy), (0, sy), (0, -sy)):
                 x0 = ex + dx * r - (w if dx < 0 else 0) - (w / 2 if dx == 0 else 0)
                 y0 = ey + dy * r - (h if dy < 0 else 0)
@@ -440,21 +435,74 @@ def _add_labels(plotter: Any, glyphs: Glyphs, shown: NDArray[np.bool_],
             y0 = min(max(ey + 6, BOTTOM_BAND), size[1] - TOP_BAND - h)
             choice = (x0, y0, x0 + w, y0 + h)
         taken.append(choice)
-        actor.SetDisplayPosition(int(round(choice[0] + 2)), int(round(choice[1] + 2)))
+        actor.SetDisplayPosition(round(choice[0] + 2), round(choice[1] + 2))
         actors.append(actor)
+        # a leader from the bar end to the nearest point of a label set further away
+        near = (min(max(ex, choice[0]), choice[2]), min(max(ey, choice[1]), choice[3]))
+        if np.hypot(near[0] - ex, near[1] - ey) > 10:
+            leaders.append(((ex, ey), near))
+    if leaders:
+        actors.append(_leader_lines(plotter, leaders))
     return actors
 
 
-def _scalar_bar(plotter: Any, mapper: Any, title: str, x: float) -> list[Any]:
+def _leader_lines(plotter: Any, segments: list[tuple[tuple[float, float], tuple[float, float]]]
+                  ) -> Any:
+    """Thin 2D lines in display coordinates (one actor for all)."""
+    from vtkmodules.vtkCommonCore import vtkPoints
+    from vtkmodules.vtkCommonDataModel import vtkCellArray, vtkPolyData
+    from vtkmodules.vtkRenderingCore import vtkActor2D, vtkPolyDataMapper2D
+
+    points, lines = vtkPoints(), vtkCellArray()
+    for a, b in segments:
+        i = points.InsertNextPoint(a[0], a[1], 0.0)
+        k = points.InsertNextPoint(b[0], b[1], 0.0)
+        lines.InsertNextCell(2)
+        lines.InsertCellPoint(i)
+        lines.InsertCellPoint(k)
+    poly = vtkPolyData()
+    poly.SetPoints(points)
+    poly.SetLines(lines)
+    mapper = vtkPolyDataMapper2D()
+    mapper.SetInputData(poly)
+    actor = vtkActor2D()
+    actor.SetMapper(mapper)
+    actor.GetProperty().SetColor(0.25, 0.25, 0.25)
+    actor.GetProperty().SetLineWidth(1.0)
+    plotter.renderer.AddViewProp(actor)
+    return actor
+
+
+def _nice_range(low: float, high: float) -> tuple[float, float, int]:
+    """Limits widened to round tick values, and the number of ticks (for the colour bar)."""
+    from matplotlib.ticker import MaxNLocator
+
+    if not high - low > 1e-9 * max(1.0, abs(high)):
+        return low - 1.0, high + 1.0, 5
+    ticks = MaxNLocator(nbins=5, steps=[1, 2, 2.5, 5, 10]).tick_values(low, high)
+    ticks = ticks[(ticks >= ticks[ticks <= low].max()) & (ticks <= ticks[ticks >= high].min())]
+    return float(ticks[0]), float(ticks[-1]), len(ticks)
+
+
+def _tick_format(low: float, high: float, ticks: int = 5) -> str:
+    """Enough decimals to tell the tick labels apart (at most three)."""
+    step = (high - low) / max(ticks - 1, 1)
+    digits = 0 if step <= 0 else int(np.clip(np.ceil(-np.log10(step)), 0, 3))
+    return f"%.{digits}f"
+
+
+def _scalar_bar(plotter: Any, mapper: Any, title: str, x: float, ticks: int = 5) -> list[Any]:
     """A horizontal colour bar in the bottom band, tick labels under it, its title above it.
 
     The title is a separate text actor: VTK's own scalar-bar title overlaps the tick labels of a
     horizontal bar.
     """
     width, height = plotter.window_size
+    low, high = mapper.GetScalarRange()
     bar = plotter.add_scalar_bar(
         title=" " * (1 + len(plotter.scalar_bars)), mapper=mapper, vertical=False,
-        position_x=x, position_y=0.025, width=0.38, height=0.09, n_labels=5, fmt="%.0f",
+        position_x=x, position_y=0.025, width=0.38, height=0.09, n_labels=ticks,
+        fmt=_tick_format(low, high, ticks),
         color="black", label_font_size=14, font_family="arial", render=False)
     bar.SetTextPositionToPrecedeScalarBar()
     bar.SetBarRatio(0.45)
@@ -472,6 +520,20 @@ def _direction_name(towards_camera: NDArray) -> str:
     return "looking along ({:+.2f}, {:+.2f}, {:+.2f})".format(*(-towards_camera))
 
 
+@contextmanager
+def _vtk_errors_only() -> Iterator[None]:
+    """Silence VTK's stderr warnings while rendering: off-screen, VTK first tries an X display
+    and logs "bad X server connection" before it falls back to EGL or OSMesa."""
+    from vtkmodules.vtkCommonCore import vtkLogger
+
+    before = vtkLogger.GetCurrentVerbosityCutoff()
+    vtkLogger.SetStderrVerbosity(vtkLogger.VERBOSITY_ERROR)
+    try:
+        yield
+    finally:
+        vtkLogger.SetStderrVerbosity(before)
+
+
 class _Scene:
     """One off-screen plotter holding the surface and the gauge bars; one camera per view."""
 
@@ -479,24 +541,26 @@ class _Scene:
         import pyvista as pv
 
         theme = pv.themes.DocumentTheme()
-        theme.multi_samples = 1          # 4 samples cost 4x on software rendering; FXAA instead
+        theme.multi_samples = 1          # multisampling costs 4x per frame in software OpenGL
         self.plotter = pv.Plotter(off_screen=True, window_size=list(size), theme=theme)
         self.plotter.set_background("white")
         # no anti-aliasing: SSAA, the only kind software OpenGL offers, costs 10x per frame
         self.size = size
         self.glyphs = glyphs
         self.overlay: list[Any] = []     # hidden during the depth test
-        self.clim = None
+        self.clim: tuple[float, float] | None = None
+        ticks = 5
         if "max_principal_ue" in surface.array_names:
             v = np.asarray(surface["max_principal_ue"])
-            lo, hi = float(np.min(v)), float(np.max(v))
-            self.clim = (lo, hi) if hi - lo > 1e-9 * max(1.0, abs(hi)) else (lo - 1.0, hi + 1.0)
+            low, high, ticks = _nice_range(float(np.min(v)), float(np.max(v)))
+            self.clim = (low, high)
         pl = self.plotter
         if self.clim is not None:
             actor = pl.add_mesh(surface, scalars="max_principal_ue", cmap=SEQUENTIAL, clim=self.clim,
                                 show_scalar_bar=False, ambient=0.3, diffuse=0.75, specular=0.0,
                                 render=False)
-            self.overlay += _scalar_bar(pl, actor.mapper, "max principal strain [ue]", 0.05)
+            self.overlay += _scalar_bar(pl, actor.mapper, "max principal strain [ue]", 0.05,
+                                        ticks)
         else:
             pl.add_mesh(surface, color=(0.85, 0.85, 0.82), ambient=0.3, diffuse=0.75, render=False)
         edges = surface.extract_feature_edges(feature_angle=30.0, boundary_edges=True,
@@ -504,16 +568,18 @@ class _Scene:
         if edges.n_points:
             pl.add_mesh(edges, color=(0.15, 0.15, 0.15), line_width=1.0, lighting=False,
                         render=False)
-        finite = np.isfinite(glyphs.discrepancy)
-        if finite.any():
-            actor = pl.add_mesh(_bars(glyphs, finite), scalars="discrepancy_ue", cmap=DIVERGING,
-                                clim=(-glyphs.limit, glyphs.limit), lighting=False, n_colors=256,
-                                show_scalar_bar=False, render=False)
-            self.overlay.append(actor)
-            self.overlay += _scalar_bar(pl, actor.mapper, "measured - predicted [ue]", 0.57)
-        if (~finite).any():
-            self.overlay.append(pl.add_mesh(_bars(glyphs, ~finite), color=GREY, lighting=False,
-                                            render=False))
+        # bars: one coloured and one grey actor whose input is set per view (its visible gauges)
+        self.finite = np.isfinite(glyphs.discrepancy)
+        self.bars = self.grey = None
+        if self.finite.any():
+            self.bars = pl.add_mesh(_bars(glyphs, self.finite), scalars="discrepancy_ue",
+                                    cmap=DIVERGING, clim=(-glyphs.limit, glyphs.limit),
+                                    lighting=False, n_colors=256, show_scalar_bar=False,
+                                    render=False)
+            self.overlay += _scalar_bar(pl, self.bars.mapper, "measured - predicted [ue]", 0.57)
+        if (~self.finite).any():
+            self.grey = pl.add_mesh(_bars(glyphs, ~self.finite), color=GREY, lighting=False,
+                                    render=False)
             self.overlay.append(_text(pl, "grey bars: not evaluated at the reference step",
                                       12, 8, 13, (0.3, 0.3, 0.3)))
         self.title = _text(pl, "", 14, size[1] - 34, 17)
@@ -529,8 +595,9 @@ class _Scene:
 
     def visible(self) -> NDArray[np.bool_]:
         """Render the bare surface and run the depth test."""
-        for actor in self.overlay + self.labels:
-            actor.SetVisibility(False)
+        for actor in self.overlay + self.labels + [self.bars, self.grey]:
+            if actor is not None:
+                actor.SetVisibility(False)
         if self.first:
             self.plotter.show(auto_close=False)   # pyvista reads depth only after a show()
             self.first = False
@@ -546,6 +613,12 @@ class _Scene:
         for actor in self.labels:
             renderer.RemoveViewProp(actor)
         self.title.SetInput(title)
+        # only the gauges this view shows: others would be edge-on sticks or hidden anyway
+        for actor, select in ((self.bars, self.finite & shown), (self.grey, ~self.finite & shown)):
+            if actor is not None:
+                if select.any():
+                    actor.mapper.SetInputData(_bars(self.glyphs, select))
+                actor.SetVisibility(bool(select.any()))
         self.labels = _add_labels(self.plotter, self.glyphs, shown, self.size)
         self.plotter.render()
         self.plotter.screenshot(str(path))
@@ -586,6 +659,14 @@ def render_views(corr: Any, folder: Path, *, size: tuple[int, int] = SIZE,
                                                   np.arange(len(normals)))]
     for members in cluster_normals(normals)[:max_views]:
         queue.append(("group", _unit(normals[members].sum(axis=0)), members))
+    with _vtk_errors_only():
+        return _render_all(queue, surface, glyphs, pts, normals, folder, size, max_views, note)
+
+
+def _render_all(queue: list[tuple[str, NDArray, NDArray]], surface: Any, glyphs: Glyphs,
+                pts: NDArray, normals: NDArray, folder: Path, size: tuple[int, int],
+                max_views: int, note: str) -> Rendering:
+    """Work through the queue of view directions (see :func:`render_views`)."""
     seen = np.zeros(len(glyphs.gauges), dtype=bool)
     views: list[View] = []
     retried = False
