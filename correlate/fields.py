@@ -96,14 +96,21 @@ def cell_to_nodes(values: NDArray, source: ModelSource) -> NDArray:
 
 
 def _tensor_array(source: ModelSource, case: Case, array: str, materials: tuple[Material, ...],
-                  time_index: int | None) -> tuple[str, NDArray]:
-    location, raw = find_array(source, array, time_index, case=case.name)
+                  time_index: int | None, rows: dict | None = None
+                  ) -> tuple[str, NDArray, NDArray | None]:
+    location, raw = find_array(source, array, time_index, case=case.name, rows=rows)
+    index = None
+    if rows is not None and len(raw) == len(rows[location]) and \
+            len(raw) != (len(source.mesh.points) if location == "point" else source.mesh.n_cells):
+        index = rows[location]
     family = source.mesh.family
     comps = _components(case, raw.shape[1], source, array, family)
     shear = "tensor" if case.kind == "stress" else case.shear
     tensor = from_voigt(raw, comps, shear=shear)
     if case.axes:
         axes_loc, axes = find_array(source, case.axes, time_index, case=case.name)
+        if index is not None:
+            axes = axes[index]
         if axes_loc != "cell":
             raise ModelError(f"{source.path.name}: axes array '{case.axes}' must be cell data "
                              "(one frame per element)")
@@ -117,12 +124,14 @@ def _tensor_array(source: ModelSource, case: Case, array: str, materials: tuple[
                          "material axes, so name the per-cell axes array with axes = \"...\"")
     if case.kind == "stress":
         E, nu = _material_per_entity(materials, source, location, case)
+        if index is not None:
+            E, nu = E[index], nu[index]
         tensor = strain_from_stress(tensor, E[:, None, None], nu[:, None, None])
-    return location, tensor
+    return location, tensor, index
 
 
 def read_field(source: ModelSource, case: Case, materials: tuple[Material, ...] = (),
-               time_index: int | None = None) -> Field:
+               time_index: int | None = None, rows: dict | None = None) -> Field:
     """Read one case's field in the package convention.
 
     Parameters
@@ -135,6 +144,9 @@ def read_field(source: ModelSource, case: Case, materials: tuple[Material, ...] 
         Needed when the case gives stress (Hooke's law, isotropic).
     time_index : int, optional
         Step of a time series; defaults to the case's own.
+    rows : dict, optional
+        {"point": node ids, "cell": cell ids} the gauges touch (sorted): a time series then reads
+        only those rows and the Field's ``index`` says which they are.
 
     Returns
     -------
@@ -149,7 +161,8 @@ def read_field(source: ModelSource, case: Case, materials: tuple[Material, ...] 
             raise ModelError(f"case '{case.name}': displacement of the top and bottom faces cannot "
                              "give surface strain without rotations and thickness; give the shell's "
                              "strain arrays per face instead")
-        location, raw = find_array(source, case.array, time_index, case=case.name)
+        location, raw = find_array(source, case.array, time_index, case=case.name, rows=rows)
+        index = rows["point"] if rows is not None and len(raw) != len(source.mesh.points) else None
         if location != "point":
             raise ModelError(f"{source.path.name}: displacement '{case.array}' of case '{case.name}' "
                              "is cell data; displacement must be given at the nodes")
@@ -159,12 +172,15 @@ def read_field(source: ModelSource, case: Case, materials: tuple[Material, ...] 
             raise ModelError(f"{source.path.name}: displacement '{case.array}' of case '{case.name}' "
                              f"has {raw.shape[1]} components; expected 3 (or 2 for plane models)")
         return Field(case=case.name, kind="displacement", location="point", values=raw,
-                     source_kind="displacement", array=case.array)
+                     source_kind="displacement", array=case.array, index=index)
     arrays = case.array if isinstance(case.array, dict) else {"": case.array}
     values: dict[str, NDArray] = {}
     location = "point"
+    index = None
+    if case.average == "nodal":
+        rows = None  # nodal averaging needs every cell
     for face, name in arrays.items():
-        location, tensor = _tensor_array(source, case, name, materials, time_index)
+        location, tensor, index = _tensor_array(source, case, name, materials, time_index, rows)
         if location == "cell" and case.average == "nodal":
             tensor = cell_to_nodes(tensor, source)
             location = "point"
@@ -174,4 +190,4 @@ def read_field(source: ModelSource, case: Case, materials: tuple[Material, ...] 
         values[face] = tensor
     single = values[""] if "" in values else values
     return Field(case=case.name, kind="strain", location=location, values=single,
-                 source_kind=case.kind, array=str(case.array), notes=tuple(notes))
+                 source_kind=case.kind, array=str(case.array), notes=tuple(notes), index=index)

@@ -37,11 +37,23 @@ class Model:
     warnings: list[str] = field(default_factory=list)
     fields: dict[tuple[str, int | None], Any] = field(default_factory=dict)
 
-    def case_field(self, case: Case, fe_index: int | None) -> Any:
-        """The case's field in the package convention, read once."""
+    def case_field(self, case: Case, fe_index: int | None,
+                   operator: GaugeOperator | None = None) -> Any:
+        """The case's field in the package convention, read once.
+
+        Given an operator, a step of a time series reads only the rows that operator's gauges
+        touch and is not kept (a long series is never held in memory at once); without one the
+        whole field is read.
+        """
+        src = self.source(case)
+        if src.times and operator is not None:
+            from correlate.predict import touched_rows
+
+            return read_field(src, case, self.study.materials, fe_index,
+                              rows=touched_rows(operator))
         key = (case.name, fe_index)
         if key not in self.fields:
-            self.fields[key] = read_field(self.source(case), case, self.study.materials, fe_index)
+            self.fields[key] = read_field(src, case, self.study.materials, fe_index)
         return self.fields[key]
 
     def source(self, case: Case) -> ModelSource:
@@ -106,11 +118,13 @@ def case_steps(model: Model, case: Case) -> list[tuple[int | None, float | None]
 def case_rows(model: Model, case: Case, fe_index: int | None,
               operator: GaugeOperator | None = None) -> dict[str, NDArray[np.float64]]:
     """Operator rows of one case (one FE state), in m/m."""
-    fld = model.case_field(case, fe_index)
+    fld = model.case_field(case, fe_index, operator or model.operator)
     rows = evaluate_rows(operator or model.operator, fld)
     if operator is not None:
         return rows
     if fld.kind == "displacement":
+        if fld.index is not None:  # the checks average over whole cells: read the whole step
+            fld = model.case_field(case, fe_index)
         rows.update(_displacement_checks(model, case, fld))
     rows["location"] = fld.location  # type: ignore[assignment]
     return rows

@@ -359,14 +359,20 @@ def _interpolation(op: GaugeOperator, *, gradient: bool) -> list[sparse.csr_matr
 
 def strain_at_points(op: GaugeOperator, field: Field) -> NDArray[np.float64]:
     """Strain tensors (p, 3, 3) at the operator's sample points for one field."""
+    index = field.index
+
     def one(values: NDArray) -> NDArray:
         if field.kind == "displacement":
             G = _interpolation(op, gradient=True)
+            if index is not None:
+                G = [g[:, index] for g in G]
             H = np.stack([g @ values for g in G], axis=2)  # H[p, i, j] = du_i/dx_j
             return 0.5 * (H + np.swapaxes(H, 1, 2))
         if field.location == "cell":
-            return values[op.cell]
+            return values[op.cell if index is None else np.searchsorted(index, op.cell)]
         (N,) = _interpolation(op, gradient=False)
+        if index is not None:
+            N = N[:, index]
         return (N @ values.reshape(len(values), 9)).reshape(-1, 3, 3)
 
     if isinstance(field.values, dict):
@@ -411,3 +417,11 @@ def centre_strain(op: GaugeOperator, field: Field) -> NDArray[np.float64]:
     point_rows = np.flatnonzero(op.row_kind == 1)
     pts = op.weights[point_rows].indices
     return eps[pts]
+
+
+def touched_rows(op: GaugeOperator) -> dict[str, NDArray[np.int64]]:
+    """The nodes and cells the operator reads (sorted): all a time-series step needs."""
+    if "touched" not in op._cache:
+        (N,) = _interpolation(op, gradient=False)
+        op._cache["touched"] = {"point": np.unique(N.indices), "cell": np.unique(op.cell)}
+    return op._cache["touched"]

@@ -75,6 +75,7 @@ class Field:
     source_kind: str          # what the file held: strain, stress or displacement
     array: str
     notes: tuple[str, ...] = ()
+    index: NDArray[np.int64] | None = None  # values hold only these nodes/cells (partial reads)
 
 
 @dataclass
@@ -88,6 +89,7 @@ class ModelSource:
     times: tuple[float, ...] = ()
     _reader: Any = None
     _cache: dict[int, tuple[dict, dict]] = field(default_factory=dict)
+    _h5: dict[Path, Any] = field(default_factory=dict)
 
     def arrays(self, time_index: int | None) -> tuple[dict[str, Any], dict[str, Any]]:
         """Point and cell data, of one step for a time series."""
@@ -106,6 +108,37 @@ class ModelSource:
             _, pd_, cd_ = self._reader.read_data(time_index)
             self._cache = {time_index: (dict(pd_), dict(cd_))}
         return self._cache[time_index]
+
+
+def _hdf5_rows(source: "ModelSource", name: str, time_index: int,
+               rows: dict[str, NDArray[np.int64]]) -> tuple[str, NDArray[np.float64]] | None:
+    """Read only the given rows of a time-series array from its HDF5 file (None: not possible).
+
+    The XDMF light data names the dataset; h5py reads the sorted rows, so the cost of a step is
+    proportional to the rows the gauges touch, not to the mesh.
+    """
+    reader = source._reader
+    for c in list(reader.collection[time_index]):
+        if c.tag != "Attribute" or c.get("Name") != name or len(list(c)) != 1:
+            continue
+        item = list(c)[0]
+        if item.attrib.get("Format") != "HDF":
+            return None
+        filename, h5path = item.text.strip().split(":")
+        path = (Path(reader.filename).resolve().parent / filename)
+        files = source._h5
+        if path not in files:
+            import h5py
+
+            files[path] = h5py.File(path, "r")
+        dset = files[path][h5path]
+        location = "point" if c.get("Center") == "Node" else "cell"
+        if location == "cell" and len(source.mesh.block_ids) != 1:
+            return None
+        want = rows[location]
+        data = dset[want] if len(want) else np.zeros((0,) + dset.shape[1:])
+        return location, np.asarray(data, dtype=float).reshape(len(want), -1)
+    return None
 
 
 def _mesh_from(points: NDArray, cells: list[tuple[str, NDArray]], source: str) -> Mesh:
@@ -265,8 +298,18 @@ def _available(point_data: dict, cell_data: dict) -> str:
 
 
 def find_array(source: ModelSource, name: str, time_index: int | None, *,
-               case: str) -> tuple[str, NDArray[np.float64]]:
-    """Return ("point" | "cell", values) for an array name; cell data joined over kept blocks."""
+               case: str, rows: dict[str, NDArray[np.int64]] | None = None
+               ) -> tuple[str, NDArray[np.float64]]:
+    """Return ("point" | "cell", values) for an array name; cell data joined over kept blocks.
+
+    With ``rows`` ({"point": sorted node ids, "cell": sorted cell ids}) a time series reads only
+    those rows when it can; the values then hold those rows only, in that order.
+    """
+    if rows is not None and source.times and time_index is not None \
+            and 0 <= time_index < len(source.times):
+        got = _hdf5_rows(source, name, time_index, rows)
+        if got is not None:
+            return got
     point_data, cell_data = source.arrays(time_index)
     if name in point_data:
         values = np.asarray(point_data[name], dtype=float)
