@@ -491,7 +491,7 @@ def closest_point_on_face(cell_type: str, nodes: Array, points: Array, tol: floa
     best_x = map_to_physical(cell_type, nodes, best)
     best_d = np.linalg.norm(best_x - points, axis=1)
     # an interior stationary point needs no edge search; a clipped one does
-    edge = np.flatnonzero(~_strictly_inside(cell_type, best))
+    edge = np.flatnonzero(~inside_reference(cell_type, best, tol=-1e-9))
     if edge.size == 0:
         return best, best_x, best_d
     sub_nodes, sub_points = nodes[edge], points[edge]
@@ -505,13 +505,6 @@ def closest_point_on_face(cell_type: str, nodes: Array, points: Array, tol: floa
         idx = edge[closer]
         best[idx], best_x[idx], best_d[idx] = xi[closer], x[closer], d[closer]
     return best, best_x, best_d
-
-
-def _strictly_inside(cell_type: str, xi: Array, margin: float = 1e-9) -> NDArray[np.bool_]:
-    """True where xi lies inside the reference face with a margin (not on its boundary)."""
-    if cell_type.startswith("triangle"):
-        return (xi > margin).all(axis=1) & (xi.sum(axis=1) < 1 - margin)
-    return (np.abs(xi) < 1 - margin).all(axis=1)
 
 
 def physical_gradients(cell_type: str, nodes: Array, xi: Array) -> tuple[Array, Array]:

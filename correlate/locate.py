@@ -201,7 +201,7 @@ class Locator:
         inside = np.zeros(len(points), dtype=bool)
         for t, ftype in enumerate(surf.types):
             sel = surf.type_of[first] == t
-            inside[sel] = elements._strictly_inside(ftype, fx[sel], margin=1e-7)
+            inside[sel] = elements.inside_reference(ftype, fx[sel], tol=-1e-7)  # strictly inside
         out = SurfacePoints(face=first.copy(), xi=fx, point=fp, distance=fd, normal=fn,
                             cell=surf.parent[first])
         edge = np.flatnonzero(~inside)
