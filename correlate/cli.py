@@ -62,9 +62,15 @@ def _parser() -> argparse.ArgumentParser:
 
 
 def _print_warnings(caught: list[warnings.WarningMessage]) -> None:
+    from correlate.errors import CorrelateWarning
+
     seen = set()
     for w in caught:
         text = str(w.message)
+        if not issubclass(w.category, CorrelateWarning):
+            # a library's own warning ("invalid value encountered in divide") means nothing
+            # without its origin: name it, so that it can be traced and reported
+            text = f"{text} ({w.category.__name__} at {Path(w.filename).name}:{w.lineno})"
         if text not in seen:
             seen.add(text)
             print(f"warning: {text}", file=sys.stderr)

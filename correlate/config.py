@@ -131,7 +131,7 @@ def _table(raw: dict[str, Any], key: str) -> dict[str, Any]:
 
 
 def _tables(raw: dict[str, Any], key: str) -> list[dict[str, Any]]:
-    """The array of tables ``key`` (a single table counts as one); items of another shape dropped."""
+    """The array of tables ``key`` (one table counts as one); items of another shape dropped."""
     value = raw.get(key, [])
     items = [value] if isinstance(value, dict) else value if isinstance(value, list) else []
     return [item for item in items if isinstance(item, dict)]
@@ -288,7 +288,7 @@ def parse_study(text: str, path: Path) -> Study:
     cases = []
     # names of every [[case]] that has one, valid or not: a [[load]] naming an invalid case is
     # reported once, at the case, not again at the load
-    declared = {c["name"] for c in raw_cases if isinstance(c, dict) and isinstance(c.get("name"), str)}
+    declared = {c["name"] for c in raw_cases if isinstance(c.get("name"), str)}
     for i, raw_case in enumerate(raw_cases):
         if isinstance(raw_case, dict) and (c := _read_case(raw_case, i, base, name, problems)):
             cases.append(c)
@@ -310,8 +310,8 @@ def parse_study(text: str, path: Path) -> Study:
         blocks = m.get("blocks")
         if blocks is not None and not (isinstance(blocks, list) and all(
                 isinstance(b, int) and not isinstance(b, bool) for b in blocks)):
-            problems.append(f"{name}: [material] blocks = {blocks!r}; expected a list of cell block "
-                            "numbers such as [0, 2]")
+            problems.append(f"{name}: [material] blocks = {blocks!r}; expected a list of cell "
+                            "block numbers such as [0, 2]")
             continue
         materials.append(Material(E=E, nu=nu, blocks=tuple(blocks) if blocks is not None else None))
     if any(c.kind == "stress" for c in cases) and not materials:
@@ -387,11 +387,11 @@ def parse_study(text: str, path: Path) -> Study:
         if value is not None and value < 0:
             problems.append(f"{name}: [criteria] {key} = {value:g} is negative; give 0 or more")
     if relative == 0 and absolute_ue == 0:
-        problems.append(f"{name}: [criteria] relative and absolute_ue are both 0, so no gauge could "
-                        "pass; give at least one of them")
+        problems.append(f"{name}: [criteria] relative and absolute_ue are both 0, so no gauge "
+                        "could pass; give at least one of them")
     if pass_fraction is not None and not 0 <= pass_fraction <= 1:
-        problems.append(f"{name}: [criteria] pass_fraction = {pass_fraction:g}; expected a fraction "
-                        "from 0 to 1 (0.9 for 90 %)")
+        problems.append(f"{name}: [criteria] pass_fraction = {pass_fraction:g}; expected a "
+                        "fraction from 0 to 1 (0.9 for 90 %)")
     criteria = Criteria(
         relative=0.10 if relative is None else relative,
         absolute_ue=50.0 if absolute_ue is None else absolute_ue,

@@ -20,7 +20,7 @@ from numpy.typing import NDArray
 from scipy import sparse
 
 from correlate import elements
-from correlate.errors import GaugeError
+from correlate.errors import GaugeError, ModelError
 from correlate.io.model import Mesh
 
 LINEAR_FACE = {"triangle": "triangle", "triangle6": "triangle", "quad": "quad", "quad8": "quad",
@@ -112,7 +112,14 @@ def build_surface(mesh: Mesh) -> Surface:
         corner[sel, :nc] = c[:, :nc]
         if mesh.family == "solid":
             xi = np.tile(elements.ELEMENTS[ftype].reference_nodes[:nc].mean(axis=0), (len(c), 1))
-            normal = elements.face_normals(ftype, pts[c], xi)
+            with np.errstate(invalid="ignore", divide="ignore"):
+                normal = elements.face_normals(ftype, pts[c], xi)
+            bad = ~np.isfinite(normal).all(axis=1)
+            if bad.any():
+                cells_bad = np.unique(parent[sel][bad])[:5]
+                raise ModelError(f"{mesh.source}: boundary faces of zero area (degenerate elements "
+                                 f"{', '.join(map(str, cells_bad))}"
+                                 f"{' ...' if len(np.unique(parent[sel][bad])) > 5 else ''}); fix the mesh")
             centre = elements.map_to_physical(ftype, pts[c], xi)
             outward = np.einsum("ij,ij->i", normal, centre - centres[parent[sel]])
             sign[sel] = np.where(outward < 0, -1.0, 1.0)

@@ -93,7 +93,8 @@ def prepare(study: Study) -> Model:
         op = build_operator(mesh, gauges, position_tol=study.position_tol,
                             angle_tol=study.angle_tol, snap_tol=snap_tol,
                             calibration_poisson=study.calibration_poisson,
-                            grid_points=study.grid_points, band=study.band, locator=locator)
+                            grid_points=study.grid_points, band=study.band, locator=locator,
+                            length_unit=study.length_unit)
     return Model(study=study, sources=sources, gauges=gauges, operator=op, locator=locator)
 
 
@@ -261,6 +262,13 @@ def check_study(study: Study) -> tuple[Model, pd.DataFrame, list[str]]:
             try:
                 for fe_index, _ in case_steps(model, case)[:1]:
                     case_rows(model, case, fe_index)
+            except CorrelateError as exc:
+                problems.extend(exc.problems)
+        if study.readings_file is not None:
+            from correlate.run import read_test_data
+
+            try:
+                read_test_data(study, model.gauges)
             except CorrelateError as exc:
                 problems.extend(exc.problems)
         if problems:

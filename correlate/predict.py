@@ -103,7 +103,8 @@ def _face_normal_sign(mesh: Mesh, faces: NDArray[np.str_], normal: NDArray) -> N
 def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.0,
                    angle_tol: float = 0.0, snap_tol: float = 1.0, calibration_poisson: float = 0.285,
                    grid_points: int = 5, band: bool = True,
-                   locator: Locator | None = None, strict: bool = True) -> GaugeOperator:
+                   locator: Locator | None = None, strict: bool = True,
+                   length_unit: str = "") -> GaugeOperator:
     """Locate every gauge and build its sampling operator.
 
     Parameters
@@ -154,8 +155,9 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
     sp, xi_c = project(centre_in, prefer)
     problems = []
     for i in np.flatnonzero((sp.distance > snap_tol) & ~embedded):
-        problems.append(f"gauge '{names[i]}' is {sp.distance[i]:.3g} from the model surface "
-                        f"(snap_tol {snap_tol:g}); check the gauge coordinates and length_unit, or "
+        unit = f" {length_unit}" if length_unit else ""
+        problems.append(f"gauge '{names[i]}' is {sp.distance[i]:.3g}{unit} from the model surface "
+                        f"(snap_tol {snap_tol:g}{unit}); check the gauge coordinates and length_unit, or "
                         "raise snap_tol in [gauges]")
     if problems:
         raise GaugeOutsideMeshError(*problems)
@@ -301,6 +303,8 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
     W = sparse.csr_matrix((p_w[keep_pt], (remap[p_row[keep_pt]], np.arange(keep_pt.sum()))),
                           shape=(len(keep_rows), keep_pt.sum()))
 
+    _check_cells(mesh, p_cell[keep_pt], p_xi[keep_pt], [names[g] for g in
+                                                         row_gauge[p_row[keep_pt]]])
     ctype = cell_types(mesh)
     table = pd.DataFrame({
         "gauge": names,
@@ -321,6 +325,43 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
                          row_gauge=row_gauge[keep_rows], row_kind=row_kind[keep_rows],
                          row_offset=row_off[keep_rows], kt=kt, nu0=nu0, invalid=invalid,
                          _cache={})
+
+
+DEGENERATE = 1e-9  # |det J| below this share of the cell's size (h^dim) is a collapsed cell
+
+
+def _check_cells(mesh: Mesh, cells: NDArray[np.int64], xi: NDArray[np.float64],
+                 gauges: list[str]) -> None:
+    """Refuse inverted or collapsed elements under a gauge (det J <= 0 or ~0 at a sample point)."""
+    types = cell_types(mesh)[cells]
+    block, row = cell_nodes(mesh, cells)
+    problems = {}
+    for ctype in np.unique(types):
+        sel = np.flatnonzero(types == ctype)
+        conn = np.stack([mesh.blocks[b][1][r] for b, r in zip(block[sel], row[sel], strict=True)])
+        nodes = mesh.points[conn]
+        el = elements.ELEMENTS[str(ctype)]
+        h = np.linalg.norm(np.ptp(nodes, axis=1), axis=1)
+        dim = el.dim
+        try:
+            _, det = elements.physical_gradients(str(ctype), nodes, xi[sel])
+        except ModelError:
+            det = np.zeros(len(sel))
+        centre = np.tile(el.reference_nodes.mean(axis=0), (len(sel), 1))
+        try:
+            _, det_c = elements.physical_gradients(str(ctype), nodes, centre)
+        except ModelError:
+            det_c = np.zeros(len(sel))
+        collapsed = (np.abs(det) <= DEGENERATE * h ** dim) | (np.abs(det_c) <= DEGENERATE * h ** dim)
+        inverted = (dim == 3) & ((det < 0) | (det_c < 0)) & ~collapsed
+        for k in np.flatnonzero(collapsed | inverted):
+            i = sel[k]
+            what = "inverted (negative Jacobian)" if inverted[k] else \
+                "degenerate (collapsed: zero Jacobian)"
+            problems.setdefault((gauges[i], int(cells[i])), what)
+    if problems:
+        raise ModelError(*[f"gauge '{g}': element {c} under it is {what}; fix the mesh there "
+                           "before correlating" for (g, c), what in problems.items()])
 
 
 def _interpolation(op: GaugeOperator, *, gradient: bool) -> list[sparse.csr_matrix]:

@@ -18,7 +18,6 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from correlate import stats
 from correlate._version import __version__
 from correlate.config import Study, read_study
 from correlate.correlation import Steps, make_steps, reference_step, status_table
@@ -62,6 +61,25 @@ def _pause(stage: str) -> None:
         time.sleep(float(os.environ.get("CORRELATE_PAUSE_SECONDS", "30")))
 
 
+def read_test_data(study: Study, gauges_df: pd.DataFrame) -> tuple[Any, Steps, tuple[str, ...]]:
+    """Read the readings file and tare the steps (also used by `check`)."""
+    from correlate.io.readings import read_readings
+
+    names = gauges_df["gauge"].tolist()
+    for o in study.overrides:
+        if o.gauge not in names:
+            raise StudyError(f"{study.path.name}: [[override]] names gauge '{o.gauge}', which is not "
+                             "in the gauge map")
+    matched = [c.match["column"] for c in study.cases if c.match and "column" in c.match]
+    load_cols = tuple(dict.fromkeys([ld.column for ld in study.loads] + matched))
+    readings = read_readings(study.readings_file, gauges=_gauge_channel_map(gauges_df),
+                             loads=load_cols, sentinels=study.sentinels)
+    steps = make_steps(readings.table, load_cols, study.loads, [c.name for c in study.cases],
+                       rule=study.zero, zero_tol=study.zero_tol,
+                       source=Path(readings.path).name)
+    return readings, steps, load_cols
+
+
 def _gauge_channel_map(gauges: pd.DataFrame) -> dict[str, str]:
     return {g: (c or g) for g, c in zip(gauges["gauge"], gauges["channel"], strict=True)}
 
@@ -95,7 +113,6 @@ def _reversed(measured: NDArray, predicted: NDArray, ok: NDArray) -> tuple[NDArr
 def correlate_study(study: Study, model: Model | None = None) -> Correlation:
     """Run the correlation of a study; nothing is written."""
     from correlate.health import assess_channels, load_direction
-    from correlate.io.readings import read_readings
 
     matched = [c.match["column"] for c in study.cases if c.match and "column" in c.match]
     if study.readings_file is None or not (study.loads or matched):
@@ -105,17 +122,9 @@ def correlate_study(study: Study, model: Model | None = None) -> Correlation:
     model = model or prepare(study)
     gauges_df = model.gauges
     names = gauges_df["gauge"].tolist()
-    for o in study.overrides:
-        if o.gauge not in names:
-            raise StudyError(f"{study.path.name}: [[override]] names gauge '{o.gauge}', which is not "
-                             "in the gauge map")
-    load_cols = tuple(dict.fromkeys([ld.column for ld in study.loads] + matched))
-    readings = read_readings(study.readings_file, gauges=_gauge_channel_map(gauges_df),
-                             loads=load_cols, sentinels=study.sentinels)
+    readings, steps, load_cols = read_test_data(study, gauges_df)
     table = readings.table
     case_names = [c.name for c in study.cases]
-    steps = make_steps(table, load_cols, study.loads, case_names, rule=study.zero,
-                       zero_tol=study.zero_tol, source=Path(readings.path).name)
     _pause("readings")
 
     raw = table[names].to_numpy(dtype=float) * _scale_factors(gauges_df, study)[None, :]
@@ -175,7 +184,7 @@ def correlate_study(study: Study, model: Model | None = None) -> Correlation:
                               "value": sent["value"].astype(str), "threshold": np.nan,
                               "scope": "step", "drops": "step",
                               "reason": "open or overranged channel value " + sent["value"].astype(str)})
-        flags = pd.concat([flags, extra], ignore_index=True)
+        flags = pd.concat([extra, flags], ignore_index=True)  # a sentinel says more than "missing"
     flags["disposition"] = ""
     gidx = {g: j for j, g in enumerate(names)}
     s_count, g_count = measured.shape
@@ -314,6 +323,7 @@ def _gauge_table(names: list[str], steps: Steps, measured: NDArray, predicted: N
 
 def _statistics(study: Study, steps: Steps, names: list[str], measured: NDArray,
                 predicted: NDArray, st: dict, reversed_: NDArray, ref: int) -> dict[str, Any]:
+    from correlate import stats  # statsmodels: imported when statistics are needed
     ev = st["evaluated"]
     groups = np.tile(names, (len(steps.step), 1))
     fit = stats.fit_pairs(measured[ev], predicted[ev], groups[ev])

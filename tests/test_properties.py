@@ -31,7 +31,7 @@ from correlate.pipeline import band_limits
 from correlate.predict import build_operator, evaluate_rows
 from correlate.rosette import principal, reduce_grids
 
-FAST = dict(derandomize=True, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+FAST = {"derandomize": True, "deadline": None, "suppress_health_check": [HealthCheck.too_slow]}
 SIZE = (4.0, 3.0, 2.0)  # the conftest box: top face z = 2, outward normal +z
 
 
@@ -64,9 +64,9 @@ def top_gauges(rows, *, margin: float = 0.9) -> pd.DataFrame:
     out = []
     for k, (u, v, deg, length, kt) in enumerate(rows):
         t = np.radians(deg)
-        out.append(dict(gauge=f"G{k}", x=margin + u * (SIZE[0] - 2 * margin),
-                        y=margin + v * (SIZE[1] - 2 * margin), z=SIZE[2], dir_x=np.cos(t),
-                        dir_y=np.sin(t), dir_z=0.0, length=length, kt=kt))
+        out.append({"gauge": f"G{k}", "x": margin + u * (SIZE[0] - 2 * margin),
+                    "y": margin + v * (SIZE[1] - 2 * margin), "z": SIZE[2], "dir_x": np.cos(t),
+                    "dir_y": np.sin(t), "dir_z": 0.0, "length": length, "kt": kt})
     return gauge_frame(out)
 
 
@@ -74,7 +74,7 @@ def top_gauges(rows, *, margin: float = 0.9) -> pd.DataFrame:
 # evaluation
 
 
-@settings(max_examples=12, **FAST)
+@settings(max_examples=20, **FAST)
 @given(rows=gauge_rows, seed=st.integers(0, 2**31 - 1), field_seed=st.integers(0, 1000))
 def test_readings_do_not_change_when_the_model_frame_is_rotated(rows, seed, field_seed):
     # Reference: a gauge reading is the scalar d.E.d (and t.E.t), invariant under any rotation R
@@ -108,7 +108,7 @@ def _superposition_operator(ctype: str):
     return mesh, build_operator(mesh, gauges, position_tol=0.2, angle_tol=3.0)
 
 
-@settings(max_examples=25, **FAST)
+@settings(max_examples=30, **FAST)
 @given(ctype=st.sampled_from(["hexahedron", "tetra10"]), kind=st.sampled_from(["strain",
                                                                                 "displacement"]),
        a=st.floats(-5, 5), b=st.floats(-5, 5), seed=st.integers(0, 2**31 - 1))
@@ -142,7 +142,7 @@ def _analytic_reading(E: np.ndarray, centre, d, n, kt, nu0):
     return (ea + kt * et) / (1 - nu0 * kt)
 
 
-@settings(max_examples=15, **FAST)
+@settings(max_examples=25, **FAST)
 @given(row=gauge_rows.map(lambda r: r[:1]), ptol=st.sampled_from([0.0, 0.1, 0.25]),
        atol=st.sampled_from([0.0, 1.0, 4.0]), field_seed=st.integers(0, 1000))
 def test_placement_band_is_the_reading_range_over_the_placement_tolerance(row, ptol, atol,
@@ -196,7 +196,7 @@ def _design(angles_deg: np.ndarray) -> np.ndarray:
 strain_ue = st.floats(-3000.0, 3000.0)
 
 
-@settings(max_examples=60, **FAST)
+@settings(max_examples=100, **FAST)
 @given(ex=strain_ue, ey=strain_ue, gxy=strain_ue,
        angles=st.lists(st.floats(0.0, 180.0), min_size=3, max_size=4),
        kt=st.sampled_from([None, 0.0, 0.012, -0.03]))
@@ -216,7 +216,7 @@ def test_rosette_reduction_recovers_any_plane_strain_state(ex, ey, gxy, angles, 
     np.testing.assert_allclose(out["residual"], 0.0, rtol=0, atol=1e-8)
 
 
-@settings(max_examples=80, **FAST)
+@settings(max_examples=100, **FAST)
 @given(ex=strain_ue, ey=strain_ue, gxy=strain_ue)
 def test_principal_values_are_the_eigenvalues_of_the_in_plane_tensor(ex, ey, gxy):
     # Reference: numpy.linalg.eigvalsh of [[ex, gxy/2], [gxy/2, ey]] (tensor shear). The direction
@@ -317,7 +317,7 @@ def toml_studies(draw) -> str:
     return text
 
 
-@settings(max_examples=150, **FAST)
+@settings(max_examples=200, **FAST)
 @given(text=st.one_of(toml_studies(), st.text(max_size=80)))
 def test_study_parser_gives_a_study_or_a_correlate_error(text, tmp_path_factory):
     folder = tmp_path_factory.getbasetemp()
@@ -394,9 +394,10 @@ def test_fuzz_tables_reach_the_valid_path():
 
 @pytest.mark.parametrize("text", ["[load]\ncolumn = 'P'\ncase = 'c'\nreference = 1\n",
                                   "readings = 'r.csv'\n", "criteria = 3\n",
-                                  "[criteria]\nslope = ['a', 'b']\n", "[[material]]\nE = 1\nnu = 0.3\n"
-                                  "blocks = 2\n", "test = 'x'\n", "[[override]]\naction = 'keep'\n"
-                                  "reason = 'r'\n", "[readings]\nsentinels = 5\n"],
+                                  "[criteria]\nslope = ['a', 'b']\n",
+                                  "[[material]]\nE = 1\nnu = 0.3\nblocks = 2\n", "test = 'x'\n",
+                                  "[[override]]\naction = 'keep'\nreason = 'r'\n",
+                                  "[readings]\nsentinels = 5\n"],
                          ids=["load-as-table", "readings-as-text", "criteria-as-number",
                               "slope-as-words", "blocks-as-number", "test-as-text",
                               "override-without-gauge", "sentinels-as-number"])

@@ -358,3 +358,47 @@ def test_surface_from_displacement_is_the_exact_strain(tmp_path: Path) -> None:
     np.testing.assert_allclose(surface.cell_data["gyz_ue"], 2 * eps[1, 2], rtol=0, atol=1e-6)
     np.testing.assert_allclose(surface.cell_data["max_principal_ue"], np.linalg.eigvalsh(eps)[-1],
                                rtol=0, atol=1e-6)
+
+
+def test_surface_of_a_series_case_interpolates_between_fe_steps(tmp_path: Path) -> None:
+    """A series case (one FE state per load): the surface at the reference step is the field
+    interpolated linearly in load between the neighbouring FE steps, as the run pairs readings."""
+    from conftest import solid_mesh
+
+    import correlate.diagnosis
+    from correlate.config import read_study
+    from correlate.report.render import model_surface, reference_index
+    from correlate.run import correlate_study
+
+    mesh = solid_mesh("hexahedron", n=(4, 3, 2))
+    base = np.zeros((len(mesh.points), 6))
+    base[:, 0], base[:, 1], base[:, 2] = 1e-3, -0.3e-3, -0.3e-3
+    times = (0.25, 0.5, 0.75, 1.0)
+    cwd = os.getcwd()
+    os.chdir(tmp_path)        # meshio writes the .h5 beside the working folder (library notes)
+    try:
+        with meshio.xdmf.TimeSeriesWriter("series.xdmf") as w:
+            w.write_points_cells(mesh.points, [("hexahedron", mesh.blocks[0][1])])
+            for t in times:
+                w.write_data(t, point_data={"E": base * t ** 1.5})
+    finally:
+        os.chdir(cwd)
+    (tmp_path / "gauges.csv").write_text("gauge,x,y,z,dir_x,dir_y,dir_z\nA,1,1.5,2,1,0,0\n"
+                                         "B,3,1.5,2,0,1,0\nC,2,0,1,1,0,0\n")
+    (tmp_path / "readings.csv").write_text("step,F,A,B,C\n0,0,0,0,0\n1,3,170,-45,160\n"
+                                           "2,9,830,-260,870\n")
+    (tmp_path / "study.toml").write_text(
+        'title = "series"\n[model]\nfile = "series.xdmf"\nlength_unit = "mm"\n'
+        '[[case]]\nname = "ramp"\nstrain = "E"\ntime_index = "all"\n'
+        'match = { column = "F", value_at_time_1 = 10.0 }\n'
+        '[gauges]\nfile = "gauges.csv"\n[readings]\nfile = "readings.csv"\n')
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setattr(correlate.diagnosis, "diagnose_failures", lambda *a, **k: DIAGNOSES.iloc[:0])
+        corr = correlate_study(read_study(tmp_path / "study.toml"))
+    assert corr.steps.loads[reference_index(corr), 0] == 9.0
+    surface, _ = model_surface(corr)
+    # by hand: 9 kN is t = 0.9, between the FE steps at t = 0.75 and 1.0 (weights 0.4, 0.6)
+    exx = (0.4 * 0.75 ** 1.5 + 0.6 * 1.0 ** 1.5) * 1000.0
+    # rtol 1e-12: the same two weights in float64, only rounding differs
+    np.testing.assert_allclose(surface["exx_ue"], exx, rtol=1e-12, atol=0)
+    np.testing.assert_allclose(surface["eyy_ue"], -0.3 * exx, rtol=1e-12, atol=0)

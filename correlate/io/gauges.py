@@ -166,8 +166,9 @@ def _rosette_angle_problems(rid: str, group: pd.DataFrame, source: str) -> list[
     w, v = np.linalg.eigh(d.T @ d)
     ids = ", ".join(group["gauge"])
     if w[1] <= 1e-12 * w[2]:
-        return [f"{source}: rosette '{rid}' grids ({ids}) all lie along one direction; a rosette "
-                "needs grids at three different angles - check dir_x, dir_y, dir_z"]
+        msg = (f"{source}: rosette '{rid}' grids ({ids}) all lie along one direction; a rosette "
+               "needs grids at three different angles - check dir_x, dir_y, dir_z")
+        return [msg]
     try:
         # angles to 0.001 deg: the message shows them, and float noise would only obscure them
         check_angles(np.round(grid_angles(d, v[:, 0]), 3), name=rid)

@@ -181,8 +181,7 @@ def _rosettes(corr: Any, ref: int) -> tuple[list[dict[str, str]], list[dict[str,
                          "s2": num(r["s2"], ".2f"), "vm": num(r["von_mises"], ".2f"),
                          "note": "" if str(r["note"]) == "nan" else str(r["note"])})
             rec[source] = {"e1": float(r["e1_ue"]), "e2": float(r["e2_ue"]),
-                           "angle": float(r["angle_deg"]) if r["angle_deg"] == r["angle_deg"]
-                           else float("nan")}
+                           "angle": float(r["angle_deg"])}   # NaN: direction undefined
         records.append(rec)
     return rows, records
 
@@ -198,13 +197,16 @@ def _load_axis(corr: Any) -> tuple[NDArray, str, str]:
 
 def _render(corr: Any, folder: Path) -> tuple[Rendering | None, str]:
     """Render the 3D views; a machine without OpenGL gets a report without them."""
-    views = corr.study.report.get("views")
-    kwargs = {"max_views": int(views)} if isinstance(views, int) and not isinstance(views, bool) \
-        else {}
+    views = corr.study.report.get("views")     # [report] views: most views besides the iso one
+    kwargs = {}
+    if isinstance(views, int) and not isinstance(views, bool) and views >= 0:
+        kwargs["max_views"] = views
     try:
+        from pyvista.core.errors import PyVistaFutureWarning
+
         with warnings.catch_warnings():
-            # pyvista announces future default changes; they do not change these pictures
-            warnings.filterwarnings("ignore", category=FutureWarning, module="pyvista")
+            # pyvista announces changes of its defaults; the calls here pass what they rely on
+            warnings.filterwarnings("ignore", category=PyVistaFutureWarning)
             return render_views(corr, folder, **kwargs), ""
     except (ImportError, RuntimeError) as exc:
         return None, f"The 3D views could not be rendered on this machine ({exc})."
@@ -236,7 +238,9 @@ def write_report(corr: Any, folder: Path) -> None:
     crit = study.criteria
     active = steps.active[:, None]
     finite = np.isfinite(corr.measured)
-    flagged = active & finite & ~st["evaluated"]
+    # readings of a series case outside its FE load range have no model reading: not flagged
+    unmodelled = st["status"] == "not-modelled"
+    flagged = active & finite & ~st["evaluated"] & ~unmodelled
     scatter = figures.plot_scatter(
         corr.measured, corr.predicted, st["evaluated"], flagged, ref, fit=summary["fit"],
         relative=crit.relative, absolute_ue=crit.absolute_ue, path=folder / "scatter.png",
@@ -244,12 +248,14 @@ def write_report(corr: Any, folder: Path) -> None:
 
     load, load_label, load_note = _load_axis(corr)
     direction = load_direction(steps.loads, steps.sequence, tol=study.zero_tol)
-    on_path = finite & (st["evaluated"] | steps.tare[:, None] | steps.zero_load[:, None])
+    on_path = finite & (st["evaluated"] | steps.tare[:, None] | steps.zero_load[:, None]
+                        | unmodelled)
     off_path = finite & ~on_path
+    predicted = np.where(unmodelled, np.nan, corr.predicted)
     words = _gauge_status(corr)
     titles = [f"{figures.short(g)} \u00b7 {w}" for g, w in zip(corr.gauges, words, strict=True)]
     load_files = figures.plot_load_strain(load, load_label, direction, steps.sequence,
-                                          corr.measured, corr.predicted, on_path, off_path,
+                                          corr.measured, predicted, on_path, off_path,
                                           list(corr.gauges), titles, folder)
 
     rosette_rows, rosette_records = _rosettes(corr, ref)

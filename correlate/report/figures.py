@@ -189,7 +189,7 @@ def plot_load_strain(load: NDArray, load_label: str, direction: NDArray, sequenc
     sequence : ndarray, shape (s,)
         Load sequence of each step; each sequence is drawn as its own path in step order.
     measured, predicted : ndarray, shape (s, g)
-        Readings. [ue]
+        Readings [ue]; a NaN predicted value (no model reading) leaves a gap in its line.
     healthy : ndarray of bool, shape (s, g)
         Measured points drawn on the path (evaluated, tare and zero-load rows).
     flagged : ndarray of bool, shape (s, g)

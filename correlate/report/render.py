@@ -46,6 +46,7 @@ FACING_COS = np.cos(np.radians(75.0))
 DEPTH_TOL = 0.01                    # occlusion tolerance, share of the model size
 CLUSTER_COS = np.cos(np.radians(30.0))
 MAX_VIEWS = 6
+MAX_ZOOM = 2.0                      # detail views: at most twice as close as the whole part
 TOP_BAND, BOTTOM_BAND = 50, 150     # pixels kept free for the title and the colour bars
 LABEL_CHARS = 24
 FONT = 13
@@ -129,36 +130,85 @@ def _cell_strain_from_displacement(mesh: Any, u: NDArray) -> NDArray:
     return np.concatenate(parts)
 
 
+def _series_weights(corr: Any, case: Any, ref: int) -> dict[int, float] | None:
+    """Weights of a series case's FE steps at the reference step (None: not modelled there).
+
+    The run pairs each readings row with the FE state at its load by linear interpolation
+    (:func:`correlate.series.interpolate_series`); that rule is linear in the rows, so applied to
+    the identity it gives the weight of each FE step.
+    """
+    from correlate.health import load_direction
+    from correlate.pipeline import case_steps
+    from correlate.series import interpolate_series
+
+    match = case.match or {}
+    column, scale = match.get("column"), match.get("value_at_time_1")
+    steps = corr.steps
+    if column not in steps.load_names or not isinstance(scale, int | float):
+        return None
+    states = case_steps(corr.model, case)
+    fe_load = np.array([t * scale for _, t in states], dtype=float)
+    load = steps.loads[:, steps.load_names.index(column)]
+    direction = load_direction(load[:, None], steps.sequence, tol=corr.study.zero_tol)
+    weights, modelled = interpolate_series(fe_load, np.eye(len(states)), load, direction)
+    if not modelled[ref]:
+        return None
+    return {int(states[k][0]): float(weights[k, ref]) for k in range(len(states))
+            if weights[k, ref] != 0}
+
+
+def _case_strain(model: Any, case: Any, fe_index: int | None, notes: list[str]
+                 ) -> tuple[str, NDArray] | None:
+    """One FE state of a case as ("point" | "cell", strain tensors in m/m); None if impossible."""
+    fld = model.case_field(case, fe_index)
+    values = fld.values
+    if isinstance(values, dict):
+        face = "top" if "top" in values else next(iter(values))
+        values = values[face]
+        notes.append(f"shell surface shows the {face} face")
+    if fld.kind != "displacement":
+        return fld.location, np.asarray(values)
+    try:
+        strain = _cell_strain_from_displacement(model.operator.mesh, np.asarray(values))
+    except (ValueError, KeyError, np.linalg.LinAlgError):
+        notes.append(f"case '{case.name}' gives displacement and its strain could not be "
+                     "derived on these cells: the surface is not coloured")
+        return None
+    notes.append("strain from displacement, constant per element")
+    return "cell", strain
+
+
 def reference_strain(corr: Any) -> tuple[str, NDArray[np.float64] | None, str]:
     """Predicted strain tensors at the reference step: ("point" | "cell", (n, 3, 3) m/m, note).
 
-    Returns ``(location, None, note)`` when a case field cannot be combined.
+    Each case's field times the reference step's factor, summed; a series case (one FE state per
+    load) contributes the states the run interpolates between at the reference load. Returns
+    ``(location, None, note)`` when a field cannot be had.
     """
     model, study = corr.model, corr.study
     mesh = model.operator.mesh
-    factors = corr.steps.factors[reference_index(corr)]
+    ref = reference_index(corr)
+    factors = corr.steps.factors[ref]
     parts: list[tuple[str, NDArray]] = []
     notes: list[str] = []
     for case, f in zip(study.cases, factors, strict=True):
-        fe_index = case.time_index if isinstance(case.time_index, int) else None
-        fld = model.case_field(case, fe_index)
-        values = fld.values
-        if isinstance(values, dict):
-            face = "top" if "top" in values else next(iter(values))
-            values = values[face]
-            notes.append(f"shell surface shows the {face} face")
-        if fld.kind == "displacement":
-            try:
-                values = _cell_strain_from_displacement(mesh, np.asarray(values))
-            except (ValueError, KeyError, np.linalg.LinAlgError):
-                return "cell", None, (f"case '{case.name}' gives displacement and its strain could "
-                                      "not be derived on these cells: the surface is not coloured")
-            parts.append(("cell", f * values))
-            notes.append("strain from displacement, constant per element")
+        if case.time_index == "all" or isinstance(case.time_index, tuple):
+            weights = _series_weights(corr, case, ref)
+            if weights is None:
+                notes.append(f"series case '{case.name}' is not modelled at the reference load: "
+                             "the surface is not coloured")
+                return "point", None, "; ".join(notes)
         else:
-            parts.append((fld.location, f * np.asarray(values)))
+            weights = {case.time_index if isinstance(case.time_index, int) else None: float(f)}
+        for fe_index, w in weights.items():
+            if w == 0:
+                continue
+            got = _case_strain(model, case, fe_index, notes)
+            if got is None:
+                return "cell", None, "; ".join(dict.fromkeys(notes))
+            parts.append((got[0], w * got[1]))
     if not parts:
-        return "point", None, "no case field: the surface is not coloured"
+        return "point", np.zeros((len(mesh.points), 3, 3)), "; ".join(dict.fromkeys(notes))
     if all(loc == "point" for loc, _ in parts):
         return "point", sum(v for _, v in parts), "; ".join(dict.fromkeys(notes))
     total = sum(v if loc == "cell" else _cell_mean(mesh, v) for loc, v in parts)
@@ -233,7 +283,8 @@ def gauge_glyphs(corr: Any) -> Glyphs:
                   size=size)
 
 
-def _bars(glyphs: Glyphs, select: NDArray[np.bool_]) -> Any:
+def _bars(glyphs: Glyphs, select: NDArray[np.bool_], thickness: float = 1.0) -> Any:
+    """Tubes along the selected gauges' grids, radius times ``thickness``."""
     import pyvista as pv
 
     idx = np.flatnonzero(select)
@@ -242,7 +293,7 @@ def _bars(glyphs: Glyphs, select: NDArray[np.bool_]) -> Any:
     lines = np.c_[np.full(len(idx), 2), 2 * np.arange(len(idx)), 2 * np.arange(len(idx)) + 1]
     poly = pv.PolyData(pts, lines=lines.ravel())
     poly.point_data["discrepancy_ue"] = np.repeat(glyphs.discrepancy[idx], 2)
-    return poly.tube(radius=glyphs.radius, n_sides=16, capping=True)
+    return poly.tube(radius=thickness * glyphs.radius, n_sides=16, capping=True)
 
 
 # ----------------------------------------------------------------------------- cameras
@@ -282,11 +333,13 @@ def _iso_direction(normals: NDArray) -> NDArray:
 
 
 def _camera(points: NDArray, towards_camera: NDArray, size: tuple[int, int],
+            frame: NDArray | None = None, pad: float = 0.0,
             ) -> tuple[NDArray, NDArray, NDArray, float]:
     """Parallel camera seeing ``points`` from the side ``towards_camera``, leaving text bands free.
 
-    Returns position, focal point, view up and parallel scale (half the picture height in model
-    units).
+    ``frame`` (points) and ``pad`` (model units) narrow the picture to a detail; the camera stays
+    outside the whole model. Returns position, focal point, view up and parallel scale (half the
+    picture height in model units).
     """
     w = _unit(np.asarray(towards_camera, dtype=float))
     up = np.array([0.0, 0.0, 1.0]) if abs(w[2]) < 0.95 else np.array([0.0, 1.0, 0.0])
@@ -294,15 +347,18 @@ def _camera(points: NDArray, towards_camera: NDArray, size: tuple[int, int],
     up = np.cross(w, right)
     lo, hi = points.min(axis=0), points.max(axis=0)
     centre = 0.5 * (lo + hi)
-    corners = np.array([[x, y, z] for x in (lo[0], hi[0]) for y in (lo[1], hi[1])
-                        for z in (lo[2], hi[2])]) - centre
-    hx = float(np.abs(corners @ right).max()) or 1.0
-    hy = float(np.abs(corners @ up).max()) or 1.0
+    if frame is None:
+        frame = np.array([[x, y, z] for x in (lo[0], hi[0]) for y in (lo[1], hi[1])
+                          for z in (lo[2], hi[2])])
+    u, v = (frame - centre) @ right, (frame - centre) @ up
+    cx, cy = 0.5 * (u.min() + u.max()), 0.5 * (v.min() + v.max())
+    hx = 0.5 * (u.max() - u.min()) + pad or 1.0
+    hy = 0.5 * (v.max() - v.min()) + pad or 1.0
     W, H = size
     usable = H - TOP_BAND - BOTTOM_BAND
     scale = max(hy * H / (0.92 * usable), hx * H / (0.92 * W))
     shift = 0.5 * (BOTTOM_BAND - TOP_BAND) * 2 * scale / H      # model units
-    focal = centre - shift * up
+    focal = centre + cx * right + (cy - shift) * up
     diag = float(np.linalg.norm(hi - lo)) or 1.0
     return focal + 3 * diag * w, focal, up, scale
 
@@ -446,6 +502,32 @@ def _add_labels(plotter: Any, glyphs: Glyphs, shown: NDArray[np.bool_],
     return actors
 
 
+def _bands(plotter: Any, size: tuple[int, int]) -> Any:
+    """White rectangles over the top and bottom text bands, with a thin rule at their edges."""
+    from vtkmodules.vtkCommonCore import vtkPoints
+    from vtkmodules.vtkCommonDataModel import vtkCellArray, vtkPolyData
+    from vtkmodules.vtkRenderingCore import vtkActor2D, vtkPolyDataMapper2D
+
+    W, H = size
+    points, polys = vtkPoints(), vtkCellArray()
+    for y0, y1 in ((0, BOTTOM_BAND - 8), (H - TOP_BAND + 8, H)):
+        ids = [points.InsertNextPoint(x, y, 0.0) for x, y in ((0, y0), (W, y0), (W, y1), (0, y1))]
+        polys.InsertNextCell(4)
+        for i in ids:
+            polys.InsertCellPoint(i)
+    poly = vtkPolyData()
+    poly.SetPoints(points)
+    poly.SetPolys(polys)
+    mapper = vtkPolyDataMapper2D()
+    mapper.SetInputData(poly)
+    actor = vtkActor2D()
+    actor.SetMapper(mapper)
+    actor.GetProperty().SetColor(1.0, 1.0, 1.0)
+    actor.GetProperty().SetOpacity(0.92)
+    plotter.renderer.AddViewProp(actor)
+    return actor
+
+
 def _leader_lines(plotter: Any, segments: list[tuple[tuple[float, float], tuple[float, float]]]
                   ) -> Any:
     """Thin 2D lines in display coordinates (one actor for all)."""
@@ -517,7 +599,8 @@ def _direction_name(towards_camera: NDArray) -> str:
     k = int(np.argmax(np.abs(towards_camera)))
     if abs(towards_camera[k]) > 0.97:
         return f"looking along {'-' if towards_camera[k] > 0 else '+'}{'xyz'[k]}"
-    return "looking along ({:+.2f}, {:+.2f}, {:+.2f})".format(*(-towards_camera))
+    v = np.round(-towards_camera, 2) + 0.0       # + 0.0 turns -0.0 into 0.0
+    return "looking along ({:+.2f}, {:+.2f}, {:+.2f})".format(*v)
 
 
 @contextmanager
@@ -547,7 +630,9 @@ class _Scene:
         # no anti-aliasing: SSAA, the only kind software OpenGL offers, costs 10x per frame
         self.size = size
         self.glyphs = glyphs
-        self.overlay: list[Any] = []     # hidden during the depth test
+        # hidden during the depth test; first, drawn first: opaque bands under the title and the
+        # colour bars, since a detail view fills the picture
+        self.overlay: list[Any] = [_bands(self.plotter, size)]
         self.clim: tuple[float, float] | None = None
         ticks = 5
         if "max_principal_ue" in surface.array_names:
@@ -587,11 +672,8 @@ class _Scene:
         self.labels: list[Any] = []
         self.first = True
 
-    def look(self, towards_camera: NDArray, points: NDArray) -> tuple[NDArray, NDArray, NDArray,
-                                                                       float]:
-        camera = _camera(points, towards_camera, self.size)
+    def look(self, camera: tuple[NDArray, NDArray, NDArray, float]) -> None:
         _set_camera(self.plotter, *camera)
-        return camera
 
     def visible(self) -> NDArray[np.bool_]:
         """Render the bare surface and run the depth test."""
@@ -608,7 +690,8 @@ class _Scene:
             actor.SetVisibility(True)
         return shown
 
-    def save(self, path: Path, title: str, shown: NDArray[np.bool_]) -> None:
+    def save(self, path: Path, title: str, shown: NDArray[np.bool_], thickness: float = 1.0
+             ) -> None:
         renderer = self.plotter.renderer
         for actor in self.labels:
             renderer.RemoveViewProp(actor)
@@ -617,7 +700,7 @@ class _Scene:
         for actor, select in ((self.bars, self.finite & shown), (self.grey, ~self.finite & shown)):
             if actor is not None:
                 if select.any():
-                    actor.mapper.SetInputData(_bars(self.glyphs, select))
+                    actor.mapper.SetInputData(_bars(self.glyphs, select, thickness))
                 actor.SetVisibility(bool(select.any()))
         self.labels = _add_labels(self.plotter, self.glyphs, shown, self.size)
         self.plotter.render()
@@ -668,6 +751,7 @@ def _render_all(queue: list[tuple[str, NDArray, NDArray]], surface: Any, glyphs:
                 max_views: int, note: str) -> Rendering:
     """Work through the queue of view directions (see :func:`render_views`)."""
     seen = np.zeros(len(glyphs.gauges), dtype=bool)
+    seen_faces = np.zeros(len(glyphs.gauges), dtype=bool)
     views: list[View] = []
     retried = False
     scene = _Scene(surface, glyphs, size)
@@ -676,17 +760,33 @@ def _render_all(queue: list[tuple[str, NDArray, NDArray]], surface: Any, glyphs:
             kind, w, members = queue.pop(0)
             if kind != "iso" and len(views) > max_views:
                 break
-            position, focal, up, scale = scene.look(w, pts)
+            camera = _camera(pts, w, size)
+            scene.look(camera)
             shown = scene.visible()
-            wanted = shown[members] if kind == "group" else (shown & ~seen)
+            # a view is kept for a gauge of its own group no earlier face view showed
+            wanted = shown[members] & ~seen_faces[members] if kind == "group" else shown & ~seen
             if kind != "iso" and not wanted.any():
                 continue
+            thickness = 1.0
+            if kind != "iso":
+                # frame the gauges it shows (occlusion along a direction does not depend on zoom)
+                pad = max(0.12 * glyphs.size, 2.0 * float(np.max(np.linalg.norm(
+                    glyphs.end[shown] - glyphs.start[shown], axis=1))))
+                detail = _camera(pts, w, size, frame=glyphs.anchor[shown], pad=pad)
+                if detail[3] < 0.85 * camera[3]:
+                    # at most MAX_ZOOM times closer, so that the part stays recognisable
+                    ratio = max(detail[3] / camera[3], 1.0 / MAX_ZOOM)
+                    camera = (*detail[:3], ratio * camera[3])
+                    thickness = ratio           # bars keep their thickness on the picture
+                    scene.look(camera)
+                seen_faces |= shown
+            position, focal, up, scale = camera
             name = "iso" if kind == "iso" else str(len(views))
             title = ("isometric view" if kind == "iso"
                      else f"view {name}: {_direction_name(w)}")
             title += f" - {int(shown.sum())} of {len(shown)} gauges visible"
             file = f"view_{name}.png"
-            scene.save(folder / file, title, shown)
+            scene.save(folder / file, title, shown, thickness)
             seen |= shown
             views.append(View(
                 name=name, file=file, title=title, position=tuple(map(float, position)),
