@@ -68,7 +68,8 @@ def predict_readings(mesh: Any, gauges: pd.DataFrame, cases: Mapping[str, str | 
     from correlate.predict import build_operator
 
     source = from_meshio(_as_meshio(mesh))
-    gdf = validate_gauges(gauges.astype(str).replace({"nan": ""}), source="gauges")
+    text = gauges.astype(object).where(gauges.notna(), "").astype(str)
+    gdf = validate_gauges(text, source="gauges")
     case_list = []
     for name, spec in cases.items():
         spec = {"strain": spec} if isinstance(spec, str) else dict(spec)

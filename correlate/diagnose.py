@@ -262,6 +262,15 @@ def _best_offset(ev: GaugeEvidence, criterion: Criterion, mask: NDArray[np.bool_
     return _row(ev.gauge, "position offset", detail, before, after, d <= ev.position_tol, d)
 
 
+ALTERNATIVE_DETAIL = {
+    "rotated_90": "the model's reading of a grid turned 90 degrees fits the measurement",
+    "no_kt": "the model's reading without transverse sensitivity fits (Kt left out of, or applied "
+             "twice in, the data reduction)",
+    "other_face": "the model's reading on the other shell face fits",
+    "nodal_average": "the nodal-averaged model strain fits: the mesh may be too coarse here",
+}
+
+
 def _explain(ev: GaugeEvidence, criterion: Criterion, radius: float) -> list[dict[str, Any]]:
     """Rows of the single-gauge explanations that qualify for one failing gauge."""
     m, p = ev.measured, ev.predicted
@@ -280,7 +289,7 @@ def _explain(ev: GaugeEvidence, criterion: Criterion, radius: float) -> list[dic
         check("channel gain", m / k, p, f"measured = {k:.4g} x predicted across independent load "
               "cases, and the neighbouring gauges pass", k)
     for key, alt in ev.alternatives.items():
-        check(ALTERNATIVES[key], m, alt, f"the model reading alternatives[{key!r}] fits")
+        check(ALTERNATIVES[key], m, alt, ALTERNATIVE_DETAIL[key])
     if ev.evaluate_at is not None:
         for found in (_best_angle(ev, criterion, mask, before),
                       _best_offset(ev, criterion, mask, before, radius)):

@@ -8,6 +8,7 @@ searches, so those explain a gauge only with the model's own gradients.
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Callable
 from typing import Any
 
@@ -17,6 +18,7 @@ from numpy.typing import NDArray
 
 from correlate.config import Study
 from correlate.correlation import Steps
+from correlate.errors import CorrelateWarning
 from correlate.units import MICROSTRAIN
 
 
@@ -53,6 +55,12 @@ def _evaluator(study: Study, model: Any, steps: Steps, j: int
     t = np.cross(n, d)
 
     def evaluate(offsets: NDArray, angles: NDArray) -> NDArray:
+        with warnings.catch_warnings():
+            # moved grids on curved faces are projected into the surface: expected in a search
+            warnings.simplefilter("ignore", CorrelateWarning)
+            return _evaluate(offsets, angles)
+
+    def _evaluate(offsets: NDArray, angles: NDArray) -> NDArray:
         offsets = np.atleast_2d(np.asarray(offsets, dtype=float))
         angles = np.atleast_1d(np.asarray(angles, dtype=float))
         k = len(offsets)
@@ -121,6 +129,21 @@ def diagnose_failures(study: Study, model: Any, steps: Steps, names: list[str], 
             rosette=gauges["rosette"].iloc[j] or None))
     table = diagnose(evidence, crit)
     return table[cols] if len(table) else pd.DataFrame(columns=cols)
+
+
+INSTALLATION = ("channels swapped", "grid rotated 90 degrees", "rosette grids permuted",
+                "rosette mirrored")
+IMPLAUSIBLE = ("position offset", "grid angle")  # installation faults when beyond tolerance
+
+
+def installation_faults(diag: pd.DataFrame) -> list[tuple[str, str]]:
+    """(gauge, explanation) for diagnoses that say the gauge is not where or how the map says."""
+    out = []
+    for row in diag.itertuples():
+        if row.explanation in INSTALLATION or (row.explanation in IMPLAUSIBLE
+                                               and row.plausible is False):
+            out.append((str(row.gauge), f"{row.explanation}, {row.detail}"))
+    return out
 
 
 def load_checks(study: Study, steps: Steps, measured: NDArray, st: dict,

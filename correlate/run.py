@@ -241,24 +241,46 @@ def correlate_study(study: Study, model: Model | None = None) -> Correlation:
 
     st = status_table(measured, predicted, study.criteria, steps, dropped_steps, dropped_gauges,
                       flag_text)
-    ev = st["evaluated"]
     ref = reference_step(predicted, steps)
+    from correlate.diagnosis import (diagnose_failures, installation_faults, load_checks,
+                                     rosette_diagnoses)
+
     result = _statistics(study, steps, names, measured, predicted, st, reversed_, ref)
+    diag = diagnose_failures(study, model, steps, names, measured, predicted, st, rows_by_case,
+                             contributions, result["per_gauge_table"])
+    ros_diag = rosette_diagnoses(study, model, steps, measured, st, predicted)
+    if len(ros_diag):
+        diag = pd.concat([diag, ros_diag[[c for c in diag.columns if c in ros_diag.columns]]],
+                         ignore_index=True)
+    # A gauge explained by an installation fault (turned, moved beyond its tolerance, swapped,
+    # permuted) does not measure what the gauge map says: like a reversed gauge it is left out of
+    # `fit` (kept in `fit_all`) until the analyst disposes of it.
+    suspect = np.zeros(len(names), dtype=bool)
+    for gauge, explanation in installation_faults(diag):
+        j = gidx[gauge]
+        if suspect[j] or reversed_[j]:
+            continue
+        suspect[j] = True
+        disp = f"kept: {keep[gauge].reason}" if gauge in keep else "needs a disposition"
+        flags.loc[len(flags)] = {"gauge": gauge, "step": -1, "sequence": -1,
+                                 "flag": "installation", "value": np.nan, "threshold": np.nan,
+                                 "scope": "gauge", "drops": "gauge",
+                                 "reason": f"failing gauge explained by: {explanation} (see the "
+                                           "diagnosis)", "disposition": disp}
+        if gauge not in keep:
+            dropped_gauges[j] = True
+            flag_text[:, j] = "installation"
+    if suspect.any():
+        st = status_table(measured, predicted, study.criteria, steps, dropped_steps,
+                          dropped_gauges, flag_text)
+        result = _statistics(study, steps, names, measured, predicted, st, reversed_ | suspect,
+                             ref)
+    ev = st["evaluated"]
     gauge_table = _gauge_table(names, steps, measured, predicted, low, high, st, flag_text)
     per_gauge = result.pop("per_gauge_table")
     from correlate.rosettes import rosette_table
 
     ros = rosette_table(study, model, gauges_df, steps, measured, axial, ev)
-    from correlate.diagnosis import diagnose_failures
-
-    diag = diagnose_failures(study, model, steps, names, measured, predicted, st, rows_by_case,
-                             contributions, per_gauge)
-    from correlate.diagnosis import load_checks, rosette_diagnoses
-
-    ros_diag = rosette_diagnoses(study, model, steps, measured, st, predicted)
-    if len(ros_diag):
-        diag = pd.concat([diag, ros_diag[[c for c in diag.columns if c in ros_diag.columns]]],
-                         ignore_index=True)
     result["load_checks"] = load_checks(study, steps, measured, st, rows_by_case, op)
     summary = _summary(study, model, readings, steps, names, result, per_gauge, flags, diag, ref,
                        st, reversed_)
@@ -354,6 +376,8 @@ def _statistics(study: Study, steps: Steps, names: list[str], measured: NDArray,
 def _area_metrics(steps: Steps, names: list[str], measured: NDArray, predicted: NDArray,
                   ev: NDArray) -> list[dict[str, Any]]:
     """Area validation metric per gauge and load level where repeated sequences give replicates."""
+    from correlate import stats
+
     if len(np.unique(steps.sequence)) < 2:
         return []
     levels = np.round(steps.loads, 6)

@@ -109,7 +109,9 @@ def test_each_invented_fault_is_flagged_and_no_other(faulty_run):
     assert ("S02", "reversed") in found
     assert ("S04", "dead") in found
     assert ("S06", "drift") in found
-    assert {g for g, _ in found} == {"S02", "S04", "S06"}
+    # the swapped pair fails, is diagnosed, and is held out of the fit as an installation fault
+    assert ("S07", "installation") in found and ("S08", "installation") in found
+    assert {g for g, _ in found} == {"S02", "S04", "S06", "S07", "S08"}
 
 
 def test_swapped_channels_are_diagnosed(faulty_run):

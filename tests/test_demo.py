@@ -1,0 +1,82 @@
+"""`correlate demo` end to end: the invented campaign's faults are all found, and nothing else.
+
+The expected values are built into the invented test log (demo_models/make_test_log.py): a truth
+modulus 0.95 times the analysis value (ratio 1/0.95 = 1.0526), and five named channel faults.
+"""
+
+from __future__ import annotations
+
+import importlib.util
+import json
+from pathlib import Path
+
+import pandas as pd
+import pytest
+
+from correlate.cli import main
+
+ROOT = Path(__file__).resolve().parent.parent
+spec = importlib.util.spec_from_file_location("make_test_log", ROOT / "demo_models" / "make_test_log.py")
+LOG = importlib.util.module_from_spec(spec)
+spec.loader.exec_module(LOG)
+FAULTS = LOG.FAULTS
+
+
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory):
+    out = tmp_path_factory.mktemp("demo") / "work"
+    assert main(["--quiet", "demo", "--out", str(out)]) == 0
+    run = out / "run"
+    return {"out": out, "run": run, "summary": json.loads((run / "summary.json").read_text()),
+            "flags": pd.read_csv(run / "flags.csv"), "gauges": pd.read_csv(run / "gauges.csv")}
+
+
+def test_outputs_exist_and_hold_every_gauge(demo):
+    run = demo["run"]
+    html = (run / "report.html").read_text(encoding="utf-8")
+    gauges = pd.read_csv(demo["out"] / "gauges.csv")["gauge"]
+    for g in gauges:
+        assert g in html
+    assert set(demo["gauges"]["gauge"]) == set(gauges)
+    assert len(pd.read_csv(run / "rosettes.csv")) > 0
+
+
+def test_overall_ratio_is_the_invented_stiffness_error(demo):
+    # Built in: 1/0.95 = 1.0526. Tolerance 0.005: unloading steps read 0.6 % of peak high
+    # (hysteresis) and channels carry 2 ue of noise.
+    fit = demo["summary"]["fit"]
+    assert fit["slope_origin"] == pytest.approx(1 / LOG.STIFFNESS, abs=0.005)
+
+
+def test_each_invented_fault_is_found(demo):
+    flags = demo["flags"]
+    found = {(r.gauge, r.flag) for r in flags[flags["scope"] == "gauge"].itertuples()}
+    assert (FAULTS["reversed"], "reversed") in found
+    assert (FAULTS["dead"], "dead") in found
+    assert (FAULTS["drift"], "drift") in found
+    diag = pd.DataFrame(demo["summary"]["diagnoses"])
+    by_gauge = diag.groupby("gauge")["explanation"].apply(set)
+    assert "grid rotated 90 degrees" in by_gauge[FAULTS["rotated"]]
+    assert "position offset" in by_gauge[FAULTS["offset"]]
+    offset = diag[(diag["gauge"] == FAULTS["offset"]) & (diag["explanation"] == "position offset")]
+    # the gauge was bonded 3 mm along its grid; the search reports the distance (tolerance:
+    # a bore of radius 6 turns the straight offset into an arc, and the search stops at 0.5 %)
+    assert offset["parameter"].iloc[0] == pytest.approx(LOG.OFFSET_MM[0], abs=0.3)
+    assert offset["plausible"].iloc[0] is False
+
+
+def test_no_other_gauge_is_flagged(demo):
+    flagged = set(demo["flags"]["gauge"])
+    assert flagged == set(FAULTS.values())
+
+
+def test_existing_demo_folder_needs_force(demo, capsys):
+    assert main(["--quiet", "demo", "--out", str(demo["out"])]) == 2
+    assert "--force" in capsys.readouterr().err
+
+
+def test_shipped_log_is_what_the_seeded_generator_makes(tmp_path):
+    # The log generator is seeded: rebuilding it must give the shipped file byte for byte.
+    LOG.write_log(LOG.make_log(), tmp_path / "readings.csv")
+    shipped = ROOT / "correlate" / "data" / "demo" / "readings.csv"
+    assert (tmp_path / "readings.csv").read_bytes() == shipped.read_bytes()
