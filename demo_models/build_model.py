@@ -70,8 +70,6 @@ SIZE_DIST_MAX = 10.0  # coarse size reached at this distance
 # (0-1, 1-2, 2-0, 0-3, 1-3, 2-3): the last two edge nodes are swapped.
 GMSH_TO_VTK_TET10 = np.array([0, 1, 2, 3, 4, 5, 6, 7, 9, 8])
 VTK_TET10_EDGES = np.array([[0, 1], [1, 2], [2, 0], [0, 3], [1, 3], [2, 3]])
-# Faces of a tetrahedron in VTK numbering, each with its three edge numbers in VTK_TET10_EDGES.
-VTK_TET_FACES = np.array([[0, 1, 3], [1, 2, 3], [2, 0, 3], [0, 2, 1]])
 
 VOIGT = ("xx", "yy", "zz", "xy", "yz", "xz")
 
@@ -352,8 +350,7 @@ def solve_cases(points: NDArray[np.float64], tet10: NDArray[np.int64],
     """
     from scipy.sparse.csgraph import reverse_cuthill_mckee
     from scipy.sparse.linalg import splu
-    from skfem import (Basis, BilinearForm, ElementTetP2, ElementVector, FacetBasis, LinearForm,
-                       asm)
+    from skfem import Basis, BilinearForm, ElementTetP2, ElementVector, FacetBasis, LinearForm, asm
     from skfem.helpers import ddot, div, dot, sym_grad
 
     sk = _SkfemMesh(points, tet10)
@@ -532,12 +529,11 @@ def write_results(out_dir: Path, points: NDArray[np.float64], tet10: NDArray[np.
     meshio.write(out_dir / "bracket.vtu", meshio.Mesh(points, cells, point_data=point_data),
                  binary=True, compression="zlib")
     # meshio's TimeSeriesWriter puts the .h5 in the current directory (meshio issue 1442).
-    with _working_directory(out_dir):
-        with meshio.xdmf.TimeSeriesWriter("bracket_series.xdmf") as writer:
-            writer.write_points_cells(points, cells)
-            for t, case in enumerate(CASES):
-                writer.write_data(float(t), point_data={name: values.astype(np.float32)
-                                                       for name, values in results[case].items()})
+    with _working_directory(out_dir), meshio.xdmf.TimeSeriesWriter("bracket_series.xdmf") as writer:
+        writer.write_points_cells(points, cells)
+        for t, case in enumerate(CASES):
+            writer.write_data(float(t), point_data={name: values.astype(np.float32)
+                                                   for name, values in results[case].items()})
     # meshio tags six-component arrays "Tensor6", which XDMF defines as xx, xy, xz, yy, yz, zz:
     # VTK's XDMF reader then expands E and S into 3x3 tensors with the components in the wrong
     # places. "Vector" keeps the six values, in our Voigt order, for meshio and VTK alike.
@@ -923,8 +919,8 @@ def compare_builds(reference_dir: Path, new_dir: Path, *, same_mesher: bool) -> 
     problems = []
     if same_mesher:
         if len(ref.points) != len(new.points) or len(ref.cells[0]) != len(new.cells[0]):
-            return [f"mesh differs: {len(ref.points)} / {len(new.points)} nodes, "
-                    f"{len(ref.cells[0])} / {len(new.cells[0])} cells"]
+            return [(f"mesh differs: {len(ref.points)} / {len(new.points)} nodes, "
+                     f"{len(ref.cells[0])} / {len(new.cells[0])} cells")]
         if not np.array_equal(ref.cells[0].data, new.cells[0].data):
             problems.append("connectivity differs")
     for name, values in ref.point_data.items():
@@ -961,7 +957,8 @@ def main(argv: list[str] | None = None) -> int:
         print(f"{'FAILED' if problems else 'OK'}: {summary['nodes']} nodes, "
               f"{summary['cells']} cells, {summary['seconds']:.1f} s")
         return 1 if problems else 0
-    summary = build(args.out)
+    # geometry.json belongs beside this script only for the shipped build.
+    summary = build(args.out, GEOMETRY_JSON if args.out.resolve() == DEFAULT_OUT else None)
     print(f"{summary['nodes']} nodes, {summary['cells']} tet10 cells, "
           f"{summary['seconds']:.1f} s; gauge centres within "
           f"{summary['max_gauge_surface_distance_mm']:.4f} mm of the surface")
