@@ -36,10 +36,37 @@ def _alternatives(study: Study, model: Any, steps: Steps, rows_by_case: dict, j:
     f = steps.factors * MICROSTRAIN
     out = {"rotated_90": f @ ((tr + kt * ax) / (1 - nu0 * kt))}
     out["no_kt"] = f @ (((ax + kt * tr) / (1 - nu0 * kt)) if study.kt_corrected else ax)
+    other = _other_face(study, model, steps, j)
+    if other is not None:
+        out["other_face"] = other
     if all("averaged_indicated" in rows_by_case[c] for c in names):
         out["nodal_average"] = f @ np.array([rows_by_case[c]["averaged_indicated"][nominal]
                                              for c in names])
     return out
+
+
+def _other_face(study: Study, model: Any, steps: Steps, j: int) -> NDArray | None:
+    """Readings of shell gauge j as if it were bonded on the other face (per-face arrays only)."""
+    from correlate.pipeline import case_rows
+    from correlate.predict import build_operator
+
+    face = model.gauges["face"].iloc[j]
+    if model.operator.mesh.family != "shell" or face not in ("top", "bottom") or \
+            not any(isinstance(c.array, dict) for c in study.cases):
+        return None
+    mini = model.gauges.iloc[[j]].copy()
+    mini["face"] = "bottom" if face == "top" else "top"
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", CorrelateWarning)
+        op = build_operator(model.operator.mesh, mini, snap_tol=np.inf, band=False,
+                            calibration_poisson=study.calibration_poisson,
+                            grid_points=study.grid_points, locator=model.locator, strict=False)
+    key = "axial" if study.kt_corrected else "indicated"
+    nominal = op.row_kind == 0
+    R = np.array([0.0 if c.time_index == "all" or isinstance(c.time_index, tuple) else
+                  case_rows(model, c, c.time_index if isinstance(c.time_index, int) else None,
+                            operator=op)[key][nominal][0] for c in study.cases])
+    return steps.factors @ R * MICROSTRAIN
 
 
 def _evaluator(study: Study, model: Any, steps: Steps, j: int

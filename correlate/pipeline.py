@@ -90,6 +90,10 @@ def prepare(study: Study) -> Model:
         snap_tol = study.snap_tol
         if snap_tol is None:  # neither snap_tol nor position_tol given: 1 % of the model size
             snap_tol = 0.01 * float(np.linalg.norm(np.ptp(mesh.points, axis=0)))
+        thickness = study.model_info.get("thickness")
+        if mesh.family == "shell" and isinstance(thickness, int | float) and thickness > 0:
+            # a gauge on a shell face sits half the thickness from the mid-surface
+            snap_tol = snap_tol + thickness / 2
         op = build_operator(mesh, gauges, position_tol=study.position_tol,
                             angle_tol=study.angle_tol, snap_tol=snap_tol,
                             calibration_poisson=study.calibration_poisson,

@@ -492,7 +492,10 @@ def write_outputs(corr: Correlation, out: Path, *, force: bool, report: bool = T
             except ImportError:
                 write_report = None
             if write_report is not None:
-                write_report(corr, tmp)
+                from correlate import progress
+
+                with progress.step("writing the report (3D views and figures)"):
+                    write_report(corr, tmp)
 
 
 def print_summary(corr: Correlation) -> None:
@@ -528,7 +531,11 @@ def run_command(args: argparse.Namespace) -> int:
     study = read_study(args.study)
     out = Path(args.out)
     check_target(out, force=args.force)
-    corr = correlate_study(study)
+    from correlate import progress
+
+    model = prepare(study)
+    with progress.step("correlating"):
+        corr = correlate_study(study, model)
     write_outputs(corr, out, force=args.force, report=not args.no_report)
     print_summary(corr)
     print(f"outputs in {out}" + ("" if args.no_report else f"; report: {out / 'report.html'}"))

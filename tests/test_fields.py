@@ -49,20 +49,20 @@ def reading(setup, source, case, materials=()):
     return evaluate_rows(op, read_field(source, case, materials))["axial"][op.row_kind == 0]
 
 
-@pytest.mark.parametrize("perm", list(itertools.permutations(range(6)))[::97],
-                         ids=lambda p: "-".join(ORDER[i] for i in p))
 @pytest.mark.parametrize("shear", ["engineering", "tensor"])
-def test_every_voigt_order_and_shear_convention_round_trips(setup, perm, shear):
-    # Reference: the same tensor field written in another component order and shear convention
-    # gives the same readings (an oblique gauge sees every component). Tolerance: round-off.
+def test_every_voigt_order_and_shear_convention_round_trips(setup, shear):
+    # Reference: the same tensor field written in any of the 720 component orders and either
+    # shear convention gives the same readings (an oblique gauge sees every component).
+    # Tolerance: round-off.
     mesh, _, ref = setup
-    order = [ORDER[i] for i in perm]
-    data = to_voigt(ref, order, shear=shear)
-    case = Case(name="c", kind="strain", array="E", components=tuple(order), shear=shear)
     expected = reading(setup, source_with(mesh, {"E": to_voigt(ref, ORDER)}),
                        Case(name="c", kind="strain", array="E", components=None))
-    got = reading(setup, source_with(mesh, {"E": data}), case)
-    np.testing.assert_allclose(got, expected, rtol=1e-12, atol=1e-18)
+    for perm in itertools.permutations(range(6)):
+        order = [ORDER[i] for i in perm]
+        data = to_voigt(ref, order, shear=shear)
+        case = Case(name="c", kind="strain", array="E", components=tuple(order), shear=shear)
+        got = reading(setup, source_with(mesh, {"E": data}), case)
+        np.testing.assert_allclose(got, expected, rtol=1e-12, atol=1e-18, err_msg=str(order))
 
 
 def test_wrong_shear_convention_changes_an_oblique_reading(setup):

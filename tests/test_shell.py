@@ -95,3 +95,44 @@ def test_plane_model_gauge_reads_in_plane_components():
     got = evaluate_rows(op, read_field(src, Case("c", "strain", "E", None)))["axial"][0]
     expected = 200e-6 + 300e-6 * np.cos(2 * t) + 150e-6 * np.sin(2 * t)
     np.testing.assert_allclose(got, expected, rtol=1e-12, atol=0)
+
+
+def test_gauge_on_the_wrong_face_is_diagnosed(tmp_path):
+    # A gauge mapped on the top face but bonded on the bottom reads the bottom array (built in:
+    # membrane 300 ue plus bending +-500 ue, so top 800 and bottom -200), which fails the
+    # criterion; the diagnosis names the other face because the bottom-face reading fits.
+    import meshio
+    import pandas as pd
+
+    from correlate.cli import main
+
+    mesh = panel("quad")
+    f = fields(mesh)
+    f["E_bot"] = f["E_top"].copy()
+    f["E_bot"][:, 0] = -200e-6
+    meshio.write(tmp_path / "panel.vtu", meshio.Mesh(mesh.points, [("quad", mesh.blocks[0][1])],
+                                                     point_data=f))
+    rows = [dict(gauge=f"T{i}", x=1.0 + i, y=2.0, z=5.0, dir_x=1, dir_y=0, dir_z=0, length=0.5,
+                 face="top") for i in range(4)]
+    pd.DataFrame(rows).to_csv(tmp_path / "gauges.csv", index=False)
+    loads = [0.0, 5.0, 10.0, 0.0]
+    data = {"step": range(4), "F_kN": loads}
+    for i in range(4):
+        strain = -200.0 if i == 2 else 800.0          # T2 is really on the bottom face
+        data[f"T{i}"] = [strain * v / 10.0 for v in loads]
+    pd.DataFrame(data).to_csv(tmp_path / "readings.csv", index=False)
+    (tmp_path / "study.toml").write_text(
+        'title = "panel"\n[model]\nfile = "panel.vtu"\nlength_unit = "mm"\n'
+        '[[case]]\nname = "bend"\nstrain = { top = "E_top", bottom = "E_bot" }\n'
+        '[gauges]\nfile = "gauges.csv"\nposition_tol = 0.1\nangle_tol = 1.0\n'
+        '[readings]\nfile = "readings.csv"\n[[load]]\ncolumn = "F_kN"\ncase = "bend"\n'
+        "reference = 10.0\n[criteria]\nrelative = 0.1\nabsolute_ue = 20.0\n")
+    assert main(["--quiet", "run", str(tmp_path / "study.toml"), "--out", str(tmp_path / "o"),
+                 "--no-report"]) == 0
+    import json
+
+    summary = json.loads((tmp_path / "o" / "summary.json").read_text())
+    found = {(d["gauge"], d["explanation"]) for d in summary["diagnoses"]}
+    flags = {(f["gauge"], f["flag"]) for f in summary["flags"]}
+    assert ("T2", "gauge on the other face") in found
+    assert ("T2", "reversed") not in flags
