@@ -52,8 +52,33 @@ class Surface:
         return len(self.parent)
 
 
-def _cell_centres(mesh: Mesh) -> NDArray[np.float64]:
-    return np.concatenate([mesh.points[conn].mean(axis=1) for _, conn in mesh.blocks])
+def _cell_centres(mesh: Mesh, cells: NDArray[np.int64]) -> NDArray[np.float64]:
+    """Centres (mean of the nodes) of the given global cells."""
+    out = np.zeros((len(cells), 3))
+    block, row = cell_nodes(mesh, cells)
+    for b, (_, conn) in enumerate(mesh.blocks):
+        sel = block == b
+        out[sel] = mesh.points[conn[row[sel]]].mean(axis=1)
+    return out
+
+
+def _used_once(keys: NDArray[np.int64], n_points: int) -> NDArray[np.bool_]:
+    """Rows of sorted corner ids (-1 padded, (F, 4)) that occur exactly once: boundary faces.
+
+    Three sorted corners identify a face of a conforming mesh; packed into one int64 they are
+    hashed (pandas), several times faster than sorting rows. Very large meshes fall back to
+    sorting the rows as opaque bytes.
+    """
+    import pandas as pd
+
+    if n_points ** 3 * 2 < 2 ** 62:
+        packed = ((keys[:, 0] * n_points + keys[:, 1]) * n_points + keys[:, 2]) * 2 \
+            + (keys[:, 3] >= 0)
+        return ~pd.Series(packed).duplicated(keep=False).to_numpy()
+    rows = np.ascontiguousarray(keys)
+    raw = rows.view(np.dtype((np.void, rows.dtype.itemsize * 4))).ravel()
+    _, inverse, counts = np.unique(raw, return_inverse=True, return_counts=True)
+    return counts[inverse.ravel()] == 1
 
 
 def build_surface(mesh: Mesh) -> Surface:
@@ -71,11 +96,7 @@ def build_surface(mesh: Mesh) -> Surface:
                 key[:, :n_corner] = corners
                 keys.append(key)
                 owners.append((ftype, fconn, offsets[b] + np.arange(len(conn)), np.full(len(conn), k)))
-        allkeys = np.ascontiguousarray(np.concatenate(keys))
-        # rows as opaque 32-byte keys: np.unique on them is several times faster than axis=0
-        raw = allkeys.view(np.dtype((np.void, allkeys.dtype.itemsize * 4))).ravel()
-        _, inverse, counts = np.unique(raw, return_inverse=True, return_counts=True)
-        once = counts[inverse.ravel()] == 1
+        once = _used_once(np.concatenate(keys), len(mesh.points))
         start = 0
         for ftype, fconn, par, loc in owners:
             sel = once[start:start + len(fconn)]
@@ -104,7 +125,8 @@ def build_surface(mesh: Mesh) -> Surface:
     sign = np.ones(n_faces)
     pts = mesh.points
     if mesh.family == "solid":
-        centres = _cell_centres(mesh)
+        parent_ids = np.unique(parent)
+        parent_centres = _cell_centres(mesh, parent_ids)
     for t, ftype in enumerate(types):
         sel = type_of_a == t
         c = conns[t]
@@ -121,7 +143,8 @@ def build_surface(mesh: Mesh) -> Surface:
                                  f"{', '.join(map(str, cells_bad))}"
                                  f"{' ...' if len(np.unique(parent[sel][bad])) > 5 else ''}); fix the mesh")
             centre = elements.map_to_physical(ftype, pts[c], xi)
-            outward = np.einsum("ij,ij->i", normal, centre - centres[parent[sel]])
+            own = parent_centres[np.searchsorted(parent_ids, parent[sel])]
+            outward = np.einsum("ij,ij->i", normal, centre - own)
             sign[sel] = np.where(outward < 0, -1.0, 1.0)
     face_ids = np.repeat(np.arange(n_faces), 4)
     nodes = corner.ravel()

@@ -196,26 +196,7 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
     nu0 = gauges["nu0"].fillna(calibration_poisson).to_numpy(dtype=float)
 
     # rows: nominal, point, band samples (position offset on a circle x angle)
-    rows_g, rows_k, rows_off = [], [], []
-    phis = np.linspace(0, 2 * np.pi, BAND_DIRECTIONS, endpoint=False)
-    for g in range(n):
-        rows_g += [g, g]
-        rows_k += [0, 1]
-        rows_off += [(0.0, 0.0, 0.0), (0.0, 0.0, 0.0)]
-        offs = [(0.0, 0.0)]
-        if ptol[g] > 0 and not embedded[g]:
-            offs += [(ptol[g] * np.cos(p), ptol[g] * np.sin(p)) for p in phis]
-        angs = [0.0] + ([-atol[g], atol[g]] if atol[g] > 0 else [])
-        for a, b in offs:
-            for ang in angs:
-                if a == 0 and b == 0 and ang == 0:
-                    continue
-                rows_g.append(g)
-                rows_k.append(2)
-                rows_off.append((a, b, ang))
-    row_gauge = np.array(rows_g)
-    row_kind = np.array(rows_k)
-    row_off = np.array(rows_off, dtype=float).reshape(-1, 3)
+    row_gauge, row_kind, row_off = _rows(ptol * ~embedded, atol)
     n_rows = len(row_gauge)
 
     # row centres and directions
@@ -230,22 +211,16 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
     theta = np.radians(row_off[:, 2])[:, None]
     rd = np.cos(theta) * rd + np.sin(theta) * np.cross(rn, rd)
 
-    # sample points along each row's grid
+    # sample points along each row's grid: Gauss-Legendre points, or the centre alone
     gp, gw = np.polynomial.legendre.leggauss(grid_points)
-    pts_row, pts_s, pts_w = [], [], []
-    for r in range(n_rows):
-        L = length[row_gauge[r]]
-        if L > 0 and row_kind[r] != 1:
-            pts_row.append(np.full(grid_points, r))
-            pts_s.append(gp * L / 2)
-            pts_w.append(gw / 2)
-        else:
-            pts_row.append(np.array([r]))
-            pts_s.append(np.array([0.0]))
-            pts_w.append(np.array([1.0]))
-    p_row = np.concatenate(pts_row)
-    p_s = np.concatenate(pts_s)
-    p_w = np.concatenate(pts_w)
+    row_len = np.where(row_kind != 1, length[row_gauge], 0.0)
+    count = np.where(row_len > 0, grid_points, 1)
+    p_row = np.repeat(np.arange(n_rows), count)
+    first = np.cumsum(count) - count
+    k = np.arange(len(p_row)) - first[p_row]              # index of the point within its row
+    long_pt = row_len[p_row] > 0
+    p_s = np.where(long_pt, gp[np.minimum(k, grid_points - 1)] * row_len[p_row] / 2, 0.0)
+    p_w = np.where(long_pt, gw[np.minimum(k, grid_points - 1)] / 2, 1.0)
     p_emb = embedded[row_gauge[p_row]]
     p_x = rc[p_row] + p_s[:, None] * rd[p_row]
     p_cell = cell_c[row_gauge[p_row]].copy()
@@ -333,13 +308,13 @@ DEGENERATE = 1e-9  # |det J| below this share of the cell's size (h^dim) is a co
 def _check_cells(mesh: Mesh, cells: NDArray[np.int64], xi: NDArray[np.float64],
                  gauges: list[str]) -> None:
     """Refuse inverted or collapsed elements under a gauge (det J <= 0 or ~0 at a sample point)."""
-    types = cell_types(mesh)[cells]
     block, row = cell_nodes(mesh, cells)
     problems = {}
-    for ctype in np.unique(types):
-        sel = np.flatnonzero(types == ctype)
-        conn = np.stack([mesh.blocks[b][1][r] for b, r in zip(block[sel], row[sel], strict=True)])
-        nodes = mesh.points[conn]
+    for b, (ctype, conn_b) in enumerate(mesh.blocks):
+        sel = np.flatnonzero(block == b)
+        if not len(sel):
+            continue
+        nodes = mesh.points[conn_b[row[sel]]]
         el = elements.ELEMENTS[str(ctype)]
         h = np.linalg.norm(np.ptp(nodes, axis=1), axis=1)
         dim = el.dim
@@ -364,22 +339,48 @@ def _check_cells(mesh: Mesh, cells: NDArray[np.int64], xi: NDArray[np.float64],
                            "before correlating" for (g, c), what in problems.items()])
 
 
+def _rows(ptol: NDArray, atol: NDArray) -> tuple[NDArray, NDArray, NDArray]:
+    """Operator rows of every gauge: nominal, centre point, then the band samples.
+
+    Band samples: the centre moved by ``ptol`` in BAND_DIRECTIONS directions (or not moved) times
+    the grid turned by -atol, 0, +atol (or not turned), less the unmoved, unturned one.
+    """
+    phis = np.linspace(0, 2 * np.pi, BAND_DIRECTIONS, endpoint=False)
+    unit = np.r_[[[0.0, 0.0]], np.c_[np.cos(phis), np.sin(phis)]]      # (1 + D, 2)
+    turn = np.array([0.0, -1.0, 1.0])
+    # every combination per gauge, masked by which tolerances it has
+    pos = np.repeat(unit, len(turn), axis=0)                            # (3 (1 + D), 2)
+    ang = np.tile(turn, len(unit))
+    n = len(ptol)
+    has_p = (ptol > 0)[:, None] | (np.arange(len(pos)) < len(turn))[None, :]
+    has_a = (atol > 0)[:, None] | (ang == 0)[None, :]
+    keep = has_p & has_a & ~((pos[:, 0] == 0) & (pos[:, 1] == 0) & (ang == 0))[None, :]
+    keep &= ~((np.arange(len(pos)) >= len(turn))[None, :] & ~(ptol > 0)[:, None])
+    g_band, c_band = np.nonzero(keep)
+    off_band = np.c_[pos[c_band] * ptol[g_band, None], ang[c_band] * atol[g_band]]
+    g_fixed = np.repeat(np.arange(n), 2)
+    kind_fixed = np.tile([0, 1], n)
+    gauge = np.r_[g_fixed, g_band]
+    kind = np.r_[kind_fixed, np.full(len(g_band), 2)]
+    off = np.r_[np.zeros((2 * n, 3)), off_band]
+    order = np.lexsort((np.arange(len(gauge)), gauge))                  # gauge by gauge
+    return gauge[order], kind[order], off[order]
+
+
 def _interpolation(op: GaugeOperator, *, gradient: bool) -> list[sparse.csr_matrix]:
     """Sparse matrices (points x nodes): shape functions, or their x, y, z derivatives."""
     key = "grad" if gradient else "values"
     if key in op._cache:
         return op._cache[key]
     mesh = op.mesh
-    types = cell_types(mesh)[op.cell]
     block, row = cell_nodes(mesh, op.cell)
     n_pts, n_nodes = len(op.cell), len(mesh.points)
     mats: list[list] = [[], [], []] if gradient else [[]]
-    for ctype in np.unique(types):
-        sel = np.flatnonzero(types == ctype)
-        b = block[sel]
-        conn = np.empty((len(sel), elements.ELEMENTS[str(ctype)].n_nodes), dtype=np.int64)
-        for bb in np.unique(b):
-            conn[b == bb] = mesh.blocks[bb][1][row[sel][b == bb]]
+    for b, (ctype, conn_b) in enumerate(mesh.blocks):
+        sel = np.flatnonzero(block == b)
+        if not len(sel):
+            continue
+        conn = conn_b[row[sel]]
         rows = np.repeat(sel, conn.shape[1])
         if gradient:
             dN, _ = elements.physical_gradients(str(ctype), mesh.points[conn], op.xi[sel])
