@@ -80,3 +80,19 @@ def test_shipped_log_is_what_the_seeded_generator_makes(tmp_path):
     LOG.write_log(LOG.make_log(), tmp_path / "readings.csv")
     shipped = ROOT / "correlate" / "data" / "demo" / "readings.csv"
     assert (tmp_path / "readings.csv").read_bytes() == shipped.read_bytes()
+
+
+def test_report_is_identical_between_runs_but_for_time_and_pictures(demo, tmp_path):
+    # Reproducibility: the same inputs give the same HTML apart from the generation time; the
+    # embedded pictures (PNG bytes from the renderer) are excluded from the comparison.
+    import re
+
+    assert main(["--quiet", "run", str(demo["out"] / "study.toml"), "--out",
+                 str(tmp_path / "again")]) == 0
+
+    def normalised(path: Path) -> str:
+        text = path.read_text(encoding="utf-8")
+        text = re.sub(r"data:image/png;base64,[A-Za-z0-9+/=]+", "data:image/png", text)
+        return re.sub(r"\d{4}-\d\d-\d\dT\d\d:\d\d:\d\dZ", "TIME", text)
+
+    assert normalised(tmp_path / "again" / "report.html") == normalised(demo["run"] / "report.html")
