@@ -200,10 +200,47 @@ def case_c(clock: Clock, folder: Path, scale: float, rng) -> None:
         evaluate_rows(op, read_field(src, Case("c", "strain", "E", None)))
 
 
+def case_d(clock: Clock, folder: Path, scale: float, rng) -> None:
+    """A flat quad shell panel at z = 5 (not a plane model) with top and bottom arrays."""
+    import meshio
+
+    from correlate.config import Case
+    from correlate.fields import read_field
+    from correlate.io.gauges import validate_gauges
+    from correlate.io.model import open_model
+    from correlate.locate import Locator, build_surface
+    from correlate.predict import build_operator, evaluate_rows
+
+    n = max(10, int(round((500_000 * scale / 2) ** 0.5)))
+    xs, ys = np.linspace(0, 400, 2 * n + 1), np.linspace(0, 200, n + 1)
+    X, Y = np.meshgrid(xs, ys, indexing="ij")
+    pts = np.c_[X.ravel(), Y.ravel(), np.full(X.size, 5.0)]
+    nid = np.arange(len(pts)).reshape(X.shape)
+    quads = np.stack([nid[:-1, :-1].ravel(), nid[1:, :-1].ravel(), nid[1:, 1:].ravel(),
+                      nid[:-1, 1:].ravel()], axis=1)
+    top = strain_field(pts)
+    path = folder / "d.vtu"
+    meshio.write(path, meshio.Mesh(pts, [("quad", quads)], point_data={"E_top": top,
+                                                                       "E_bot": -top}))
+    print(f"case d: {len(quads)} quad shell cells")
+    with clock("d", "floor: meshio read"):
+        meshio.read(path)
+    g = top_gauges(1000, rng, lo=(5, 5), hi=(395, 195), z=5.0)
+    g["face"] = np.where(np.arange(len(g)) % 2, "top", "bottom")
+    gauges = validate_gauges(g.astype(str), source="bench")
+    with clock("d", "correlate read+locate+evaluate (band)"):
+        src = open_model(path)
+        loc = Locator(src.mesh, build_surface(src.mesh))
+        op = build_operator(src.mesh, gauges, position_tol=1.0, angle_tol=2.0, snap_tol=1.0,
+                            locator=loc)
+        evaluate_rows(op, read_field(src, Case("c", "strain", {"top": "E_top",
+                                                               "bottom": "E_bot"}, None)))
+
+
 def main() -> None:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--scale", type=float, default=0.05)
-    p.add_argument("--cases", default="abc")
+    p.add_argument("--cases", default="abcd")
     args = p.parse_args()
     rng = np.random.default_rng(1)
     clock = Clock()
@@ -213,7 +250,7 @@ def main() -> None:
     print(f"import correlate: {time.perf_counter() - t0:.2f} s; scratch folder {folder}")
     try:
         for name in args.cases:
-            {"a": case_a, "b": case_b, "c": case_c}[name](clock, folder, args.scale, rng)
+            {"a": case_a, "b": case_b, "c": case_c, "d": case_d}[name](clock, folder, args.scale, rng)
     finally:
         shutil.rmtree(folder, ignore_errors=True)
     table = pd.DataFrame(clock.rows, columns=["case", "stage", "seconds", "peak_MB"])

@@ -65,20 +65,23 @@ def _cell_centres(mesh: Mesh, cells: NDArray[np.int64]) -> NDArray[np.float64]:
 def _used_once(keys: NDArray[np.int64], n_points: int) -> NDArray[np.bool_]:
     """Rows of sorted corner ids (-1 padded, (F, 4)) that occur exactly once: boundary faces.
 
-    Three sorted corners identify a face of a conforming mesh; packed into one int64 they are
-    hashed (pandas), several times faster than sorting rows. Very large meshes fall back to
-    sorting the rows as opaque bytes.
+    The three smallest corners identify a face of a conforming mesh (a triangle and a quad of
+    valid cells never share three corners). Packed into one int64 (21 bits each) they are hashed
+    by pandas, several times faster than sorting rows; meshes of more than 2^21 nodes sort the
+    rows instead.
     """
     import pandas as pd
 
-    if n_points ** 3 * 2 < 2 ** 62:
-        packed = ((keys[:, 0] * n_points + keys[:, 1]) * n_points + keys[:, 2]) * 2 \
-            + (keys[:, 3] >= 0)
+    if n_points < 2 ** 21:
+        packed = (keys[:, 0] << 42) | (keys[:, 1] << 21) | keys[:, 2]
         return ~pd.Series(packed).duplicated(keep=False).to_numpy()
-    rows = np.ascontiguousarray(keys)
-    raw = rows.view(np.dtype((np.void, rows.dtype.itemsize * 4))).ravel()
-    _, inverse, counts = np.unique(raw, return_inverse=True, return_counts=True)
-    return counts[inverse.ravel()] == 1
+    order = np.lexsort((keys[:, 3], keys[:, 2], keys[:, 1], keys[:, 0]))
+    k = keys[order]
+    same = np.r_[False, (k[1:] == k[:-1]).all(axis=1)]
+    dup = same | np.r_[same[1:], False]
+    out = np.empty(len(keys), dtype=bool)
+    out[order] = ~dup
+    return out
 
 
 def build_surface(mesh: Mesh) -> Surface:
