@@ -305,30 +305,33 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
 DEGENERATE = 1e-9  # |det J| below this share of the cell's size (h^dim) is a collapsed cell
 
 
+def _jacobian_det(ctype: str, nodes: NDArray, xi: NDArray) -> NDArray:
+    """det J (3D cells) or the area scale |x_xi x x_eta| (2D cells) at xi."""
+    _, jac = elements._jacobian(ctype, nodes, xi)
+    if jac.shape[2] == 3:
+        return np.linalg.det(jac)
+    return np.linalg.norm(np.cross(jac[:, :, 0], jac[:, :, 1]), axis=1)
+
+
 def _check_cells(mesh: Mesh, cells: NDArray[np.int64], xi: NDArray[np.float64],
                  gauges: list[str]) -> None:
-    """Refuse inverted or collapsed elements under a gauge (det J <= 0 or ~0 at a sample point)."""
+    """Refuse inverted or collapsed elements under a gauge (det J <= 0 or ~0 at a sample point
+    or at the cell centre)."""
     block, row = cell_nodes(mesh, cells)
     problems = {}
     for b, (ctype, conn_b) in enumerate(mesh.blocks):
         sel = np.flatnonzero(block == b)
         if not len(sel):
             continue
-        nodes = mesh.points[conn_b[row[sel]]]
         el = elements.ELEMENTS[str(ctype)]
-        h = np.linalg.norm(np.ptp(nodes, axis=1), axis=1)
-        dim = el.dim
-        try:
-            _, det = elements.physical_gradients(str(ctype), nodes, xi[sel])
-        except ModelError:
-            det = np.zeros(len(sel))
-        centre = np.tile(el.reference_nodes.mean(axis=0), (len(sel), 1))
-        try:
-            _, det_c = elements.physical_gradients(str(ctype), nodes, centre)
-        except ModelError:
-            det_c = np.zeros(len(sel))
-        collapsed = (np.abs(det) <= DEGENERATE * h ** dim) | (np.abs(det_c) <= DEGENERATE * h ** dim)
-        inverted = (dim == 3) & ((det < 0) | (det_c < 0)) & ~collapsed
+        nodes = mesh.points[conn_b[row[sel]]]
+        scale = np.linalg.norm(np.ptp(nodes, axis=1), axis=1) ** el.dim * DEGENERATE
+        det = _jacobian_det(str(ctype), nodes, xi[sel])
+        uniq, first, back = np.unique(row[sel], return_index=True, return_inverse=True)
+        centre = np.tile(el.reference_nodes.mean(axis=0), (len(uniq), 1))
+        det_c = _jacobian_det(str(ctype), nodes[first], centre)[back.ravel()]
+        collapsed = (np.abs(det) <= scale) | (np.abs(det_c) <= scale)
+        inverted = (el.dim == 3) & ((det < 0) | (det_c < 0)) & ~collapsed
         for k in np.flatnonzero(collapsed | inverted):
             i = sel[k]
             what = "inverted (negative Jacobian)" if inverted[k] else \
