@@ -422,6 +422,11 @@ def _summary(study: Study, model: Model, readings: Any, steps: Steps, names: lis
     if not frac_ok:
         reasons.append(f"{passing.sum()} of {n_healthy} healthy gauges pass ({frac:.0%}); "
                        f"{crit.pass_fraction:.0%} required")
+    pending = sorted({str(f["gauge"]) for _, f in flags.iterrows()
+                      if f.get("disposition") == "needs a disposition"})
+    if pending:
+        reasons.append(f"{len(pending)} flagged gauge(s) need a disposition before sign-off: "
+                       f"{', '.join(pending)} (see the flags)")
     diff = np.abs(st["difference"][ref])
     worst = [names[j] for j in np.argsort(-np.where(ev[ref], diff, -1)) if ev[ref, j]][:5]
     inputs = {"study": study.path, "model": study.model_file, "gauges": study.gauges_file,
@@ -450,6 +455,7 @@ def _summary(study: Study, model: Model, readings: Any, steps: Steps, names: lis
                     "gauges": len(names), "healthy": n_healthy, "passing": int(passing.sum()),
                     "failing": int(failing.sum()), "unconservative": int(uncons.sum()),
                     "flagged": len(flagged), "pass_fraction": frac, "worst": worst,
+                    "pending_dispositions": pending,
                     "note": "counts are gauges, not gauge-steps"},
         "fit": result["fit"], "fit_all": result["fit_all"], "fit_reference": result["fit_reference"],
         "fit_by_step": result["fit_by_step"],
