@@ -506,7 +506,6 @@ def _bands(plotter: Any, size: tuple[int, int]) -> Any:
     """White rectangles over the top and bottom text bands, with a thin rule at their edges."""
     from vtkmodules.vtkCommonCore import vtkPoints
     from vtkmodules.vtkCommonDataModel import vtkCellArray, vtkPolyData
-    from vtkmodules.vtkRenderingCore import vtkActor2D, vtkPolyDataMapper2D
 
     W, H = size
     points, polys = vtkPoints(), vtkCellArray()
@@ -518,12 +517,20 @@ def _bands(plotter: Any, size: tuple[int, int]) -> Any:
     poly = vtkPolyData()
     poly.SetPoints(points)
     poly.SetPolys(polys)
+    actor = _overlay(plotter, poly, (1.0, 1.0, 1.0))
+    actor.GetProperty().SetOpacity(0.92)
+    return actor
+
+
+def _overlay(plotter: Any, poly: Any, color: tuple[float, float, float]) -> Any:
+    """A 2D actor in display coordinates drawing ``poly`` in one colour, added to the plotter."""
+    from vtkmodules.vtkRenderingCore import vtkActor2D, vtkPolyDataMapper2D
+
     mapper = vtkPolyDataMapper2D()
     mapper.SetInputData(poly)
     actor = vtkActor2D()
     actor.SetMapper(mapper)
-    actor.GetProperty().SetColor(1.0, 1.0, 1.0)
-    actor.GetProperty().SetOpacity(0.92)
+    actor.GetProperty().SetColor(*color)
     plotter.renderer.AddViewProp(actor)
     return actor
 
@@ -533,7 +540,6 @@ def _leader_lines(plotter: Any, segments: list[tuple[tuple[float, float], tuple[
     """Thin 2D lines in display coordinates (one actor for all)."""
     from vtkmodules.vtkCommonCore import vtkPoints
     from vtkmodules.vtkCommonDataModel import vtkCellArray, vtkPolyData
-    from vtkmodules.vtkRenderingCore import vtkActor2D, vtkPolyDataMapper2D
 
     points, lines = vtkPoints(), vtkCellArray()
     for a, b in segments:
@@ -545,13 +551,8 @@ def _leader_lines(plotter: Any, segments: list[tuple[tuple[float, float], tuple[
     poly = vtkPolyData()
     poly.SetPoints(points)
     poly.SetLines(lines)
-    mapper = vtkPolyDataMapper2D()
-    mapper.SetInputData(poly)
-    actor = vtkActor2D()
-    actor.SetMapper(mapper)
-    actor.GetProperty().SetColor(0.25, 0.25, 0.25)
+    actor = _overlay(plotter, poly, (0.25, 0.25, 0.25))
     actor.GetProperty().SetLineWidth(1.0)
-    plotter.renderer.AddViewProp(actor)
     return actor
 
 
