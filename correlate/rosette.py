@@ -35,9 +35,10 @@ __all__ = [
     "von_mises",
 ]
 
-#: Largest condition number of the grid design matrix accepted; a reading error is amplified by up
-#: to this factor. 0/45/90 gives 3.2, 0/60/120 gives 2, 0/3/90 gives 38 and 0/2/90 gives 57.
-MAX_CONDITION = 40.0
+#: Largest condition number accepted for the grid design written in the basis [1, cos 2t, sin 2t]
+#: (the same equations as [cos^2 t, sin^2 t, sin t cos t], but its condition number does not depend
+#: on which grid is A). 0/45/90 gives 2.4, 0/60/120 gives 1.4, 0/3/90 gives 27 and 0/2/90 gives 41.
+MAX_CONDITION = 35.0
 
 
 def grid_angles(directions: ArrayLike, normal: ArrayLike) -> NDArray[np.float64]:
@@ -118,7 +119,8 @@ def check_angles(angles_deg: ArrayLike, *, name: str,
         msg = (f"rosette {name!r}: grid angles {angles.tolist()} deg; need at least three finite "
                "angles in a 1-D list")
         raise GaugeError(msg)
-    sv = np.linalg.svd(_grid_rows(np.radians(angles)), compute_uv=False)
+    t = np.radians(angles)
+    sv = np.linalg.svd(np.c_[np.ones_like(t), np.cos(2 * t), np.sin(2 * t)], compute_uv=False)
     cond = sv[0] / sv[-1] if sv[-1] > 0 else np.inf
     if not cond <= max_condition:
         msg = (f"rosette {name!r}: grid angles {angles.tolist()} deg are degenerate (condition "

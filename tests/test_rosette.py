@@ -308,3 +308,15 @@ def test_reduce_rosette_table():
     assert bare[["s1", "s2", "von_mises"]].isna().all().all()
     with pytest.raises(GaugeError, match="2-D"):
         reduce_rosette(readings[0], [0, 45, 90])
+
+
+def test_degeneracy_check_does_not_depend_on_which_grid_is_a():
+    # The same three directions must be accepted or refused whatever grid comes first: rotating
+    # every angle by a constant is an orthogonal change of (cos 2t, sin 2t) (double-angle
+    # identities), so the condition number in that basis is invariant.
+    from correlate.rosette import check_angles
+
+    base = np.array([0.0, 3.0, 110.0])
+    for k in range(3):
+        rolled = np.roll(base, k)
+        check_angles(rolled - rolled[0], name="R")  # accepted in every order
