@@ -211,7 +211,7 @@ def case_d(clock: Clock, folder: Path, scale: float, rng) -> None:
     from correlate.locate import Locator, build_surface
     from correlate.predict import build_operator, evaluate_rows
 
-    n = max(10, int(round((500_000 * scale / 2) ** 0.5)))
+    n = max(10, round((500_000 * scale / 2) ** 0.5))
     xs, ys = np.linspace(0, 400, 2 * n + 1), np.linspace(0, 200, n + 1)
     X, Y = np.meshgrid(xs, ys, indexing="ij")
     pts = np.c_[X.ravel(), Y.ravel(), np.full(X.size, 5.0)]

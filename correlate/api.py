@@ -61,10 +61,10 @@ def predict_readings(mesh: Any, gauges: pd.DataFrame, cases: Mapping[str, str | 
     >>> round(float(predict_readings(m, g, {"c": "E"})["predicted_ue"][0]), 3)
     1000.0
     """
-    from correlate.io.model import from_meshio
-    from correlate.pipeline import Model, predict_table
     from correlate.config import Study
+    from correlate.io.model import from_meshio
     from correlate.locate import Locator, build_surface
+    from correlate.pipeline import Model, predict_table
     from correlate.predict import build_operator
 
     source = from_meshio(_as_meshio(mesh))

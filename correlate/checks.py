@@ -105,7 +105,7 @@ def describe(case: str, evidence: dict[str, object]) -> str | None:
         return None
     line = (f"case '{case}': the strain components do not pass the {evidence['method']} check "
             f"(median residual {declared:.0%} of the strain, limit {RESIDUAL_LIMIT:.0%})")
-    if best > 0 and declared / max(best, 1e-12) >= BETTER_BY or best == 0:
+    if (best > 0 and declared / max(best, 1e-12) >= BETTER_BY) or best == 0:
         line += f"; components = {list(order)} with shear = \"{shear}\" would fit ({best:.0%})"
     return line + "; check components and shear in the study (near load introduction this check " \
                   "fails for good reasons)"

@@ -106,7 +106,7 @@ def main(argv: list[str] | None = None) -> int:
         except KeyboardInterrupt:
             print("interrupted; nothing was written", file=sys.stderr)
             return 130
-        except Exception as exc:  # noqa: BLE001 - the one place internal errors are reported
+        except Exception as exc:
             _print_warnings(caught)
             if args.debug:
                 traceback.print_exc()

@@ -188,6 +188,6 @@ def read_field(source: ModelSource, case: Case, materials: tuple[Material, ...] 
         elif location == "cell":
             notes.append("cell data: constant per element")
         values[face] = tensor
-    single = values[""] if "" in values else values
+    single = values.get("", values)
     return Field(case=case.name, kind="strain", location=location, values=single,
                  source_kind=case.kind, array=str(case.array), notes=tuple(notes), index=index)

@@ -52,4 +52,4 @@ def rotation_at_points(op: GaugeOperator, displacement: NDArray[np.float64]) -> 
     return w[op.weights[point_rows].indices]
 
 
-__all__ = ["nodal_strain", "rotation_at_points", "cell_types"]
+__all__ = ["cell_types", "nodal_strain", "rotation_at_points"]

@@ -345,7 +345,7 @@ def locate_inside(mesh: Mesh, points: NDArray[np.float64], names: list[str],
     return ids, xi
 
 
-def _as_meshio(mesh: Mesh):  # noqa: ANN202 - meshio is imported lazily
+def _as_meshio(mesh: Mesh):
     import meshio
 
     return meshio.Mesh(mesh.points, [(t, c) for t, c in mesh.blocks])

@@ -27,11 +27,17 @@ from numpy.typing import NDArray
 from scipy import sparse
 
 from correlate import elements
-from correlate.errors import GaugeError, GaugeOutsideMeshError, ModelError
+from correlate.errors import CorrelateWarning, GaugeError, GaugeOutsideMeshError, ModelError
 from correlate.io.model import Field, Mesh
-from correlate.locate import (Locator, SurfacePoints, build_surface, cell_nodes, cell_types,
-                              locate_inside, parent_coordinates)
-from correlate.errors import CorrelateWarning
+from correlate.locate import (
+    Locator,
+    SurfacePoints,
+    build_surface,
+    cell_nodes,
+    cell_types,
+    locate_inside,
+    parent_coordinates,
+)
 
 OUT_OF_PLANE_ERROR = 45.0    # degrees: refuse a grid direction further out of the tangent plane
 OUT_OF_PLANE_WARN = 10.0     # degrees: warn beyond this

@@ -33,7 +33,7 @@ def rosette_groups(gauges: pd.DataFrame) -> dict[str, list[int]]:
     return groups
 
 
-def rosette_angles(model, gauges: pd.DataFrame) -> dict[str, NDArray[np.float64]]:  # noqa: ANN001
+def rosette_angles(model, gauges: pd.DataFrame) -> dict[str, NDArray[np.float64]]:
     """Grid angles of each rosette from grid A, counterclockwise about the outward normal."""
     place = model.operator.placement
     out = {}
@@ -43,7 +43,7 @@ def rosette_angles(model, gauges: pd.DataFrame) -> dict[str, NDArray[np.float64]
     return out
 
 
-def rosette_table(study: Study, model, gauges: pd.DataFrame, steps: Steps,  # noqa: ANN001
+def rosette_table(study: Study, model, gauges: pd.DataFrame, steps: Steps,
                   measured: NDArray, predicted_axial: NDArray, evaluated: NDArray) -> pd.DataFrame:
     """Rows of rosettes.csv for every rosette and active step, measured and predicted."""
     mat = study.material

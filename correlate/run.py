@@ -242,8 +242,12 @@ def correlate_study(study: Study, model: Model | None = None) -> Correlation:
     st = status_table(measured, predicted, study.criteria, steps, dropped_steps, dropped_gauges,
                       flag_text)
     ref = reference_step(predicted, steps)
-    from correlate.diagnosis import (diagnose_failures, installation_faults, load_checks,
-                                     rosette_diagnoses)
+    from correlate.diagnosis import (
+        diagnose_failures,
+        installation_faults,
+        load_checks,
+        rosette_diagnoses,
+    )
 
     result = _statistics(study, steps, names, measured, predicted, st, reversed_, ref)
     diag = diagnose_failures(study, model, steps, names, measured, predicted, st, rows_by_case,

@@ -14,9 +14,9 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from statsmodels.regression.linear_model import OLS  # not statsmodels.api: 2 s to import
 from numpy.typing import ArrayLike, NDArray
 from scipy import stats as sps
+from statsmodels.regression.linear_model import OLS  # not statsmodels.api: 2 s to import
 from statsmodels.stats.outliers_influence import OLSInfluence
 
 from correlate.errors import ReadingsFormatError, StudyError

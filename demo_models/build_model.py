@@ -718,7 +718,7 @@ def gauge_states(points: NDArray[np.float64], tet10: NDArray[np.int64],
     """
     notes = []
     centres, frames, offsets = [], [], []
-    for gid, centre, direction, normal, length, *_ in GAUGES:
+    for _gid, centre, direction, normal, length, *_ in GAUGES:
         d = np.asarray(direction, dtype=float)
         d /= np.linalg.norm(d)
         n = np.asarray(normal, dtype=float)

@@ -20,7 +20,7 @@ import pytest
 from conftest import block_readings, write_block_study
 
 report = pytest.importorskip("correlate.report", reason="the report package does not import yet")
-from correlate.cli import main
+from correlate.cli import main  # noqa: E402 - after the import guard above
 
 PACKAGE = Path(__file__).resolve().parents[1] / "correlate"
 

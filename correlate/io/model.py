@@ -110,7 +110,7 @@ class ModelSource:
         return self._cache[time_index]
 
 
-def _hdf5_rows(source: "ModelSource", name: str, time_index: int,
+def _hdf5_rows(source: ModelSource, name: str, time_index: int,
                rows: dict[str, NDArray[np.int64]]) -> tuple[str, NDArray[np.float64]] | None:
     """Read only the given rows of a time-series array from its HDF5 file (None: not possible).
 
@@ -121,7 +121,7 @@ def _hdf5_rows(source: "ModelSource", name: str, time_index: int,
     for c in list(reader.collection[time_index]):
         if c.tag != "Attribute" or c.get("Name") != name or len(list(c)) != 1:
             continue
-        item = list(c)[0]
+        item = next(iter(c))
         if item.attrib.get("Format") != "HDF":
             return None
         filename, h5path = item.text.strip().split(":")
@@ -215,7 +215,7 @@ def _meshio_read(path: Path) -> Any:
             AttributeError, AssertionError, UnicodeDecodeError) as exc:
         raise ModelError(f"{path.name}: cannot be read ({type(exc).__name__}: {exc}); the file may "
                          "be truncated or of another format than its suffix says") from None
-    except Exception as exc:  # noqa: BLE001 - readers of many formats raise many things
+    except Exception as exc:
         if type(exc).__name__ == "ReadError":
             raise ModelError(f"{path.name}: cannot be read ({exc})") from None
         raise
@@ -228,7 +228,7 @@ def _open_series(path: Path) -> ModelSource | None:
         reader = meshio.xdmf.TimeSeriesReader(str(path))
         points, cells = reader.read_points_cells()
         n = reader.num_steps
-    except Exception:  # noqa: BLE001 - not a time series: the plain reader decides
+    except Exception:
         return None
     if n == 0:
         return None
