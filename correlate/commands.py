@@ -25,7 +25,7 @@ def cmd_check(args: argparse.Namespace) -> int:
     _echo(f"cases: {', '.join(c.name for c in study.cases)}")
     cols = ["gauge", "element", "cell_type", "snap_distance", "out_of_plane_deg"]
     table = placement[cols].copy()
-    table["snap_distance"] = table["snap_distance"].map(lambda v: f"{v:.4g}")
+    table["snap_distance"] = table["snap_distance"].map(lambda v: f"{v:.4f}")
     table["out_of_plane_deg"] = table["out_of_plane_deg"].map(lambda v: f"{v:.1f}")
     _echo(table.to_string(index=False))
     for n in notes:

@@ -25,6 +25,8 @@ from correlate.errors import OutputError
 
 FLOAT_DIGITS = 6          # significant decimals for ratios and other dimensionless numbers
 UE_DECIMALS = 3           # microstrain to 0.001
+LENGTH_DECIMALS = 6       # lengths (snap distances, positions) to 1e-6 of the model's unit
+LENGTH_COLUMNS = {"snap_distance", "x", "y", "z"}
 
 
 def sha256(path: Path) -> str:
@@ -76,6 +78,8 @@ def round_table(df: pd.DataFrame) -> pd.DataFrame:
             continue
         if col.endswith("_ue"):
             df[col] = df[col].round(UE_DECIMALS)
+        elif col in LENGTH_COLUMNS:
+            df[col] = df[col].round(LENGTH_DECIMALS) + 0.0  # + 0.0: no "-0"
         else:
             df[col] = df[col].map(lambda v: _sig(v))
     return df
