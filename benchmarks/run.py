@@ -98,6 +98,41 @@ def baseline_probe(grid, fields: list[np.ndarray], gauges: pd.DataFrame) -> np.n
     return np.array(out)
 
 
+CHILD = """
+import resource, sys, numpy as np, pandas as pd
+sys.path.insert(0, {bench!r})
+from run import top_gauges
+from correlate.config import Case
+from correlate.fields import read_field
+from correlate.io.gauges import validate_gauges
+from correlate.io.model import open_model
+from correlate.locate import Locator, build_surface
+from correlate.predict import build_operator, evaluate_rows
+base = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+src = open_model({path!r})
+g = validate_gauges(top_gauges(1000, np.random.default_rng(1)).astype(str), source="bench")
+op = build_operator(src.mesh, g, position_tol=1.0, angle_tol=2.0, snap_tol=1.0,
+                    locator=Locator(src.mesh, build_surface(src.mesh)))
+steps = {steps}
+for k in (range(steps) if steps else [None]):
+    evaluate_rows(op, read_field(src, Case("c", "strain", "E", None), time_index=k))
+peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+m = src.mesh
+arrays = m.points.nbytes + sum(c.nbytes for _, c in m.blocks)
+print(f"{{base / 1024:.0f}} {{peak / 1024:.0f}} {{arrays / 2**20:.0f}}")
+"""
+
+
+def child_peak(path: Path, steps: int = 0) -> tuple[float, float, float]:
+    """Peak memory of correlate alone on a file, in a fresh process: (start, peak, mesh) MB."""
+    import subprocess
+
+    code = CHILD.format(bench=str(Path(__file__).resolve().parent), path=str(path), steps=steps)
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    start, peak, mesh = (float(v) for v in out.stdout.split()[-3:])
+    return start, peak, mesh
+
+
 def case_a(clock: Clock, folder: Path, scale: float, rng) -> None:
     import meshio
     import pyvista as pv
@@ -133,6 +168,10 @@ def case_a(clock: Clock, folder: Path, scale: float, rng) -> None:
         m = meshio.read(path)
         grid = pv.from_meshio(m)
         baseline_probe(grid, [m.point_data["E"]], gauges)
+    start, peak, mesh_mb = child_peak(path)
+    field_mb = m.point_data["E"].nbytes / 2**20
+    print(f"case a memory (fresh process, band): start {start:.0f} MB, peak {peak:.0f} MB; mesh "
+          f"arrays {mesh_mb:.0f} MB + strain array {field_mb:.0f} MB")
 
 
 def case_b(clock: Clock, folder: Path, scale: float, rng) -> None:
@@ -171,6 +210,9 @@ def case_b(clock: Clock, folder: Path, scale: float, rng) -> None:
         op = build_operator(src.mesh, gauges, snap_tol=1.0, band=False, locator=loc)
         for k in range(n_steps):
             evaluate_rows(op, read_field(src, Case("c", "strain", "E", None), time_index=k))
+    start, peak, mesh_mb = child_peak(folder / "b.xdmf", steps=n_steps)
+    print(f"case b memory (fresh process, all steps): start {start:.0f} MB, peak {peak:.0f} MB; "
+          f"mesh arrays {mesh_mb:.0f} MB, one step {base.nbytes / 2**20:.0f} MB")
     with clock("b", "baseline all steps"):
         r = meshio.xdmf.TimeSeriesReader(str(folder / "b.xdmf"))
         pts, cells = r.read_points_cells()
