@@ -43,6 +43,7 @@ OUT_OF_PLANE_ERROR = 45.0    # degrees: refuse a grid direction further out of t
 OUT_OF_PLANE_WARN = 10.0     # degrees: warn beyond this
 OVERHANG_COS = np.cos(np.radians(45.0))  # a grid point whose normal turns more has left the face
 BAND_DIRECTIONS = 8
+BAND_GRID_POINTS = 3
 SLIP_FRACTION = 0.02  # a grid point that slides back more than this share of the grid left its face
 
 
@@ -217,16 +218,22 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
     theta = np.radians(row_off[:, 2])[:, None]
     rd = np.cos(theta) * rd + np.sin(theta) * np.cross(rn, rd)
 
-    # sample points along each row's grid: Gauss-Legendre points, or the centre alone
-    gp, gw = np.polynomial.legendre.leggauss(grid_points)
+    # sample points along each row's grid: Gauss-Legendre points, or the centre alone. Band rows
+    # use at most BAND_GRID_POINTS (3-point Gauss is exact to degree 5 along the grid): they bound
+    # a tolerance, and they are most of the points.
     row_len = np.where(row_kind != 1, length[row_gauge], 0.0)
-    count = np.where(row_len > 0, grid_points, 1)
+    n_gp = np.where(row_kind == 2, min(grid_points, BAND_GRID_POINTS), grid_points)
+    count = np.where(row_len > 0, n_gp, 1)
     p_row = np.repeat(np.arange(n_rows), count)
     first = np.cumsum(count) - count
     k = np.arange(len(p_row)) - first[p_row]              # index of the point within its row
-    long_pt = row_len[p_row] > 0
-    p_s = np.where(long_pt, gp[np.minimum(k, grid_points - 1)] * row_len[p_row] / 2, 0.0)
-    p_w = np.where(long_pt, gw[np.minimum(k, grid_points - 1)] / 2, 1.0)
+    p_s = np.zeros(len(p_row))
+    p_w = np.ones(len(p_row))
+    for m in np.unique(count[count > 1]):
+        gp, gw = np.polynomial.legendre.leggauss(int(m))
+        sel = count[p_row] == m
+        p_s[sel] = gp[k[sel]] * row_len[p_row[sel]] / 2
+        p_w[sel] = gw[k[sel]] / 2
     p_emb = embedded[row_gauge[p_row]]
     p_x = rc[p_row] + p_s[:, None] * rd[p_row]
     p_cell = cell_c[row_gauge[p_row]].copy()
