@@ -99,7 +99,7 @@ def baseline_probe(grid, fields: list[np.ndarray], gauges: pd.DataFrame) -> np.n
 
 
 CHILD = """
-import resource, sys, numpy as np, pandas as pd
+import sys, numpy as np, pandas as pd
 sys.path.insert(0, {bench!r})
 from run import top_gauges
 from correlate.config import Case
@@ -108,7 +108,12 @@ from correlate.io.gauges import validate_gauges
 from correlate.io.model import open_model
 from correlate.locate import Locator, build_surface
 from correlate.predict import build_operator, evaluate_rows
-base = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+def hwm():
+    # VmHWM of this process image (ru_maxrss survives exec on Linux and would carry the parent's)
+    for line in open("/proc/self/status"):
+        if line.startswith("VmHWM:"):
+            return float(line.split()[1])
+base = hwm()
 src = open_model({path!r})
 g = validate_gauges(top_gauges(1000, np.random.default_rng(1)).astype(str), source="bench")
 op = build_operator(src.mesh, g, position_tol=1.0, angle_tol=2.0, snap_tol=1.0,
@@ -116,7 +121,7 @@ op = build_operator(src.mesh, g, position_tol=1.0, angle_tol=2.0, snap_tol=1.0,
 steps = {steps}
 for k in (range(steps) if steps else [None]):
     evaluate_rows(op, read_field(src, Case("c", "strain", "E", None), time_index=k))
-peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+peak = hwm()
 m = src.mesh
 arrays = m.points.nbytes + sum(c.nbytes for _, c in m.blocks)
 print(f"{{base / 1024:.0f}} {{peak / 1024:.0f}} {{arrays / 2**20:.0f}}")
