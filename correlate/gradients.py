@@ -12,7 +12,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from correlate import elements
-from correlate.locate import cell_nodes, cell_types
+from correlate.locate import cell_nodes
 from correlate.predict import GaugeOperator, _interpolation
 
 
@@ -52,4 +52,4 @@ def rotation_at_points(op: GaugeOperator, displacement: NDArray[np.float64]) -> 
     return w[op.weights[point_rows].indices]
 
 
-__all__ = ["cell_types", "nodal_strain", "rotation_at_points"]
+__all__ = ["nodal_strain", "rotation_at_points"]

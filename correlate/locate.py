@@ -295,13 +295,11 @@ def parent_coordinates(mesh: Mesh, surface: Surface, sp: SurfacePoints) -> NDArr
     if mesh.family != "solid":
         return sp.xi
     out = np.zeros((len(sp.face), 3))
-    ftypes = np.asarray(surface.types)[surface.type_of[sp.face]]
     ctypes = cell_types(mesh)[sp.cell]
     for ctype in np.unique(ctypes):
         for k in np.unique(surface.local[sp.face][ctypes == ctype]):
             sel = (ctypes == ctype) & (surface.local[sp.face] == k)
             out[sel] = elements.face_to_parent(str(ctype), int(k), sp.xi[sel])
-    del ftypes
     return out
 
 

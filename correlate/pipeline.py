@@ -21,7 +21,7 @@ from correlate.fields import read_field
 from correlate.io.gauges import read_gauges
 from correlate.io.model import ModelSource, open_model
 from correlate.locate import Locator, build_surface
-from correlate.predict import GaugeOperator, build_operator, centre_strain, evaluate_rows
+from correlate.predict import GaugeOperator, build_operator, evaluate_rows
 from correlate.units import MICROSTRAIN
 
 
@@ -248,12 +248,6 @@ def _warning() -> type[Warning]:
     from correlate.errors import CorrelateWarning
 
     return CorrelateWarning
-
-
-def centre_tensors(model: Model, case: Case, fe_index: int | None = None) -> NDArray[np.float64]:
-    """Full strain tensor at every gauge centre for one case (for checks and rosettes)."""
-    fld = read_field(model.source(case), case, model.study.materials, fe_index)
-    return centre_strain(model.operator, fld)
 
 
 def check_study(study: Study) -> tuple[Model, pd.DataFrame, list[str]]:

@@ -21,7 +21,7 @@ from numpy.typing import NDArray
 from correlate._version import __version__
 from correlate.config import Study, read_study
 from correlate.correlation import Steps, make_steps, reference_step, status_table
-from correlate.errors import ReadingsFormatError, StudyError
+from correlate.errors import StudyError
 from correlate.output import check_target, sha256, staged_folder, write_csv, write_json
 from correlate.pipeline import Model, band_limits, case_rows, prepare
 from correlate.units import MICROSTRAIN
@@ -552,4 +552,4 @@ def run_command(args: argparse.Namespace) -> int:
     return 0
 
 
-__all__ = ["Correlation", "ReadingsFormatError", "correlate_study", "run_command"]
+__all__ = ["Correlation", "correlate_study", "read_test_data", "run_command", "write_outputs"]
