@@ -62,26 +62,77 @@ def _cell_centres(mesh: Mesh, cells: NDArray[np.int64]) -> NDArray[np.float64]:
     return out
 
 
-def _used_once(keys: NDArray[np.int64], n_points: int) -> NDArray[np.bool_]:
-    """Rows of sorted corner ids (-1 padded, (F, 4)) that occur exactly once: boundary faces.
+LINEAR_VTK = {"tetra": 10, "tetra10": 10, "hexahedron": 12, "hexahedron20": 12,
+              "hexahedron27": 12, "wedge": 13}  # VTK type of each solid's corner-only cell
 
-    The three smallest corners identify a face of a conforming mesh (a triangle and a quad of
-    valid cells never share three corners). Packed into one int64 (21 bits each) they are hashed
-    by pandas, several times faster than sorting rows; meshes of more than 2^21 nodes sort the
-    rows instead.
+
+def _boundary_faces(mesh: Mesh) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
+    """Owning cell and local face number of every boundary face of a solid.
+
+    VTK's geometry filter finds the faces used by one cell only (on the corner nodes, which decide
+    the topology); each face is matched to its parent's face table by its sorted corners. Faces
+    come in VTK's order, which is reproducible for the same mesh.
     """
-    import pandas as pd
+    from vtkmodules.util.numpy_support import numpy_to_vtk, numpy_to_vtkIdTypeArray, vtk_to_numpy
+    from vtkmodules.vtkCommonCore import vtkPoints
+    from vtkmodules.vtkCommonDataModel import vtkCellArray, vtkUnstructuredGrid
+    from vtkmodules.vtkFiltersGeometry import vtkGeometryFilter
 
-    if n_points < 2 ** 21:
-        packed = (keys[:, 0] << 42) | (keys[:, 1] << 21) | keys[:, 2]
-        return ~pd.Series(packed).duplicated(keep=False).to_numpy()
-    order = np.lexsort((keys[:, 3], keys[:, 2], keys[:, 1], keys[:, 0]))
-    k = keys[order]
-    same = np.r_[False, (k[1:] == k[:-1]).all(axis=1)]
-    dup = same | np.r_[same[1:], False]
-    out = np.empty(len(keys), dtype=bool)
-    out[order] = ~dup
-    return out
+    corners, types = [], []
+    for ctype, conn in mesh.blocks:
+        nc = elements.ELEMENTS[ctype].n_corners
+        corners.append(conn[:, :nc].ravel())
+        types.append(np.full(len(conn), LINEAR_VTK[ctype], dtype=np.uint8))
+    sizes = np.concatenate([np.full(len(conn), elements.ELEMENTS[ct].n_corners)
+                            for ct, conn in mesh.blocks])
+    offsets = np.r_[0, np.cumsum(sizes)].astype(np.int64)
+    grid = vtkUnstructuredGrid()
+    points = vtkPoints()
+    pts = np.ascontiguousarray(mesh.points, dtype=float)
+    points.SetData(numpy_to_vtk(pts, deep=False))
+    grid.SetPoints(points)
+    cells = vtkCellArray()
+    cells.SetData(numpy_to_vtkIdTypeArray(offsets, deep=True),
+                  numpy_to_vtkIdTypeArray(np.concatenate(corners).astype(np.int64), deep=True))
+    cell_types = np.concatenate(types)
+    grid.SetCells(numpy_to_vtk(cell_types, deep=True,
+                               array_type=3), cells)  # 3: VTK_UNSIGNED_CHAR
+    filt = vtkGeometryFilter()
+    filt.SetInputData(grid)
+    filt.PassThroughCellIdsOn()
+    filt.PassThroughPointIdsOn()
+    filt.MergingOff()
+    filt.Update()
+    out = filt.GetOutput()
+    parent = vtk_to_numpy(out.GetCellData().GetArray("vtkOriginalCellIds")).astype(np.int64)
+    ids_array = out.GetPointData().GetArray("vtkOriginalPointIds")
+    # without compaction the filter keeps the input points (and writes no id array)
+    point_ids = (vtk_to_numpy(ids_array).astype(np.int64) if ids_array is not None
+                 else np.arange(out.GetNumberOfPoints(), dtype=np.int64))
+    if ids_array is None and out.GetNumberOfPoints() != len(pts):
+        raise RuntimeError("VTK's geometry filter renumbered the points without their ids")
+    polys = out.GetPolys()
+    face_off = vtk_to_numpy(polys.GetOffsetsArray()).astype(np.int64)
+    face_ids = point_ids[vtk_to_numpy(polys.GetConnectivityArray()).astype(np.int64)]
+    n_corner = np.diff(face_off)
+    key = np.full((len(parent), 4), -1, dtype=np.int64)
+    for nc in np.unique(n_corner):
+        sel = np.flatnonzero(n_corner == nc)
+        key[sel, :nc] = np.sort(face_ids[face_off[sel][:, None] + np.arange(nc)], axis=1)
+    # the local face whose sorted corners are the face's
+    local = np.full(len(parent), -1, dtype=np.int64)
+    block, row = cell_nodes(mesh, parent)
+    for b, (ctype, conn) in enumerate(mesh.blocks):
+        on_b = np.flatnonzero(block == b)
+        for k, (ftype, ids) in enumerate(elements.ELEMENTS[ctype].faces):
+            nc = elements.ELEMENTS[ftype].n_corners
+            cand = np.full((len(on_b), 4), -1, dtype=np.int64)
+            cand[:, :nc] = np.sort(conn[row[on_b]][:, list(ids[:nc])], axis=1)
+            local[on_b[(cand == key[on_b]).all(axis=1)]] = k
+    if (local < 0).any():
+        raise ModelError(f"{mesh.source}: {int((local < 0).sum())} boundary faces do not match a "
+                         "face of their cell; the mesh is not conforming there")
+    return parent, local
 
 
 def build_surface(mesh: Mesh) -> Surface:
@@ -89,23 +140,14 @@ def build_surface(mesh: Mesh) -> Surface:
     offsets = mesh.offsets
     groups: dict[str, list[tuple[NDArray, NDArray, NDArray]]] = {}
     if mesh.family == "solid":
-        keys, owners = [], []
+        parent, local = _boundary_faces(mesh)
+        block, row = cell_nodes(mesh, parent)
         for b, (ctype, conn) in enumerate(mesh.blocks):
             for k, (ftype, ids) in enumerate(elements.ELEMENTS[ctype].faces):
-                fconn = conn[:, list(ids)]
-                n_corner = 3 if ftype.startswith("triangle") else 4
-                corners = np.sort(fconn[:, :n_corner], axis=1)
-                key = np.full((len(conn), 4), -1, dtype=np.int64)
-                key[:, :n_corner] = corners
-                keys.append(key)
-                owners.append((ftype, fconn, offsets[b] + np.arange(len(conn)), np.full(len(conn), k)))
-        once = _used_once(np.concatenate(keys), len(mesh.points))
-        start = 0
-        for ftype, fconn, par, loc in owners:
-            sel = once[start:start + len(fconn)]
-            start += len(fconn)
-            if sel.any():
-                groups.setdefault(ftype, []).append((fconn[sel], par[sel], loc[sel]))
+                sel = (block == b) & (local == k)
+                if sel.any():
+                    groups.setdefault(ftype, []).append(
+                        (conn[row[sel]][:, list(ids)], parent[sel], local[sel]))
     else:
         for b, (ctype, conn) in enumerate(mesh.blocks):
             groups.setdefault(ctype, []).append(
