@@ -337,7 +337,7 @@ def parent_coordinates(mesh: Mesh, surface: Surface, sp: SurfacePoints) -> NDArr
     if mesh.family != "solid":
         return sp.xi
     out = np.zeros((len(sp.face), 3))
-    ctypes = cell_types(mesh)[sp.cell]
+    ctypes = cell_types(mesh, sp.cell)
     for ctype in np.unique(ctypes):
         for k in np.unique(surface.local[sp.face][ctypes == ctype]):
             sel = (ctypes == ctype) & (surface.local[sp.face] == k)
@@ -345,9 +345,10 @@ def parent_coordinates(mesh: Mesh, surface: Surface, sp: SurfacePoints) -> NDArr
     return out
 
 
-def cell_types(mesh: Mesh) -> NDArray[np.str_]:
-    """Type name of every cell, by global id."""
-    return np.concatenate([np.full(len(conn), ctype) for ctype, conn in mesh.blocks])
+def cell_types(mesh: Mesh, cells: NDArray[np.int64]) -> NDArray[np.str_]:
+    """Type name of the given global cells."""
+    block, _ = cell_nodes(mesh, np.asarray(cells, dtype=np.int64))
+    return np.asarray([ctype for ctype, _ in mesh.blocks])[block]
 
 
 def cell_nodes(mesh: Mesh, cells: NDArray[np.int64]) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
@@ -376,7 +377,7 @@ def locate_inside(mesh: Mesh, points: NDArray[np.float64], names: list[str],
         raise GaugeError(*[f"embedded gauge '{n}' is not inside any element; check its coordinates "
                            "or mount it on the surface" for n in bad])
     xi = np.zeros((len(points), 3))
-    types = cell_types(mesh)[ids]
+    types = cell_types(mesh, ids)
     block, row = cell_nodes(mesh, ids)
     for ctype in np.unique(types):
         sel = types == ctype

@@ -293,11 +293,10 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
 
     _check_cells(mesh, p_cell[keep_pt], p_xi[keep_pt], [names[g] for g in
                                                          row_gauge[p_row[keep_pt]]])
-    ctype = cell_types(mesh)
     table = pd.DataFrame({
         "gauge": names,
         "element": cell_c,
-        "cell_type": ctype[cell_c],
+        "cell_type": cell_types(mesh, cell_c),
         "snap_distance": np.where(embedded, 0.0, sp.distance),
         "x": centre[:, 0], "y": centre[:, 1], "z": centre[:, 2],
         "normal_x": normal[:, 0], "normal_y": normal[:, 1], "normal_z": normal[:, 2],
