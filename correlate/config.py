@@ -32,7 +32,7 @@ SCHEMA: dict[str, set[str]] = {
     "criteria": {"relative", "absolute_ue", "slope", "pass_fraction"},
     "override": {"gauge", "action", "reason"},
     "health": {"dead_ue", "rail_fraction", "drift_ue", "drift_fraction", "nonlinear_fraction",
-               "hysteresis_fraction", "reversed_ratio", "min_points"},
+               "hysteresis_fraction", "noise_ue", "reversed_ratio", "min_points"},
     "report": {"steps", "views", "title"},
 }
 FREE_TEXT = {"test"}

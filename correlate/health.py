@@ -29,6 +29,7 @@ DEFAULTS: dict[str, float] = {
     "drift_fraction": 0.05,
     "nonlinear_fraction": 0.05,   # RMS residual of the regression on the loads / peak
     "hysteresis_fraction": 0.05,  # |mean unloading - mean loading residual| / peak
+    "noise_ue": 10.0,             # residuals below this are channel noise, never a shape flag
     "min_points": 4,              # fewer valid steps: the gauge-level checks are skipped
 }
 FLAG_COLUMNS = ("gauge", "step", "sequence", "flag", "value", "threshold", "scope", "drops", "reason")
@@ -221,15 +222,17 @@ def _gauge_flags(name: str, y: NDArray[np.float64], P: NDArray[np.float64],
     X = np.column_stack([np.ones(yv.size), Pv])
     coef = np.linalg.lstsq(X, yv, rcond=None)[0]
     r = yv - X @ coef
-    rms = float(np.sqrt(np.mean(r**2))) / peak
-    if rms > t["nonlinear_fraction"]:
+    rms_ue = float(np.sqrt(np.mean(r**2)))
+    rms = rms_ue / peak
+    # a low-strain channel's noise is a large share of its peak: judge shape only above the noise
+    if rms > t["nonlinear_fraction"] and rms_ue > t["noise_ue"]:
         flag("nonlinear", rms, t["nonlinear_fraction"], f"RMS residual of the linear fit on the "
              f"loads is {100 * rms:.1f} % of peak {peak:.0f} ue (above "
              f"{100 * t['nonlinear_fraction']:g} %; nonlinear response)")
     d = step["direction"][valid]
     if (d > 0).any() and (d < 0).any():
         gap = float(r[d < 0].mean() - r[d > 0].mean())
-        if abs(gap) / peak > t["hysteresis_fraction"]:
+        if abs(gap) / peak > t["hysteresis_fraction"] and abs(gap) > t["noise_ue"]:
             flag("hysteresis", abs(gap) / peak, t["hysteresis_fraction"], f"unloading path lies "
                  f"{gap:+.1f} ue ({100 * abs(gap) / peak:.1f} % of peak) from the loading path "
                  f"(above {100 * t['hysteresis_fraction']:g} %; hysteresis)")

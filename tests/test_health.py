@@ -214,3 +214,16 @@ def test_wrong_shape_names_the_array():
 def test_unknown_threshold_key_is_a_study_error():
     with pytest.raises(StudyError, match="dead_u"):
         _assess([200.0 * CYCLE], dead_u=3.0)
+
+
+@pytest.mark.parametrize("seed", range(5), ids=lambda s: f"seed{s}")
+def test_low_strain_channel_noise_is_not_a_shape_flag(seed):
+    # A channel peaking at 30 ue with 3 ue of noise: the noise alone is ~10 % of its peak, above
+    # the 5 % shape fractions, but below the noise floor (noise_ue, common practice 10 ue), so
+    # neither nonlinear nor hysteresis is raised. A 1000 ue channel with the same relative
+    # curvature would be flagged (see the quadratic test above).
+    rng = np.random.default_rng(seed)
+    y = 6.0 * CYCLE + rng.normal(0.0, 3.0, CYCLE.size)
+    y[0] = 0.0
+    flags = _flags(_assess([y]))
+    assert "nonlinear" not in flags and "hysteresis" not in flags
