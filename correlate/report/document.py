@@ -120,6 +120,24 @@ def gauge_rows(corr: Any, i: int) -> list[dict[str, str]]:
     return rows
 
 
+MAX_CURVES = 96  # load-strain panels in the report (six figures of 16); beyond, the worst gauges
+
+
+def _curve_gauges(corr: Any, words: list[str], ref: int) -> list[int]:
+    """Gauges whose load-strain curves the report draws, in gauge order.
+
+    All of them up to MAX_CURVES; beyond, the failing and flagged ones first, then the largest
+    |difference| at the reference step, so that a thousand gauges stay a readable handful of figures.
+    """
+    g = len(corr.gauges)
+    if g <= MAX_CURVES:
+        return list(range(g))
+    diff = np.abs(np.nan_to_num(corr.status["difference"][ref], nan=0.0))
+    priority = np.array([0 if w not in ("pass",) else 1 for w in words])
+    order = np.lexsort((-diff, priority))
+    return sorted(order[:MAX_CURVES].tolist())
+
+
 def _gauge_status(corr: Any) -> list[str]:
     """One word per gauge over all steps: pass, fail, or the flag that removed it."""
     st = corr.status
@@ -254,9 +272,16 @@ def write_report(corr: Any, folder: Path) -> None:
     predicted = np.where(unmodelled, np.nan, corr.predicted)
     words = _gauge_status(corr)
     titles = [f"{figures.short(g)} \u00b7 {w}" for g, w in zip(corr.gauges, words, strict=True)]
+    curves = _curve_gauges(corr, words, ref)
+    if len(curves) < len(corr.gauges):
+        load_note += (f"; curves for the {len(curves)} gauges that fail, are flagged or differ most "
+                      f"at the reference step (of {len(corr.gauges)}; all are in the tables and "
+                      "in gauges.csv)")
     load_files = figures.plot_load_strain(load, load_label, direction, steps.sequence,
-                                          corr.measured, predicted, on_path, off_path,
-                                          list(corr.gauges), titles, folder)
+                                          corr.measured[:, curves], predicted[:, curves],
+                                          on_path[:, curves], off_path[:, curves],
+                                          [corr.gauges[j] for j in curves],
+                                          [titles[j] for j in curves], folder)
 
     rosette_rows, rosette_records = _rosettes(corr, ref)
     rosette_figure = (data_uri(figures.plot_rosettes(rosette_records, folder / "rosettes.png"))

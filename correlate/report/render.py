@@ -432,6 +432,9 @@ def _text(plotter: Any, text: str, x: int, y: int, size: int,
     return actor
 
 
+MAX_LABELS = 60  # gauge ids per view; more would cover the part
+
+
 def _label_text(gauge: str) -> str:
     text = gauge if len(gauge) <= LABEL_CHARS else gauge[: LABEL_CHARS - 3] + "..."
     return text.replace("$", "\\$")   # VTK renders $...$ as math text otherwise
@@ -447,8 +450,16 @@ def _free(box: tuple[float, float, float, float], taken: list[tuple[float, float
 
 def _add_labels(plotter: Any, glyphs: Glyphs, shown: NDArray[np.bool_],
                 size: tuple[int, int]) -> list[Any]:
-    """Gauge ids beside the bar ends, moved around to avoid each other and the marker points."""
+    """Gauge ids beside the bar ends, moved around to avoid each other and the marker points.
+
+    At most MAX_LABELS per view: the flagged (grey) gauges and the largest discrepancies; the
+    others keep their coloured bar without an id (every gauge is in the report's tables).
+    """
     idx = np.flatnonzero(shown)
+    if len(idx) > MAX_LABELS:
+        d = np.abs(glyphs.discrepancy[idx])
+        keep = np.argsort(-np.nan_to_num(d, nan=np.inf), kind="stable")[:MAX_LABELS]
+        idx = np.sort(idx[keep])
     actors: list[Any] = []
     if not len(idx):
         return actors
