@@ -195,14 +195,30 @@ def _array(values: object, last: tuple[int, ...], name: str) -> Array:
     return out
 
 
+def _powers(xi: Array, degree: int) -> Array:
+    """xi ** k for k = 0..degree, as (P, dim, degree + 1), by repeated products."""
+    pw = np.ones(xi.shape + (degree + 1,))
+    for k in range(1, degree + 1):
+        pw[:, :, k] = pw[:, :, k - 1] * xi
+    return pw
+
+
 def _monomials(cell_type: str, xi: Array, axis: int | None = None) -> Array:
-    """Monomials of the element's space at xi (P, dim) -> (P, m), or their derivative d/dxi_axis."""
+    """Monomials of the element's space at xi (P, dim) -> (P, m), or their derivative d/dxi_axis.
+
+    Built from a table of integer powers (no float ``**`` and no 3D temporary): this sits in the
+    Newton loops of every projection.
+    """
     exps = _EXPONENTS[cell_type]
-    if axis is None:
-        return np.prod(xi[:, None, :] ** exps[None], axis=2)
-    lowered = exps.copy()
-    lowered[:, axis] = np.maximum(lowered[:, axis] - 1, 0)
-    return exps[:, axis] * np.prod(xi[:, None, :] ** lowered[None], axis=2)
+    pw = _powers(xi, int(exps.max()))
+    if axis is not None:
+        factor = exps[:, axis]
+        exps = exps.copy()
+        exps[:, axis] = np.maximum(exps[:, axis] - 1, 0)
+    out = pw[:, 0, exps[:, 0]]
+    for d in range(1, exps.shape[1]):
+        out = out * pw[:, d, exps[:, d]]
+    return out if axis is None else out * factor
 
 
 def shape_functions(cell_type: str, xi: Array) -> Array:

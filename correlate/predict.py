@@ -291,8 +291,9 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
     W = sparse.csr_matrix((p_w[keep_pt], (remap[p_row[keep_pt]], np.arange(keep_pt.sum()))),
                           shape=(len(keep_rows), keep_pt.sum()))
 
-    _check_cells(mesh, p_cell[keep_pt], p_xi[keep_pt], [names[g] for g in
-                                                         row_gauge[p_row[keep_pt]]])
+    # cells under the gauge itself (nominal and centre rows; band samples are what-ifs)
+    own = keep_pt & (row_kind[p_row] != 2)
+    _check_cells(mesh, p_cell[own], p_xi[own], [names[g] for g in row_gauge[p_row[own]]])
     table = pd.DataFrame({
         "gauge": names,
         "element": cell_c,
