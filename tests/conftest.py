@@ -228,3 +228,14 @@ def write_small_study(folder, *, gauges=None, readings: bool = True, extra_toml:
     rows = block_readings(gauges) if readings else None
     return write_block_study(folder, readings_rows=rows, gauges=gauges, ctype="hexahedron",
                              extra_toml=extra_toml)
+
+
+def flat_panel(z0: float = 5.0) -> tuple[np.ndarray, np.ndarray]:
+    """Points and quads of a flat 6 x 4 panel of unit quads at height z0 (normal +z)."""
+    xs, ys = np.linspace(0, 6, 7), np.linspace(0, 4, 5)
+    X, Y = np.meshgrid(xs, ys, indexing="ij")
+    pts = np.c_[X.ravel(), Y.ravel(), np.full(X.size, z0)]
+    nid = np.arange(len(pts)).reshape(X.shape)
+    quads = np.array([[nid[i, j], nid[i + 1, j], nid[i + 1, j + 1], nid[i, j + 1]]
+                      for i in range(6) for j in range(4)])
+    return pts, quads

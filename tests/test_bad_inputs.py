@@ -23,7 +23,7 @@ import meshio
 import numpy as np
 import pandas as pd
 import pytest
-from conftest import block_indicated, block_readings, default_gauges, write_small_study
+from conftest import block_indicated, block_readings, default_gauges, flat_panel, write_small_study
 
 from correlate.cli import main
 
@@ -113,12 +113,7 @@ def replace_cell(df_lines: list[str], line: int, column: str, value: str) -> lis
 
 
 def panel(flip: int | None = None, tilt_deg: float = 0.0, z0: float = 5.0):
-    xs, ys = np.linspace(0, 6, 7), np.linspace(0, 4, 5)
-    X, Y = np.meshgrid(xs, ys, indexing="ij")
-    pts = np.c_[X.ravel(), Y.ravel(), np.full(X.size, z0)]
-    nid = np.arange(len(pts)).reshape(X.shape)
-    quads = np.array([[nid[i, j], nid[i + 1, j], nid[i + 1, j + 1], nid[i, j + 1]]
-                      for i in range(6) for j in range(4)])
+    pts, quads = flat_panel(z0)
     if flip is not None:
         quads[flip] = quads[flip][[0, 3, 2, 1]]
     t = np.radians(tilt_deg)

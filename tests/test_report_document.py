@@ -328,27 +328,30 @@ def test_surface_vtp_holds_the_analytic_strain(report) -> None:
     assert on_face.all()
 
 
+def _correlate(folder: Path, gauges: str, readings: str, study: str):
+    """Write a gauge map, readings and a study beside the model already in ``folder``; correlate."""
+    from correlate.config import read_study
+    from correlate.run import correlate_study
+
+    (folder / "gauges.csv").write_text(gauges)
+    (folder / "readings.csv").write_text(readings)
+    (folder / "study.toml").write_text(study)
+    return correlate_study(read_study(folder / "study.toml"))
+
+
 def test_surface_from_displacement_is_the_exact_strain(tmp_path: Path) -> None:
     """A displacement case: the surface carries the small strain of each cell (linear field)."""
-    import correlate.diagnosis
-    from correlate.config import read_study
     from correlate.report.render import model_surface
-    from correlate.run import correlate_study
 
     rng = np.random.default_rng(11)
     G = rng.normal(0.0, 5e-4, (3, 3))
     _block(tmp_path / "block.vtu", gradient=G)
-    (tmp_path / "gauges.csv").write_text("gauge,x,y,z,dir_x,dir_y,dir_z\nA,20,15,10,1,0,0\n"
-                                         "B,30,0,5,1,0,0\nC,40,15,10,0,1,0\n")
-    (tmp_path / "readings.csv").write_text("step,F,A,B,C\n0,0,0,0,0\n1,5,130,-40,61\n"
-                                           "2,10,270,-95,118\n")
-    (tmp_path / "study.toml").write_text(
+    corr = _correlate(
+        tmp_path, "gauge,x,y,z,dir_x,dir_y,dir_z\nA,20,15,10,1,0,0\nB,30,0,5,1,0,0\n"
+        "C,40,15,10,0,1,0\n", "step,F,A,B,C\n0,0,0,0,0\n1,5,130,-40,61\n2,10,270,-95,118\n",
         'title = "displacement"\n[model]\nfile = "block.vtu"\nlength_unit = "mm"\n'
         '[[case]]\nname = "c"\ndisplacement = "U"\n[gauges]\nfile = "gauges.csv"\n'
         '[readings]\nfile = "readings.csv"\n[[load]]\ncolumn = "F"\ncase = "c"\nreference = 4.0\n')
-    with pytest.MonkeyPatch.context() as mp:
-        mp.setattr(correlate.diagnosis, "diagnose_failures", lambda *a, **k: DIAGNOSES.iloc[:0])
-        corr = correlate_study(read_study(tmp_path / "study.toml"))
     surface, note = model_surface(corr)
     # reference: small strain sym(G) of u = G x, times the factor 10 / 4 of the 10 kN step; a
     # linear tetrahedron differentiates a linear field exactly (rounding only)
@@ -365,10 +368,7 @@ def test_surface_of_a_series_case_interpolates_between_fe_steps(tmp_path: Path) 
     interpolated linearly in load between the neighbouring FE steps, as the run pairs readings."""
     from conftest import solid_mesh
 
-    import correlate.diagnosis
-    from correlate.config import read_study
     from correlate.report.render import model_surface, reference_index
-    from correlate.run import correlate_study
 
     mesh = solid_mesh("hexahedron", n=(4, 3, 2))
     base = np.zeros((len(mesh.points), 6))
@@ -383,18 +383,13 @@ def test_surface_of_a_series_case_interpolates_between_fe_steps(tmp_path: Path) 
                 w.write_data(t, point_data={"E": base * t ** 1.5})
     finally:
         os.chdir(cwd)
-    (tmp_path / "gauges.csv").write_text("gauge,x,y,z,dir_x,dir_y,dir_z\nA,1,1.5,2,1,0,0\n"
-                                         "B,3,1.5,2,0,1,0\nC,2,0,1,1,0,0\n")
-    (tmp_path / "readings.csv").write_text("step,F,A,B,C\n0,0,0,0,0\n1,3,170,-45,160\n"
-                                           "2,9,830,-260,870\n")
-    (tmp_path / "study.toml").write_text(
+    corr = _correlate(
+        tmp_path, "gauge,x,y,z,dir_x,dir_y,dir_z\nA,1,1.5,2,1,0,0\nB,3,1.5,2,0,1,0\n"
+        "C,2,0,1,1,0,0\n", "step,F,A,B,C\n0,0,0,0,0\n1,3,170,-45,160\n2,9,830,-260,870\n",
         'title = "series"\n[model]\nfile = "series.xdmf"\nlength_unit = "mm"\n'
         '[[case]]\nname = "ramp"\nstrain = "E"\ntime_index = "all"\n'
         'match = { column = "F", value_at_time_1 = 10.0 }\n'
         '[gauges]\nfile = "gauges.csv"\n[readings]\nfile = "readings.csv"\n')
-    with pytest.MonkeyPatch.context() as mp:
-        mp.setattr(correlate.diagnosis, "diagnose_failures", lambda *a, **k: DIAGNOSES.iloc[:0])
-        corr = correlate_study(read_study(tmp_path / "study.toml"))
     assert corr.steps.loads[reference_index(corr), 0] == 9.0
     surface, _ = model_surface(corr)
     # by hand: 9 kN is t = 0.9, between the FE steps at t = 0.75 and 1.0 (weights 0.4, 0.6)

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from conftest import gauge_frame
+from conftest import flat_panel, gauge_frame
 
 from correlate import elements
 from correlate.config import Case
@@ -16,12 +16,7 @@ from correlate.predict import build_operator, evaluate_rows
 
 def panel(ctype: str = "quad", flip: int | None = None, z0: float = 5.0) -> Mesh:
     """A flat 6 x 4 shell panel at height z0 (normal +z by the right-hand rule), 6 x 4 cells."""
-    xs, ys = np.linspace(0, 6, 7), np.linspace(0, 4, 5)
-    X, Y = np.meshgrid(xs, ys, indexing="ij")
-    pts = np.c_[X.ravel(), Y.ravel(), np.full(X.size, z0)]
-    nid = np.arange(len(pts)).reshape(X.shape)
-    quads = np.array([[nid[i, j], nid[i + 1, j], nid[i + 1, j + 1], nid[i, j + 1]]
-                      for i in range(6) for j in range(4)])
+    pts, quads = flat_panel(z0)
     if ctype == "quad8":
         ref = elements.ELEMENTS["quad8"].reference_nodes
         new = elements.map_to_physical("quad", np.repeat(pts[quads], len(ref), axis=0),
