@@ -63,9 +63,8 @@ def predict_readings(mesh: Any, gauges: pd.DataFrame, cases: Mapping[str, str | 
     """
     from correlate.config import Study
     from correlate.io.model import from_meshio
-    from correlate.locate import Locator, build_surface
     from correlate.pipeline import Model, predict_table
-    from correlate.predict import build_operator
+    from correlate.predict import build_operator, gauge_locator
 
     source = from_meshio(_as_meshio(mesh))
     text = gauges.astype(object).where(gauges.notna(), "").astype(str)
@@ -81,7 +80,7 @@ def predict_readings(mesh: Any, gauges: pd.DataFrame, cases: Mapping[str, str | 
                               average=spec.get("average", "cell"), axes=spec.get("axes")))
     materials = (Material(E=material[0], nu=material[1]),) if material else ()
     mesh_ = source.mesh
-    locator = Locator(mesh_, build_surface(mesh_))
+    locator = gauge_locator(mesh_, gdf, snap_tol=snap_tol, position_tol=position_tol)
     op = build_operator(mesh_, gdf, position_tol=position_tol, angle_tol=angle_tol,
                         snap_tol=snap_tol, calibration_poisson=calibration_poisson,
                         grid_points=grid_points, locator=locator)

@@ -6,6 +6,8 @@ convention (full symmetric tensors in m/m with tensor shear, global model axes),
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 import numpy as np
 from numpy.typing import NDArray
 
@@ -35,12 +37,15 @@ def _components(case: Case, count: int, source: ModelSource, array: str,
                      "or 3 (xx, yy, xy; 2D and shell models)")
 
 
-def _rotate_to_global(tensor: NDArray, axes: NDArray, source: ModelSource, case: Case) -> NDArray:
-    """Rotate per-cell local tensors to global axes; axes rows are local x, y (, z) in global."""
+def _check_axes(axes: NDArray, source: ModelSource, case: Case) -> None:
     if axes.shape[1] not in (6, 9):
         raise ModelError(f"{source.path.name}: axes array '{case.axes}' of case '{case.name}' has "
                          f"{axes.shape[1]} components; give local x and y axes (6) or the full "
                          "rotation (9, rows = local axes)")
+
+
+def _rotate_to_global(tensor: NDArray, axes: NDArray) -> NDArray:
+    """Rotate per-cell local tensors to global axes; axes rows are local x, y (, z) in global."""
     ex, ey = axes[:, 0:3], axes[:, 3:6]
     ex = ex / np.linalg.norm(ex, axis=1, keepdims=True)
     ey = ey - np.sum(ey * ex, axis=1, keepdims=True) * ex
@@ -97,7 +102,8 @@ def cell_to_nodes(values: NDArray, source: ModelSource) -> NDArray:
 
 def _tensor_array(source: ModelSource, case: Case, array: str, materials: tuple[Material, ...],
                   time_index: int | None, rows: dict | None = None
-                  ) -> tuple[str, NDArray, NDArray | None]:
+                  ) -> tuple[str, NDArray, Callable[[NDArray, NDArray], NDArray], NDArray | None]:
+    """The array as read, with the row-by-row conversion to strain tensors in global axes."""
     location, raw = find_array(source, array, time_index, case=case.name, rows=rows)
     index = None
     if rows is not None and len(raw) == len(rows[location]) and \
@@ -106,7 +112,7 @@ def _tensor_array(source: ModelSource, case: Case, array: str, materials: tuple[
     family = source.mesh.family
     comps = _components(case, raw.shape[1], source, array, family)
     shear = "tensor" if case.kind == "stress" else case.shear
-    tensor = from_voigt(raw, comps, shear=shear)
+    axes = None
     if case.axes:
         axes_loc, axes = find_array(source, case.axes, time_index, case=case.name)
         if index is not None:
@@ -117,17 +123,26 @@ def _tensor_array(source: ModelSource, case: Case, array: str, materials: tuple[
         if location == "point":
             raise ModelError(f"{source.path.name}: case '{case.name}' has point data in local axes; "
                              "local-axis results must be cell data beside their axes array")
-        tensor = _rotate_to_global(tensor, axes, source, case)
+        _check_axes(axes, source, case)
     elif len(comps) == 3 and family == "shell":
         raise ModelError(f"{source.path.name}: case '{case.name}' gives in-plane components (xx, yy, "
                          "xy) on a shell that is not flat in the x-y plane; these are element or "
                          "material axes, so name the per-cell axes array with axes = \"...\"")
+    E = nu = None
     if case.kind == "stress":
         E, nu = _material_per_entity(materials, source, location, case)
         if index is not None:
             E, nu = E[index], nu[index]
-        tensor = strain_from_stress(tensor, E[:, None, None], nu[:, None, None])
-    return location, tensor, index
+
+    def convert(values: NDArray, ids: NDArray) -> NDArray:
+        tensor = from_voigt(values, comps, shear=shear)
+        if axes is not None:
+            tensor = _rotate_to_global(tensor, axes[ids])
+        if E is not None and nu is not None:
+            tensor = strain_from_stress(tensor, E[ids][:, None, None], nu[ids][:, None, None])
+        return tensor
+
+    return location, raw, convert, index
 
 
 def read_field(source: ModelSource, case: Case, materials: tuple[Material, ...] = (),
@@ -171,23 +186,26 @@ def read_field(source: ModelSource, case: Case, materials: tuple[Material, ...] 
         if raw.shape[1] != 3:
             raise ModelError(f"{source.path.name}: displacement '{case.array}' of case '{case.name}' "
                              f"has {raw.shape[1]} components; expected 3 (or 2 for plane models)")
-        return Field(case=case.name, kind="displacement", location="point", values=raw,
+        return Field(case=case.name, kind="displacement", location="point", data=raw,
                      source_kind="displacement", array=case.array, index=index)
     arrays = case.array if isinstance(case.array, dict) else {"": case.array}
-    values: dict[str, NDArray] = {}
+    data: dict[str, NDArray] = {}
     location = "point"
     index = None
+    convert: Callable[[NDArray, NDArray], NDArray] | None = None
     if case.average == "nodal":
         rows = None  # nodal averaging needs every cell
     for face, name in arrays.items():
-        location, tensor, index = _tensor_array(source, case, name, materials, time_index, rows)
+        location, raw, convert, index = _tensor_array(source, case, name, materials, time_index,
+                                                      rows)
         if location == "cell" and case.average == "nodal":
-            tensor = cell_to_nodes(tensor, source)
-            location = "point"
+            raw = cell_to_nodes(convert(raw, np.arange(len(raw))), source)
+            convert, location = None, "point"
             notes.append("cell data averaged to nodes")
         elif location == "cell":
             notes.append("cell data: constant per element")
-        values[face] = tensor
-    single = values.get("", values)
-    return Field(case=case.name, kind="strain", location=location, values=single,
-                 source_kind=case.kind, array=str(case.array), notes=tuple(notes), index=index)
+        data[face] = raw
+    single = data.get("", data)
+    return Field(case=case.name, kind="strain", location=location, data=single,
+                 source_kind=case.kind, array=str(case.array), notes=tuple(notes), index=index,
+                 convert=convert)

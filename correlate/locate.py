@@ -14,6 +14,7 @@ faces' own (split at every edge), never averaged across an edge.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from itertools import product
 
 import numpy as np
 from numpy.typing import NDArray
@@ -46,10 +47,35 @@ class Surface:
     node_faces: sparse.csr_matrix         # node x face incidence (corners only)
     corner_conn: NDArray[np.int64]        # (F, 4) corners, -1 padded, for the locator
     scale: float                          # model size, for relative tolerances
+    region: Region | None = None          # None: every boundary face; else where the faces are
 
     @property
     def n_faces(self) -> int:
         return len(self.parent)
+
+
+@dataclass(frozen=True)
+class Region:
+    """Where a partial surface is complete.
+
+    The surface holds every boundary face with a corner node within ``radius`` of a seed point (and
+    some more). A face within distance d of a point p has all its corners within d + ``size`` of p
+    (``size`` bounds the cells' extent), so a closest point found at distance d is exact when a seed
+    lies within ``radius - d - size`` of p.
+    """
+
+    seeds: NDArray[np.float64]
+    radius: float
+    size: float
+
+    def covers(self, points: NDArray[np.float64], distance: NDArray[np.float64]) -> NDArray[np.bool_]:
+        """Whether the closest points found at ``distance`` from ``points`` are certainly exact."""
+        from scipy.spatial import cKDTree
+
+        room = self.radius - self.size - distance
+        tree = cKDTree(self.seeds)
+        near, _ = tree.query(points, distance_upper_bound=max(float(room.max()), 0.0))
+        return near <= room
 
 
 def _cell_centres(mesh: Mesh, cells: NDArray[np.int64]) -> NDArray[np.float64]:
@@ -62,29 +88,89 @@ def _cell_centres(mesh: Mesh, cells: NDArray[np.int64]) -> NDArray[np.float64]:
     return out
 
 
+MAX_VOXELS = 2**25   # occupancy grid for the cells near the gauges (bytes: one per voxel)
+PARTIAL_SHARE = 0.5  # a partial surface over more than this share of the cells: take them all
+
+
+def cell_size(mesh: Mesh) -> float:
+    """An upper bound of every cell's extent (diagonal of its corners' bounding box, padded).
+
+    Float32 keeps the gathers cheap; the 1 % pad covers its rounding and the bulge of curved
+    quadratic edges beyond their corners is covered by the factor 1.5 the callers add.
+    """
+    pts = mesh.points.astype(np.float32)
+    ext = np.zeros(3)
+    for ctype, conn in mesh.blocks:
+        corners = np.ascontiguousarray(conn[:, :elements.ELEMENTS[ctype].n_corners].T)
+        for axis in range(3):
+            x = np.ascontiguousarray(pts[:, axis])
+            lo = x[corners[0]]
+            hi = lo.copy()
+            for k in range(1, len(corners)):
+                xk = x[corners[k]]
+                np.minimum(lo, xk, out=lo)
+                np.maximum(hi, xk, out=hi)
+            if len(lo):
+                ext[axis] = max(ext[axis], float((hi - lo).max()))
+    return 1.01 * float(np.linalg.norm(ext))
+
+
+def nodes_near(mesh: Mesh, seeds: NDArray[np.float64], radius: float) -> NDArray[np.bool_]:
+    """Flag every node within ``radius`` of a seed (and some more: whole voxels of that size)."""
+    pts = mesh.points
+    lo, hi = mesh.bounds
+    span = hi - lo
+    voxel = radius * max(1.0, float(np.prod(span / radius + 1) / MAX_VOXELS) ** (1 / 3))
+    dims = (span / voxel).astype(np.int64) + 1
+    occupied = np.zeros(dims, dtype=bool)
+    seed_ijk = np.floor((seeds - lo) / voxel).astype(np.int64)
+    for shift in product((-1, 0, 1), repeat=3):
+        ijk = np.clip(seed_ijk + shift, 0, dims - 1)
+        occupied[ijk[:, 0], ijk[:, 1], ijk[:, 2]] = True
+    ijk = ((pts - lo) / voxel).astype(np.int64)
+    return occupied[ijk[:, 0], ijk[:, 1], ijk[:, 2]]
+
+
+def cells_with(mesh: Mesh, flagged: NDArray[np.bool_]) -> NDArray[np.int64]:
+    """Global ids of the cells with at least one flagged corner node."""
+    out = []
+    for b, (ctype, conn) in enumerate(mesh.blocks):
+        hit = np.zeros(len(conn), dtype=bool)
+        for k in range(elements.ELEMENTS[ctype].n_corners):
+            hit |= flagged[conn[:, k]]
+        out.append(mesh.offsets[b] + np.flatnonzero(hit))
+    return np.concatenate(out)
+
+
 LINEAR_VTK = {"tetra": 10, "tetra10": 10, "hexahedron": 12, "hexahedron20": 12,
               "hexahedron27": 12, "wedge": 13}  # VTK type of each solid's corner-only cell
 
 
-def _boundary_faces(mesh: Mesh) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
-    """Owning cell and local face number of every boundary face of a solid.
+def _boundary_faces(mesh: Mesh, cells: NDArray[np.int64] | None = None,
+                    ) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
+    """Owning cell and local face number of every boundary face of a solid (or of ``cells``).
 
     VTK's geometry filter finds the faces used by one cell only (on the corner nodes, which decide
     the topology); each face is matched to its parent's face table by its sorted corners. Faces
-    come in VTK's order, which is reproducible for the same mesh.
+    come in VTK's order, which is reproducible for the same mesh. Given a subset of the cells, the
+    faces are those of the subset, including the cut through the mesh around it.
     """
     from vtkmodules.util.numpy_support import numpy_to_vtk, numpy_to_vtkIdTypeArray, vtk_to_numpy
     from vtkmodules.vtkCommonCore import vtkPoints
     from vtkmodules.vtkCommonDataModel import vtkCellArray, vtkUnstructuredGrid
     from vtkmodules.vtkFiltersGeometry import vtkGeometryFilter
 
-    corners, types = [], []
-    for ctype, conn in mesh.blocks:
+    corners, types, sizes, ids = [], [], [], []
+    block_of = np.searchsorted(mesh.offsets, cells, side="right") - 1 if cells is not None else None
+    for b, (ctype, conn) in enumerate(mesh.blocks):
+        rows = np.arange(len(conn)) if block_of is None else cells[block_of == b] - mesh.offsets[b]
         nc = elements.ELEMENTS[ctype].n_corners
-        corners.append(conn[:, :nc].ravel())
-        types.append(np.full(len(conn), LINEAR_VTK[ctype], dtype=np.uint8))
-    sizes = np.concatenate([np.full(len(conn), elements.ELEMENTS[ct].n_corners)
-                            for ct, conn in mesh.blocks])
+        corners.append(conn[rows, :nc].ravel())
+        types.append(np.full(len(rows), LINEAR_VTK[ctype], dtype=np.uint8))
+        sizes.append(np.full(len(rows), nc))
+        ids.append(mesh.offsets[b] + rows)
+    sizes = np.concatenate(sizes)
+    cell_ids = np.concatenate(ids)
     offsets = np.r_[0, np.cumsum(sizes)].astype(np.int64)
     grid = vtkUnstructuredGrid()
     points = vtkPoints()
@@ -104,7 +190,7 @@ def _boundary_faces(mesh: Mesh) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
     filt.MergingOff()
     filt.Update()
     out = filt.GetOutput()
-    parent = vtk_to_numpy(out.GetCellData().GetArray("vtkOriginalCellIds")).astype(np.int64)
+    parent = cell_ids[vtk_to_numpy(out.GetCellData().GetArray("vtkOriginalCellIds"))]
     ids_array = out.GetPointData().GetArray("vtkOriginalPointIds")
     # without compaction the filter keeps the input points (and writes no id array)
     point_ids = (vtk_to_numpy(ids_array).astype(np.int64) if ids_array is not None
@@ -135,23 +221,49 @@ def _boundary_faces(mesh: Mesh) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
     return parent, local
 
 
-def build_surface(mesh: Mesh) -> Surface:
-    """Collect the boundary faces of a solid, or the cells of a shell or plane model."""
+def build_surface(mesh: Mesh, near: NDArray[np.float64] | None = None,
+                  reach: float = np.inf) -> Surface:
+    """Collect the boundary faces of a solid, or the cells of a shell or plane model.
+
+    With ``near`` points and a finite ``reach``, collect only the faces near them: every boundary
+    face with a corner within reach + 2 cell sizes of a point (the surface's ``region`` says where
+    it is complete; the locator falls back to the whole surface beyond it). A run then costs a
+    few passes over the cell arrays instead of a boundary search through the whole mesh.
+    """
     offsets = mesh.offsets
     groups: dict[str, list[tuple[NDArray, NDArray, NDArray]]] = {}
+    subset, flagged, region = None, None, None
+    if near is not None and len(near) and np.isfinite(reach):
+        size = cell_size(mesh)
+        radius = max(float(reach), 0.0) + 2.0 * size
+        flagged = nodes_near(mesh, np.asarray(near, dtype=float), radius)
+        subset = cells_with(mesh, flagged)
+        if len(subset) > PARTIAL_SHARE * mesh.n_cells:
+            subset, flagged = None, None
+        else:
+            region = Region(seeds=np.asarray(near, dtype=float), radius=radius, size=1.5 * size)
     if mesh.family == "solid":
-        parent, local = _boundary_faces(mesh)
+        parent, local = _boundary_faces(mesh, subset)
         block, row = cell_nodes(mesh, parent)
         for b, (ctype, conn) in enumerate(mesh.blocks):
             for k, (ftype, ids) in enumerate(elements.ELEMENTS[ctype].faces):
-                sel = (block == b) & (local == k)
-                if sel.any():
-                    groups.setdefault(ftype, []).append(
-                        (conn[row[sel]][:, list(ids)], parent[sel], local[sel]))
+                sel = np.flatnonzero((block == b) & (local == k))
+                face_nodes = conn[row[sel]][:, list(ids)]
+                if flagged is not None:  # drop the cut around the subset: it has no flagged corner
+                    nc = elements.ELEMENTS[ftype].n_corners
+                    keep = flagged[face_nodes[:, :nc]].any(axis=1)
+                    sel, face_nodes = sel[keep], face_nodes[keep]
+                if len(sel):
+                    groups.setdefault(ftype, []).append((face_nodes, parent[sel], local[sel]))
     else:
         for b, (ctype, conn) in enumerate(mesh.blocks):
+            rows = np.arange(len(conn))
+            if subset is not None:
+                rows = subset[(subset >= offsets[b]) & (subset < offsets[b + 1])] - offsets[b]
             groups.setdefault(ctype, []).append(
-                (conn, offsets[b] + np.arange(len(conn)), np.full(len(conn), -1)))
+                (conn[rows], offsets[b] + rows, np.full(len(rows), -1)))
+    if not groups and subset is not None:  # nothing near the points: the whole surface
+        return build_surface(mesh)
     types = tuple(groups)
     conns, type_of, rows, parents, locals_ = [], [], [], [], []
     for t, ftype in enumerate(types):
@@ -196,10 +308,10 @@ def build_surface(mesh: Mesh) -> Surface:
     ok = nodes >= 0
     node_faces = sparse.csr_matrix((np.ones(ok.sum()), (nodes[ok], face_ids[ok])),
                                    shape=(len(pts), n_faces))
-    span = pts.max(axis=0) - pts.min(axis=0)
+    span = mesh.bounds[1] - mesh.bounds[0]
     return Surface(types=types, type_of=type_of_a, conn=tuple(conns), row=row, parent=parent,
                    local=local, sign=sign, node_faces=node_faces, corner_conn=corner,
-                   scale=float(np.linalg.norm(span)) or 1.0)
+                   scale=float(np.linalg.norm(span)) or 1.0, region=region)
 
 
 @dataclass(frozen=True)
@@ -212,18 +324,24 @@ class SurfacePoints:
     distance: NDArray[np.float64]    # (n,) distance from the query point
     normal: NDArray[np.float64]      # (n, 3) outward unit normal of the face there
     cell: NDArray[np.int64]          # (n,) global id of the owning cell
+    local: NDArray[np.int64]         # (n,) face number within that cell (-1: the cell itself)
 
 
 class Locator:
     """Closest points on a surface: VTK finds a candidate facet, our projection makes it exact."""
 
     def __init__(self, mesh: Mesh, surface: Surface) -> None:
+        self.mesh = mesh
+        self._use(surface)
+
+    def _use(self, surface: Surface) -> None:
         # vtkmodules directly: `import vtk` or pyvista would add ~2 s of imports
         from vtkmodules.util.numpy_support import numpy_to_vtk, numpy_to_vtkIdTypeArray
         from vtkmodules.vtkCommonCore import vtkPoints
         from vtkmodules.vtkCommonDataModel import vtkCellArray, vtkPolyData, vtkStaticCellLocator
 
-        self.mesh, self.surface = mesh, surface
+        mesh = self.mesh
+        self.surface = surface
         corner = surface.corner_conn
         n_corner = (corner >= 0).sum(axis=1)
         # VTK cell array [n, ids...] per face, without a Python loop: drop the -1 padding
@@ -268,6 +386,16 @@ class Locator:
             the face whose normal is nearest to it wins.
         """
         points = np.asarray(points, dtype=float)
+        out = self._project(points, prefer)
+        region = self.surface.region
+        if region is not None and not region.covers(points, out.distance).all():
+            # a point beyond the partial surface: collect the whole boundary once, and redo
+            self._use(build_surface(self.mesh))
+            out = self._project(points, prefer)
+        return out
+
+    def _project(self, points: NDArray[np.float64], prefer: NDArray[np.float64] | None
+                 ) -> SurfacePoints:
         surf = self.surface
         first = self.candidates(points)
         # Fast path: the exact projection on VTK's nearest facet lands strictly inside that face.
@@ -278,7 +406,7 @@ class Locator:
             sel = surf.type_of[first] == t
             inside[sel] = elements.inside_reference(ftype, fx[sel], tol=-1e-7)  # strictly inside
         out = SurfacePoints(face=first.copy(), xi=fx, point=fp, distance=fd, normal=fn,
-                            cell=surf.parent[first])
+                            cell=surf.parent[first], local=surf.local[first])
         edge = np.flatnonzero(~inside)
         if edge.size == 0:
             return out
@@ -312,6 +440,7 @@ class Locator:
         out.xi[edge], out.point[edge] = xi[firsts], x[firsts]
         out.distance[edge], out.normal[edge] = dist[firsts], normal[firsts]
         out.cell[edge] = surf.parent[f[firsts]]
+        out.local[edge] = surf.local[f[firsts]]
         return out
 
     def _project_pairs(self, points: NDArray[np.float64], q: NDArray[np.int64],
@@ -332,15 +461,15 @@ class Locator:
         return xi, x, dist, normal
 
 
-def parent_coordinates(mesh: Mesh, surface: Surface, sp: SurfacePoints) -> NDArray[np.float64]:
+def parent_coordinates(mesh: Mesh, sp: SurfacePoints) -> NDArray[np.float64]:
     """Natural coordinates of surface points in their owning cells (2 columns for shells)."""
     if mesh.family != "solid":
         return sp.xi
     out = np.zeros((len(sp.face), 3))
     ctypes = cell_types(mesh, sp.cell)
     for ctype in np.unique(ctypes):
-        for k in np.unique(surface.local[sp.face][ctypes == ctype]):
-            sel = (ctypes == ctype) & (surface.local[sp.face] == k)
+        for k in np.unique(sp.local[ctypes == ctype]):
+            sel = (ctypes == ctype) & (sp.local == k)
             out[sel] = elements.face_to_parent(str(ctype), int(k), sp.xi[sel])
     return out
 

@@ -20,8 +20,8 @@ from correlate.errors import CorrelateError, ModelError
 from correlate.fields import read_field
 from correlate.io.gauges import read_gauges
 from correlate.io.model import ModelSource, open_model
-from correlate.locate import Locator, build_surface
-from correlate.predict import GaugeOperator, build_operator, evaluate_rows
+from correlate.locate import Locator
+from correlate.predict import GaugeOperator, build_operator, evaluate_rows, gauge_locator
 from correlate.units import MICROSTRAIN
 
 
@@ -86,14 +86,15 @@ def prepare(study: Study) -> Model:
         raise ModelError(f"{study.model_file.name} is a 2D plane model (all z = 0); say "
                          "[model] plane = \"stress\" or \"strain\" in the study")
     with progress.step(f"locating {len(gauges)} gauges"):
-        locator = Locator(mesh, build_surface(mesh))
         snap_tol = study.snap_tol
         if snap_tol is None:  # neither snap_tol nor position_tol given: 1 % of the model size
-            snap_tol = 0.01 * float(np.linalg.norm(np.ptp(mesh.points, axis=0)))
+            snap_tol = 0.01 * float(np.linalg.norm(np.diff(mesh.bounds, axis=0)))
         thickness = study.model_info.get("thickness")
         if mesh.family == "shell" and isinstance(thickness, int | float) and thickness > 0:
             # a gauge on a shell face sits half the thickness from the mid-surface
             snap_tol = snap_tol + thickness / 2
+        locator = gauge_locator(mesh, gauges, snap_tol=snap_tol, position_tol=study.position_tol,
+                                band=study.band)
         op = build_operator(mesh, gauges, position_tol=study.position_tol,
                             angle_tol=study.angle_tol, snap_tol=snap_tol,
                             calibration_poisson=study.calibration_poisson,
@@ -141,7 +142,7 @@ def _displacement_checks(model: Model, case: Case, fld: Any) -> dict[str, Any]:
 
     op = model.operator
     nodal = nodal_strain(op, fld.values)
-    avg = evaluate_rows(op, type(fld)(case=fld.case, kind="strain", location="point", values=nodal,
+    avg = evaluate_rows(op, type(fld)(case=fld.case, kind="strain", location="point", data=nodal,
                                       source_kind="displacement", array=fld.array))
     return {"averaged_indicated": avg["indicated"], "rotation": rotation_at_points(op, fld.values)}
 

@@ -107,6 +107,20 @@ def _face_normal_sign(mesh: Mesh, faces: NDArray[np.str_], normal: NDArray) -> N
     return normal
 
 
+def gauge_locator(mesh: Mesh, gauges: pd.DataFrame, *, snap_tol: float,
+                  position_tol: float = 0.0, band: bool = True) -> Locator:
+    """A surface locator with the boundary faces the gauges can reach (grid, band, snap).
+
+    Points beyond that region (a model search moving a gauge further) make the locator collect
+    the whole boundary once, so the result never depends on this choice; only the time does.
+    """
+    ptol = gauges["position_tol"].fillna(position_tol).to_numpy(dtype=float) if band else [0.0]
+    length = gauges["length"].to_numpy(dtype=float)
+    reach = snap_tol + float(np.max(ptol, initial=0.0)) + float(np.max(length, initial=0.0)) / 2
+    return Locator(mesh, build_surface(mesh, near=gauges[["x", "y", "z"]].to_numpy(dtype=float),
+                                       reach=reach))
+
+
 def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.0,
                    angle_tol: float = 0.0, snap_tol: float = 1.0, calibration_poisson: float = 0.285,
                    grid_points: int = 5, band: bool = True,
@@ -148,8 +162,8 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
                                "to shell models only: leave it blank" for g, f in
                                zip(names, faces, strict=True) if f])
     if locator is None:
-        locator = Locator(mesh, build_surface(mesh))
-    surface = locator.surface
+        locator = gauge_locator(mesh, gauges, snap_tol=snap_tol, position_tol=position_tol,
+                                band=band)
     centre_in = gauges[["x", "y", "z"]].to_numpy(dtype=float)
     d_in = gauges[["dir_x", "dir_y", "dir_z"]].to_numpy(dtype=float)
     prefer = gauges[["normal_x", "normal_y", "normal_z"]].to_numpy(dtype=float)
@@ -157,7 +171,7 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
 
     def project(points: NDArray, pref: NDArray | None = None) -> tuple[SurfacePoints, NDArray]:
         sp = locator.project(points, prefer=pref)
-        return sp, parent_coordinates(mesh, surface, sp)
+        return sp, parent_coordinates(mesh, sp)
 
     sp, xi_c = project(centre_in, prefer)
     problems = []
@@ -210,9 +224,11 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
     rc = centre[row_gauge] + row_off[:, :1] * direction[row_gauge] + row_off[:, 1:2] * across[row_gauge]
     moved = (row_off[:, 0] != 0) | (row_off[:, 1] != 0)
     rn = normal[row_gauge].copy()
+    rcell, rxi = cell_c[row_gauge], xi_c[row_gauge]  # where each row centre is
     if moved.any():
-        spm, _ = project(rc[moved], normal[row_gauge[moved]])
+        spm, rxi[moved] = project(rc[moved], normal[row_gauge[moved]])
         rc[moved] = spm.point
+        rcell[moved] = spm.cell
         rn[moved] = _face_normal_sign(mesh, faces[row_gauge[moved]], spm.normal)
     rd = _tangent(direction[row_gauge], rn, embedded[row_gauge])
     theta = np.radians(row_off[:, 2])[:, None]
@@ -236,13 +252,12 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
         p_w[sel] = gw[k[sel]] / 2
     p_emb = embedded[row_gauge[p_row]]
     p_x = rc[p_row] + p_s[:, None] * rd[p_row]
-    p_cell = cell_c[row_gauge[p_row]].copy()
-    dim = 3 if mesh.family == "solid" else 2
-    p_xi = np.zeros((len(p_row), dim))
+    p_cell = rcell[p_row].copy()
+    p_xi = np.zeros((len(p_row), rxi.shape[1]))
     p_n = rn[p_row].copy()
-    # the nominal, unmoved, zero-offset point of each row reuses the centre location
-    at_centre = (p_s == 0) & ~moved[p_row]
-    p_xi[at_centre] = xi_c[row_gauge[p_row[at_centre]]]
+    # the zero-offset point of each row is the row centre, located already
+    at_centre = p_s == 0
+    p_xi[at_centre] = rxi[p_row[at_centre]]
     need = ~at_centre & ~p_emb
     valid_row = np.ones(n_rows, dtype=bool)
     invalid = np.zeros(n, dtype=bool)
@@ -416,32 +431,46 @@ def _interpolation(op: GaugeOperator, *, gradient: bool) -> list[sparse.csr_matr
 
 
 def strain_at_points(op: GaugeOperator, field: Field) -> NDArray[np.float64]:
-    """Strain tensors (p, 3, 3) at the operator's sample points for one field."""
+    """Strain tensors (p, 3, 3) at the operator's sample points for one field.
+
+    Only the nodes or cells the operator touches are converted to tensors (the conversion is
+    row by row, and interpolation commutes with it).
+    """
     index = field.index
 
-    def one(values: NDArray) -> NDArray:
+    def one(face: str) -> NDArray:
         if field.kind == "displacement":
+            values = field.values[face] if isinstance(field.values, dict) else field.values
             G = _interpolation(op, gradient=True)
             if index is not None:
                 G = [g[:, index] for g in G]
             H = np.stack([g @ values for g in G], axis=2)  # H[p, i, j] = du_i/dx_j
             return 0.5 * (H + np.swapaxes(H, 1, 2))
         if field.location == "cell":
-            return values[op.cell if index is None else np.searchsorted(index, op.cell)]
-        (N,) = _interpolation(op, gradient=False)
-        if index is not None:
-            N = N[:, index]
-        return (N @ values.reshape(len(values), 9)).reshape(-1, 3, 3)
+            return field.at(op.cell if index is None else _positions(index, op.cell, field), face)
+        touched = touched_rows(op)["point"]
+        ids = touched if index is None else _positions(index, touched, field)
+        N = op._cache["compact"]
+        return (N @ field.at(ids, face).reshape(len(ids), 9)).reshape(-1, 3, 3)
 
-    if isinstance(field.values, dict):
+    if isinstance(field.data, dict):
         out = np.zeros((len(op.cell), 3, 3))
-        for face, values in field.values.items():
+        for face in field.data:
             sel = op.face == face
             if face == "top":
                 sel = sel | (op.face == "")
-            out[sel] = one(values)[sel]
+            out[sel] = one(face)[sel]
         return out
-    return one(field.values)
+    return one("")
+
+
+def _positions(index: NDArray[np.int64], wanted: NDArray[np.int64], field: Field) -> NDArray:
+    """Positions of the wanted nodes/cells in a partial read holding only ``index``."""
+    pos = np.minimum(np.searchsorted(index, wanted), len(index) - 1)
+    if len(index) == 0 or (index[pos] != wanted).any():
+        raise ModelError(f"case '{field.case}': the rows read from '{field.array}' do not hold "
+                         "every node the gauges need (internal error; please report it)")
+    return pos
 
 
 def check_finite(op: GaugeOperator, field: Field, strain: NDArray) -> None:
@@ -481,5 +510,12 @@ def touched_rows(op: GaugeOperator) -> dict[str, NDArray[np.int64]]:
     """The nodes and cells the operator reads (sorted): all a time-series step needs."""
     if "touched" not in op._cache:
         (N,) = _interpolation(op, gradient=False)
-        op._cache["touched"] = {"point": np.unique(N.indices), "cell": np.unique(op.cell)}
+        touched = np.zeros(N.shape[1], dtype=bool)  # a mask, not a sort: the rows are many
+        touched[N.indices] = True
+        nodes = np.flatnonzero(touched)
+        cols = (np.cumsum(touched) - 1)[N.indices]
+        # the interpolation on the touched nodes only (columns renumbered)
+        op._cache["compact"] = sparse.csr_matrix((N.data, cols, N.indptr),
+                                                 shape=(N.shape[0], len(nodes)))
+        op._cache["touched"] = {"point": nodes, "cell": np.unique(op.cell)}
     return op._cache["touched"]

@@ -134,7 +134,8 @@ CODE_FROM_TEXT = {
     "pickle": r"\bpickle\b|read_pickle|allow_pickle\s*=\s*True",
     "yaml.load": r"yaml\.(unsafe_)?load\(",
     "marshal/shelve": r"\b(marshal|shelve)\b",
-    "pandas eval/query": r"\.(eval|query)\(",
+    # a KD-tree's ``tree.query`` is a nearest-neighbour search, not text evaluation
+    "pandas eval/query": r"(?<!tree)\.(eval|query)\(",
     "__import__": r"__import__\(",
 }
 

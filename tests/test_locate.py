@@ -1,4 +1,4 @@
-"""Boundary faces of a solid."""
+"""Boundary faces of a solid, whole or near the gauges, and closest points on them."""
 
 from __future__ import annotations
 
@@ -6,7 +6,7 @@ import numpy as np
 from conftest import SOLID_TYPES, solid_mesh
 
 from correlate import elements
-from correlate.locate import _boundary_faces, build_surface
+from correlate.locate import Locator, _boundary_faces, build_surface, cell_size, nodes_near
 
 
 def test_boundary_faces_agree_with_counting_shared_faces():
@@ -43,3 +43,100 @@ def test_surface_area_of_a_box():
             for i in range(1, len(ids) - 1):
                 area += 0.5 * np.linalg.norm(np.cross(v[i] - v[0], v[i + 1] - v[0]))
         assert abs(area - 52.0) < 1e-9
+
+
+SIZE = np.array([30.0, 20.0, 3.0])
+
+
+def box_closest(p: np.ndarray) -> np.ndarray:
+    """Closest point on the boundary of the box [0, SIZE] (closed form, common geometry).
+
+    Outside: clamp to the box. Inside: move to the nearest wall along its axis.
+    """
+    out = np.clip(p, 0.0, SIZE)
+    inside = np.all((p > 0) & (p < SIZE), axis=1)
+    gaps = np.concatenate([p, SIZE - p], axis=1)[inside]
+    k = np.argmin(gaps, axis=1)
+    q = p[inside].copy()
+    axis = k % 3
+    q[np.arange(len(q)), axis] = np.where(k < 3, 0.0, SIZE[axis])
+    out[inside] = q
+    return out
+
+
+def test_partial_surface_finds_the_closest_points_of_a_box_and_grows_when_needed():
+    # Reference: the closed-form closest point on a box's boundary (box_closest). A surface built
+    # only near three gauges must give it for points near them (tolerance 1e-9 of the box size:
+    # the projection on the flat tet10 faces converges to about 1e-12), and a point far from
+    # them must make the locator take the whole surface and still give it.
+    mesh = solid_mesh("tetra10", n=(30, 20, 3), size=tuple(SIZE))
+    seeds = np.array([[2.0, 2.0, 3.05], [4.3, 3.1, 2.98], [0.03, 5.2, 1.5]])
+    part = build_surface(mesh, near=seeds, reach=0.4)
+    whole = build_surface(mesh)
+    assert part.region is not None and part.n_faces < whole.n_faces / 4
+    rng = np.random.default_rng(3)
+    near = seeds[rng.integers(0, 3, 200)] + rng.uniform(-0.3, 0.3, (200, 3))
+    loc = Locator(mesh, part)
+    got = loc.project(near)
+    assert loc.surface is part  # all inside the region: no growth
+    np.testing.assert_allclose(got.point, box_closest(near), rtol=0, atol=1e-9 * SIZE.max())
+    far = np.array([[25.0, 15.0, 0.2], [29.9, 2.0, 1.5]])
+    got = loc.project(far)
+    assert loc.surface.region is None
+    np.testing.assert_allclose(got.point, box_closest(far), rtol=0, atol=1e-9 * SIZE.max())
+
+
+def test_nodes_near_flags_every_node_within_the_radius():
+    # Reference: scipy's KD-tree ball query lists the nodes within the radius; every one of them
+    # must be flagged (more may be: whole voxels are flagged).
+    from scipy.spatial import cKDTree
+
+    mesh = solid_mesh("hexahedron20", n=(10, 6, 5), size=(10.0, 6.0, 5.0))
+    seeds = np.array([[1.0, 1.0, 5.0], [7.5, 3.3, 2.0], [12.0, 3.0, 2.5]])  # the last one outside
+    for radius in (0.4, 1.3, 3.0):
+        flagged = nodes_near(mesh, seeds, radius)
+        want = sorted(set().union(*cKDTree(mesh.points).query_ball_point(seeds, radius)))
+        assert flagged[want].all() and flagged.sum() < len(mesh.points)
+
+
+def test_cell_size_bounds_the_distance_between_any_two_corners():
+    # Reference: the largest distance between two corners of one cell, by brute force over every
+    # pair (numpy). The bound may exceed it by the bounding-box diagonal factor (at most sqrt 3)
+    # and its 1 % pad, never fall short.
+    for ctype in SOLID_TYPES:
+        mesh = solid_mesh(ctype, curve=0.1)
+        conn = mesh.blocks[0][1][:, :elements.ELEMENTS[ctype].n_corners]
+        p = mesh.points[conn]
+        longest = np.linalg.norm(p[:, :, None] - p[:, None, :], axis=3).max()
+        assert longest <= cell_size(mesh) <= 1.01 * np.sqrt(3) * longest * 1.0001, ctype
+
+
+def test_partial_shell_surface_gives_the_closest_points_of_a_flat_panel():
+    # Reference: the closest point of a flat rectangle [0, 40] x [0, 30] at z = 2 is the point
+    # clamped into it (closed form). Shell cells are their own faces; near two gauges only a few
+    # of them are kept, and a far point makes the locator take them all (tolerance 1e-9 of the
+    # panel size, as for the box).
+    from correlate.io.model import Mesh
+
+    X, Y = np.meshgrid(np.linspace(0, 40, 81), np.linspace(0, 30, 61), indexing="ij")
+    pts = np.c_[X.ravel(), Y.ravel(), np.full(X.size, 2.0)]
+    nid = np.arange(len(pts)).reshape(X.shape)
+    quads = np.stack([nid[:-1, :-1].ravel(), nid[1:, :-1].ravel(), nid[1:, 1:].ravel(),
+                      nid[:-1, 1:].ravel()], axis=1)
+    mesh = Mesh(points=pts, blocks=(("quad", quads),), block_ids=(0,), family="shell",
+                source="panel")
+
+    def clamp(p):
+        return np.c_[np.clip(p[:, 0], 0, 40), np.clip(p[:, 1], 0, 30), np.full(len(p), 2.0)]
+
+    seeds = np.array([[5.0, 5.0, 2.1], [0.2, 8.0, 1.9]])
+    part = build_surface(mesh, near=seeds, reach=1.0)
+    assert part.region is not None and part.n_faces < len(quads) / 4
+    rng = np.random.default_rng(5)
+    near = seeds[rng.integers(0, 2, 100)] + rng.uniform(-0.4, 0.4, (100, 3))
+    loc = Locator(mesh, part)
+    np.testing.assert_allclose(loc.project(near).point, clamp(near), rtol=0, atol=4e-8)
+    assert loc.surface is part
+    far = np.array([[35.0, 25.0, 2.5]])
+    np.testing.assert_allclose(loc.project(far).point, clamp(far), rtol=0, atol=4e-8)
+    assert loc.surface.region is None

@@ -44,7 +44,7 @@ def test_linear_field_reproduced_at_surface_points(ctype, curve, rng):
     mesh = solid_mesh(ctype, curve=curve)
     gauges, _ = top_gauges(rng, mesh)
     op = build_operator(mesh, gauges, snap_tol=1.0)
-    field = Field(case="c", kind="strain", location="point", values=linear_strain(mesh.points),
+    field = Field(case="c", kind="strain", location="point", data=linear_strain(mesh.points),
                   source_kind="strain", array="E")
     rows = evaluate_rows(op, field)
     place = op.placement

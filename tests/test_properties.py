@@ -49,7 +49,7 @@ def linear_field(points: np.ndarray, seed: int) -> np.ndarray:
 
 
 def strain_field(values: np.ndarray) -> Field:
-    return Field(case="c", kind="strain", location="point", values=values, source_kind="strain",
+    return Field(case="c", kind="strain", location="point", data=values, source_kind="strain",
                  array="E")
 
 
@@ -125,7 +125,7 @@ def test_readings_are_linear_in_the_load(ctype, kind, a, b, seed):
         f1, f2 = rng.normal(size=(2, n, 3)) * 1e-4
 
     def rows(values):
-        fld = Field(case="c", kind=kind, location="point", values=values, source_kind=kind,
+        fld = Field(case="c", kind=kind, location="point", data=values, source_kind=kind,
                     array="F")
         return evaluate_rows(op, fld)
 
