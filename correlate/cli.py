@@ -26,6 +26,8 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--version", action="version", version=f"correlate {__version__}")
     p.add_argument("--debug", action="store_true", help="show the traceback of internal errors")
     p.add_argument("--quiet", action="store_true", help="no progress bars")
+    p.add_argument("--timings", action="store_true",
+                   help="print the time of each stage on stderr at the end")
     sub = p.add_subparsers(dest="command", metavar="COMMAND")
 
     c = sub.add_parser("check", help="read a study and report every problem, and where each "
@@ -90,6 +92,7 @@ def main(argv: list[str] | None = None) -> int:
     from correlate.errors import CorrelateError
 
     progress.set_quiet(args.quiet)
+    progress.reset_timings()
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         warnings.filterwarnings("ignore", category=DeprecationWarning)
@@ -114,6 +117,8 @@ def main(argv: list[str] | None = None) -> int:
                   + (" and report it" if args.debug else ""), file=sys.stderr)
             return EXIT_INTERNAL
     _print_warnings(caught)
+    if args.timings:
+        print(progress.timing_table(), file=sys.stderr)
     return code
 
 

@@ -85,7 +85,7 @@ def prepare(study: Study) -> Model:
     if mesh.family == "plane" and study.plane is None:
         raise ModelError(f"{study.model_file.name} is a 2D plane model (all z = 0); say "
                          "[model] plane = \"stress\" or \"strain\" in the study")
-    with progress.step(f"locating {len(gauges)} gauges"):
+    with progress.step(f"locating {len(gauges)} gauges and building their operator"):
         snap_tol = study.snap_tol
         if snap_tol is None:  # neither snap_tol nor position_tol given: 1 % of the model size
             snap_tol = 0.01 * float(np.linalg.norm(np.diff(mesh.bounds, axis=0)))
@@ -188,37 +188,37 @@ def predict_table(model: Model) -> pd.DataFrame:
     op = model.operator
     place = op.placement.table
     parts = []
-    for case in model.study.cases:
-        for fe_index, fe_time in case_steps(model, case):
-            rows = case_rows(model, case, fe_index)
-            ind = rows["indicated"]
-            low, high = band_limits(op, ind)
-            sens_pos, sens_ang = _sensitivities(op, ind)
-            nominal = op.row_kind == 0
-            point = op.row_kind == 1
-            df = pd.DataFrame({
-                "gauge": place["gauge"],
-                "case": case.name,
-                "predicted_ue": ind[nominal] * MICROSTRAIN,
-                "axial_ue": rows["axial"][nominal] * MICROSTRAIN,
-                "transverse_ue": rows["transverse"][nominal] * MICROSTRAIN,
-                "point_ue": ind[point] * MICROSTRAIN,
-                "band_low_ue": low * MICROSTRAIN,
-                "band_high_ue": high * MICROSTRAIN,
-                "snap_distance": place["snap_distance"],
-                "element": place["element"],
-                "cell_type": place["cell_type"],
-                "field_location": rows["location"],
-                "sens_position_ue_per_unit": sens_pos * MICROSTRAIN,
-                "sens_angle_ue_per_deg": sens_ang * MICROSTRAIN,
-            })
-            if "averaged_indicated" in rows:
-                df["mesh_check_ue"] = (rows["averaged_indicated"][nominal] - ind[nominal]) * MICROSTRAIN
-                df["rotation_rad"] = rows["rotation"]
-            if fe_index is not None and (case.time_index == "all" or isinstance(case.time_index, tuple)):
-                df["fe_index"] = fe_index
-                df["fe_time"] = fe_time
-            parts.append(df)
+    states = [(case, k, t) for case in model.study.cases for k, t in case_steps(model, case)]
+    for case, fe_index, fe_time in progress.bar(states, desc="evaluating the cases"):
+        rows = case_rows(model, case, fe_index)
+        ind = rows["indicated"]
+        low, high = band_limits(op, ind)
+        sens_pos, sens_ang = _sensitivities(op, ind)
+        nominal = op.row_kind == 0
+        point = op.row_kind == 1
+        df = pd.DataFrame({
+            "gauge": place["gauge"],
+            "case": case.name,
+            "predicted_ue": ind[nominal] * MICROSTRAIN,
+            "axial_ue": rows["axial"][nominal] * MICROSTRAIN,
+            "transverse_ue": rows["transverse"][nominal] * MICROSTRAIN,
+            "point_ue": ind[point] * MICROSTRAIN,
+            "band_low_ue": low * MICROSTRAIN,
+            "band_high_ue": high * MICROSTRAIN,
+            "snap_distance": place["snap_distance"],
+            "element": place["element"],
+            "cell_type": place["cell_type"],
+            "field_location": rows["location"],
+            "sens_position_ue_per_unit": sens_pos * MICROSTRAIN,
+            "sens_angle_ue_per_deg": sens_ang * MICROSTRAIN,
+        })
+        if "averaged_indicated" in rows:
+            df["mesh_check_ue"] = (rows["averaged_indicated"][nominal] - ind[nominal]) * MICROSTRAIN
+            df["rotation_rad"] = rows["rotation"]
+        if fe_index is not None and (case.time_index == "all" or isinstance(case.time_index, tuple)):
+            df["fe_index"] = fe_index
+            df["fe_time"] = fe_time
+        parts.append(df)
     table = pd.concat(parts, ignore_index=True)
     _warn_displacement(model, table)
     for line in convention_warnings(model):

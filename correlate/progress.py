@@ -22,26 +22,61 @@ def _active() -> bool:
 
 
 def bar(items: Iterable[T], *, desc: str, total: int | None = None) -> Iterator[T]:
-    """Iterate with a progress bar on stderr when on a terminal."""
-    if not _active():
-        yield from items
-        return
-    from tqdm import tqdm
+    """Iterate with a progress bar on stderr when on a terminal (timed like :func:`step`)."""
+    with _timed(desc):
+        if not _active():
+            yield from items
+            return
+        from tqdm import tqdm
 
-    yield from tqdm(items, desc=desc, total=total, file=sys.stderr, leave=False)
+        yield from tqdm(items, desc=desc, total=total, file=sys.stderr, leave=False)
 
 
 @contextmanager
 def step(desc: str) -> Iterator[None]:
-    """Show a spinner-free one-line status for a stage that has no natural count."""
-    if not _active():
-        yield
-        return
-    from tqdm import tqdm
+    """Show a one-line status for a stage that has no natural count, and time it."""
+    with _timed(desc):
+        if not _active():
+            yield
+            return
+        from tqdm import tqdm
 
-    with tqdm(total=1, desc=desc, file=sys.stderr, leave=False,
-              bar_format="{desc}... {elapsed}") as t:
-        start = time.perf_counter()
+        with tqdm(total=1, desc=desc, file=sys.stderr, leave=False,
+                  bar_format="{desc}... {elapsed}") as t:
+            yield
+            t.update(1)
+
+
+_TIMES: list[tuple[int, str, float]] = []  # (depth, stage, seconds), in the order stages began
+_DEPTH = [0]
+
+
+@contextmanager
+def _timed(desc: str) -> Iterator[None]:
+    slot, depth = len(_TIMES), _DEPTH[0]
+    _TIMES.append((depth, desc, float("nan")))
+    _DEPTH[0] += 1
+    start = time.perf_counter()
+    try:
         yield
-        t.update(1)
-        del start
+    finally:
+        _DEPTH[0] = depth
+        _TIMES[slot] = (depth, desc, time.perf_counter() - start)
+
+
+def reset_timings() -> None:
+    """Forget the stage times so far (each command starts afresh)."""
+    _TIMES.clear()
+    _DEPTH[0] = 0
+
+
+def timings() -> list[tuple[int, str, float]]:
+    """Stage times of this process so far: (nesting depth, stage, seconds)."""
+    return list(_TIMES)
+
+
+def timing_table() -> str:
+    """The stage times as indented text lines (``--timings``)."""
+    width = max((2 * d + len(s) for d, s, _ in _TIMES), default=0)
+    lines = [f"  {'  ' * d}{s:<{width - 2 * d}}  {t:8.2f}" for d, s, t in _TIMES]
+    return "\n".join(["stage times (seconds):", *lines])

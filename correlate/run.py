@@ -18,6 +18,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
+from correlate import progress
 from correlate._version import __version__
 from correlate.config import Study, read_study
 from correlate.correlation import Steps, make_steps, reference_step, status_table
@@ -122,7 +123,8 @@ def correlate_study(study: Study, model: Model | None = None) -> Correlation:
     model = model or prepare(study)
     gauges_df = model.gauges
     names = gauges_df["gauge"].tolist()
-    readings, steps, load_cols = read_test_data(study, gauges_df)
+    with progress.step("reading the test data"):
+        readings, steps, load_cols = read_test_data(study, gauges_df)
     table = readings.table
     case_names = [c.name for c in study.cases]
     _pause("readings")
@@ -143,9 +145,8 @@ def correlate_study(study: Study, model: Model | None = None) -> Correlation:
     op = model.operator
     rows_by_case = {}
     series = [c for c in study.cases if c.time_index == "all" or isinstance(c.time_index, tuple)]
-    for case in study.cases:
-        if case in series:
-            continue
+    for case in progress.bar([c for c in study.cases if c not in series],
+                             desc="evaluating the cases"):
         rows_by_case[case.name] = case_rows(model, case, case.time_index
                                             if isinstance(case.time_index, int) else None)
     key = "axial" if study.kt_corrected else "indicated"
@@ -250,9 +251,10 @@ def correlate_study(study: Study, model: Model | None = None) -> Correlation:
     )
 
     result = _statistics(study, steps, names, measured, predicted, st, reversed_, ref)
-    diag = diagnose_failures(study, model, steps, names, measured, predicted, st, rows_by_case,
-                             contributions, result["per_gauge_table"])
-    ros_diag = rosette_diagnoses(study, model, steps, measured, st, predicted)
+    with progress.step("diagnosing the failing gauges"):
+        diag = diagnose_failures(study, model, steps, names, measured, predicted, st,
+                                 rows_by_case, contributions, result["per_gauge_table"])
+        ros_diag = rosette_diagnoses(study, model, steps, measured, st, predicted)
     if len(ros_diag):
         diag = pd.concat([diag, ros_diag[[c for c in diag.columns if c in ros_diag.columns]]],
                          ignore_index=True)
@@ -502,8 +504,6 @@ def write_outputs(corr: Correlation, out: Path, *, force: bool, report: bool = T
             except ImportError:
                 write_report = None
             if write_report is not None:
-                from correlate import progress
-
                 with progress.step("writing the report (3D views and figures)"):
                     write_report(corr, tmp)
 
@@ -541,10 +541,8 @@ def run_command(args: argparse.Namespace) -> int:
     study = read_study(args.study)
     out = Path(args.out)
     check_target(out, force=args.force)
-    from correlate import progress
-
     model = prepare(study)
-    with progress.step("correlating"):
+    with progress.step("correlating (statistics, health, rosettes)"):
         corr = correlate_study(study, model)
     write_outputs(corr, out, force=args.force, report=not args.no_report)
     print_summary(corr)

@@ -49,6 +49,17 @@ def _read(tmp_path, lines, *, gauges=None, loads=("load_kN",), **options):
     return read_readings(path, gauges=GAUGES if gauges is None else gauges, loads=loads, **options)
 
 
+@pytest.fixture(params=["c", "pyarrow"], ids=["c-engine", "pyarrow-engine"])
+def engine(request, monkeypatch):
+    """Run a test with each reading path: small files (pandas' C engine, text) and large ones
+    (pyarrow, numbers parsed by type inference, other columns again as text)."""
+    if request.param == "pyarrow":
+        monkeypatch.setattr(readings_module, "_PYARROW_MIN_BYTES", 0)
+    else:
+        monkeypatch.setattr(readings_module, "_pyarrow_available", lambda: False)
+    return request.param
+
+
 def _comma_lines():
     return [",".join(HEADER)] + [",".join(r) for r in ROWS]
 
@@ -66,7 +77,7 @@ def _assert_reference(result: Readings):
     assert result.table["sequence"].tolist() == [0, 0, 0, 0]
 
 
-def test_comma_file_values_equal_python_float(tmp_path):
+def test_comma_file_values_equal_python_float(tmp_path, engine):
     result = _read(tmp_path, _comma_lines())
     _assert_reference(result)
     assert list(result.table.columns) == ["step", "sequence", "load_kN", *GAUGES]
@@ -76,7 +87,7 @@ def test_comma_file_values_equal_python_float(tmp_path):
     assert result.load_units == {"load_kN": ""}
 
 
-def test_semicolon_file_with_decimal_commas_equals_point_values(tmp_path):
+def test_semicolon_file_with_decimal_commas_equals_point_values(tmp_path, engine):
     _assert_reference(_read(tmp_path, _semicolon_lines()))
 
 
@@ -153,7 +164,7 @@ def test_latin1_file_is_read(tmp_path):
 
 @pytest.mark.parametrize("text", ["-999999", "999999", "1E30", "-1e+30", "OVER", "ovr", "Open",
                                   "####", "NaN", "inf"])
-def test_sentinel_becomes_nan_with_flag(tmp_path, text):
+def test_sentinel_becomes_nan_with_flag(tmp_path, text, engine):
     # common practice: data-acquisition systems write such codes for open or overranged channels
     lines = _comma_lines()
     lines[3] = f"3,25,203.9,{text},499.875"
@@ -163,7 +174,7 @@ def test_sentinel_becomes_nan_with_flag(tmp_path, text):
     assert result.flags.values.tolist() == [["SG-02", 3, 0, text, "sentinel"]]
 
 
-def test_custom_sentinels_replace_the_defaults(tmp_path):
+def test_custom_sentinels_replace_the_defaults(tmp_path, engine):
     lines = _comma_lines()
     lines[3] = "3,25,-9999,-999999,499.875"
     result = _read(tmp_path, lines, sentinels=[-9999])
@@ -173,7 +184,7 @@ def test_custom_sentinels_replace_the_defaults(tmp_path):
     assert result.flags["value"].tolist() == ["-9999"]
 
 
-def test_blank_cell_is_nan_without_flag(tmp_path):
+def test_blank_cell_is_nan_without_flag(tmp_path, engine):
     lines = _comma_lines()
     lines[2] = "2,12.5,101.37,,250.0"
     result = _read(tmp_path, lines)
@@ -182,7 +193,7 @@ def test_blank_cell_is_nan_without_flag(tmp_path):
     assert result.flags.empty
 
 
-def test_ignored_columns_are_listed_once_in_file_order(tmp_path):
+def test_ignored_columns_are_listed_once_in_file_order(tmp_path, engine):
     lines = ["time_s,step,temp_C,load_kN,SG-01,disp_mm,SG-02,SG-03"]
     lines += [f"{10 * i},{r[0]},21.5,{r[1]},{r[2]},0.{i},{r[3]},{r[4]}" for i, r in enumerate(ROWS)]
     result = _read(tmp_path, lines)
@@ -190,7 +201,7 @@ def test_ignored_columns_are_listed_once_in_file_order(tmp_path):
     assert result.ignored == ("time_s", "temp_C", "disp_mm")
 
 
-def test_gauge_ids_are_mapped_from_channel_columns(tmp_path):
+def test_gauge_ids_are_mapped_from_channel_columns(tmp_path, engine):
     lines = ["step,load_kN,CH1,CH2,CH3"] + [",".join(r) for r in ROWS]
     result = _read(tmp_path, lines, gauges={"SG-03": "CH1", "SG-01": "CH3"})
     gauges = _reference()[1]
@@ -320,3 +331,48 @@ def test_fuzz_returns_readings_or_raises_format_error(tmp_path, data):
         assert len(outcome.lines) == len(outcome.table)
         assert list(outcome.table.columns) == ["step", "sequence", "load", "SG1"]
     assert all(issubclass(w.category, CorrelateWarning) for w in caught)
+
+
+def test_parquet_file_gives_the_reference_values(tmp_path):
+    # Reference: Python float() of the decimal texts (as for CSV), stored as doubles by pyarrow;
+    # exact (tolerance 0): Parquet keeps the doubles bit for bit.
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    loads, gauges = _reference()
+    columns = {"step": pa.array([int(r[0]) for r in ROWS]), "load_kN": pa.array(loads),
+               "note": pa.array(["a", "b", "c", "d"])}
+    columns.update({g: pa.array(gauges[:, j]) for j, g in enumerate(GAUGES)})
+    pq.write_table(pa.table(columns), tmp_path / "readings.parquet")
+    result = read_readings(tmp_path / "readings.parquet", gauges=GAUGES, loads=("load_kN",))
+    _assert_reference(result)
+    assert result.ignored == ("note",)
+
+
+def test_parquet_sentinels_and_bad_cells(tmp_path):
+    # A numeric sentinel (common practice: -999999 for an open channel) and a text one in a text
+    # column become NaN with a flag; a text cell that is no number is refused with its row.
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    def write(sg2):
+        pq.write_table(pa.table({"step": [1, 2, 3], "load_kN": [0.0, 1.0, 2.0],
+                                 "SG-01": [0.0, -999999.0, 20.0], "SG-02": sg2}),
+                       tmp_path / "r.pq")
+        return read_readings(tmp_path / "r.pq", gauges={"SG-01": "SG-01", "SG-02": "SG-02"},
+                             loads=("load_kN",))
+
+    result = write(["0", "OVER", "31.5"])
+    assert np.isnan(result.table["SG-01"][1]) and np.isnan(result.table["SG-02"][1])
+    assert result.table["SG-02"][2] == 31.5
+    assert sorted(zip(result.flags["gauge"], result.flags["value"], strict=True)) == [
+        ("SG-01", "-999999"), ("SG-02", "OVER")]
+    with pytest.raises(ReadingsFormatError, match=r"r\.pq line 3, column SG-02: 'x31' is not a"):
+        write(["0", "1", "x31"])
+
+
+def test_unreadable_parquet_is_one_clear_line(tmp_path):
+    path = tmp_path / "readings.parquet"
+    path.write_text("step,load\n1,2\n")
+    with pytest.raises(ReadingsFormatError, match=r"readings\.parquet: cannot read it as Parquet"):
+        read_readings(path, gauges=GAUGES, loads=("load_kN",))

@@ -168,3 +168,23 @@ def test_existing_output_needs_force_and_inputs_are_untouched(tmp_path, capsys):
     assert not (out / "keep.txt").exists()
     after = {p.name: p.read_bytes() for p in tmp_path.iterdir() if p.is_file()}
     assert before == after
+
+
+def test_timings_give_each_stage_once_and_nest_within_their_parent(tmp_path, capsys):
+    # --timings prints one line per stage, indented under the stage that holds it; a parent's
+    # time holds its children's (allowing 0.01 s for the two-decimal rounding of each line).
+    study, _ = synthetic_readings(tmp_path, np.random.default_rng(9), faults=False)
+    capsys.readouterr()
+    assert main(["--quiet", "--timings", "run", str(study), "--out", str(tmp_path / "out"),
+                 "--no-report"]) == 0
+    err = capsys.readouterr().err.splitlines()
+    table = err[err.index("stage times (seconds):") + 1:]
+    rows = [(len(line) - len(line.lstrip()), line.rsplit(None, 1)[0].strip(),
+             float(line.rsplit(None, 1)[1])) for line in table]
+    names = [name for _, name, _ in rows]
+    for stage in ("reading the model", "reading the test data", "diagnosing the failing gauges"):
+        assert names.count(stage) == 1, names
+    parent = names.index("correlating (statistics, health, rosettes)")
+    children = [t for indent, _, t in rows[parent + 1:] if indent > rows[parent][0]]
+    assert children and all(t >= 0 for _, _, t in rows)
+    assert sum(children) <= rows[parent][2] + 0.01 * len(children)

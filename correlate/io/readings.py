@@ -1,6 +1,6 @@
 """Readings input: strain-gauge readings per load step from a data-acquisition CSV export.
 
-Input: a "wide" CSV file with one row per load step: a ``step`` column, the load columns named by
+Input: a "wide" CSV (or Parquet) file with one row per load step: a ``step`` column, the load columns named by
 the caller, one column per gauge channel in microstrain, an optional ``sequence`` column (repeated
 load runs), an optional units row under the header, and other columns, ignored and listed.
 Output: :class:`Readings`, a table of step, sequence, loads and one column per gauge id [µε], with a
@@ -46,6 +46,7 @@ MICROSTRAIN_UNITS: tuple[str, ...] = (
 )
 STRAIN_LIMIT = 0.05  # every |reading| below this while the loads vary: strain, not microstrain
 _STEP, _SEQUENCE = "step", "sequence"
+PARQUET_SUFFIXES = (".parquet", ".pq")
 _PYARROW_MIN_BYTES = 1 << 18  # measured: below about 250 kB pandas' C engine is faster
 _MAX_PROBLEMS = 20
 _DECIMAL_COMMA = re.compile(r"[+-]?\d*,\d+(?:[eE][+-]?\d+)?")  # "324,129": a quoted decimal comma
@@ -132,6 +133,8 @@ def read_readings(path: str | PathLike[str], *, gauges: Mapping[str, str], loads
     loads = (loads,) if isinstance(loads, str) else tuple(str(x) for x in loads)
     gauge_map = {str(g): str(c) for g, c in gauges.items()}
     codes = _sentinel_sets(DEFAULT_SENTINELS if sentinels is None else sentinels)
+    if Path(path).suffix.casefold() in PARQUET_SUFFIXES:
+        return _read_parquet(path, gauge_map, loads, codes)
     try:
         raw = Path(path).read_bytes()
     except OSError as exc:
@@ -165,13 +168,45 @@ def read_readings(path: str | PathLike[str], *, gauges: Mapping[str, str], loads
     # short rows get empty cells: pyarrow, and the C engine with usecols, refuse ragged rows
     width = len(header)
     text = "".join(t + sep * (width - n) + "\n" for (_, t), n in zip(rows, widths, strict=True))
-    cells = _read_cells(text, sep, used, len(raw), name)
+    cells = _read_cells(text, sep, used, len(raw), name, codes[0])
     labels = [(ld, columns[ld]) for ld in loads] + [(g, columns[g]) for g in gauge_map]
     table, flags = _convert(cells, header, columns, labels, lines, decimal_comma, codes, name)
     _warn_if_strain(table, loads, tuple(gauge_map), name)
     ignored = tuple(h or f"(column {j + 1})" for j, h in enumerate(header) if j not in used)
     return Readings(table=table, loads=loads, gauges=tuple(gauge_map), load_units=load_units,
                     ignored=ignored, flags=flags, lines=lines, path=str(path))
+
+
+def _read_parquet(path: str | PathLike[str], gauge_map: dict[str, str], loads: tuple[str, ...],
+                  codes: tuple[NDArray[np.float64], frozenset[str]]) -> Readings:
+    """The same table from a Parquet file: typed columns, no units row, rows numbered from 1."""
+    name = Path(path).name
+    try:
+        import pyarrow.parquet as pq
+
+        frame = pq.read_table(path).to_pandas()
+    except ImportError:
+        raise ReadingsFormatError(f"{name}: reading Parquet needs pyarrow; pip install pyarrow, "
+                                  "or export the readings as CSV") from None
+    except (OSError, ValueError) as exc:  # pyarrow's errors derive from these
+        raise ReadingsFormatError(f"{name}: cannot read it as Parquet ({str(exc)[:120]}); "
+                                  "export the readings again") from None
+    header = [str(c) for c in frame.columns]
+    columns, problems = _columns(header, gauge_map, loads, name)
+    _raise(problems, name)
+    if not len(frame):
+        raise ReadingsFormatError(f"{name}: no data rows; expected one per step")
+    used = sorted(set(columns.values()))
+    cells = frame.iloc[:, used]
+    cells.columns = used
+    lines = np.arange(1, len(frame) + 1, dtype=np.int64)  # "line k": the k-th row of the table
+    labels = [(ld, columns[ld]) for ld in loads] + [(g, columns[g]) for g in gauge_map]
+    table, flags = _convert(cells, header, columns, labels, lines, False, codes, name)
+    _warn_if_strain(table, loads, tuple(gauge_map), name)
+    ignored = tuple(h for j, h in enumerate(header) if j not in used)
+    return Readings(table=table, loads=loads, gauges=tuple(gauge_map),
+                    load_units=dict.fromkeys(loads, ""), ignored=ignored, flags=flags, lines=lines,
+                    path=str(path))
 
 
 def _raise(problems: list[str], name: str) -> None:
@@ -275,14 +310,41 @@ def _pyarrow_available() -> bool:
     return importlib.util.find_spec("pyarrow") is not None
 
 
-def _read_cells(text: str, sep: str, used: list[int], size: int, name: str) -> pd.DataFrame:
-    """Read the data rows, all as wide as the header, as text: one column per used column."""
-    engine = "pyarrow" if size >= _PYARROW_MIN_BYTES and _pyarrow_available() else "c"
+def _read_cells(text: str, sep: str, used: list[int], size: int, name: str,
+                sentinels: NDArray[np.float64]) -> pd.DataFrame:
+    """Read the data rows, all as wide as the header: one column per used column.
+
+    Small files are read as text. Large ones go through pyarrow with type inference, so that
+    columns of plain numbers arrive parsed (correctly rounded, like float()); a column with any
+    other cell, a NaN (a blank cell or a NaN spelling, which must be told apart), an infinity or
+    a numeric sentinel (whose text the flags quote) is read again as text for the text checks.
+    """
+    if size < _PYARROW_MIN_BYTES or not _pyarrow_available():
+        return _read_text(text, sep, used, "c", str, name)
+    cells = _read_text(text, sep, used, "pyarrow", None, name)
+
+    def plain(column: pd.Series) -> bool:
+        if column.dtype.kind in "iu":
+            return not column.isin(sentinels).any()
+        values = column.to_numpy()
+        return column.dtype.kind == "f" and bool(np.isfinite(values).all()) and \
+            not np.isin(values, sentinels).any()
+
+    redo = [c for c in used if not plain(cells[c])]
+    if redo:
+        again = _read_text(text, sep, redo, "pyarrow", str, name)
+        for c in redo:
+            cells[c] = again[c]
+    return cells
+
+
+def _read_text(text: str, sep: str, used: list[int], engine: str, dtype: type | None,
+               name: str) -> pd.DataFrame:
     with warnings.catch_warnings():
         warnings.simplefilter("error", pd.errors.ParserWarning)
         try:
-            cells = pd.read_csv(io.StringIO(text), sep=sep, header=None, usecols=used, dtype=str,
-                                keep_default_na=False, engine=engine)
+            cells = pd.read_csv(io.StringIO(text), sep=sep, header=None, usecols=used,
+                                dtype=dtype, keep_default_na=False, engine=engine)
         except (ValueError, pd.errors.ParserWarning) as exc:
             msg = f"{name}: cannot split the rows into columns ({str(exc)[:120]})"
             raise ReadingsFormatError(msg) from None
@@ -301,13 +363,50 @@ def _number(cell: object, decimal_comma: bool) -> float | None:
         return None
 
 
-def _parse(cells: pd.Series, decimal_comma: bool) -> tuple[NDArray[np.float64], pd.Series,
+class _Typed:
+    """Text of typed cells (Parquet numbers), made only for the cells a message quotes."""
+
+    def __init__(self, values: NDArray[np.float64]) -> None:
+        self.values = values.copy()
+
+    def __getitem__(self, i: int) -> str:
+        return "" if np.isnan(self.values[i]) else f"{self.values[i]:g}"
+
+
+def _parse(cells: pd.Series, decimal_comma: bool) -> tuple[NDArray[np.float64], pd.Series | _Typed,
                                                          NDArray[np.bool_]]:
     """Return values (NaN where blank or not a number), stripped texts, not-a-number mask."""
+    if _typed(cells):
+        values = cells.to_numpy(dtype=float, na_value=np.nan, copy=True)
+        return values, _Typed(values), np.zeros(len(values), dtype=bool)
     strings = cells.fillna("").astype(str).str.strip().reset_index(drop=True)
     clean = strings.str.replace(",", ".", regex=False) if decimal_comma else strings
     values = pd.to_numeric(clean, errors="coerce").to_numpy(dtype=float, na_value=np.nan, copy=True)
     return values, strings, np.isnan(values) & (strings != "").to_numpy(dtype=bool)
+
+
+def _typed(column: pd.Series) -> bool:
+    return pd.api.types.is_numeric_dtype(column) and not pd.api.types.is_bool_dtype(column)
+
+
+def _parse_columns(cells: pd.DataFrame, cols: list[int], decimal_comma: bool
+                   ) -> dict[int, tuple[NDArray[np.float64], NDArray[np.object_] | _Typed,
+                                        NDArray[np.bool_]]]:
+    """:func:`_parse` of each column; the text columns in one pass (a wide file has thousands)."""
+    out = {}
+    text = [c for c in dict.fromkeys(cols) if not _typed(cells[c])]
+    for c in dict.fromkeys(cols):
+        if c not in text:
+            out[c] = _parse(cells[c], decimal_comma)
+    if text:
+        n = len(cells)
+        flat = pd.Series(cells[text].to_numpy(dtype=object).ravel(order="F"))
+        values, strings, bad = _parse(flat, decimal_comma)
+        words = np.asarray(strings, dtype=object)
+        for k, c in enumerate(text):
+            part = slice(k * n, (k + 1) * n)
+            out[c] = (values[part], words[part], bad[part])
+    return out
 
 
 def _convert(cells: pd.DataFrame, header: list[str], columns: dict[str, int],
@@ -321,8 +420,10 @@ def _convert(cells: pd.DataFrame, header: list[str], columns: dict[str, int],
                 if _SEQUENCE in columns else np.zeros(len(lines), np.int64))
     numeric, words = codes
     data, flags = {}, []
+    parsed = _parse_columns(cells, [col for _, col in labels], decimal_comma)
     for label, col in labels:
-        values, strings, bad = _parse(cells[col], decimal_comma)
+        values, strings, bad = parsed[col]
+        values = values.copy()
         for i in np.flatnonzero(bad):
             word = strings[i].casefold()
             value = _number(word, decimal_comma)  # float() reads NaN and inf spellings
