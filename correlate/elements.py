@@ -451,7 +451,12 @@ def natural_coordinates(cell_type: str, nodes: Array, points: Array, xi0: Array 
 
 def _gauss_newton(cell_type: str, nodes: Array, points: Array, origin: Array, span: Array,
                   clip: Callable[[Array], Array], t: Array, tol: float, max_iter: int) -> Array:
-    """Minimise |x(origin + t span) - p|^2 over t by Gauss-Newton, projecting t by ``clip``."""
+    """Minimise |x(origin + t span) - p|^2 over t by Gauss-Newton, projecting t by ``clip``.
+
+    On a linear triangle the map is affine and an unclipped step lands on the minimum exactly,
+    so those points stop after one step.
+    """
+    affine = cell_type == "triangle"
     active = np.arange(len(points))
     for _ in range(max_iter):
         if active.size == 0:
@@ -461,11 +466,35 @@ def _gauss_newton(cell_type: str, nodes: Array, points: Array, origin: Array, sp
         _, jac = _jacobian(cell_type, nodes[active], xi)
         jt = jac @ span.T
         step, ok = _solve(np.swapaxes(jt, 1, 2) @ jt, -(residual[:, None, :] @ jt)[:, 0])
-        new = clip(t[active] + step)
+        free = t[active] + step
+        new = clip(free)
         size = np.linalg.norm(new - t[active], axis=1)
         t[active] = new
-        active = active[ok & (size >= tol)]
+        done = size < tol
+        if affine:
+            done |= np.all(new == free, axis=1)
+        active = active[ok & ~done]
     return origin + t @ span
+
+
+_LINEAR_FACE = {"triangle6": "triangle", "quad8": "quad", "quad9": "quad"}
+STRAIGHT_TOL = 1e-13  # mid-side nodes this close (share of the face size) to the linear map's:
+# rounding only, so the answer does not change (nodes written with 9 digits stay quadratic)
+
+
+def _straight(cell_type: str, nodes: Array) -> NDArray[np.bool_]:
+    """Quadratic faces whose extra nodes sit where the linear face through the corners puts them.
+
+    Their map is the linear face's map (the quadratic space contains it), so the cheaper linear
+    face gives the same closest point, to rounding.
+    """
+    element, linear = ELEMENTS[cell_type], _LINEAR_FACE[cell_type]
+    nc = element.n_corners
+    N = shape_functions(linear, element.reference_nodes[nc:])          # (extra, corners)
+    corners = nodes[:, :nc]
+    off = np.abs(nodes[:, nc:] - N @ corners).max(axis=(1, 2))
+    size = np.abs(corners - corners[:, :1]).max(axis=(1, 2))
+    return off <= STRAIGHT_TOL * size
 
 
 def closest_point_on_face(cell_type: str, nodes: Array, points: Array, tol: float = 1e-12,
@@ -507,6 +536,18 @@ def closest_point_on_face(cell_type: str, nodes: Array, points: Array, tol: floa
     nodes = _nodes(element, nodes)
     points = _array(points, (3,), "points")
     n = len(points)
+    if cell_type in _LINEAR_FACE and n:
+        straight = _straight(cell_type, nodes)
+        if straight.any():
+            out = np.zeros((n, 2)), np.zeros((n, 3)), np.zeros(n)
+            parts = [(straight, _LINEAR_FACE[cell_type], nodes[straight][:, :element.n_corners]),
+                     (~straight, cell_type, nodes[~straight])]
+            for sel, ctype, sub in parts:
+                if sel.any():
+                    got = closest_point_on_face(ctype, sub, points[sel], tol, max_iter)
+                    for o, g in zip(out, got, strict=True):
+                        o[sel] = g
+            return out
     corners = element.reference_nodes[: element.n_corners]
     centre = corners.mean(axis=0)
     best = _gauss_newton(cell_type, nodes, points, np.zeros(2), np.eye(2),

@@ -148,23 +148,24 @@ def _displacement_checks(model: Model, case: Case, fld: Any) -> dict[str, Any]:
 
 
 def _sensitivities(op: GaugeOperator, ind: NDArray) -> tuple[NDArray, NDArray]:
+    """Largest |change| per unit offset over the position rows, and d reading / d angle."""
     g = len(op.gauges)
-    sens_pos = np.full(g, np.nan)
+    sens_pos = np.full(g, -np.inf)
     sens_ang = np.full(g, np.nan)
     nominal = ind[op.row_kind == 0]
     off = op.row_offset
-    for gi in range(g):
-        rows = np.flatnonzero((op.row_gauge == gi) & (op.row_kind == 2))
-        if not len(rows):
-            continue
-        pos = rows[(off[rows, 2] == 0) & (np.hypot(off[rows, 0], off[rows, 1]) > 0)]
-        if len(pos):
-            r = np.hypot(off[pos, 0], off[pos, 1])
-            sens_pos[gi] = np.max(np.abs(ind[pos] - nominal[gi]) / r)
-        ang = rows[(off[rows, 0] == 0) & (off[rows, 1] == 0) & (off[rows, 2] != 0)]
-        if len(ang) == 2:
-            a = off[ang, 2]
-            sens_ang[gi] = (ind[ang[1]] - ind[ang[0]]) / (a[1] - a[0])
+    band = op.row_kind == 2
+    radius = np.hypot(off[:, 0], off[:, 1])
+    pos = np.flatnonzero(band & (off[:, 2] == 0) & (radius > 0))
+    gp = op.row_gauge[pos]
+    np.maximum.at(sens_pos, gp, np.abs(ind[pos] - nominal[gp]) / radius[pos])
+    sens_pos[np.isneginf(sens_pos)] = np.nan
+    # the two angle-only rows of a gauge, in row order
+    ang = np.flatnonzero(band & (radius == 0) & (off[:, 2] != 0))
+    ang = ang[np.argsort(op.row_gauge[ang], kind="stable")]
+    ang = ang[np.bincount(op.row_gauge[ang], minlength=g)[op.row_gauge[ang]] == 2]
+    first, second = ang[0::2], ang[1::2]
+    sens_ang[op.row_gauge[first]] = (ind[second] - ind[first]) / (off[second, 2] - off[first, 2])
     return sens_pos, sens_ang
 
 
@@ -187,37 +188,45 @@ def predict_table(model: Model) -> pd.DataFrame:
     """Model readings of every gauge and case (the content of model_readings.csv)."""
     op = model.operator
     place = op.placement.table
-    parts = []
+    nominal, point = op.row_kind == 0, op.row_kind == 1
+    columns: dict[str, dict[str, list]] = {}  # per case: column -> one array per FE state
     states = [(case, k, t) for case in model.study.cases for k, t in case_steps(model, case)]
     for case, fe_index, fe_time in progress.bar(states, desc="evaluating the cases"):
         rows = case_rows(model, case, fe_index)
         ind = rows["indicated"]
         low, high = band_limits(op, ind)
         sens_pos, sens_ang = _sensitivities(op, ind)
-        nominal = op.row_kind == 0
-        point = op.row_kind == 1
-        df = pd.DataFrame({
-            "gauge": place["gauge"],
-            "case": case.name,
+        state = {
             "predicted_ue": ind[nominal] * MICROSTRAIN,
             "axial_ue": rows["axial"][nominal] * MICROSTRAIN,
             "transverse_ue": rows["transverse"][nominal] * MICROSTRAIN,
             "point_ue": ind[point] * MICROSTRAIN,
             "band_low_ue": low * MICROSTRAIN,
             "band_high_ue": high * MICROSTRAIN,
-            "snap_distance": place["snap_distance"],
-            "element": place["element"],
-            "cell_type": place["cell_type"],
-            "field_location": rows["location"],
+            "field_location": np.full(len(place), rows["location"], dtype=object),
             "sens_position_ue_per_unit": sens_pos * MICROSTRAIN,
             "sens_angle_ue_per_deg": sens_ang * MICROSTRAIN,
-        })
+        }
         if "averaged_indicated" in rows:
-            df["mesh_check_ue"] = (rows["averaged_indicated"][nominal] - ind[nominal]) * MICROSTRAIN
-            df["rotation_rad"] = rows["rotation"]
+            state["mesh_check_ue"] = (rows["averaged_indicated"][nominal] - ind[nominal]) * MICROSTRAIN
+            state["rotation_rad"] = rows["rotation"]
         if fe_index is not None and (case.time_index == "all" or isinstance(case.time_index, tuple)):
-            df["fe_index"] = fe_index
-            df["fe_time"] = fe_time
+            state["fe_index"] = np.full(len(place), fe_index)
+            state["fe_time"] = np.full(len(place), fe_time, dtype=float)
+        for name, values in state.items():
+            columns.setdefault(case.name, {}).setdefault(name, []).append(values)
+    parts = []
+    for case_name, cols in columns.items():
+        n = len(next(iter(cols.values())))  # FE states of this case
+        joined = {name: np.concatenate(v) for name, v in cols.items()}
+        df = pd.DataFrame({"gauge": np.tile(place["gauge"].to_numpy(dtype=object), n),
+                           "case": case_name})
+        for name in ("predicted_ue", "axial_ue", "transverse_ue", "point_ue", "band_low_ue",
+                     "band_high_ue"):
+            df[name] = joined.pop(name)
+        for name in ("snap_distance", "element", "cell_type"):
+            df[name] = np.tile(place[name].to_numpy(), n)
+        df = pd.concat([df, pd.DataFrame(joined)], axis=1)
         parts.append(df)
     table = pd.concat(parts, ignore_index=True)
     _warn_displacement(model, table)

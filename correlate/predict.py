@@ -83,7 +83,9 @@ class GaugeOperator:
 
     @property
     def gauges(self) -> list[str]:
-        return list(self.placement.table["gauge"])
+        if "gauges" not in self._cache:
+            self._cache["gauges"] = list(self.placement.table["gauge"])
+        return self._cache["gauges"]
 
 
 def _unit(v: NDArray) -> NDArray:

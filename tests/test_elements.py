@@ -395,6 +395,33 @@ def test_closest_point_above_curved_face(name):
     assert_allclose(dist, want, rtol=0, atol=1e-9)  # face size is about 1-2
 
 
+@pytest.mark.parametrize("name", CURVED_FACES, ids=CURVED_FACES)
+def test_straight_quadratic_faces_take_the_linear_face_and_agree(name, monkeypatch):
+    # Faces with mid-side nodes at their edges' middles are solved as the linear face; mixed in
+    # one call with curved faces. Reference: dense sampling refined by scipy.optimize.minimize
+    # (tolerance 1e-9 of a face about 1-2 across), and the quadratic iteration itself, forced by
+    # a negative straightness tolerance (agreement 1e-12: both converge to rounding).
+    rng = np.random.default_rng(17)
+    e = ELEMENTS[name]
+    rot = Rotation.from_rotvec([0.3, -0.5, 0.2]).as_matrix()
+    flat = np.column_stack([e.reference_nodes, np.zeros(e.n_nodes)]) @ rot.T + [1.0, 2.0, 3.0]
+    faces = np.stack([flat, _curved_face(name)] * 6)
+    assert fe._straight(name, faces).tolist() == [True, False] * 6
+    # near the faces (as gauge points are): far above a strongly curved face the closest point
+    # need not be unique, and the iteration may stop at a local one
+    points = fe.map_to_physical(name, faces, _random_xi(name, rng, 12) * 1.2) + \
+        rng.normal(scale=0.05, size=(12, 3))
+    xi, x, dist = fe.closest_point_on_face(name, faces, points)
+    assert_allclose(x, fe.map_to_physical(name, faces, xi), rtol=0, atol=1e-12)
+    want = [_reference_distance(name, f, p) for f, p in zip(faces, points, strict=True)]
+    assert_allclose(dist, want, rtol=0, atol=1e-9)
+    monkeypatch.setattr(fe, "STRAIGHT_TOL", -1.0)
+    xi_q, x_q, dist_q = fe.closest_point_on_face(name, faces, points)
+    assert_allclose(xi, xi_q, rtol=0, atol=1e-12)  # the same natural coordinates
+    assert_allclose(x, x_q, rtol=0, atol=1e-12)
+    assert_allclose(dist, dist_q, rtol=0, atol=1e-12)
+
+
 EDGE_CASES = [("quad8", "edge"), ("quad9", "corner"), ("triangle6", "edge"),
               ("triangle6", "corner")]
 

@@ -6,6 +6,7 @@ References are analytic fields and published closed forms, named beside each che
 from __future__ import annotations
 
 import numpy as np
+import pandas as pd
 import pytest
 from conftest import SOLID_TYPES, gauge_frame, solid_mesh
 
@@ -237,3 +238,30 @@ def test_band_of_combined_cases_matches_dense_sampling(rng):
     # scaling per-case extremes instead is wrong: it over-widens the band beyond that tolerance
     wrong_low = 1.0 * r1[op.row_kind != 1].min() - 0.8 * r2[op.row_kind != 1].max()
     assert dense.min() - wrong_low > tol
+
+
+def test_sensitivities_to_position_and_angle_match_the_closed_form():
+    # Reference: strain transformation, eps(theta) = eps_xx cos^2 + eps_yy sin^2 + 2 eps_xy sin cos
+    # (a closed form), in a field linear in x: eps_xx = 1e-3 + 2e-5 x, eps_xy = 3e-4 (tensor).
+    # Moving a gauge along x by r changes its reading by 2e-5 r, the most of the eight band
+    # directions: 20 ue per unit. Turning it by -a and +a (a = 2 deg) changes it by
+    # eps_xy (sin 2a - sin(-2a)), over 2a: eps_xy sin(2a) / a per degree. Tolerance 1e-7 ue: the
+    # quadratic cells reproduce a linear field exactly.
+    import meshio
+
+    from correlate.api import predict_readings
+
+    mesh = solid_mesh("tetra10", n=(10, 5, 2), size=(20.0, 10.0, 4.0))
+    x = mesh.points[:, 0]
+    E = np.zeros((len(x), 6))
+    E[:, 0] = 1e-3 + 2e-5 * x
+    E[:, 5] = 3e-4
+    m = meshio.Mesh(mesh.points, [("tetra10", mesh.blocks[0][1])], point_data={"E": E})
+    g = pd.DataFrame([dict(gauge="G1", x=10.0, y=5.0, z=4.0, dir_x=1.0, dir_y=0.0, dir_z=0.0,
+                           length=3.0, kt=0.0)])
+    spec = {"strain": "E", "components": ["xx", "yy", "zz", "yz", "xz", "xy"], "shear": "tensor"}
+    row = predict_readings(m, g, {"c": spec}, position_tol=1.0, angle_tol=2.0).iloc[0]
+    assert row["sens_position_ue_per_unit"] == pytest.approx(20.0, rel=0, abs=1e-7)
+    a = np.radians(2.0)
+    assert row["sens_angle_ue_per_deg"] == pytest.approx(300.0 * np.sin(2 * a) / 2.0, rel=0,
+                                                         abs=1e-7)

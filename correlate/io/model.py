@@ -167,9 +167,35 @@ def _hdf5_rows(source: ModelSource, name: str, time_index: int,
         if location == "cell" and len(source.mesh.block_ids) != 1:
             return None
         want = rows[location]
-        data = dset[want] if len(want) else np.zeros((0,) + dset.shape[1:])
+        data = _read_rows(dset, want) if len(want) else np.zeros((0,) + dset.shape[1:])
         return location, np.asarray(data, dtype=float).reshape(len(want), -1)
     return None
+
+
+GAP_BYTES = 1 << 18     # rows closer than this are read through, not skipped (one slice)
+SLICE_BYTES = 1 << 25   # no single slice larger than this (memory)
+
+
+def _read_rows(dset: Any, want: NDArray[np.int64]) -> NDArray:
+    """Rows ``want`` (sorted, unique) of an HDF5 dataset, read as a few contiguous slices.
+
+    h5py's own list indexing selects row by row (about 1 us per row, measured); reading through
+    gaps of less than GAP_BYTES costs less than a new slice, so neighbouring rows are read as one
+    slice and picked in memory. No slice exceeds SLICE_BYTES.
+    """
+    row_bytes = dset.dtype.itemsize * int(np.prod(dset.shape[1:], dtype=np.int64))
+    gap = max(1, GAP_BYTES // row_bytes)
+    longest = max(1, SLICE_BYTES // row_bytes)
+    out = np.empty((len(want),) + dset.shape[1:], dtype=dset.dtype)
+    breaks = np.flatnonzero(np.diff(want) > gap) + 1
+    for start, stop in zip(np.r_[0, breaks], np.r_[breaks, len(want)], strict=True):
+        i = int(start)
+        while i < stop:
+            j = int(min(max(np.searchsorted(want, want[i] + longest), i + 1), stop))
+            lo, hi = int(want[i]), int(want[j - 1]) + 1
+            out[i:j] = dset[lo:hi][want[i:j] - lo]
+            i = j
+    return out
 
 
 def _mesh_from(points: NDArray, cells: list[tuple[str, NDArray]], source: str) -> Mesh:
