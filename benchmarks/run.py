@@ -113,23 +113,24 @@ def hwm():
             return float(line.split()[1])
 base = hwm()
 model = prepare(read_study({study!r}))
-predict_table(model)
+table = predict_table(model)
 peak = hwm()
 m = model.operator.mesh
 arrays = m.points.nbytes + sum(c.nbytes for _, c in m.blocks)
-print(f"{{base / 1024:.0f}} {{peak / 1024:.0f}} {{arrays / 2**20:.0f}}")
+size = table.memory_usage(deep=True).sum()
+print(f"{{base / 1024:.0f}} {{peak / 1024:.0f}} {{arrays / 2**20:.0f}} {{size / 2**20:.0f}}")
 """
 
 
-def child_peak(study: Path) -> tuple[float, float, float]:
+def child_peak(study: Path) -> tuple[float, float, float, float]:
     """Peak memory of `correlate predict`'s work on a study, in a fresh process: (start, peak,
-    mesh arrays) MB."""
+    mesh arrays, the model_readings table) MB."""
     import subprocess
 
     code = CHILD.format(study=str(study))
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
-    start, peak, mesh = (float(v) for v in out.stdout.split()[-3:])
-    return start, peak, mesh
+    start, peak, mesh, table = (float(v) for v in out.stdout.split()[-4:])
+    return start, peak, mesh, table
 
 
 REPEAT = 3  # case (a): floor and predict each run this many times; the table gives min and max
@@ -244,7 +245,7 @@ def case_a(clock: Clock, folder: Path, scale: float, rng) -> None:
         m = meshio.read(path)
         grid = pv.from_meshio(m)
         baseline_probe(grid, [m.point_data["E"]], validate(gauges))
-    start, peak, mesh_mb = child_peak(folder / "study_band.toml")
+    start, peak, mesh_mb, _ = child_peak(folder / "study_band.toml")
     field_mb = m.point_data["E"].nbytes / 2**20
     print(f"case a memory (fresh process, band): start {start:.0f} MB, peak {peak:.0f} MB; mesh "
           f"arrays {mesh_mb:.0f} MB + strain array {field_mb:.0f} MB")
@@ -286,9 +287,10 @@ def case_b(clock: Clock, folder: Path, scale: float, rng) -> None:
     for depth, stage, t in stages:
         clock.rows.append(("b", f"predict, all steps: {'  ' * depth}{stage}", t, peak_mb()))
     clock.rows.append(("b", "predict, all steps: total", seconds, peak_mb()))
-    start, peak, mesh_mb = child_peak(study)
+    start, peak, mesh_mb, table_mb = child_peak(study)
     print(f"case b memory (fresh process, all steps): start {start:.0f} MB, peak {peak:.0f} MB; "
-          f"mesh arrays {mesh_mb:.0f} MB, one step {base.nbytes / 2**20:.0f} MB")
+          f"mesh arrays {mesh_mb:.0f} MB, one step {base.nbytes / 2**20:.0f} MB, the "
+          f"model_readings table ({len(table)} rows) {table_mb:.0f} MB")
     with clock("b", "baseline all steps"):
         r = meshio.xdmf.TimeSeriesReader(str(folder / "b.xdmf"))
         pts, cells = r.read_points_cells()

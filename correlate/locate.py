@@ -116,15 +116,24 @@ def cell_size(mesh: Mesh) -> float:
 
 
 def nodes_near(mesh: Mesh, seeds: NDArray[np.float64], radius: float) -> NDArray[np.bool_]:
-    """Flag every node within ``radius`` of a seed (and some more: whole voxels of that size)."""
+    """Flag every node within ``radius`` of a seed (and some more: whole voxels).
+
+    Voxels of a third of the radius (larger on a huge model, to keep the grid within
+    MAX_VOXELS); a node within the radius lies at most ceil(radius / voxel) voxels away from its
+    seed's along each axis, and only voxels that can hold such a node are flagged.
+    """
     pts = mesh.points
     lo, hi = mesh.bounds
     span = hi - lo
-    voxel = radius * max(1.0, float(np.prod(span / radius + 1) / MAX_VOXELS) ** (1 / 3))
+    voxel = radius / 3 * max(1.0, float(np.prod(3 * span / radius + 1) / MAX_VOXELS) ** (1 / 3))
     dims = (span / voxel).astype(np.int64) + 1
     occupied = np.zeros(dims, dtype=bool)
     seed_ijk = np.floor((seeds - lo) / voxel).astype(np.int64)
-    for shift in product((-1, 0, 1), repeat=3):
+    k = int(np.ceil(radius / voxel))
+    for shift in product(range(-k, k + 1), repeat=3):
+        gap = np.maximum(np.abs(shift) - 1, 0) * voxel  # nearest points of the two voxels
+        if np.hypot.reduce(gap) > radius:
+            continue
         ijk = np.clip(seed_ijk + shift, 0, dims - 1)
         occupied[ijk[:, 0], ijk[:, 1], ijk[:, 2]] = True
     ijk = ((pts - lo) / voxel).astype(np.int64)

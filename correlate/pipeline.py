@@ -217,17 +217,17 @@ def predict_table(model: Model) -> pd.DataFrame:
             columns.setdefault(case.name, {}).setdefault(name, []).append(values)
     parts = []
     for case_name, cols in columns.items():
-        n = len(next(iter(cols.values())))  # FE states of this case
-        joined = {name: np.concatenate(v) for name, v in cols.items()}
-        df = pd.DataFrame({"gauge": np.tile(place["gauge"].to_numpy(dtype=object), n),
-                           "case": case_name})
+        n = len(cols["predicted_ue"])  # FE states of this case
+        data = {"gauge": np.tile(place["gauge"].to_numpy(dtype=object), n),
+                "case": np.full(n * len(place), case_name, dtype=object)}
         for name in ("predicted_ue", "axial_ue", "transverse_ue", "point_ue", "band_low_ue",
                      "band_high_ue"):
-            df[name] = joined.pop(name)
+            data[name] = np.concatenate(cols.pop(name))
         for name in ("snap_distance", "element", "cell_type"):
-            df[name] = np.tile(place[name].to_numpy(), n)
-        df = pd.concat([df, pd.DataFrame(joined)], axis=1)
-        parts.append(df)
+            data[name] = np.tile(place[name].to_numpy(), n)
+        for name in list(cols):  # location, sensitivities, then the optional columns
+            data[name] = np.concatenate(cols.pop(name))
+        parts.append(pd.DataFrame(data, copy=False))
     table = pd.concat(parts, ignore_index=True)
     _warn_displacement(model, table)
     for line in convention_warnings(model):
