@@ -6,6 +6,7 @@ In: a :class:`~correlate.config.Study`. Out: tables and records that the command
 from __future__ import annotations
 
 import warnings
+from collections import Counter
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -189,8 +190,11 @@ def predict_table(model: Model) -> pd.DataFrame:
     op = model.operator
     place = op.placement.table
     nominal, point = op.row_kind == 0, op.row_kind == 1
-    columns: dict[str, dict[str, list]] = {}  # per case: column -> one array per FE state
+    g = len(place)
     states = [(case, k, t) for case in model.study.cases for k, t in case_steps(model, case)]
+    count = Counter(case.name for case, _, _ in states)  # FE states per case
+    done: Counter[str] = Counter()
+    columns: dict[str, dict[str, NDArray]] = {}  # per case: column, filled state by state
     for case, fe_index, fe_time in progress.bar(states, desc="evaluating the cases"):
         rows = case_rows(model, case, fe_index)
         ind = rows["indicated"]
@@ -213,20 +217,24 @@ def predict_table(model: Model) -> pd.DataFrame:
         if fe_index is not None and (case.time_index == "all" or isinstance(case.time_index, tuple)):
             state["fe_index"] = np.full(len(place), fe_index)
             state["fe_time"] = np.full(len(place), fe_time, dtype=float)
+        cols = columns.setdefault(case.name, {})
+        k = done[case.name]
+        done[case.name] += 1
         for name, values in state.items():
-            columns.setdefault(case.name, {}).setdefault(name, []).append(values)
+            if name not in cols:
+                cols[name] = np.empty(count[case.name] * g, dtype=values.dtype)
+            cols[name][k * g:(k + 1) * g] = values
     parts = []
     for case_name, cols in columns.items():
-        n = len(cols["predicted_ue"])  # FE states of this case
+        n = count[case_name]
         data = {"gauge": np.tile(place["gauge"].to_numpy(dtype=object), n),
-                "case": np.full(n * len(place), case_name, dtype=object)}
+                "case": np.full(n * g, case_name, dtype=object)}
         for name in ("predicted_ue", "axial_ue", "transverse_ue", "point_ue", "band_low_ue",
                      "band_high_ue"):
-            data[name] = np.concatenate(cols.pop(name))
+            data[name] = cols.pop(name)
         for name in ("snap_distance", "element", "cell_type"):
             data[name] = np.tile(place[name].to_numpy(), n)
-        for name in list(cols):  # location, sensitivities, then the optional columns
-            data[name] = np.concatenate(cols.pop(name))
+        data.update(cols)  # location, sensitivities, then the optional columns
         parts.append(pd.DataFrame(data, copy=False))
     table = pd.concat(parts, ignore_index=True)
     _warn_displacement(model, table)
