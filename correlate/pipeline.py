@@ -236,7 +236,7 @@ def predict_table(model: Model) -> pd.DataFrame:
             data[name] = np.tile(place[name].to_numpy(), n)
         data.update(cols)  # location, sensitivities, then the optional columns
         parts.append(pd.DataFrame(data, copy=False))
-    table = pd.concat(parts, ignore_index=True)
+    table = parts[0] if len(parts) == 1 else pd.concat(parts, ignore_index=True)
     _warn_displacement(model, table)
     for line in convention_warnings(model):
         warnings.warn(line, _warning(), stacklevel=2)

@@ -37,9 +37,12 @@ def read_gauges(path: str | Path) -> pd.DataFrame:
 
 
 def _numeric(raw: pd.DataFrame, col: str, source: str, problems: list[str]) -> np.ndarray:
-    out = np.full(len(raw), np.nan)
-    for i, text in enumerate(raw[col].astype(str)):
-        text = text.strip()
+    texts = raw[col].astype(str).str.strip()
+    # pandas parses the plain numbers at once; the rest (blank, text, odd spellings) cell by cell
+    out = pd.to_numeric(texts, errors="coerce").to_numpy(dtype=float, na_value=np.nan, copy=True)
+    out[~np.isfinite(out)] = np.nan
+    for i in np.flatnonzero(np.isnan(out)):
+        text = texts.iloc[i]
         if not text:
             continue
         try:
