@@ -81,21 +81,23 @@ def prepare(study: Study) -> Model:
     """Read the gauge map and the model, locate every gauge, build the operator."""
     with progress.step("reading the model"):
         sources = open_sources(study)
-    gauges = read_gauges(study.gauges_file)
+    with progress.step("reading the gauge map"):
+        gauges = read_gauges(study.gauges_file)
     mesh = sources[study.model_file].mesh
     if mesh.family == "plane" and study.plane is None:
         raise ModelError(f"{study.model_file.name} is a 2D plane model (all z = 0); say "
                          "[model] plane = \"stress\" or \"strain\" in the study")
-    with progress.step(f"locating {len(gauges)} gauges and building their operator"):
-        snap_tol = study.snap_tol
-        if snap_tol is None:  # neither snap_tol nor position_tol given: 1 % of the model size
-            snap_tol = 0.01 * float(np.linalg.norm(np.diff(mesh.bounds, axis=0)))
-        thickness = study.model_info.get("thickness")
-        if mesh.family == "shell" and isinstance(thickness, int | float) and thickness > 0:
-            # a gauge on a shell face sits half the thickness from the mid-surface
-            snap_tol = snap_tol + thickness / 2
+    snap_tol = study.snap_tol
+    if snap_tol is None:  # neither snap_tol nor position_tol given: 1 % of the model size
+        snap_tol = 0.01 * float(np.linalg.norm(np.diff(mesh.bounds, axis=0)))
+    thickness = study.model_info.get("thickness")
+    if mesh.family == "shell" and isinstance(thickness, int | float) and thickness > 0:
+        # a gauge on a shell face sits half the thickness from the mid-surface
+        snap_tol = snap_tol + thickness / 2
+    with progress.step(f"finding the model surface near {len(gauges)} gauges"):
         locator = gauge_locator(mesh, gauges, snap_tol=snap_tol, position_tol=study.position_tol,
                                 band=study.band)
+    with progress.step(f"locating {len(gauges)} gauges and building their operator"):
         op = build_operator(mesh, gauges, position_tol=study.position_tol,
                             angle_tol=study.angle_tol, snap_tol=snap_tol,
                             calibration_poisson=study.calibration_poisson,
