@@ -197,6 +197,7 @@ def predict_table(model: Model) -> pd.DataFrame:
     count = Counter(case.name for case, _, _ in states)  # FE states per case
     done: Counter[str] = Counter()
     columns: dict[str, dict[str, NDArray]] = {}  # per case: column, filled state by state
+    locations: dict[str, list[str]] = {}           # per case: "point" or "cell", state by state
     for case, fe_index, fe_time in progress.bar(states, desc="evaluating the cases"):
         rows = case_rows(model, case, fe_index)
         ind = rows["indicated"]
@@ -209,7 +210,6 @@ def predict_table(model: Model) -> pd.DataFrame:
             "point_ue": ind[point] * MICROSTRAIN,
             "band_low_ue": low * MICROSTRAIN,
             "band_high_ue": high * MICROSTRAIN,
-            "field_location": np.full(len(place), rows["location"], dtype=object),
             "sens_position_ue_per_unit": sens_pos * MICROSTRAIN,
             "sens_angle_ue_per_deg": sens_ang * MICROSTRAIN,
         }
@@ -222,21 +222,29 @@ def predict_table(model: Model) -> pd.DataFrame:
         cols = columns.setdefault(case.name, {})
         k = done[case.name]
         done[case.name] += 1
+        locations.setdefault(case.name, []).append(rows["location"])
         for name, values in state.items():
             if name not in cols:
                 cols[name] = np.empty(count[case.name] * g, dtype=values.dtype)
             cols[name][k * g:(k + 1) * g] = values
+    # text columns as categories (codes into a few names): a long series has a row per gauge and
+    # state, and a million strings would cost more than the numbers
+    gauge_names = pd.Index(place["gauge"].astype(str))
+    cell_codes, cell_names = pd.factorize(place["cell_type"].astype(str))
     parts = []
     for case_name, cols in columns.items():
         n = count[case_name]
-        data = {"gauge": np.tile(place["gauge"].to_numpy(dtype=object), n),
-                "case": np.full(n * g, case_name, dtype=object)}
+        where, where_names = pd.factorize(pd.Index(locations[case_name]))
+        data = {"gauge": pd.Categorical.from_codes(np.tile(np.arange(g), n), gauge_names),
+                "case": pd.Categorical.from_codes(np.zeros(n * g, dtype=np.int8), [case_name])}
         for name in ("predicted_ue", "axial_ue", "transverse_ue", "point_ue", "band_low_ue",
                      "band_high_ue"):
             data[name] = cols.pop(name)
-        for name in ("snap_distance", "element", "cell_type"):
-            data[name] = np.tile(place[name].to_numpy(), n)
-        data.update(cols)  # location, sensitivities, then the optional columns
+        data["snap_distance"] = np.tile(place["snap_distance"].to_numpy(), n)
+        data["element"] = np.tile(place["element"].to_numpy(), n)
+        data["cell_type"] = pd.Categorical.from_codes(np.tile(cell_codes, n), cell_names)
+        data["field_location"] = pd.Categorical.from_codes(np.repeat(where, g), where_names)
+        data.update(cols)  # sensitivities, then the optional columns
         parts.append(pd.DataFrame(data, copy=False))
     table = parts[0] if len(parts) == 1 else pd.concat(parts, ignore_index=True)
     _warn_displacement(model, table)
