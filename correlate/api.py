@@ -50,6 +50,8 @@ def predict_readings(mesh: Any, gauges: pd.DataFrame, cases: Mapping[str, str | 
     DataFrame
         One row per gauge and case: ``predicted_ue, axial_ue, transverse_ue, point_ue,
         band_low_ue, band_high_ue, snap_distance, ...`` (microstrain; lengths in the mesh's unit).
+        The text columns ``gauge, case, cell_type, field_location`` are pandas categories (in
+        gauge-map order for ``gauge``).
 
     Examples
     --------
