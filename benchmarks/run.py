@@ -386,9 +386,16 @@ def main() -> None:
     rng = np.random.default_rng(1)
     clock = Clock()
     folder = Path(tempfile.mkdtemp(prefix="correlate-bench-"))
+    # case b's series is most of it: 6 doubles per node per step; the rest (a, d, r) under 0.3 GB
+    need = (2.6 * ("b" in args.cases) + 0.3) * args.scale * 1e9
+    free = shutil.disk_usage(folder).free
+    print(f"scratch folder {folder}: needs about {need / 1e9:.2f} GB, {free / 1e9:.0f} GB free")
+    if free < 1.2 * need:
+        shutil.rmtree(folder, ignore_errors=True)
+        sys.exit("not enough free disk for this scale; lower --scale or free some space")
     t0 = time.perf_counter()
     import correlate  # noqa: F401
-    print(f"import correlate: {time.perf_counter() - t0:.2f} s; scratch folder {folder}")
+    print(f"import correlate: {time.perf_counter() - t0:.2f} s")
     try:
         for name in args.cases:
             {"a": case_a, "b": case_b, "c": case_c, "d": case_d, "r": case_r}[name](clock, folder, args.scale, rng)

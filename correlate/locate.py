@@ -73,6 +73,8 @@ class Region:
         from scipy.spatial import cKDTree
 
         room = self.radius - self.size - distance
+        if not len(room):
+            return np.zeros(0, dtype=bool)
         tree = cKDTree(self.seeds)
         near, _ = tree.query(points, distance_upper_bound=max(float(room.max()), 0.0))
         return near <= room
