@@ -195,7 +195,6 @@ def predict_table(model: Model) -> pd.DataFrame:
     g = len(place)
     states = [(case, k, t) for case in model.study.cases for k, t in case_steps(model, case)]
     count = Counter(case.name for case, _, _ in states)  # FE states per case
-    done: Counter[str] = Counter()
     columns: dict[str, dict[str, NDArray]] = {}  # per case: column, filled state by state
     locations: dict[str, list[str]] = {}           # per case: "point" or "cell", state by state
     for case, fe_index, fe_time in progress.bar(states, desc="evaluating the cases"):
@@ -220,9 +219,9 @@ def predict_table(model: Model) -> pd.DataFrame:
             state["fe_index"] = np.full(len(place), fe_index)
             state["fe_time"] = np.full(len(place), fe_time, dtype=float)
         cols = columns.setdefault(case.name, {})
-        k = done[case.name]
-        done[case.name] += 1
-        locations.setdefault(case.name, []).append(rows["location"])
+        where = locations.setdefault(case.name, [])
+        k = len(where)  # this state's place among the case's states
+        where.append(rows["location"])
         for name, values in state.items():
             if name not in cols:
                 cols[name] = np.empty(count[case.name] * g, dtype=values.dtype)

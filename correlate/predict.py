@@ -452,7 +452,7 @@ def strain_at_points(op: GaugeOperator, field: Field) -> NDArray[np.float64]:
             return field.at(op.cell if index is None else _positions(index, op.cell, field), face)
         touched = touched_rows(op)["point"]
         ids = touched if index is None else _positions(index, touched, field)
-        N = op._cache["compact"]
+        N = op._cache["compact"]  # made with touched_rows: the interpolation on those nodes only
         return (N @ field.at(ids, face).reshape(len(ids), 9)).reshape(-1, 3, 3)
 
     if isinstance(field.data, dict):

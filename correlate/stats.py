@@ -355,12 +355,13 @@ def influence_by_gauge(measured: ArrayLike, predicted: ArrayLike, groups: ArrayL
         xtx, s2 = X.T @ X, float(res.scale)
         # statsmodels' resid_studentized_external refits the model once per pair (10,000 fits
         # for 1,000 gauges x 10 steps); the deleted-pair variance has a closed form (Cook and
-        # Weisberg 1982, eq. 2.2.9): s_(i)^2 = ((n - p) s^2 - e_i^2 / (1 - h_i)) / (n - p - 1).
+        # Weisberg 1982, ch. 2, from memory; checked against the refits in the tests):
+        # s_(i)^2 = ((n - p) s^2 - r_i^2 / (1 - h_i)) / (n - p - 1).
         # A pair with leverage 1 divides by zero; that residual is undefined.
         infl = OLSInfluence(res)
-        h, e, dof = infl.hat_matrix_diag, np.asarray(res.resid), m.size - 2
+        h, r, dof = infl.hat_matrix_diag, np.asarray(res.resid), m.size - 2
         with np.errstate(divide="ignore", invalid="ignore"):
-            s2_del = (dof * s2 - e**2 / (1 - h)) / (dof - 1)
+            s2_del = (dof * s2 - r**2 / (1 - h)) / (dof - 1)
             ext = np.abs(np.asarray(infl.get_resid_studentized_external(
                 sigma=np.sqrt(np.maximum(s2_del, 0.0)))))
         for i, name in enumerate(names):

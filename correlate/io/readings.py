@@ -169,9 +169,20 @@ def read_readings(path: str | PathLike[str], *, gauges: Mapping[str, str], loads
     width = len(header)
     text = "".join(t + sep * (width - n) + "\n" for (_, t), n in zip(rows, widths, strict=True))
     cells = _read_cells(text, sep, used, len(raw), name, codes[0])
+    return _readings(path, cells, header, columns, lines, decimal_comma, codes, gauge_map, loads,
+                     load_units)
+
+
+def _readings(path: str | PathLike[str], cells: pd.DataFrame, header: list[str],
+              columns: dict[str, int], lines: NDArray[np.int64], decimal_comma: bool,
+              codes: tuple[NDArray[np.float64], frozenset[str]], gauge_map: dict[str, str],
+              loads: tuple[str, ...], load_units: dict[str, str]) -> Readings:
+    """The checked table from the cells of the used columns (CSV and Parquet alike)."""
+    name = Path(path).name
     labels = [(ld, columns[ld]) for ld in loads] + [(g, columns[g]) for g in gauge_map]
     table, flags = _convert(cells, header, columns, labels, lines, decimal_comma, codes, name)
     _warn_if_strain(table, loads, tuple(gauge_map), name)
+    used = set(columns.values())
     ignored = tuple(h or f"(column {j + 1})" for j, h in enumerate(header) if j not in used)
     return Readings(table=table, loads=loads, gauges=tuple(gauge_map), load_units=load_units,
                     ignored=ignored, flags=flags, lines=lines, path=str(path))
@@ -200,13 +211,8 @@ def _read_parquet(path: str | PathLike[str], gauge_map: dict[str, str], loads: t
     cells = frame.iloc[:, used]
     cells.columns = used
     lines = np.arange(1, len(frame) + 1, dtype=np.int64)  # "line k": the k-th row of the table
-    labels = [(ld, columns[ld]) for ld in loads] + [(g, columns[g]) for g in gauge_map]
-    table, flags = _convert(cells, header, columns, labels, lines, False, codes, name)
-    _warn_if_strain(table, loads, tuple(gauge_map), name)
-    ignored = tuple(h for j, h in enumerate(header) if j not in used)
-    return Readings(table=table, loads=loads, gauges=tuple(gauge_map),
-                    load_units=dict.fromkeys(loads, ""), ignored=ignored, flags=flags, lines=lines,
-                    path=str(path))
+    return _readings(path, cells, header, columns, lines, False, codes, gauge_map, loads,
+                     dict.fromkeys(loads, ""))
 
 
 def _raise(problems: list[str], name: str) -> None:
@@ -367,7 +373,7 @@ class _Typed:
     """Text of typed cells (Parquet numbers), made only for the cells a message quotes."""
 
     def __init__(self, values: NDArray[np.float64]) -> None:
-        self.values = values.copy()
+        self.values = values  # _convert blanks sentinels in a copy, so these stay as read
 
     def __getitem__(self, i: int) -> str:
         return "" if np.isnan(self.values[i]) else f"{self.values[i]:g}"
@@ -394,10 +400,12 @@ def _parse_columns(cells: pd.DataFrame, cols: list[int], decimal_comma: bool
                                         NDArray[np.bool_]]]:
     """:func:`_parse` of each column; the text columns in one pass (a wide file has thousands)."""
     out = {}
-    text = [c for c in dict.fromkeys(cols) if not _typed(cells[c])]
+    text = []
     for c in dict.fromkeys(cols):
-        if c not in text:
+        if _typed(cells[c]):
             out[c] = _parse(cells[c], decimal_comma)
+        else:
+            text.append(c)
     if text:
         n = len(cells)
         flat = pd.Series(cells[text].to_numpy(dtype=object).ravel(order="F"))
