@@ -104,8 +104,8 @@ def baseline_probe(grid, fields: list[np.ndarray], gauges: pd.DataFrame) -> np.n
 
 CHILD = """
 import sys
-from correlate.config import read_study
-from correlate.pipeline import predict_table, prepare
+from correlate.readers.study import read_study
+from correlate.model_readings.model import predict_table, prepare
 def hwm():
     # VmHWM of this process image (ru_maxrss survives exec on Linux and would carry the parent's)
     for line in open("/proc/self/status"):
@@ -156,9 +156,9 @@ def write_study(folder: Path, name: str, model: str, *, band: bool, readings: bo
 
 def timed_predict(study_path: Path) -> tuple[float, list[tuple[int, str, float]], pd.DataFrame]:
     """What `correlate predict` does before writing: total seconds, stage times, the table."""
-    from correlate import progress
-    from correlate.config import read_study
-    from correlate.pipeline import predict_table, prepare
+    from correlate.core import progress
+    from correlate.model_readings.model import predict_table, prepare
+    from correlate.readers.study import read_study
 
     progress.reset_timings()
     t = time.perf_counter()
@@ -189,7 +189,7 @@ def start_up() -> float:
     import subprocess
 
     t = time.perf_counter()
-    subprocess.run([sys.executable, "-c", "import correlate.cli"], check=True)
+    subprocess.run([sys.executable, "-c", "import correlate.commands.cli"], check=True)
     return time.perf_counter() - t
 
 
@@ -240,7 +240,7 @@ def case_a(clock: Clock, folder: Path, scale: float, rng) -> None:
     for depth, stage, seconds in stages:
         clock.rows.append(("a", f"run (band, report): {'  ' * depth}{stage}", seconds, np.nan))
     clock.rows.append(("a", "run (band, report) total, start-up excluded", wall - boot, np.nan))
-    clock.notes.append(f"a: process start-up (python + import correlate.cli) {boot:.2f} s")
+    clock.notes.append(f"a: process start-up (python + import correlate.commands.cli) {boot:.2f} s")
     with clock("a", "baseline: read + sample"):
         m = meshio.read(path)
         grid = pv.from_meshio(m)
@@ -252,7 +252,7 @@ def case_a(clock: Clock, folder: Path, scale: float, rng) -> None:
 
 
 def validate(gauges: pd.DataFrame) -> pd.DataFrame:
-    from correlate.io.gauges import validate_gauges
+    from correlate.readers.gauges import validate_gauges
 
     return validate_gauges(gauges.astype(str), source="bench")
 
@@ -302,11 +302,11 @@ def case_b(clock: Clock, folder: Path, scale: float, rng) -> None:
 
 
 def case_c(clock: Clock, folder: Path, scale: float, rng) -> None:
-    from correlate.config import Case
-    from correlate.fields import read_field
-    from correlate.io.gauges import validate_gauges
-    from correlate.io.model import open_model
-    from correlate.predict import build_operator, evaluate_rows
+    from correlate.model_readings.operator import build_operator, evaluate_rows
+    from correlate.readers.fields import read_field
+    from correlate.readers.gauges import validate_gauges
+    from correlate.readers.model import open_model
+    from correlate.readers.study import Case
 
     src = open_model(folder / "a.vtu")
     n = max(1000, int(100_000 * scale))
@@ -323,11 +323,11 @@ def case_d(clock: Clock, folder: Path, scale: float, rng) -> None:
     """A flat quad shell panel at z = 5 (not a plane model) with top and bottom arrays."""
     import meshio
 
-    from correlate.config import Case
-    from correlate.fields import read_field
-    from correlate.io.gauges import validate_gauges
-    from correlate.io.model import open_model
-    from correlate.predict import build_operator, evaluate_rows
+    from correlate.model_readings.operator import build_operator, evaluate_rows
+    from correlate.readers.fields import read_field
+    from correlate.readers.gauges import validate_gauges
+    from correlate.readers.model import open_model
+    from correlate.readers.study import Case
 
     n = max(10, round((500_000 * scale / 2) ** 0.5))
     xs, ys = np.linspace(0, 400, 2 * n + 1), np.linspace(0, 200, n + 1)
@@ -355,7 +355,7 @@ def case_d(clock: Clock, folder: Path, scale: float, rng) -> None:
 
 def case_r(clock: Clock, folder: Path, scale: float, rng) -> None:
     """A long test record: 10,000 x scale steps x 1,000 channels, as CSV and as Parquet."""
-    from correlate.io.readings import read_readings
+    from correlate.readers.readings import read_readings
 
     n_steps, n_ch = max(100, int(10_000 * scale)), 1000
     names = [f"SG{j:04d}" for j in range(n_ch)]

@@ -13,7 +13,7 @@ __all__ = ["__version__", "predict_readings", "read_study"]
 
 if TYPE_CHECKING:  # pragma: no cover
     from correlate.api import predict_readings
-    from correlate.config import read_study
+    from correlate.readers.study import read_study
 
 
 def __getattr__(name: str) -> Any:
@@ -22,7 +22,7 @@ def __getattr__(name: str) -> Any:
 
         return predict_readings
     if name == "read_study":
-        from correlate.config import read_study
+        from correlate.readers.study import read_study
 
         return read_study
     raise AttributeError(f"module 'correlate' has no attribute {name!r}")

@@ -2,6 +2,6 @@
 
 import sys
 
-from correlate.cli import main
+from correlate.commands.cli import main
 
 sys.exit(main())

@@ -19,7 +19,7 @@ import numpy as np
 import pandas as pd
 
 from correlate.api import predict_readings
-from correlate.errors import CorrelateWarning
+from correlate.core.errors import CorrelateWarning
 
 DEMO = Path(__file__).resolve().parent.parent / "correlate" / "data" / "demo"
 SEED = 20261201
@@ -74,8 +74,8 @@ def faulted_gauge_map(gauges: pd.DataFrame) -> pd.DataFrame:
 
 def _turned_90(row: pd.Series) -> np.ndarray:
     """Grid direction turned 90 degrees about the surface normal at the gauge (from the mesh)."""
-    from correlate.io.model import open_model
-    from correlate.locate import Locator, build_surface
+    from correlate.model_readings.locator import Locator, build_surface
+    from correlate.readers.model import open_model
 
     src = open_model(DEMO / "bracket.vtu")
     loc = Locator(src.mesh, build_surface(src.mesh))

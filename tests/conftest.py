@@ -16,9 +16,9 @@ import pytest
 
 os.environ.setdefault("MESA_SHADER_CACHE_DISABLE", "true")
 
-from correlate import elements
-from correlate.io.gauges import validate_gauges
-from correlate.io.model import Mesh
+from correlate.mechanics import elements
+from correlate.readers.gauges import validate_gauges
+from correlate.readers.model import Mesh
 
 KUHN = ((0, 1, 3, 7), (0, 1, 5, 7), (0, 2, 3, 7), (0, 2, 6, 7), (0, 4, 5, 7), (0, 4, 6, 7))
 

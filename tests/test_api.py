@@ -40,7 +40,7 @@ def test_predict_readings_from_python_objects(kind):
 def test_import_and_help_stay_light():
     # heavy modules are imported lazily: `import correlate` must not pull in pyvista, VTK,
     # statsmodels or matplotlib (measured as modules loaded, not as time)
-    code = ("import sys, correlate, correlate.cli; "
+    code = ("import sys, correlate, correlate.commands.cli; "
             "print(sorted(m for m in ('pyvista', 'vtkmodules', 'statsmodels', 'matplotlib', "
             "'scipy', 'pandas', 'meshio') if m in sys.modules))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)

@@ -25,7 +25,7 @@ import pandas as pd
 import pytest
 from conftest import block_indicated, block_readings, default_gauges, flat_panel, write_small_study
 
-from correlate.cli import main
+from correlate.commands.cli import main
 
 # --------------------------------------------------------------------------------------------
 # builders
@@ -836,8 +836,8 @@ def test_rosette_at_valid_angles_passes_the_angle_check(tmp_path, capsys):
 def test_indicated_reference_agrees_with_the_tool(tmp_path):
     # Guards the helper the accepted-input tests rely on: the analytic readings of conftest are
     # what the tool predicts for the block (both from the same closed forms, no tool output used).
-    from correlate.config import read_study
-    from correlate.pipeline import predict_table, prepare
+    from correlate.model_readings.model import predict_table, prepare
+    from correlate.readers.study import read_study
 
     g = gauges3()
     study = small(tmp_path, gauges=g, readings=False)

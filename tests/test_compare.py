@@ -15,8 +15,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from correlate.cli import main
-from correlate.compare import classify
+from correlate.commands.cli import main
+from correlate.comparison.revisions import classify
 
 CHECK_INTERFACE = Path("/work/shared/conformance/check_interface.py")
 CAUTION = ("These results support, but do not replace, engineering judgement, the applicable codes "
@@ -104,7 +104,7 @@ def real_runs(tmp_path_factory: pytest.TempPathFactory) -> Path:
 
     mp = pytest.MonkeyPatch()
     # the failure diagnosis is not read by compare and costs seconds per failing gauge
-    mp.setattr("correlate.diagnosis.diagnose_failures",
+    mp.setattr("correlate.comparison.evidence.diagnose_failures",
                lambda *a, **k: pd.DataFrame(columns=["gauge", "explanation", "detail",
                                                      "rms_before_ue", "rms_after_ue",
                                                      "plausible", "parameter"]))

@@ -13,7 +13,7 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
-from correlate.cli import main
+from correlate.commands.cli import main
 
 ROOT = Path(__file__).resolve().parent.parent
 spec = importlib.util.spec_from_file_location("make_test_log", ROOT / "demo_models" / "make_test_log.py")

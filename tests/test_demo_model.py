@@ -19,7 +19,7 @@ import meshio
 import numpy as np
 import pytest
 
-from correlate.tensors import DEFAULT_ORDER, from_voigt, strain_from_stress
+from correlate.mechanics.tensors import DEFAULT_ORDER, from_voigt, strain_from_stress
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "correlate" / "data" / "demo"

@@ -1,4 +1,4 @@
-"""Tests of correlate.diagnose on synthetic gauges whose fault is built into the construction.
+"""Tests of correlate.comparison.explanations on synthetic gauges whose fault is built into the construction.
 
 The model is an analytic plane strain field: per load case, in-plane strains (ex, ey, gxy) at the
 origin plus a linear gradient in (x, y). A grid at angle theta reads the normal strain
@@ -17,8 +17,14 @@ import numpy as np
 import pytest
 import statsmodels.api as sm
 
-from correlate.diagnose import Criterion, GaugeEvidence, diagnose, diagnose_loads, diagnose_rosette
-from correlate.errors import ModelError, ReadingsFormatError
+from correlate.comparison.explanations import (
+    Criterion,
+    GaugeEvidence,
+    diagnose,
+    diagnose_loads,
+    diagnose_rosette,
+)
+from correlate.core.errors import ModelError, ReadingsFormatError
 
 # Case A: uniaxial stress along x with nu = 0.3 (ey = -nu ex, Hooke's law, same text), strain
 # growing along x. Case B: a general in-plane state whose strain grows along y. [microstrain] and

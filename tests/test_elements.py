@@ -1,4 +1,4 @@
-"""Tests of correlate.elements against VTK, scipy, closed forms and textbook FE properties."""
+"""Tests of correlate.mechanics.elements against VTK, scipy, closed forms and textbook FE properties."""
 
 from __future__ import annotations
 
@@ -8,9 +8,9 @@ from numpy.testing import assert_allclose, assert_array_equal
 from scipy import optimize
 from scipy.spatial.transform import Rotation
 
-from correlate import elements as fe
-from correlate.elements import ELEMENTS
-from correlate.errors import ModelError
+from correlate.core.errors import ModelError
+from correlate.mechanics import elements as fe
+from correlate.mechanics.elements import ELEMENTS
 
 ALL = list(ELEMENTS)
 SOLIDS = [n for n, e in ELEMENTS.items() if e.dim == 3]

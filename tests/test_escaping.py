@@ -20,7 +20,7 @@ import pytest
 from conftest import block_readings, write_block_study
 
 report = pytest.importorskip("correlate.report", reason="the report package does not import yet")
-from correlate.cli import main  # noqa: E402 - after the import guard above
+from correlate.commands.cli import main  # noqa: E402 - after the import guard above
 
 PACKAGE = Path(__file__).resolve().parents[1] / "correlate"
 
@@ -150,7 +150,7 @@ def test_no_input_is_evaluated_as_code(pattern):
 
 def test_study_and_tables_are_read_by_data_parsers_only():
     # TOML through tomllib, CSV through pandas or the csv module; no other study parser.
-    config = (PACKAGE / "config.py").read_text(encoding="utf-8")
+    config = (PACKAGE / "readers" / "study.py").read_text(encoding="utf-8")
     assert "tomllib.loads" in config
     for p in sorted(PACKAGE.rglob("*.py")):
         src = p.read_text(encoding="utf-8")

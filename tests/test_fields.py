@@ -8,12 +8,12 @@ import numpy as np
 import pytest
 from conftest import gauge_frame, solid_mesh
 
-from correlate.config import Case, Material
-from correlate.errors import ModelError
-from correlate.fields import read_field
-from correlate.io.model import ModelSource
-from correlate.predict import build_operator, evaluate_rows
-from correlate.tensors import from_voigt, strain_from_stress, stress_from_strain, to_voigt
+from correlate.core.errors import ModelError
+from correlate.mechanics.tensors import from_voigt, strain_from_stress, stress_from_strain, to_voigt
+from correlate.model_readings.operator import build_operator, evaluate_rows
+from correlate.readers.fields import read_field
+from correlate.readers.model import ModelSource
+from correlate.readers.study import Case, Material
 
 ORDER = ("xx", "yy", "zz", "xy", "yz", "xz")
 GAUGES = [dict(gauge=f"G{i}", x=0.7 + 0.5 * i, y=0.6 + 0.3 * i, z=2.0, dir_x=np.cos(0.7 * i),
@@ -167,7 +167,7 @@ def test_convention_checks_name_the_order_that_fits():
     # Reference: the traction-free condition of a free surface (Timoshenko & Goodier, Theory of
     # Elasticity: sigma . n = 0 on a free boundary) with isotropic Hooke's law gives e_nt = 0 and
     # e_nn = -nu/(1-nu)(e_11 + e_22); and Hooke's law against a stress array.
-    from correlate.checks import convention_evidence, describe
+    from correlate.model_readings.conventions import convention_evidence, describe
 
     rng = np.random.default_rng(4)
     nu = 0.3

@@ -13,10 +13,10 @@ import numpy as np
 import pytest
 from conftest import gauge_frame, solid_mesh
 
-from correlate.config import Case
-from correlate.fields import read_field
-from correlate.io.model import EXODUS_HEX20, open_model
-from correlate.predict import build_operator, evaluate_rows
+from correlate.model_readings.operator import build_operator, evaluate_rows
+from correlate.readers.fields import read_field
+from correlate.readers.model import EXODUS_HEX20, open_model
+from correlate.readers.study import Case
 
 
 def field_values(x: np.ndarray) -> np.ndarray:
@@ -58,7 +58,7 @@ def test_format_gives_the_vtu_readings(original, suffix, fmt):
     path = folder / f"model{suffix}"
     if fmt == "gmsh":
         # Gmsh stores 1, 3 or 9 components: write the full tensor, row-major (read as 9 components)
-        from correlate.tensors import from_voigt
+        from correlate.mechanics.tensors import from_voigt
 
         full = from_voigt(m.point_data["E"], ("xx", "yy", "zz", "xy", "yz", "xz")).reshape(-1, 9)
         m = meshio.Mesh(m.points, m.cells, point_data={"E": full})

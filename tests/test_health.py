@@ -1,4 +1,4 @@
-"""Tests of correlate.health on synthetic channels whose flags follow from closed forms.
+"""Tests of correlate.measurement.health on synthetic channels whose flags follow from closed forms.
 
 Each channel is a known function of the load; the expected span, residual, regression residual or
 loading/unloading gap is worked out by hand (stated beside the check) or with numpy.linalg.lstsq.
@@ -10,8 +10,14 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from correlate.errors import ReadingsFormatError, StudyError
-from correlate.health import DEFAULTS, DROPS, FLAG_COLUMNS, assess_channels, load_direction
+from correlate.core.errors import ReadingsFormatError, StudyError
+from correlate.measurement.health import (
+    DEFAULTS,
+    DROPS,
+    FLAG_COLUMNS,
+    assess_channels,
+    load_direction,
+)
 
 # One load cycle with a tare row and a return to zero: 0 (tare), up to 5, back to 0.
 CYCLE = np.array([0.0, 1, 2, 3, 4, 5, 4, 3, 2, 1, 0])

@@ -27,7 +27,7 @@ from pathlib import Path
 import pytest
 from conftest import block_readings, default_gauges, write_small_study
 
-from correlate.cli import main
+from correlate.commands.cli import main
 
 pytestmark = pytest.mark.skipif(not Path(f"/proc/{os.getpid()}/wchan").exists(),
                                 reason="needs Linux /proc/<pid>/wchan to see the paused run")

@@ -1,4 +1,4 @@
-"""Tests of correlate.io.readings: gauge readings per load step from data-acquisition CSV files.
+"""Tests of correlate.readers.readings: gauge readings per load step from data-acquisition CSV files.
 
 All files are invented examples written to tmp_path. Expected numbers come from Python's built-in
 float() applied to the same decimal text (a correctly rounded decimal-to-binary conversion, IEEE 754
@@ -15,9 +15,9 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from correlate.errors import CorrelateWarning, ReadingsFormatError
-from correlate.io import readings as readings_module
-from correlate.io.readings import Readings, read_readings
+from correlate.core.errors import CorrelateWarning, ReadingsFormatError
+from correlate.readers import readings as readings_module
+from correlate.readers.readings import Readings, read_readings
 
 GAUGES = {"SG-01": "SG-01", "SG-02": "SG-02", "SG-03": "SG-03"}
 HEADER = ("step", "load_kN", "SG-01", "SG-02", "SG-03")

@@ -5,8 +5,14 @@ from __future__ import annotations
 import numpy as np
 from conftest import SOLID_TYPES, solid_mesh
 
-from correlate import elements
-from correlate.locate import Locator, _boundary_faces, build_surface, cell_size, nodes_near
+from correlate.mechanics import elements
+from correlate.model_readings.locator import (
+    Locator,
+    _boundary_faces,
+    build_surface,
+    cell_size,
+    nodes_near,
+)
 
 
 def test_boundary_faces_agree_with_counting_shared_faces():
@@ -116,7 +122,7 @@ def test_partial_shell_surface_gives_the_closest_points_of_a_flat_panel():
     # clamped into it (closed form). Shell cells are their own faces; near two gauges only a few
     # of them are kept, and a far point makes the locator take them all (tolerance 1e-9 of the
     # panel size, as for the box).
-    from correlate.io.model import Mesh
+    from correlate.readers.model import Mesh
 
     X, Y = np.meshgrid(np.linspace(0, 40, 81), np.linspace(0, 30, 61), indexing="ij")
     pts = np.c_[X.ravel(), Y.ravel(), np.full(X.size, 2.0)]

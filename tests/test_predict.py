@@ -10,9 +10,9 @@ import pandas as pd
 import pytest
 from conftest import SOLID_TYPES, gauge_frame, solid_mesh
 
-from correlate.errors import GaugeError, GaugeOutsideMeshError
-from correlate.io.model import Field
-from correlate.predict import build_operator, evaluate_rows
+from correlate.core.errors import GaugeError, GaugeOutsideMeshError
+from correlate.model_readings.operator import build_operator, evaluate_rows
+from correlate.readers.model import Field
 
 A0 = np.array([[4.0, 1.0, -0.5], [1.0, -2.0, 0.7], [-0.5, 0.7, 1.5]]) * 1e-4
 GRAD = np.array([[[1.0, 0.3, -0.2], [0.3, -0.4, 0.1], [-0.2, 0.1, 0.5]],

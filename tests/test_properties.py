@@ -23,13 +23,13 @@ from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 from scipy.spatial.transform import Rotation
 
-from correlate.config import SCHEMA, parse_study
-from correlate.errors import CorrelateError
-from correlate.io.gauges import KNOWN, validate_gauges
-from correlate.io.model import Field, Mesh
-from correlate.pipeline import band_limits
-from correlate.predict import build_operator, evaluate_rows
-from correlate.rosette import principal, reduce_grids
+from correlate.core.errors import CorrelateError
+from correlate.mechanics.rosette import principal, reduce_grids
+from correlate.model_readings.model import band_limits
+from correlate.model_readings.operator import build_operator, evaluate_rows
+from correlate.readers.gauges import KNOWN, validate_gauges
+from correlate.readers.model import Field, Mesh
+from correlate.readers.study import SCHEMA, parse_study
 
 FAST = {"derandomize": True, "deadline": None, "suppress_health_check": [HealthCheck.too_slow]}
 SIZE = (4.0, 3.0, 2.0)  # the conftest box: top face z = 2, outward normal +z

@@ -133,12 +133,12 @@ DIAGNOSES = pd.DataFrame({
 def build_correlation(folder: Path):
     """Run the study; the failure diagnosis (slow, tested in its own module) is replaced by a
     fixed table, which the report must show joined with '; '."""
-    import correlate.diagnosis
-    from correlate.config import read_study
-    from correlate.run import correlate_study
+    import correlate.comparison.evidence
+    from correlate.comparison.correlation import correlate_study
+    from correlate.readers.study import read_study
 
     with pytest.MonkeyPatch.context() as mp:
-        mp.setattr(correlate.diagnosis, "diagnose_failures",
+        mp.setattr(correlate.comparison.evidence, "diagnose_failures",
                    lambda *a, **k: DIAGNOSES.iloc[:0].copy())
         corr = correlate_study(read_study(write_study(folder)))
     corr.diagnoses = DIAGNOSES.copy()
@@ -330,8 +330,8 @@ def test_surface_vtp_holds_the_analytic_strain(report) -> None:
 
 def _correlate(folder: Path, gauges: str, readings: str, study: str):
     """Write a gauge map, readings and a study beside the model already in ``folder``; correlate."""
-    from correlate.config import read_study
-    from correlate.run import correlate_study
+    from correlate.comparison.correlation import correlate_study
+    from correlate.readers.study import read_study
 
     (folder / "gauges.csv").write_text(gauges)
     (folder / "readings.csv").write_text(readings)
@@ -341,7 +341,7 @@ def _correlate(folder: Path, gauges: str, readings: str, study: str):
 
 def test_surface_from_displacement_is_the_exact_strain(tmp_path: Path) -> None:
     """A displacement case: the surface carries the small strain of each cell (linear field)."""
-    from correlate.report.render import model_surface
+    from correlate.report.scene import model_surface
 
     rng = np.random.default_rng(11)
     G = rng.normal(0.0, 5e-4, (3, 3))
@@ -368,7 +368,7 @@ def test_surface_of_a_series_case_interpolates_between_fe_steps(tmp_path: Path) 
     interpolated linearly in load between the neighbouring FE steps, as the run pairs readings."""
     from conftest import solid_mesh
 
-    from correlate.report.render import model_surface, reference_index
+    from correlate.report.scene import model_surface, reference_index
 
     mesh = solid_mesh("hexahedron", n=(4, 3, 2))
     base = np.zeros((len(mesh.points), 6))

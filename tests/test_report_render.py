@@ -72,10 +72,10 @@ def _reading(centre, direction) -> float:
 
 @pytest.fixture(scope="module")
 def rendered(tmp_path_factory: pytest.TempPathFactory):
-    import correlate.diagnosis
-    from correlate.config import read_study
-    from correlate.report.render import render_views
-    from correlate.run import correlate_study
+    import correlate.comparison.evidence
+    from correlate.comparison.correlation import correlate_study
+    from correlate.readers.study import read_study
+    from correlate.report.scene import render_views
 
     folder = tmp_path_factory.mktemp("render")
     _slotted_block(folder / "block.vtu")
@@ -99,8 +99,8 @@ def rendered(tmp_path_factory: pytest.TempPathFactory):
         '[[override]]\ngauge = "W1"\naction = "exclude"\nreason = "debonded"\n')
     with pytest.MonkeyPatch.context() as mp:
         # failure diagnosis is slow and tested in its own module; the views do not use it
-        mp.setattr(correlate.diagnosis, "diagnose_failures",
-                   lambda *a, **k: correlate.diagnosis.pd.DataFrame(
+        mp.setattr(correlate.comparison.evidence, "diagnose_failures",
+                   lambda *a, **k: correlate.comparison.evidence.pd.DataFrame(
                        columns=["gauge", "explanation", "detail"]))
         corr = correlate_study(read_study(folder / "study.toml"))
     out = folder / "views"
@@ -149,7 +149,7 @@ def test_views_have_the_requested_size_and_are_not_blank(rendered) -> None:
 def test_each_visible_gauge_shows_its_discrepancy_colour(rendered) -> None:
     from matplotlib import colormaps
 
-    from correlate.report.render import GREY
+    from correlate.report.scene import GREY
 
     corr, result, out = rendered
     ref = 2                                             # the 10 kN step: largest readings

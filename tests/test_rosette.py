@@ -1,4 +1,4 @@
-"""Tests of correlate.rosette against published rosette formulas, worked examples and numpy."""
+"""Tests of correlate.mechanics.rosette against published rosette formulas, worked examples and numpy."""
 
 from __future__ import annotations
 
@@ -6,9 +6,9 @@ import numpy as np
 import pytest
 from scipy.spatial.transform import Rotation
 
-from correlate import rosette
-from correlate.errors import GaugeError
-from correlate.rosette import (
+from correlate.core.errors import GaugeError
+from correlate.mechanics import rosette
+from correlate.mechanics.rosette import (
     check_angles,
     grid_angles,
     plane_stress,
@@ -314,7 +314,7 @@ def test_degeneracy_check_does_not_depend_on_which_grid_is_a():
     # The same three directions must be accepted or refused whatever grid comes first: rotating
     # every angle by a constant is an orthogonal change of (cos 2t, sin 2t) (double-angle
     # identities), so the condition number in that basis is invariant.
-    from correlate.rosette import check_angles
+    from correlate.mechanics.rosette import check_angles
 
     base = np.array([0.0, 3.0, 110.0])
     for k in range(3):

@@ -15,9 +15,9 @@ import pytest
 from conftest import write_block_study
 from scipy import stats as sps
 
-from correlate.cli import main
-from correlate.config import read_study
-from correlate.pipeline import predict_table, prepare
+from correlate.commands.cli import main
+from correlate.model_readings.model import predict_table, prepare
+from correlate.readers.study import read_study
 
 RATIO = 1.05
 LOADS = [(0.3, 0.05), (2.5, 0.0), (5.0, 0.0), (7.5, 0.0), (10.0, 0.0), (10.0, 1.0), (10.0, 2.0),

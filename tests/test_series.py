@@ -9,8 +9,8 @@ import numpy as np
 import pandas as pd
 from conftest import default_gauges, solid_mesh
 
-from correlate.cli import main
-from correlate.series import interpolate_series, monotonic_segments
+from correlate.commands.cli import main
+from correlate.comparison.pairing import interpolate_series, monotonic_segments
 
 
 def test_interpolation_matches_numpy_interp():
@@ -98,7 +98,7 @@ def test_touched_rows_read_in_slices_equal_h5pys_own_selection(tmp_path, monkeyp
     # the same bytes are read.
     import h5py
 
-    from correlate.io import model as model_io
+    from correlate.readers import model as model_io
 
     rng = np.random.default_rng(4)
     data = rng.normal(size=(5000, 6))

@@ -6,12 +6,12 @@ import numpy as np
 import pytest
 from conftest import flat_panel, gauge_frame
 
-from correlate import elements
-from correlate.config import Case
-from correlate.errors import GaugeError
-from correlate.fields import read_field
-from correlate.io.model import Mesh, ModelSource
-from correlate.predict import build_operator, evaluate_rows
+from correlate.core.errors import GaugeError
+from correlate.mechanics import elements
+from correlate.model_readings.operator import build_operator, evaluate_rows
+from correlate.readers.fields import read_field
+from correlate.readers.model import Mesh, ModelSource
+from correlate.readers.study import Case
 
 
 def panel(ctype: str = "quad", flip: int | None = None, z0: float = 5.0) -> Mesh:
@@ -99,7 +99,7 @@ def test_gauge_on_the_wrong_face_is_diagnosed(tmp_path):
     import meshio
     import pandas as pd
 
-    from correlate.cli import main
+    from correlate.commands.cli import main
 
     mesh = panel("quad")
     f = fields(mesh)

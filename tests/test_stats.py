@@ -1,4 +1,4 @@
-"""Tests of correlate.stats against scipy, numpy, statsmodels and hand-worked data sets."""
+"""Tests of correlate.comparison.statistics against scipy, numpy, statsmodels and hand-worked data sets."""
 
 from __future__ import annotations
 
@@ -10,8 +10,7 @@ import statsmodels.api as sm
 from scipy import stats as sps
 from statsmodels.stats.outliers_influence import OLSInfluence
 
-from correlate.errors import ReadingsFormatError
-from correlate.stats import (
+from correlate.comparison.statistics import (
     area_metric,
     bland_altman,
     concordance,
@@ -19,6 +18,7 @@ from correlate.stats import (
     influence_by_gauge,
     per_gauge_fits,
 )
+from correlate.core.errors import ReadingsFormatError
 
 
 def _gauge_data(seed: int, n_gauges: int = 12, n_steps: int = 6, ratio: float = 1.0,

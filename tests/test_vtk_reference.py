@@ -6,8 +6,8 @@ import numpy as np
 import pytest
 from conftest import gauge_frame, solid_mesh
 
-from correlate.io.model import Field
-from correlate.predict import build_operator, evaluate_rows
+from correlate.model_readings.operator import build_operator, evaluate_rows
+from correlate.readers.model import Field
 
 
 @pytest.mark.parametrize("ctype,curve,rtol", [("tetra", 0.0, 1e-10), ("hexahedron", 0.0, 1e-10),

@@ -1,7 +1,7 @@
 """The correlation report: ``write_report(corr, folder)`` writes report.html and its files.
 
 See :mod:`correlate.report.document` (HTML), :mod:`correlate.report.figures` (matplotlib plots)
-and :mod:`correlate.report.render` (PyVista 3D views and VTK files).
+and :mod:`correlate.report.scene` (PyVista 3D views and VTK files).
 """
 
 from __future__ import annotations

@@ -1,6 +1,6 @@
 """The correlation report: one self-contained HTML file, its pictures and VTK files.
 
-Stage: report. In: a :class:`~correlate.run.Correlation` and an output folder. Out, in that folder:
+Stage: report. In: a :class:`~correlate.comparison.correlation.Correlation` and an output folder. Out, in that folder:
 ``report.html`` (every picture inline as a ``data:`` PNG, the CSS inline, no external request),
 the pictures as PNG files beside it (``view_*.png``, ``scatter.png``, ``load_strain_*.png``,
 ``rosettes.png``), ``gauges.vtp`` and ``surface.vtp``.
@@ -22,7 +22,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from correlate.report import figures
-from correlate.report.render import Rendering, reference_index, render_views, write_vtk
+from correlate.report.scene import Rendering, reference_index, render_views, write_vtk
 
 HERE = Path(__file__).parent
 CAUTION = ("These results support, but do not replace, engineering judgement, the applicable codes "
@@ -173,7 +173,7 @@ def _rosettes(corr: Any, ref: int) -> tuple[list[dict[str, str]], list[dict[str,
     table = corr.rosettes
     if table is None or not len(table):
         return [], []
-    from correlate.rosettes import rosette_angles
+    from correlate.comparison.rosettes import rosette_angles
 
     steps = corr.steps
     at = table[(table["step"] == steps.step[ref]) & (table["sequence"] == steps.sequence[ref])]
@@ -236,13 +236,13 @@ def write_report(corr: Any, folder: Path) -> None:
     Parameters
     ----------
     corr : Correlation
-        Everything the run computed (:func:`correlate.run.correlate_study`).
+        Everything the run computed (:func:`correlate.comparison.correlation.correlate_study`).
     folder : Path
         An existing folder (the run's staging folder).
     """
     from jinja2 import Environment, FileSystemLoader, StrictUndefined
 
-    from correlate.health import load_direction
+    from correlate.measurement.health import load_direction
 
     folder = Path(folder)
     study, steps, summary = corr.study, corr.steps, corr.summary

@@ -1,6 +1,6 @@
 """Report figures (matplotlib, Agg canvas): scatter, load-strain curves and rosette directions.
 
-Stage: report. In: numpy arrays taken from a :class:`~correlate.run.Correlation` by
+Stage: report. In: numpy arrays taken from a :class:`~correlate.comparison.correlation.Correlation` by
 :mod:`correlate.report.document`. Out: PNG files. Figures are drawn on their own ``Figure`` with an
 Agg canvas, so no global pyplot state or display is touched.
 
@@ -185,7 +185,7 @@ def plot_load_strain(load: NDArray, load_label: str, direction: NDArray, sequenc
     load : ndarray, shape (s,)
         The tared load of each step on the horizontal axis.
     direction : ndarray of int, shape (s,)
-        +1 loading, -1 unloading, 0 neither (see :func:`correlate.health.load_direction`).
+        +1 loading, -1 unloading, 0 neither (see :func:`correlate.measurement.health.load_direction`).
     sequence : ndarray, shape (s,)
         Load sequence of each step; each sequence is drawn as its own path in step order.
     measured, predicted : ndarray, shape (s, g)

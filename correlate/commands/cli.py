@@ -1,0 +1,126 @@
+"""Command line: argument parsing and exit codes only; the work is in pipeline and report.
+
+Exit codes: 0 done; 2 a problem with the user's input (one line per problem); 3 a gate failed;
+1 an internal error (one line and "rerun with --debug").
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import traceback
+import warnings
+from pathlib import Path
+
+from correlate._version import __version__
+
+EXIT_OK, EXIT_INTERNAL, EXIT_INPUT, EXIT_GATE = 0, 1, 2, 3
+
+
+def _parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(
+        prog="correlate",
+        description="Correlate a finite-element model with strain-gauge readings from a test.",
+        epilog="Results support, but do not replace, engineering judgement, the applicable codes "
+               "and licensed practice.")
+    p.add_argument("--version", action="version", version=f"correlate {__version__}")
+    p.add_argument("--debug", action="store_true", help="show the traceback of internal errors")
+    p.add_argument("--quiet", action="store_true", help="no progress bars")
+    p.add_argument("--timings", action="store_true",
+                   help="print the time of each stage on stderr at the end")
+    sub = p.add_subparsers(dest="command", metavar="COMMAND")
+
+    c = sub.add_parser("check", help="read a study and report every problem, and where each "
+                                     "gauge landed")
+    c.add_argument("study", type=Path, help="study file (TOML)")
+
+    pr = sub.add_parser("predict", help="model readings of every gauge (before the test)")
+    pr.add_argument("study", type=Path)
+    pr.add_argument("--out", type=Path, required=True, help="output folder")
+    pr.add_argument("--force", action="store_true", help="replace an existing output folder")
+
+    r = sub.add_parser("run", help="correlate the test readings with the model")
+    r.add_argument("study", type=Path)
+    r.add_argument("--out", type=Path, required=True, help="output folder")
+    r.add_argument("--force", action="store_true", help="replace an existing output folder")
+    r.add_argument("--no-report", action="store_true", help="tables only, no report.html")
+
+    d = sub.add_parser("demo", help="run the invented demo campaign end to end")
+    d.add_argument("--out", type=Path, default=Path("correlate-demo"),
+                   help="working folder (default ./correlate-demo)")
+    d.add_argument("--force", action="store_true", help="replace an existing working folder")
+
+    cm = sub.add_parser("compare", help="compare two run folders (model revisions, same test)")
+    cm.add_argument("old", type=Path)
+    cm.add_argument("new", type=Path)
+    cm.add_argument("--out", type=Path, help="folder for compare.csv and compare.html")
+    cm.add_argument("--force", action="store_true")
+    cm.add_argument("--fail-if-worse", action="store_true", help="exit 3 when the new run is worse")
+    cm.add_argument("--slope-tol", type=float, default=0.01,
+                    help="worse if |slope_origin - 1| grows by more than this (default 0.01)")
+    cm.add_argument("--rms-tol", type=float, default=0.05,
+                    help="worse if the RMS difference grows by more than this fraction (0.05)")
+    return p
+
+
+def _print_warnings(caught: list[warnings.WarningMessage]) -> None:
+    from correlate.core.errors import CorrelateWarning
+
+    seen = set()
+    for w in caught:
+        text = str(w.message)
+        if not issubclass(w.category, CorrelateWarning):
+            # a library's own warning ("invalid value encountered in divide") means nothing
+            # without its origin: name it, so that it can be traced and reported
+            text = f"{text} ({w.category.__name__} at {Path(w.filename).name}:{w.lineno})"
+        if text not in seen:
+            seen.add(text)
+            print(f"warning: {text}", file=sys.stderr)
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Run the command line; return the exit code."""
+    parser = _parser()
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:  # argparse exits 2 on usage errors, 0 on --help
+        return int(exc.code or 0)
+    if args.command is None:
+        parser.print_help()
+        return EXIT_INPUT
+    from correlate.core import progress
+    from correlate.core.errors import CorrelateError
+
+    progress.set_quiet(args.quiet)
+    progress.reset_timings()
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        warnings.filterwarnings("ignore", category=DeprecationWarning)
+        warnings.filterwarnings("ignore", category=FutureWarning)
+        try:
+            from correlate.commands import handlers as commands
+
+            code = getattr(commands, f"cmd_{args.command}")(args)
+        except CorrelateError as exc:
+            _print_warnings(caught)
+            for line in exc.problems:
+                print(f"error: {line}", file=sys.stderr)
+            return EXIT_INPUT
+        except KeyboardInterrupt:
+            print("interrupted; nothing was written", file=sys.stderr)
+            return 130
+        except Exception as exc:
+            _print_warnings(caught)
+            if args.debug:
+                traceback.print_exc()
+            print(f"internal error: {type(exc).__name__}: {exc}; rerun with --debug"
+                  + (" and report it" if args.debug else ""), file=sys.stderr)
+            return EXIT_INTERNAL
+    _print_warnings(caught)
+    if args.timings:
+        print(progress.timing_table(), file=sys.stderr)
+    return code
+
+
+if __name__ == "__main__":
+    sys.exit(main())

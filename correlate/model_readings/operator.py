@@ -1,0 +1,523 @@
+"""Model readings: what each gauge would indicate on the model.
+
+Stage: evaluation. In: a mesh, its surface locator, the gauge map and the study's placement
+settings. Out: a :class:`GaugeOperator` (located sample points and the weights that turn a field
+into readings), then per case the axial, transverse and indicated readings of every gauge, its
+centre (point) reading and the rows of its placement band.
+
+For every gauge the operator holds rows: 0 the nominal grid-averaged reading, 1 the reading from the
+centre point alone, then the placement-band samples (the centre moved by ``position_tol`` in eight
+directions on the surface, times the grid angle turned by 0 and +/- ``angle_tol``). Each row is the
+mean over Gauss-Legendre points along the grid, each re-snapped to the surface with its own normal.
+Because readings are linear in the field, cases are combined row by row first and the band (lowest
+and highest row) is taken after: min and max do not superpose.
+
+What a gauge indicates with transverse sensitivity Kt, calibrated on a material of Poisson's ratio
+nu0 (Vishay Micro-Measurements Tech Note TN-509):  e_ind = (e_a + Kt e_t) / (1 - nu0 Kt).
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+from numpy.typing import NDArray
+from scipy import sparse
+
+from correlate.core.errors import CorrelateWarning, GaugeError, GaugeOutsideMeshError, ModelError
+from correlate.mechanics import elements
+from correlate.model_readings.locator import (
+    Locator,
+    SurfacePoints,
+    build_surface,
+    cell_nodes,
+    cell_types,
+    locate_inside,
+    parent_coordinates,
+)
+from correlate.readers.model import Field, Mesh
+
+OUT_OF_PLANE_ERROR = 45.0    # degrees: refuse a grid direction further out of the tangent plane
+OUT_OF_PLANE_WARN = 10.0     # degrees: warn beyond this
+OVERHANG_COS = np.cos(np.radians(45.0))  # a grid point whose normal turns more has left the face
+BAND_DIRECTIONS = 8
+BAND_GRID_POINTS = 3
+SLIP_FRACTION = 0.02  # a grid point that slides back more than this share of the grid left its face
+
+
+@dataclass(frozen=True)
+class Placement:
+    """Where each gauge landed (one row per gauge, in gauge-map order)."""
+
+    table: pd.DataFrame     # gauge, element, cell_type, snap_distance, normal_x..z, dir_x..z, ...
+    normal: NDArray[np.float64]      # (g, 3) outward normal of the gauged face at the centre
+    direction: NDArray[np.float64]   # (g, 3) grid direction in the tangent plane
+    centre: NDArray[np.float64]      # (g, 3) the centre on the surface
+
+
+@dataclass(frozen=True)
+class GaugeOperator:
+    """Sample points and weights: field -> per-row axial and transverse strain.
+
+    ``row_gauge[r]``: gauge index of row r; ``row_kind[r]``: 0 nominal, 1 centre point, 2 band.
+    ``weights`` (rows x points) averages sample points into rows.
+    """
+
+    mesh: Mesh
+    placement: Placement
+    cell: NDArray[np.int64]          # (p,) global cell of each sample point
+    xi: NDArray[np.float64]          # (p, dim) natural coordinates in that cell
+    direction: NDArray[np.float64]   # (p, 3) grid direction at the point
+    transverse: NDArray[np.float64]  # (p, 3) in-plane transverse direction
+    face: NDArray[np.str_]           # (p,) "top", "bottom" or "" (shells with per-face arrays)
+    weights: sparse.csr_matrix
+    row_gauge: NDArray[np.int64]
+    row_kind: NDArray[np.int64]
+    row_offset: NDArray[np.float64]  # (r, 3): along-grid offset, across offset, angle [deg]
+    kt: NDArray[np.float64]          # (g,)
+    nu0: NDArray[np.float64]         # (g,)
+    invalid: NDArray[np.bool_]       # (g,) gauges whose grid left the face (non-strict builds)
+    _cache: dict
+
+    @property
+    def gauges(self) -> list[str]:
+        if "gauges" not in self._cache:
+            self._cache["gauges"] = list(self.placement.table["gauge"])
+        return self._cache["gauges"]
+
+
+def _unit(v: NDArray) -> NDArray:
+    return v / np.linalg.norm(v, axis=-1, keepdims=True)
+
+
+def _tangent(d: NDArray, n: NDArray, keep: NDArray | None = None) -> NDArray:
+    """d projected into the plane normal to n and normalised; rows where ``keep`` stay as d."""
+    t = d - np.sum(d * n, axis=-1, keepdims=True) * n
+    if keep is not None:
+        t = np.where(keep[:, None], d, t)
+    return _unit(t)
+
+
+def _face_normal_sign(mesh: Mesh, faces: NDArray[np.str_], normal: NDArray) -> NDArray:
+    """Outward normal of the gauged face: shells flip it for bottom; plane models face +z."""
+    if mesh.family == "shell":
+        return normal * np.where(faces == "bottom", -1.0, 1.0)[:, None]
+    if mesh.family == "plane":
+        return normal * np.sign(normal[:, 2:3] + (normal[:, 2:3] == 0))
+    return normal
+
+
+def gauge_locator(mesh: Mesh, gauges: pd.DataFrame, *, snap_tol: float,
+                  position_tol: float = 0.0, band: bool = True) -> Locator:
+    """A surface locator with the boundary faces the gauges can reach (grid, band, snap).
+
+    Points beyond that region (a model search moving a gauge further) make the locator collect
+    the whole boundary once, so the result never depends on this choice; only the time does.
+    """
+    ptol = gauges["position_tol"].fillna(position_tol).to_numpy(dtype=float) if band else [0.0]
+    length = gauges["length"].to_numpy(dtype=float)
+    reach = snap_tol + float(np.max(ptol, initial=0.0)) + float(np.max(length, initial=0.0)) / 2
+    return Locator(mesh, build_surface(mesh, near=gauges[["x", "y", "z"]].to_numpy(dtype=float),
+                                       reach=reach))
+
+
+def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.0,
+                   angle_tol: float = 0.0, snap_tol: float = 1.0, calibration_poisson: float = 0.285,
+                   grid_points: int = 5, band: bool = True,
+                   locator: Locator | None = None, strict: bool = True,
+                   length_unit: str = "") -> GaugeOperator:
+    """Locate every gauge and build its sampling operator.
+
+    Parameters
+    ----------
+    mesh : Mesh
+    gauges : DataFrame
+        Validated gauge map (:func:`correlate.readers.gauges.validate_gauges`).
+    position_tol, angle_tol : float
+        Placement tolerances [length unit], [deg]; per-gauge columns override them.
+    snap_tol : float
+        Largest accepted distance from a gauge centre to the model surface. [length unit]
+    calibration_poisson : float
+        Poisson's ratio of the gauge manufacturer's calibration beam (nu0).
+    grid_points : int
+        Gauss-Legendre points along a grid of non-zero length.
+    strict : bool
+        Refuse a gauge whose grid overhangs an edge (default). When False (model searches), such a
+        gauge is marked in ``invalid`` and its readings are NaN.
+
+    Raises
+    ------
+    GaugeOutsideMeshError
+        A gauge farther than ``snap_tol`` from the surface (names the gauge and the distance).
+    GaugeError
+        A grid direction along the normal, a grid overhanging an edge, an unknown face.
+    """
+    names = gauges["gauge"].tolist()
+    n = len(names)
+    faces = gauges["face"].to_numpy(dtype=str)
+    if mesh.family == "solid":
+        bad = [g for g, f in zip(names, faces, strict=True) if f]
+        if bad:
+            raise GaugeError(*[f"gauge '{g}' has face '{f}', but the model is a solid; face applies "
+                               "to shell models only: leave it blank" for g, f in
+                               zip(names, faces, strict=True) if f])
+    if locator is None:
+        locator = gauge_locator(mesh, gauges, snap_tol=snap_tol, position_tol=position_tol,
+                                band=band)
+    centre_in = gauges[["x", "y", "z"]].to_numpy(dtype=float)
+    d_in = gauges[["dir_x", "dir_y", "dir_z"]].to_numpy(dtype=float)
+    prefer = gauges[["normal_x", "normal_y", "normal_z"]].to_numpy(dtype=float)
+    embedded = gauges["mount"].to_numpy(dtype=str) == "embedded"
+
+    def project(points: NDArray, pref: NDArray | None = None) -> tuple[SurfacePoints, NDArray]:
+        sp = locator.project(points, prefer=pref)
+        return sp, parent_coordinates(mesh, sp)
+
+    sp, xi_c = project(centre_in, prefer)
+    problems = []
+    for i in np.flatnonzero((sp.distance > snap_tol) & ~embedded):
+        unit = f" {length_unit}" if length_unit else ""
+        problems.append(f"gauge '{names[i]}' is {sp.distance[i]:.3g}{unit} from the model surface "
+                        f"(snap_tol {snap_tol:g}{unit}); check the gauge coordinates and length_unit, or "
+                        "raise snap_tol in [gauges]")
+    if problems:
+        raise GaugeOutsideMeshError(*problems)
+    normal = _face_normal_sign(mesh, faces, sp.normal)
+    centre = np.where(embedded[:, None], centre_in, sp.point)
+    cell_c = sp.cell.copy()
+    if embedded.any():
+        if mesh.family != "solid":
+            raise GaugeError("mount = embedded applies to solid models only")
+        cells_e, xi_e = locate_inside(mesh, centre_in[embedded], [names[i] for i in
+                                                                   np.flatnonzero(embedded)])
+        cell_c[embedded] = cells_e
+        xi_c = xi_c.copy()
+        xi_c[embedded] = xi_e
+    # grid direction in the tangent plane
+    cos_out = np.abs(np.sum(d_in * normal, axis=1))
+    out_deg = np.degrees(np.arcsin(np.clip(cos_out, 0, 1)))
+    for i in np.flatnonzero(~embedded & (out_deg > OUT_OF_PLANE_ERROR)):
+        problems.append(f"gauge '{names[i]}': grid direction is {out_deg[i]:.0f} degrees out of the "
+                        f"surface plane (limit {OUT_OF_PLANE_ERROR:.0f}); it points along the surface "
+                        "normal: check dir_x, dir_y, dir_z or the face the gauge is on")
+    if problems:
+        raise GaugeError(*problems)
+    warn = [names[i] for i in np.flatnonzero(~embedded & (out_deg > OUT_OF_PLANE_WARN))]
+    if warn:
+        warnings.warn(f"grid directions more than {OUT_OF_PLANE_WARN:.0f} degrees out of the surface "
+                      f"plane were projected into it: {', '.join(warn)}", CorrelateWarning,
+                      stacklevel=2)
+    direction = _tangent(d_in, normal, embedded)
+    across = np.cross(normal, direction)
+
+    ptol = gauges["position_tol"].fillna(position_tol).to_numpy(dtype=float) if band else np.zeros(n)
+    atol = gauges["angle_tol"].fillna(angle_tol).to_numpy(dtype=float) if band else np.zeros(n)
+    length = gauges["length"].to_numpy(dtype=float)
+    kt = gauges["kt"].to_numpy(dtype=float)
+    nu0 = gauges["nu0"].fillna(calibration_poisson).to_numpy(dtype=float)
+
+    # rows: nominal, point, band samples (position offset on a circle x angle)
+    row_gauge, row_kind, row_off = _rows(ptol * ~embedded, atol)
+    n_rows = len(row_gauge)
+
+    # row centres and directions
+    rc = centre[row_gauge] + row_off[:, :1] * direction[row_gauge] + row_off[:, 1:2] * across[row_gauge]
+    moved = (row_off[:, 0] != 0) | (row_off[:, 1] != 0)
+    rn = normal[row_gauge].copy()
+    rcell, rxi = cell_c[row_gauge], xi_c[row_gauge]  # where each row centre is
+    if moved.any():
+        spm, rxi[moved] = project(rc[moved], normal[row_gauge[moved]])
+        rc[moved] = spm.point
+        rcell[moved] = spm.cell
+        rn[moved] = _face_normal_sign(mesh, faces[row_gauge[moved]], spm.normal)
+    rd = _tangent(direction[row_gauge], rn, embedded[row_gauge])
+    theta = np.radians(row_off[:, 2])[:, None]
+    rd = np.cos(theta) * rd + np.sin(theta) * np.cross(rn, rd)
+
+    # sample points along each row's grid: Gauss-Legendre points, or the centre alone. Band rows
+    # use at most BAND_GRID_POINTS (3-point Gauss is exact to degree 5 along the grid): they bound
+    # a tolerance, and they are most of the points.
+    row_len = np.where(row_kind != 1, length[row_gauge], 0.0)
+    n_gp = np.where(row_kind == 2, min(grid_points, BAND_GRID_POINTS), grid_points)
+    count = np.where(row_len > 0, n_gp, 1)
+    p_row = np.repeat(np.arange(n_rows), count)
+    first = np.cumsum(count) - count
+    k = np.arange(len(p_row)) - first[p_row]              # index of the point within its row
+    p_s = np.zeros(len(p_row))
+    p_w = np.ones(len(p_row))
+    for m in np.unique(count[count > 1]):
+        gp, gw = np.polynomial.legendre.leggauss(int(m))
+        sel = count[p_row] == m
+        p_s[sel] = gp[k[sel]] * row_len[p_row[sel]] / 2
+        p_w[sel] = gw[k[sel]] / 2
+    p_emb = embedded[row_gauge[p_row]]
+    p_x = rc[p_row] + p_s[:, None] * rd[p_row]
+    p_cell = rcell[p_row].copy()
+    p_xi = np.zeros((len(p_row), rxi.shape[1]))
+    p_n = rn[p_row].copy()
+    # the zero-offset point of each row is the row centre, located already
+    at_centre = p_s == 0
+    p_xi[at_centre] = rxi[p_row[at_centre]]
+    need = ~at_centre & ~p_emb
+    valid_row = np.ones(n_rows, dtype=bool)
+    invalid = np.zeros(n, dtype=bool)
+    if need.any():
+        spg, xig = project(p_x[need], rn[p_row[need]])
+        new_n = _face_normal_sign(mesh, faces[row_gauge[p_row[need]]], spg.normal)
+        turned = np.sum(new_n * rn[p_row[need]], axis=1) < OVERHANG_COS
+        off = spg.distance > max(snap_tol, 1e-9)
+        # a point past an edge snaps back along the grid; on a curved face it moves along the normal
+        slip = np.abs(np.sum((spg.point - p_x[need]) * rd[p_row[need]], axis=1))
+        slipped = slip > SLIP_FRACTION * length[row_gauge[p_row[need]]] + 1e-9 * locator.surface.scale
+        bad_pt = turned | off | slipped
+        p_x[need] = spg.point
+        p_cell[need] = spg.cell
+        p_xi[need] = xig
+        p_n[need] = new_n
+        bad_rows = np.unique(p_row[need][bad_pt])
+        nominal_bad = bad_rows[row_kind[bad_rows] == 0]
+        if len(nominal_bad) and not strict:
+            invalid[row_gauge[nominal_bad]] = True
+            bad_rows = bad_rows[row_kind[bad_rows] != 0]
+        elif len(nominal_bad):
+            flipped = set(p_row[need][turned & (np.sum(new_n * rn[p_row[need]], axis=1) < 0)])
+            lines = []
+            for r in nominal_bad:
+                gname = names[row_gauge[r]]
+                if mesh.family == "shell" and r in flipped:
+                    lines.append(f"gauge '{gname}': its grid crosses shell elements with opposed "
+                                 "normals, so top and bottom swap under it; orient the shell "
+                                 "normals consistently in the model")
+                else:
+                    lines.append(f"gauge '{gname}': its grid (length {length[row_gauge[r]]:g}) "
+                                 "overhangs an edge of the face it is on; check the position, "
+                                 "direction and length")
+            raise GaugeError(*lines)
+        valid_row[bad_rows] = False
+    if (need & p_emb).any():
+        raise GaugeError("embedded gauges with a grid length are not supported; give length 0")
+    p_d = _tangent(rd[p_row], p_n, p_emb)
+    p_t = np.cross(p_n, p_d)
+    keep_pt = valid_row[p_row]
+    # drop band rows whose grid left the face (a misplaced gauge cannot overhang an edge either)
+    keep_rows = np.flatnonzero(valid_row)
+    remap = -np.ones(n_rows, dtype=np.int64)
+    remap[keep_rows] = np.arange(len(keep_rows))
+    W = sparse.csr_matrix((p_w[keep_pt], (remap[p_row[keep_pt]], np.arange(keep_pt.sum()))),
+                          shape=(len(keep_rows), keep_pt.sum()))
+
+    # cells under the gauge itself (nominal and centre rows; band samples are what-ifs)
+    own = keep_pt & (row_kind[p_row] != 2)
+    _check_cells(mesh, p_cell[own], p_xi[own], [names[g] for g in row_gauge[p_row[own]]])
+    table = pd.DataFrame({
+        "gauge": names,
+        "element": cell_c,
+        "cell_type": cell_types(mesh, cell_c),
+        "snap_distance": np.where(embedded, 0.0, sp.distance),
+        "x": centre[:, 0], "y": centre[:, 1], "z": centre[:, 2],
+        "normal_x": normal[:, 0], "normal_y": normal[:, 1], "normal_z": normal[:, 2],
+        "dir_x": direction[:, 0], "dir_y": direction[:, 1], "dir_z": direction[:, 2],
+        "out_of_plane_deg": np.where(embedded, 0.0, out_deg),
+        "mount": np.where(embedded, "embedded", "surface"),
+        "face": faces,
+    })
+    placement = Placement(table=table, normal=normal, direction=direction, centre=centre)
+    return GaugeOperator(mesh=mesh, placement=placement, cell=p_cell[keep_pt], xi=p_xi[keep_pt],
+                         direction=p_d[keep_pt], transverse=p_t[keep_pt],
+                         face=faces[row_gauge[p_row[keep_pt]]], weights=W,
+                         row_gauge=row_gauge[keep_rows], row_kind=row_kind[keep_rows],
+                         row_offset=row_off[keep_rows], kt=kt, nu0=nu0, invalid=invalid,
+                         _cache={})
+
+
+DEGENERATE = 1e-9  # |det J| below this share of the cell's size (h^dim) is a collapsed cell
+
+
+def _jacobian_det(ctype: str, nodes: NDArray, xi: NDArray) -> NDArray:
+    """det J (3D cells) or the area scale |x_xi x x_eta| (2D cells) at xi."""
+    _, jac = elements._jacobian(ctype, nodes, xi)
+    if jac.shape[2] == 3:
+        return np.linalg.det(jac)
+    return np.linalg.norm(np.cross(jac[:, :, 0], jac[:, :, 1]), axis=1)
+
+
+def _check_cells(mesh: Mesh, cells: NDArray[np.int64], xi: NDArray[np.float64],
+                 gauges: list[str]) -> None:
+    """Refuse inverted or collapsed elements under a gauge (det J <= 0 or ~0 at a sample point
+    or at the cell centre)."""
+    block, row = cell_nodes(mesh, cells)
+    problems = {}
+    for b, (ctype, conn_b) in enumerate(mesh.blocks):
+        sel = np.flatnonzero(block == b)
+        if not len(sel):
+            continue
+        el = elements.ELEMENTS[str(ctype)]
+        nodes = mesh.points[conn_b[row[sel]]]
+        scale = np.linalg.norm(np.ptp(nodes, axis=1), axis=1) ** el.dim * DEGENERATE
+        det = _jacobian_det(str(ctype), nodes, xi[sel])
+        uniq, first, back = np.unique(row[sel], return_index=True, return_inverse=True)
+        centre = np.tile(el.reference_nodes.mean(axis=0), (len(uniq), 1))
+        det_c = _jacobian_det(str(ctype), nodes[first], centre)[back.ravel()]
+        collapsed = (np.abs(det) <= scale) | (np.abs(det_c) <= scale)
+        inverted = (el.dim == 3) & ((det < 0) | (det_c < 0)) & ~collapsed
+        for k in np.flatnonzero(collapsed | inverted):
+            i = sel[k]
+            what = "inverted (negative Jacobian)" if inverted[k] else \
+                "degenerate (collapsed: zero Jacobian)"
+            problems.setdefault((gauges[i], int(cells[i])), what)
+    if problems:
+        raise ModelError(*[f"gauge '{g}': element {c} under it is {what}; fix the mesh there "
+                           "before correlating" for (g, c), what in problems.items()])
+
+
+def _rows(ptol: NDArray, atol: NDArray) -> tuple[NDArray, NDArray, NDArray]:
+    """Operator rows of every gauge: nominal, centre point, then the band samples.
+
+    Band samples: the centre moved by ``ptol`` in BAND_DIRECTIONS directions (or not moved) times
+    the grid turned by -atol, 0, +atol (or not turned), less the unmoved, unturned one.
+    """
+    phis = np.linspace(0, 2 * np.pi, BAND_DIRECTIONS, endpoint=False)
+    unit = np.r_[[[0.0, 0.0]], np.c_[np.cos(phis), np.sin(phis)]]      # (1 + D, 2)
+    turn = np.array([0.0, -1.0, 1.0])
+    # every combination per gauge, masked by which tolerances it has
+    pos = np.repeat(unit, len(turn), axis=0)                            # (3 (1 + D), 2)
+    ang = np.tile(turn, len(unit))
+    n = len(ptol)
+    has_p = (ptol > 0)[:, None] | (np.arange(len(pos)) < len(turn))[None, :]
+    has_a = (atol > 0)[:, None] | (ang == 0)[None, :]
+    keep = has_p & has_a & ~((pos[:, 0] == 0) & (pos[:, 1] == 0) & (ang == 0))[None, :]
+    keep &= ~((np.arange(len(pos)) >= len(turn))[None, :] & ~(ptol > 0)[:, None])
+    g_band, c_band = np.nonzero(keep)
+    off_band = np.c_[pos[c_band] * ptol[g_band, None], ang[c_band] * atol[g_band]]
+    g_fixed = np.repeat(np.arange(n), 2)
+    kind_fixed = np.tile([0, 1], n)
+    gauge = np.r_[g_fixed, g_band]
+    kind = np.r_[kind_fixed, np.full(len(g_band), 2)]
+    off = np.r_[np.zeros((2 * n, 3)), off_band]
+    order = np.lexsort((np.arange(len(gauge)), gauge))                  # gauge by gauge
+    return gauge[order], kind[order], off[order]
+
+
+def _interpolation(op: GaugeOperator, *, gradient: bool) -> list[sparse.csr_matrix]:
+    """Sparse matrices (points x nodes): shape functions, or their x, y, z derivatives."""
+    key = "grad" if gradient else "values"
+    if key in op._cache:
+        return op._cache[key]
+    mesh = op.mesh
+    block, row = cell_nodes(mesh, op.cell)
+    n_pts, n_nodes = len(op.cell), len(mesh.points)
+    mats: list[list] = [[], [], []] if gradient else [[]]
+    for b, (ctype, conn_b) in enumerate(mesh.blocks):
+        sel = np.flatnonzero(block == b)
+        if not len(sel):
+            continue
+        conn = conn_b[row[sel]]
+        rows = np.repeat(sel, conn.shape[1])
+        if gradient:
+            dN, _ = elements.physical_gradients(str(ctype), mesh.points[conn], op.xi[sel])
+            for j in range(3):
+                mats[j].append((dN[:, :, j].ravel(), rows, conn.ravel()))
+        else:
+            N = elements.shape_functions(str(ctype), op.xi[sel])
+            mats[0].append((N.ravel(), rows, conn.ravel()))
+    out = []
+    for parts in mats:
+        v = np.concatenate([p[0] for p in parts])
+        r = np.concatenate([p[1] for p in parts])
+        c = np.concatenate([p[2] for p in parts])
+        out.append(sparse.csr_matrix((v, (r, c)), shape=(n_pts, n_nodes)))
+    op._cache[key] = out
+    return out
+
+
+def strain_at_points(op: GaugeOperator, field: Field) -> NDArray[np.float64]:
+    """Strain tensors (p, 3, 3) at the operator's sample points for one field.
+
+    Only the nodes or cells the operator touches are converted to tensors (the conversion is
+    row by row, and interpolation commutes with it).
+    """
+    index = field.index
+
+    def one(face: str) -> NDArray:
+        if field.kind == "displacement":
+            values = field.values[face] if isinstance(field.values, dict) else field.values
+            G = _interpolation(op, gradient=True)
+            if index is not None:
+                G = [g[:, index] for g in G]
+            H = np.stack([g @ values for g in G], axis=2)  # H[p, i, j] = du_i/dx_j
+            return 0.5 * (H + np.swapaxes(H, 1, 2))
+        if field.location == "cell":
+            return field.at(op.cell if index is None else _positions(index, op.cell, field), face)
+        touched = touched_rows(op)["point"]
+        ids = touched if index is None else _positions(index, touched, field)
+        N = op._cache["compact"]  # made with touched_rows: the interpolation on those nodes only
+        return (N @ field.at(ids, face).reshape(len(ids), 9)).reshape(-1, 3, 3)
+
+    if isinstance(field.data, dict):
+        out = np.zeros((len(op.cell), 3, 3))
+        for face in field.data:
+            sel = op.face == face
+            if face == "top":
+                sel = sel | (op.face == "")
+            out[sel] = one(face)[sel]
+        return out
+    return one("")
+
+
+def _positions(index: NDArray[np.int64], wanted: NDArray[np.int64], field: Field) -> NDArray:
+    """Positions of the wanted nodes/cells in a partial read holding only ``index``."""
+    pos = np.minimum(np.searchsorted(index, wanted), len(index) - 1)
+    if len(index) == 0 or (index[pos] != wanted).any():
+        raise ModelError(f"case '{field.case}': the rows read from '{field.array}' do not hold "
+                         "every node the gauges need (internal error; please report it)")
+    return pos
+
+
+def check_finite(op: GaugeOperator, field: Field, strain: NDArray) -> None:
+    """Refuse NaN or infinite values at any gauge."""
+    bad = ~np.isfinite(strain).all(axis=(1, 2))
+    if bad.any():
+        rows = np.unique(op.weights[:, np.flatnonzero(bad)].nonzero()[0])
+        gauges = sorted({op.gauges[g] for g in op.row_gauge[rows]})
+        raise ModelError(f"case '{field.case}': array '{field.array}' has NaN or infinite values at "
+                         f"gauge(s) {', '.join(gauges)}; check the result file there")
+
+
+def evaluate_rows(op: GaugeOperator, field: Field) -> dict[str, NDArray[np.float64]]:
+    """Axial, transverse and indicated strain [m/m] of every operator row for one field."""
+    eps = strain_at_points(op, field)
+    check_finite(op, field, eps)
+    ea = np.einsum("pi,pij,pj->p", op.direction, eps, op.direction)
+    et = np.einsum("pi,pij,pj->p", op.transverse, eps, op.transverse)
+    axial = op.weights @ ea
+    trans = op.weights @ et
+    kt = op.kt[op.row_gauge]
+    nu0 = op.nu0[op.row_gauge]
+    bad = op.invalid[op.row_gauge]
+    axial, trans = np.where(bad, np.nan, axial), np.where(bad, np.nan, trans)
+    return {"axial": axial, "transverse": trans, "indicated": (axial + kt * trans) / (1 - nu0 * kt)}
+
+
+def centre_strain(op: GaugeOperator, field: Field) -> NDArray[np.float64]:
+    """Full strain tensor (g, 3, 3) at each gauge centre (the point rows)."""
+    eps = strain_at_points(op, field)
+    point_rows = np.flatnonzero(op.row_kind == 1)
+    pts = op.weights[point_rows].indices
+    return eps[pts]
+
+
+def touched_rows(op: GaugeOperator) -> dict[str, NDArray[np.int64]]:
+    """The nodes and cells the operator reads (sorted): all a time-series step needs."""
+    if "touched" not in op._cache:
+        (N,) = _interpolation(op, gradient=False)
+        touched = np.zeros(N.shape[1], dtype=bool)  # a mask, not a sort: the rows are many
+        touched[N.indices] = True
+        nodes = np.flatnonzero(touched)
+        cols = (np.cumsum(touched) - 1)[N.indices]
+        # the interpolation on the touched nodes only (columns renumbered)
+        op._cache["compact"] = sparse.csr_matrix((N.data, cols, N.indptr),
+                                                 shape=(N.shape[0], len(nodes)))
+        op._cache["touched"] = {"point": nodes, "cell": np.unique(op.cell)}
+    return op._cache["touched"]
