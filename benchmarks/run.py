@@ -302,7 +302,8 @@ def case_b(clock: Clock, folder: Path, scale: float, rng) -> None:
 
 
 def case_c(clock: Clock, folder: Path, scale: float, rng) -> None:
-    from correlate.model_readings.operator import build_operator, evaluate_rows
+    from correlate.model_readings.evaluate import evaluate_rows
+from correlate.model_readings.operator import build_operator
     from correlate.readers.fields import read_field
     from correlate.readers.gauges import validate_gauges
     from correlate.readers.model import open_model
@@ -323,7 +324,8 @@ def case_d(clock: Clock, folder: Path, scale: float, rng) -> None:
     """A flat quad shell panel at z = 5 (not a plane model) with top and bottom arrays."""
     import meshio
 
-    from correlate.model_readings.operator import build_operator, evaluate_rows
+    from correlate.model_readings.evaluate import evaluate_rows
+from correlate.model_readings.operator import build_operator
     from correlate.readers.fields import read_field
     from correlate.readers.gauges import validate_gauges
     from correlate.readers.model import open_model

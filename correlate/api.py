@@ -11,8 +11,12 @@ from typing import Any
 
 import pandas as pd
 
+from correlate.model_readings.model import Model
+from correlate.model_readings.operator import build_operator, gauge_locator
+from correlate.model_readings.table import predict_table
 from correlate.readers.gauges import validate_gauges
-from correlate.readers.study import Case, Material
+from correlate.readers.model import from_meshio
+from correlate.readers.study import Case, Material, Study
 
 
 def _as_meshio(mesh: Any) -> Any:
@@ -63,11 +67,6 @@ def predict_readings(mesh: Any, gauges: pd.DataFrame, cases: Mapping[str, str | 
     >>> round(float(predict_readings(m, g, {"c": "E"})["predicted_ue"][0]), 3)
     1000.0
     """
-    from correlate.model_readings.model import Model, predict_table
-    from correlate.model_readings.operator import build_operator, gauge_locator
-    from correlate.readers.model import from_meshio
-    from correlate.readers.study import Study
-
     source = from_meshio(_as_meshio(mesh))
     text = gauges.astype(object).where(gauges.notna(), "").astype(str)
     gdf = validate_gauges(text, source="gauges")

@@ -16,7 +16,7 @@ import pytest
 
 os.environ.setdefault("MESA_SHADER_CACHE_DISABLE", "true")
 
-from correlate.mechanics import elements
+from correlate.mechanics import elements, mapping
 from correlate.readers.gauges import validate_gauges
 from correlate.readers.model import Mesh
 
@@ -55,7 +55,7 @@ def _orient(points: np.ndarray, ctype: str, conn: np.ndarray) -> np.ndarray:
     """Flip cells with a negative Jacobian at their centre (swap two corners consistently)."""
     el = elements.ELEMENTS[ctype]
     xi = np.tile(el.reference_nodes.mean(axis=0), (len(conn), 1))
-    _, det = elements.physical_gradients(ctype, points[conn], xi)
+    _, det = mapping.physical_gradients(ctype, points[conn], xi)
     bad = det < 0
     if ctype == "tetra":
         conn[bad] = conn[bad][:, [0, 2, 1, 3]]
@@ -83,7 +83,7 @@ def solid_mesh(ctype: str, n=(3, 2, 2), size=(4.0, 3.0, 2.0), curve: float = 0.0
         ref = elements.ELEMENTS[ctype].reference_nodes
         xi = np.tile(ref, (len(conn), 1))
         corners = np.repeat(pts[conn], len(ref), axis=0)
-        new = elements.map_to_physical(lin, corners, xi)
+        new = mapping.map_to_physical(lin, corners, xi)
         key = np.round(new, 9)
         uniq, inv = np.unique(key, axis=0, return_inverse=True)
         pts = uniq.astype(float)

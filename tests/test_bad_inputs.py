@@ -836,7 +836,8 @@ def test_rosette_at_valid_angles_passes_the_angle_check(tmp_path, capsys):
 def test_indicated_reference_agrees_with_the_tool(tmp_path):
     # Guards the helper the accepted-input tests rely on: the analytic readings of conftest are
     # what the tool predicts for the block (both from the same closed forms, no tool output used).
-    from correlate.model_readings.model import predict_table, prepare
+    from correlate.model_readings.model import prepare
+    from correlate.model_readings.table import predict_table
     from correlate.readers.study import read_study
 
     g = gauges3()

@@ -104,7 +104,7 @@ def real_runs(tmp_path_factory: pytest.TempPathFactory) -> Path:
 
     mp = pytest.MonkeyPatch()
     # the failure diagnosis is not read by compare and costs seconds per failing gauge
-    mp.setattr("correlate.comparison.evidence.diagnose_failures",
+    mp.setattr("correlate.comparison.correlation.diagnose_failures",
                lambda *a, **k: pd.DataFrame(columns=["gauge", "explanation", "detail",
                                                      "rms_before_ue", "rms_after_ue",
                                                      "plausible", "parameter"]))

@@ -17,8 +17,8 @@ import numpy as np
 import pytest
 import statsmodels.api as sm
 
+from correlate.comparison.criteria import Criterion
 from correlate.comparison.explanations import (
-    Criterion,
     GaugeEvidence,
     diagnose,
     diagnose_loads,

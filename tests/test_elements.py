@@ -10,6 +10,7 @@ from scipy.spatial.transform import Rotation
 
 from correlate.core.errors import ModelError
 from correlate.mechanics import elements as fe
+from correlate.mechanics import mapping as fmap
 from correlate.mechanics.elements import ELEMENTS
 
 ALL = list(ELEMENTS)
@@ -154,7 +155,7 @@ def test_constant_and_linear_fields_reproduced(name, curved):
     xi = _random_xi(name, rng, 30)
     c, d = rng.normal(size=3), 0.7
     n = fe.shape_functions(name, xi)
-    x = fe.map_to_physical(name, np.broadcast_to(nodes, (len(xi), *nodes.shape)), xi)
+    x = fmap.map_to_physical(name, np.broadcast_to(nodes, (len(xi), *nodes.shape)), xi)
     # round-off on values of order 10
     assert_allclose(n @ np.full(len(nodes), 3.5), 3.5, rtol=0, atol=1e-12)
     assert_allclose(n @ (nodes @ c + d), x @ c + d, rtol=0, atol=1e-12)
@@ -207,8 +208,8 @@ def test_natural_coordinates_recovers_xi_on_curved_cells(name):
     xi_true = _random_xi(name, rng, 40)
     xi_true[:5] = 1.2 * xi_true[:5] - 0.05  # a few points slightly outside: allowed, not clipped
     many = np.broadcast_to(nodes, (len(xi_true), *nodes.shape))
-    points = fe.map_to_physical(name, many, xi_true)
-    xi, converged = fe.natural_coordinates(name, many, points, max_iter=8)
+    points = fmap.map_to_physical(name, many, xi_true)
+    xi, converged = fmap.natural_coordinates(name, many, points, max_iter=8)
     assert converged.all()
     # Newton stops below tol=1e-12 in natural coordinates
     assert_allclose(xi, xi_true, rtol=0, atol=1e-12)
@@ -226,8 +227,8 @@ def test_natural_coordinates_agree_with_vtk_evaluate_position(name, atol):
     nodes, _ = _cell(name, rng, curved=0.3)
     xi_true = 0.9 * _random_xi(name, rng, 10)
     many = np.broadcast_to(nodes, (len(xi_true), *nodes.shape))
-    points = fe.map_to_physical(name, many, xi_true)
-    xi, _ = fe.natural_coordinates(name, many, points)
+    points = fmap.map_to_physical(name, many, xi_true)
+    xi, _ = fmap.natural_coordinates(name, many, points)
     cell, want = _vtk_grid_cell(name, nodes), []
     for p in points:
         pc = [0.0] * 3
@@ -241,7 +242,7 @@ def test_natural_coordinates_agree_with_vtk_evaluate_position(name, atol):
 
 def test_natural_coordinates_rejects_2d_cell_type():
     with pytest.raises(ModelError, match="quad8"):
-        fe.natural_coordinates("quad8", np.zeros((1, 8, 3)), np.zeros((1, 3)))
+        fmap.natural_coordinates("quad8", np.zeros((1, 8, 3)), np.zeros((1, 3)))
 
 
 def test_unknown_cell_type_is_named():
@@ -285,7 +286,7 @@ def test_gradient_of_linear_field_exact_on_curved_solids(name):
     nodes, _ = _cell(name, rng, curved=0.3)
     xi = _random_xi(name, rng, 25)
     c = rng.normal(size=3)
-    dn_dx, det = fe.physical_gradients(name, np.broadcast_to(nodes, (25, *nodes.shape)), xi)
+    dn_dx, det = fmap.physical_gradients(name, np.broadcast_to(nodes, (25, *nodes.shape)), xi)
     assert (det > 0).all()
     # round-off through a 3x3 inverse of a well-conditioned Jacobian
     assert_allclose(np.einsum("pni,n->pi", dn_dx, nodes @ c + 1.0), np.tile(c, (25, 1)),
@@ -303,8 +304,8 @@ def test_gradient_of_quadratic_displacement_and_detj_on_affine_solids(name):
     cmat = rng.normal(size=(3, 3))
     u_nodes = np.einsum("ni,kij,nj->nk", nodes, q, nodes) + nodes @ cmat.T
     many = np.broadcast_to(nodes, (25, *nodes.shape))
-    dn_dx, det = fe.physical_gradients(name, many, xi)
-    x = fe.map_to_physical(name, many, xi)
+    dn_dx, det = fmap.physical_gradients(name, many, xi)
+    x = fmap.map_to_physical(name, many, xi)
     want = np.einsum("kij,pj->pki", q + q.transpose(0, 2, 1), x) + cmat
     # round-off on gradients of order 10
     assert_allclose(np.einsum("pnj,nk->pkj", dn_dx, u_nodes), want, rtol=0, atol=1e-11)
@@ -324,19 +325,19 @@ def test_surface_gradient_on_tilted_flat_face(name):
     many = np.broadcast_to(nodes, (10, *nodes.shape))
     c = rng.normal(size=3)
     normal = rot[:, 2]
-    dn_dx, det = fe.physical_gradients(name, many, xi)
+    dn_dx, det = fmap.physical_gradients(name, many, xi)
     # round-off through the 2x2 metric inverse
     assert_allclose(np.einsum("pni,n->pi", dn_dx, nodes @ c),
                     np.tile(c - normal * (normal @ c), (10, 1)), rtol=0, atol=1e-12)
     assert_allclose(det, np.linalg.det(b), rtol=1e-13, atol=0)
-    assert_allclose(fe.face_normals(name, many, xi), np.tile(normal, (10, 1)), rtol=0, atol=1e-13)
+    assert_allclose(fmap.face_normals(name, many, xi), np.tile(normal, (10, 1)), rtol=0, atol=1e-13)
 
 
 def test_singular_jacobian_raises():
     nodes = np.zeros((1, 4, 3))
     nodes[0, 1] = [1, 0, 0]
     with pytest.raises(ModelError, match="singular"):
-        fe.physical_gradients("tetra", nodes, np.full((1, 3), 0.25))
+        fmap.physical_gradients("tetra", nodes, np.full((1, 3), 0.25))
 
 
 # --- 6. Closest point on a curved face -----------------------------------------------------------
@@ -385,12 +386,12 @@ def test_closest_point_above_curved_face(name):
     xi_true = centre + 0.8 * (_random_xi(name, rng, 8) - centre)
     many = np.broadcast_to(nodes, (8, *nodes.shape))
     d = rng.uniform(-0.15, 0.15, 8)
-    points = fe.map_to_physical(name, many, xi_true) + d[:, None] * fe.face_normals(
+    points = fmap.map_to_physical(name, many, xi_true) + d[:, None] * fmap.face_normals(
         name, many, xi_true)
-    xi, x, dist = fe.closest_point_on_face(name, many, points)
+    xi, x, dist = fmap.closest_point_on_face(name, many, points)
     assert_allclose(xi, xi_true, rtol=0, atol=1e-9)  # Gauss-Newton stops at 1e-12 steps
     assert_allclose(dist, np.abs(d), rtol=0, atol=1e-12)
-    assert_allclose(x, fe.map_to_physical(name, many, xi), rtol=0, atol=1e-15)
+    assert_allclose(x, fmap.map_to_physical(name, many, xi), rtol=0, atol=1e-15)
     want = [_reference_distance(name, nodes, p) for p in points]
     assert_allclose(dist, want, rtol=0, atol=1e-9)  # face size is about 1-2
 
@@ -406,17 +407,17 @@ def test_straight_quadratic_faces_take_the_linear_face_and_agree(name, monkeypat
     rot = Rotation.from_rotvec([0.3, -0.5, 0.2]).as_matrix()
     flat = np.column_stack([e.reference_nodes, np.zeros(e.n_nodes)]) @ rot.T + [1.0, 2.0, 3.0]
     faces = np.stack([flat, _curved_face(name)] * 6)
-    assert fe._straight(name, faces).tolist() == [True, False] * 6
+    assert fmap._straight(name, faces).tolist() == [True, False] * 6
     # near the faces (as gauge points are): far above a strongly curved face the closest point
     # need not be unique, and the iteration may stop at a local one
-    points = fe.map_to_physical(name, faces, _random_xi(name, rng, 12) * 1.2) + \
+    points = fmap.map_to_physical(name, faces, _random_xi(name, rng, 12) * 1.2) + \
         rng.normal(scale=0.05, size=(12, 3))
-    xi, x, dist = fe.closest_point_on_face(name, faces, points)
-    assert_allclose(x, fe.map_to_physical(name, faces, xi), rtol=0, atol=1e-12)
+    xi, x, dist = fmap.closest_point_on_face(name, faces, points)
+    assert_allclose(x, fmap.map_to_physical(name, faces, xi), rtol=0, atol=1e-12)
     want = [_reference_distance(name, f, p) for f, p in zip(faces, points, strict=True)]
     assert_allclose(dist, want, rtol=0, atol=1e-9)
-    monkeypatch.setattr(fe, "STRAIGHT_TOL", -1.0)
-    xi_q, x_q, dist_q = fe.closest_point_on_face(name, faces, points)
+    monkeypatch.setattr(fmap, "STRAIGHT_TOL", -1.0)
+    xi_q, x_q, dist_q = fmap.closest_point_on_face(name, faces, points)
     assert_allclose(xi, xi_q, rtol=0, atol=1e-12)  # the same natural coordinates
     assert_allclose(x, x_q, rtol=0, atol=1e-12)
     assert_allclose(dist, dist_q, rtol=0, atol=1e-12)
@@ -442,9 +443,9 @@ def test_closest_point_beyond_edge_lands_on_edge(name, where):
         foot = np.column_stack([np.ones(n), t])
         out = np.array([1.0, 0.0, 0.0]) if where == "edge" else np.array([1.0, 1.0, 0.0])
     many = np.broadcast_to(nodes, (n, *nodes.shape))
-    points = fe.map_to_physical(name, many, foot) + rng.uniform(0.2, 0.5, (n, 1)) * out
-    xi, x, dist = fe.closest_point_on_face(name, many, points)
-    assert_allclose(x, fe.map_to_physical(name, many, xi), rtol=0, atol=1e-15)  # on the face
+    points = fmap.map_to_physical(name, many, foot) + rng.uniform(0.2, 0.5, (n, 1)) * out
+    xi, x, dist = fmap.closest_point_on_face(name, many, points)
+    assert_allclose(x, fmap.map_to_physical(name, many, xi), rtol=0, atol=1e-15)  # on the face
     if name in SIMPLEX:
         assert_allclose(xi.sum(axis=1), 1.0, rtol=0, atol=1e-12)  # on the hypotenuse, exactly
     else:
@@ -479,9 +480,9 @@ def _face_integral(face_type: str, nodes: np.ndarray) -> tuple[float, float]:
         g, gw = np.polynomial.legendre.leggauss(2)
         pts, w = np.array([[a, b] for a in g for b in g]), np.outer(gw, gw).ravel()
     many = np.broadcast_to(nodes, (len(pts), *nodes.shape))
-    _, det = fe.physical_gradients(face_type, many, pts)
-    x = fe.map_to_physical(face_type, many, pts)
-    flux = np.einsum("pi,pi->p", x, fe.face_normals(face_type, many, pts))
+    _, det = fmap.physical_gradients(face_type, many, pts)
+    x = fmap.map_to_physical(face_type, many, pts)
+    flux = np.einsum("pi,pi->p", x, fmap.face_normals(face_type, many, pts))
     return float(w @ det), float(w @ (det * flux))
 
 
@@ -522,12 +523,12 @@ def test_face_to_parent_maps_face_nodes_and_geometry(name):
     nodes, _ = _cell(name, rng, curved=0.3)
     for k, (face_type, ids) in enumerate(e.faces):
         f = ELEMENTS[face_type]
-        assert_allclose(fe.face_to_parent(name, k, f.reference_nodes), e.reference_nodes[list(ids)],
+        assert_allclose(fmap.face_to_parent(name, k, f.reference_nodes), e.reference_nodes[list(ids)],
                         rtol=0, atol=1e-15)  # exact binary fractions up to round-off
         xi_f = _random_xi(face_type, rng, 10)
-        xi_p = fe.face_to_parent(name, k, xi_f)
+        xi_p = fmap.face_to_parent(name, k, xi_f)
         assert fe.inside_reference(name, xi_p).all()
-        via_parent = fe.map_to_physical(name, np.broadcast_to(nodes, (10, *nodes.shape)), xi_p)
-        via_face = fe.map_to_physical(face_type, np.broadcast_to(nodes[list(ids)],
+        via_parent = fmap.map_to_physical(name, np.broadcast_to(nodes, (10, *nodes.shape)), xi_p)
+        via_face = fmap.map_to_physical(face_type, np.broadcast_to(nodes[list(ids)],
                                                                  (10, len(ids), 3)), xi_f)
         assert_allclose(via_parent, via_face, rtol=0, atol=1e-13)  # round-off, size about 3

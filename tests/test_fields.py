@@ -10,7 +10,8 @@ from conftest import gauge_frame, solid_mesh
 
 from correlate.core.errors import ModelError
 from correlate.mechanics.tensors import from_voigt, strain_from_stress, stress_from_strain, to_voigt
-from correlate.model_readings.operator import build_operator, evaluate_rows
+from correlate.model_readings.evaluate import evaluate_rows
+from correlate.model_readings.operator import build_operator
 from correlate.readers.fields import read_field
 from correlate.readers.model import ModelSource
 from correlate.readers.study import Case, Material

@@ -13,7 +13,8 @@ import numpy as np
 import pytest
 from conftest import gauge_frame, solid_mesh
 
-from correlate.model_readings.operator import build_operator, evaluate_rows
+from correlate.model_readings.evaluate import evaluate_rows
+from correlate.model_readings.operator import build_operator
 from correlate.readers.fields import read_field
 from correlate.readers.model import EXODUS_HEX20, open_model
 from correlate.readers.study import Case

@@ -6,13 +6,8 @@ import numpy as np
 from conftest import SOLID_TYPES, solid_mesh
 
 from correlate.mechanics import elements
-from correlate.model_readings.locator import (
-    Locator,
-    _boundary_faces,
-    build_surface,
-    cell_size,
-    nodes_near,
-)
+from correlate.model_readings.locator import Locator
+from correlate.model_readings.surface import _boundary_faces, build_surface, cell_size, nodes_near
 
 
 def test_boundary_faces_agree_with_counting_shared_faces():

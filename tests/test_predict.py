@@ -11,7 +11,8 @@ import pytest
 from conftest import SOLID_TYPES, gauge_frame, solid_mesh
 
 from correlate.core.errors import GaugeError, GaugeOutsideMeshError
-from correlate.model_readings.operator import build_operator, evaluate_rows
+from correlate.model_readings.evaluate import evaluate_rows
+from correlate.model_readings.operator import build_operator
 from correlate.readers.model import Field
 
 A0 = np.array([[4.0, 1.0, -0.5], [1.0, -2.0, 0.7], [-0.5, 0.7, 1.5]]) * 1e-4

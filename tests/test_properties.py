@@ -25,8 +25,9 @@ from scipy.spatial.transform import Rotation
 
 from correlate.core.errors import CorrelateError
 from correlate.mechanics.rosette import principal, reduce_grids
-from correlate.model_readings.model import band_limits
-from correlate.model_readings.operator import build_operator, evaluate_rows
+from correlate.model_readings.evaluate import evaluate_rows
+from correlate.model_readings.operator import build_operator
+from correlate.model_readings.table import band_limits
 from correlate.readers.gauges import KNOWN, validate_gauges
 from correlate.readers.model import Field, Mesh
 from correlate.readers.study import SCHEMA, parse_study

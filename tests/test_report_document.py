@@ -133,12 +133,12 @@ DIAGNOSES = pd.DataFrame({
 def build_correlation(folder: Path):
     """Run the study; the failure diagnosis (slow, tested in its own module) is replaced by a
     fixed table, which the report must show joined with '; '."""
-    import correlate.comparison.evidence
+    import correlate.comparison.correlation
     from correlate.comparison.correlation import correlate_study
     from correlate.readers.study import read_study
 
     with pytest.MonkeyPatch.context() as mp:
-        mp.setattr(correlate.comparison.evidence, "diagnose_failures",
+        mp.setattr(correlate.comparison.correlation, "diagnose_failures",
                    lambda *a, **k: DIAGNOSES.iloc[:0].copy())
         corr = correlate_study(read_study(write_study(folder)))
     corr.diagnoses = DIAGNOSES.copy()
@@ -368,7 +368,7 @@ def test_surface_of_a_series_case_interpolates_between_fe_steps(tmp_path: Path) 
     interpolated linearly in load between the neighbouring FE steps, as the run pairs readings."""
     from conftest import solid_mesh
 
-    from correlate.report.scene import model_surface, reference_index
+    from correlate.report.scene import model_surface
 
     mesh = solid_mesh("hexahedron", n=(4, 3, 2))
     base = np.zeros((len(mesh.points), 6))
@@ -390,7 +390,7 @@ def test_surface_of_a_series_case_interpolates_between_fe_steps(tmp_path: Path) 
         '[[case]]\nname = "ramp"\nstrain = "E"\ntime_index = "all"\n'
         'match = { column = "F", value_at_time_1 = 10.0 }\n'
         '[gauges]\nfile = "gauges.csv"\n[readings]\nfile = "readings.csv"\n')
-    assert corr.steps.loads[reference_index(corr), 0] == 9.0
+    assert corr.steps.loads[corr.reference, 0] == 9.0
     surface, _ = model_surface(corr)
     # by hand: 9 kN is t = 0.9, between the FE steps at t = 0.75 and 1.0 (weights 0.4, 0.6)
     exx = (0.4 * 0.75 ** 1.5 + 0.6 * 1.0 ** 1.5) * 1000.0

@@ -72,7 +72,7 @@ def _reading(centre, direction) -> float:
 
 @pytest.fixture(scope="module")
 def rendered(tmp_path_factory: pytest.TempPathFactory):
-    import correlate.comparison.evidence
+    import correlate.comparison.correlation
     from correlate.comparison.correlation import correlate_study
     from correlate.readers.study import read_study
     from correlate.report.scene import render_views
@@ -99,8 +99,8 @@ def rendered(tmp_path_factory: pytest.TempPathFactory):
         '[[override]]\ngauge = "W1"\naction = "exclude"\nreason = "debonded"\n')
     with pytest.MonkeyPatch.context() as mp:
         # failure diagnosis is slow and tested in its own module; the views do not use it
-        mp.setattr(correlate.comparison.evidence, "diagnose_failures",
-                   lambda *a, **k: correlate.comparison.evidence.pd.DataFrame(
+        mp.setattr(correlate.comparison.correlation, "diagnose_failures",
+                   lambda *a, **k: correlate.comparison.correlation.pd.DataFrame(
                        columns=["gauge", "explanation", "detail"]))
         corr = correlate_study(read_study(folder / "study.toml"))
     out = folder / "views"
@@ -153,7 +153,7 @@ def test_each_visible_gauge_shows_its_discrepancy_colour(rendered) -> None:
 
     corr, result, out = rendered
     ref = 2                                             # the 10 kN step: largest readings
-    ev = corr.status["evaluated"][ref]
+    ev = corr.status.evaluated[ref]
     diff = corr.measured[ref] - corr.predicted[ref]
     limit = np.max(np.abs(diff[ev]))
     # reference: matplotlib's RdBu_r at the symmetric limits; grey for the excluded gauge

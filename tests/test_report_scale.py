@@ -16,7 +16,7 @@ def test_curves_keep_failing_and_flagged_then_largest_differences():
     words = ["pass"] * g
     words[7], words[250] = "fail", "dead"
     diff[1, 11] = 500.0                      # the largest difference at the reference step
-    corr = SimpleNamespace(gauges=[f"G{i}" for i in range(g)], status={"difference": diff})
+    corr = SimpleNamespace(gauges=[f"G{i}" for i in range(g)], status=SimpleNamespace(difference=diff))
     chosen = _curve_gauges(corr, words, ref=1)
     assert len(chosen) == MAX_CURVES and chosen == sorted(chosen)
     assert {7, 250, 11} <= set(chosen)
@@ -27,5 +27,5 @@ def test_curves_keep_failing_and_flagged_then_largest_differences():
 
 
 def test_few_gauges_all_get_curves():
-    corr = SimpleNamespace(gauges=["A", "B"], status={"difference": np.zeros((2, 2))})
+    corr = SimpleNamespace(gauges=["A", "B"], status=SimpleNamespace(difference=np.zeros((2, 2))))
     assert _curve_gauges(corr, ["pass", "fail"], ref=0) == [0, 1]

@@ -16,7 +16,8 @@ from conftest import write_block_study
 from scipy import stats as sps
 
 from correlate.commands.cli import main
-from correlate.model_readings.model import predict_table, prepare
+from correlate.model_readings.model import prepare
+from correlate.model_readings.table import predict_table
 from correlate.readers.study import read_study
 
 RATIO = 1.05

@@ -7,8 +7,9 @@ import pytest
 from conftest import flat_panel, gauge_frame
 
 from correlate.core.errors import GaugeError
-from correlate.mechanics import elements
-from correlate.model_readings.operator import build_operator, evaluate_rows
+from correlate.mechanics import elements, mapping
+from correlate.model_readings.evaluate import evaluate_rows
+from correlate.model_readings.operator import build_operator
 from correlate.readers.fields import read_field
 from correlate.readers.model import Mesh, ModelSource
 from correlate.readers.study import Case
@@ -19,7 +20,7 @@ def panel(ctype: str = "quad", flip: int | None = None, z0: float = 5.0) -> Mesh
     pts, quads = flat_panel(z0)
     if ctype == "quad8":
         ref = elements.ELEMENTS["quad8"].reference_nodes
-        new = elements.map_to_physical("quad", np.repeat(pts[quads], len(ref), axis=0),
+        new = mapping.map_to_physical("quad", np.repeat(pts[quads], len(ref), axis=0),
                                        np.tile(ref, (len(quads), 1)))
         uniq, inv = np.unique(np.round(new, 9), axis=0, return_inverse=True)
         pts, quads = uniq, inv.reshape(len(quads), len(ref))

@@ -6,7 +6,8 @@ import numpy as np
 import pytest
 from conftest import gauge_frame, solid_mesh
 
-from correlate.model_readings.operator import build_operator, evaluate_rows
+from correlate.model_readings.evaluate import evaluate_rows
+from correlate.model_readings.operator import build_operator
 from correlate.readers.model import Field
 
 

@@ -1,4 +1,8 @@
-"""Command line: argument parsing and exit codes only; the work is in pipeline and report.
+"""Command line: argument parsing, dispatch to the command modules, warnings and exit codes.
+
+Each command is a module of this folder with a ``run(args)`` handler (``check``, ``predict``,
+``run``, ``compare``, ``demo``). The handler's module is loaded by name after the arguments are
+parsed, so ``correlate --help`` and a usage error load no numerical library.
 
 Exit codes: 0 done; 2 a problem with the user's input (one line per problem); 3 a gate failed;
 1 an internal error (one line and "rerun with --debug").
@@ -7,12 +11,16 @@ Exit codes: 0 done; 2 a problem with the user's input (one line per problem); 3 
 from __future__ import annotations
 
 import argparse
+import importlib
 import sys
 import traceback
 import warnings
 from pathlib import Path
 
 from correlate._version import __version__
+from correlate.core import progress
+from correlate.core.errors import CorrelateError, CorrelateWarning
+from correlate.core.names import CAUTION
 
 EXIT_OK, EXIT_INTERNAL, EXIT_INPUT, EXIT_GATE = 0, 1, 2, 3
 
@@ -21,8 +29,7 @@ def _parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(
         prog="correlate",
         description="Correlate a finite-element model with strain-gauge readings from a test.",
-        epilog="Results support, but do not replace, engineering judgement, the applicable codes "
-               "and licensed practice.")
+        epilog=CAUTION)
     p.add_argument("--version", action="version", version=f"correlate {__version__}")
     p.add_argument("--debug", action="store_true", help="show the traceback of internal errors")
     p.add_argument("--quiet", action="store_true", help="no progress bars")
@@ -64,8 +71,6 @@ def _parser() -> argparse.ArgumentParser:
 
 
 def _print_warnings(caught: list[warnings.WarningMessage]) -> None:
-    from correlate.core.errors import CorrelateWarning
-
     seen = set()
     for w in caught:
         text = str(w.message)
@@ -88,9 +93,6 @@ def main(argv: list[str] | None = None) -> int:
     if args.command is None:
         parser.print_help()
         return EXIT_INPUT
-    from correlate.core import progress
-    from correlate.core.errors import CorrelateError
-
     progress.set_quiet(args.quiet)
     progress.reset_timings()
     with warnings.catch_warnings(record=True) as caught:
@@ -98,9 +100,7 @@ def main(argv: list[str] | None = None) -> int:
         warnings.filterwarnings("ignore", category=DeprecationWarning)
         warnings.filterwarnings("ignore", category=FutureWarning)
         try:
-            from correlate.commands import handlers as commands
-
-            code = getattr(commands, f"cmd_{args.command}")(args)
+            code = importlib.import_module(f"correlate.commands.{args.command}").run(args)
         except CorrelateError as exc:
             _print_warnings(caught)
             for line in exc.problems:

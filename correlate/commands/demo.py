@@ -1,4 +1,4 @@
-"""The `demo` command: copy the invented demo campaign to a working folder, check it, run it.
+"""`correlate demo`: copy the invented demo campaign to a working folder, check it, run it.
 
 The demo's model (a real FE solution of an invented bracket), gauge map and test log ship as package
 data, so it works after a plain ``pip install .`` with no solver.
@@ -11,7 +11,11 @@ import shutil
 from importlib import resources
 from pathlib import Path
 
+from correlate.commands.check import check_study
+from correlate.commands.run import print_summary, write_outputs
+from correlate.comparison.correlation import correlate_study
 from correlate.core.errors import OutputError
+from correlate.readers.study import read_study
 
 DEMO_FILES = ("study.toml", "gauges.csv", "readings.csv", "bracket.vtu", "README.txt")
 
@@ -21,11 +25,8 @@ def demo_folder() -> Path:
     return Path(str(resources.files("correlate") / "data" / "demo"))
 
 
-def demo_command(args: argparse.Namespace) -> int:
-    from correlate.comparison.correlation import correlate_study, print_summary, write_outputs
-    from correlate.model_readings.model import check_study
-    from correlate.readers.study import read_study
-
+def run(args: argparse.Namespace) -> int:
+    """Copy the demo campaign to ``--out``, check it and run it."""
     out = Path(args.out)
     if out.exists() and not args.force:
         raise OutputError(f"'{out}' exists; add --force to replace it or give another --out")

@@ -16,13 +16,25 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
+from correlate.comparison.criteria import Criterion, Statuses
+from correlate.comparison.explanations import (
+    GaugeEvidence,
+    diagnose,
+    diagnose_loads,
+    diagnose_rosette,
+)
+from correlate.comparison.pairing import Steps
+from correlate.comparison.rosettes import rosette_angles, rosette_groups
 from correlate.core.errors import CorrelateWarning
 from correlate.core.units import MICROSTRAIN
-from correlate.measurement.tare import Steps
+from correlate.mechanics.gauge import indicated_strain
+from correlate.model_readings.evaluate import centre_strain
+from correlate.model_readings.model import Model, case_rows
+from correlate.model_readings.operator import build_operator
 from correlate.readers.study import Study
 
 
-def _alternatives(study: Study, model: Any, steps: Steps, rows_by_case: dict, j: int
+def _alternatives(study: Study, model: Model, steps: Steps, rows_by_case: dict, j: int
                   ) -> dict[str, NDArray]:
     op = model.operator
     nominal = np.flatnonzero(op.row_kind == 0)[j]
@@ -34,8 +46,8 @@ def _alternatives(study: Study, model: Any, steps: Steps, rows_by_case: dict, j:
     ax = np.array([rows_by_case[c]["axial"][nominal] for c in names])
     tr = np.array([rows_by_case[c]["transverse"][nominal] for c in names])
     f = steps.factors * MICROSTRAIN
-    out = {"rotated_90": f @ ((tr + kt * ax) / (1 - nu0 * kt))}
-    out["no_kt"] = f @ (((ax + kt * tr) / (1 - nu0 * kt)) if study.kt_corrected else ax)
+    out = {"rotated_90": f @ indicated_strain(tr, ax, kt, nu0)}
+    out["no_kt"] = f @ (indicated_strain(ax, tr, kt, nu0) if study.kt_corrected else ax)
     other = _other_face(study, model, steps, j)
     if other is not None:
         out["other_face"] = other
@@ -45,10 +57,8 @@ def _alternatives(study: Study, model: Any, steps: Steps, rows_by_case: dict, j:
     return out
 
 
-def _other_face(study: Study, model: Any, steps: Steps, j: int) -> NDArray | None:
+def _other_face(study: Study, model: Model, steps: Steps, j: int) -> NDArray | None:
     """Readings of shell gauge j as if it were bonded on the other face (per-face arrays only)."""
-    from correlate.model_readings.model import case_rows
-    from correlate.model_readings.operator import build_operator
 
     face = model.gauges["face"].iloc[j]
     if model.operator.mesh.family != "shell" or face not in ("top", "bottom") or \
@@ -63,17 +73,15 @@ def _other_face(study: Study, model: Any, steps: Steps, j: int) -> NDArray | Non
                             grid_points=study.grid_points, locator=model.locator, strict=False)
     key = "axial" if study.kt_corrected else "indicated"
     nominal = op.row_kind == 0
-    R = np.array([0.0 if c.time_index == "all" or isinstance(c.time_index, tuple) else
-                  case_rows(model, c, c.time_index if isinstance(c.time_index, int) else None,
+    R = np.array([0.0 if c.is_series else
+                  case_rows(model, c, c.fe_index,
                             operator=op)[key][nominal][0] for c in study.cases])
     return steps.factors @ R * MICROSTRAIN
 
 
-def _evaluator(study: Study, model: Any, steps: Steps, j: int
+def _evaluator(study: Study, model: Model, steps: Steps, j: int
                ) -> Callable[[NDArray, NDArray], NDArray]:
     """Readings of gauge j moved by (along, across) offsets and turned by angles, per step."""
-    from correlate.model_readings.model import case_rows
-    from correlate.model_readings.operator import build_operator
 
     op = model.operator
     place = op.placement
@@ -105,16 +113,15 @@ def _evaluator(study: Study, model: Any, steps: Steps, j: int
                                  strict=False)
         key = "axial" if study.kt_corrected else "indicated"
         nominal = mini_op.row_kind == 0
-        R = np.stack([np.zeros(int(nominal.sum())) if c.time_index == "all"
-                      or isinstance(c.time_index, tuple) else
-                      case_rows(model, c, c.time_index if isinstance(c.time_index, int) else None,
+        R = np.stack([np.zeros(int(nominal.sum())) if c.is_series else
+                      case_rows(model, c, c.fe_index,
                                 operator=mini_op)[key][nominal] for c in study.cases], axis=1)
         return R @ steps.factors.T * MICROSTRAIN   # (k, s)
 
     return evaluate
 
 
-def _neighbours_pass(model: Any, j: int, passing: NDArray, healthy: NDArray) -> bool | None:
+def _neighbours_pass(model: Model, j: int, passing: NDArray, healthy: NDArray) -> bool | None:
     centres = model.operator.placement.centre
     others = np.flatnonzero(healthy & (np.arange(len(passing)) != j))
     if not len(others):
@@ -124,21 +131,20 @@ def _neighbours_pass(model: Any, j: int, passing: NDArray, healthy: NDArray) -> 
     return bool(passing[near].mean() >= 0.5)
 
 
-def diagnose_failures(study: Study, model: Any, steps: Steps, names: list[str], measured: NDArray,
-                      predicted: NDArray, st: dict, rows_by_case: dict, contributions: NDArray,
+def diagnose_failures(study: Study, model: Model, steps: Steps, names: list[str], measured: NDArray,
+                      predicted: NDArray, st: Statuses, rows_by_case: dict, contributions: NDArray,
                       per_gauge: pd.DataFrame) -> pd.DataFrame:
     """Explanations for every failing gauge (empty table when none qualifies)."""
-    from correlate.comparison.explanations import Criterion, GaugeEvidence, diagnose
 
-    ev = st["evaluated"]
-    failing = ((st["status"] == "fail") & ev).any(axis=0)
+    ev = st.evaluated
+    failing = ((st.status == "fail") & ev).any(axis=0)
     healthy = ev.any(axis=0)
     passing = healthy & ~failing
     cols = ["gauge", "explanation", "detail", "rms_before_ue", "rms_after_ue", "plausible",
             "parameter"]
     if not failing.any():
         return pd.DataFrame(columns=cols)
-    crit = Criterion(relative=study.criteria.relative, absolute_ue=study.criteria.absolute_ue)
+    crit = Criterion.of(study.criteria)
     gauges = model.gauges
     evidence = []
     for j in np.flatnonzero(failing):
@@ -173,12 +179,11 @@ def installation_faults(diag: pd.DataFrame) -> list[tuple[str, str]]:
     return out
 
 
-def load_checks(study: Study, steps: Steps, measured: NDArray, st: dict,
+def load_checks(study: Study, steps: Steps, measured: NDArray, st: Statuses,
                 rows_by_case: dict, op: Any) -> dict[str, Any]:
     """Global checks: a factor per load column, swapped or sign-reversed load columns."""
-    from correlate.comparison.explanations import Criterion, diagnose_loads
 
-    ev = st["evaluated"]
+    ev = st.evaluated
     nominal = op.row_kind == 0
     entries = [ld for ld in study.loads if ld.case in rows_by_case]
     if not entries:
@@ -188,7 +193,7 @@ def load_checks(study: Study, steps: Steps, measured: NDArray, st: dict,
         * (rows_by_case[ld.case]["axial" if study.kt_corrected else "indicated"][nominal]
            * MICROSTRAIN)[None, :] for ld in entries], axis=2)                       # (s, g, L)
     loads = np.stack([steps.loads[:, steps.load_names.index(ld.column)] for ld in entries], axis=1)
-    crit = Criterion(relative=study.criteria.relative, absolute_ue=study.criteria.absolute_ue)
+    crit = Criterion.of(study.criteria)
     m = np.where(ev, measured, np.nan)
     out = diagnose_loads(m, contrib, steps.active, [f"{ld.column} -> {ld.case}" for ld in entries],
                          crit, loads=loads)
@@ -197,15 +202,13 @@ def load_checks(study: Study, steps: Steps, measured: NDArray, st: dict,
     return out
 
 
-def rosette_diagnoses(study: Study, model: Any, steps: Steps, measured: NDArray, st: dict,
+def rosette_diagnoses(study: Study, model: Model, steps: Steps, measured: NDArray, st: Statuses,
                       predicted: NDArray) -> pd.DataFrame:
     """Permuted or mirrored grids for every rosette with a failing grid."""
-    from correlate.comparison.explanations import Criterion, diagnose_rosette
-    from correlate.comparison.rosettes import rosette_angles, rosette_groups
 
-    crit = Criterion(relative=study.criteria.relative, absolute_ue=study.criteria.absolute_ue)
-    ev = st["evaluated"]
-    failing = ((st["status"] == "fail") & ev).any(axis=0)
+    crit = Criterion.of(study.criteria)
+    ev = st.evaluated
+    failing = ((st.status == "fail") & ev).any(axis=0)
     gauges = model.gauges
     op = model.operator
     place = op.placement
@@ -221,18 +224,15 @@ def rosette_diagnoses(study: Study, model: Any, steps: Steps, measured: NDArray,
         trans = np.cross(n, dirs)
         T = np.zeros((len(steps.step), len(idx), 3, 3))
         for k, case in enumerate(study.cases):
-            if case.time_index == "all" or isinstance(case.time_index, tuple):
+            if case.is_series:
                 continue
-            fld = model.case_field(case, case.time_index if isinstance(case.time_index, int)
-                                   else None)
-            from correlate.model_readings.operator import centre_strain
-
+            fld = model.case_field(case, case.fe_index)
             Tc = centre_strain(op, fld)[idx]
             T += steps.factors[:, k, None, None, None] * Tc[None]
         ea = np.einsum("gi,sgij,gj->sg", dirs, T, dirs)
         et = np.einsum("gi,sgij,gj->sg", trans, T, trans)
         kt, nu0 = op.kt[idx], op.nu0[idx]
-        mirrored = (ea + kt * et) / (1 - nu0 * kt) * MICROSTRAIN
+        mirrored = indicated_strain(ea, et, kt, nu0) * MICROSTRAIN
         active = steps.active & ev[:, idx].all(axis=1)
         grids = [gauges["gauge"].iloc[i] for i in idx]
         parts.append(diagnose_rosette(rid, grids, measured[:, idx], predicted[:, idx], mirrored,

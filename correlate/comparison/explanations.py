@@ -23,6 +23,7 @@ import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 from scipy import optimize
 
+from correlate.comparison.criteria import Criterion
 from correlate.core.errors import ModelError, ReadingsFormatError, StudyError
 
 __all__ = ["ALTERNATIVES", "COLUMNS", "Criterion", "GaugeEvidence", "diagnose", "diagnose_loads",
@@ -46,44 +47,6 @@ RMS_FACTOR = 3.0
 #: Two load cases vary independently at a gauge when the second singular value of its active
 #: contributions is at least this fraction of the first (our judgement, not a published value).
 INDEPENDENT = 0.1
-
-
-@dataclass(frozen=True)
-class Criterion:
-    """The analyst's pass criterion: ``|measured - predicted| <= max(relative |p|, absolute_ue)``.
-
-    Parameters
-    ----------
-    relative : float
-        Allowed difference as a fraction of the predicted reading.
-    absolute_ue : float
-        Allowed difference near zero strain. [microstrain]
-    """
-
-    relative: float
-    absolute_ue: float
-
-    def __post_init__(self) -> None:
-        if not (self.relative >= 0.0 and self.absolute_ue >= 0.0):  # also rejects NaN
-            msg = (f"criterion relative={self.relative}, absolute_ue={self.absolute_ue}: both "
-                   "must be finite and >= 0; give a fraction and a microstrain floor")
-            raise StudyError(msg)
-
-    def passes(self, measured: ArrayLike, predicted: ArrayLike) -> NDArray[np.bool_]:
-        """Return True where a gauge-step passes; a NaN measured reading is not evaluated (True).
-
-        A NaN predicted reading against a real measurement fails: a model that cannot say what the
-        gauge reads does not explain it.
-
-        Examples
-        --------
-        >>> Criterion(0.1, 5.0).passes([108.0, 115.0, float("nan"), 4.0], [100.0, 100.0, 1.0, 0.0])
-        array([ True, False,  True,  True])
-        """
-        m = np.asarray(measured, dtype=float)
-        p = np.asarray(predicted, dtype=float)
-        ok = np.abs(m - p) <= np.maximum(self.relative * np.abs(p), self.absolute_ue)
-        return np.asarray(ok | np.isnan(m))
 
 
 @dataclass(frozen=True, eq=False)  # eq on array fields would be ambiguous

@@ -1,17 +1,136 @@
-"""Series cases: pair each readings row with the FE state at the same load (nonlinear models).
+"""Pairing test rows with model states: load superposition and series matching, written once.
 
-Stage: comparison (series). When superposition does not hold, a case with ``time_index = "all"``
-holds every step of a load history. ``match = { column = "F_kN", value_at_time_1 = 10.0 }`` says
-the FE load at time t is t x value_at_time_1 of that column. Each readings row is paired with the
-FE state at its tared load by linear interpolation between neighbouring FE steps, within
-monotonic segments of the FE load (loading rows with loading segments, unloading with unloading).
-Rows outside the series' range, or unloading rows when the series never unloads, are not modelled.
+Stage: comparison. In: the readings table, the study's load mapping and the model. Out: the tared
+steps with the factor of every FE case per step (:class:`Steps`), and for series cases the weights
+of the FE states at each row.
+
+Superposition: predicted(step) = sum over [[load]] of value(step) / reference x case.
+
+Series cases: when superposition does not hold, a case with ``time_index = "all"`` holds every step
+of a load history. ``match = { column = "F_kN", value_at_time_1 = 10.0 }`` says the FE load at
+time t is t x value_at_time_1 of that column. Each readings row is paired with the FE state at its
+tared load by linear interpolation between neighbouring FE steps, within monotonic segments of the
+FE load (loading rows with loading segments, unloading with unloading). Rows outside the series'
+range, or unloading rows when the series never unloads, are not modelled.
 """
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
 import numpy as np
+import pandas as pd
 from numpy.typing import NDArray
+
+from correlate.core.errors import StudyError
+from correlate.measurement.health import load_direction
+from correlate.measurement.tare import TaredSteps, tare_steps
+from correlate.model_readings.model import Model, case_steps
+from correlate.readers.readings import read_readings
+from correlate.readers.study import Case, Load, Study
+
+
+@dataclass(frozen=True)
+class Steps(TaredSteps):
+    """The tared load steps with the multiplier of each FE case per step."""
+
+    factors: NDArray[np.float64] = None  # type: ignore[assignment]  # (s, C)
+
+
+def case_factors(loads: NDArray, load_names: tuple[str, ...], mapping: tuple[Load, ...],
+                 cases: list[str]) -> NDArray[np.float64]:
+    """Multiplier of each FE case per step: sum over [[load]] of value / reference."""
+    factors = np.zeros((len(loads), len(cases)))
+    for ld in mapping:
+        j = load_names.index(ld.column)
+        factors[:, cases.index(ld.case)] += loads[:, j] / ld.reference
+    return factors
+
+
+def make_steps(table: pd.DataFrame, load_names: tuple[str, ...], mapping: tuple[Load, ...],
+               cases: list[str], *, rule: str, zero_tol: float, source: str) -> Steps:
+    """Tare the readings table's loads and give every FE case its factor per step."""
+    tared = tare_steps(table, load_names, rule=rule, zero_tol=zero_tol, source=source)
+    return Steps(**vars(tared), factors=case_factors(tared.loads, load_names, mapping, cases))
+
+
+def load_columns(study: Study) -> tuple[str, ...]:
+    """The readings columns the study uses as loads: the [[load]] columns, then match columns."""
+    matched = [c.match["column"] for c in study.cases if c.match and "column" in c.match]
+    return tuple(dict.fromkeys([ld.column for ld in study.loads] + matched))
+
+
+def gauge_channels(gauges: pd.DataFrame) -> dict[str, str]:
+    """Readings column of every gauge: its ``channel``, or its own id."""
+    return {g: (c or g) for g, c in zip(gauges["gauge"], gauges["channel"], strict=True)}
+
+
+def read_test_data(study: Study, gauges_df: pd.DataFrame) -> tuple[Any, Steps, tuple[str, ...]]:
+    """Read the readings file and tare the steps (also used by `check`)."""
+    names = gauges_df["gauge"].tolist()
+    for o in study.overrides:
+        if o.gauge not in names:
+            raise StudyError(f"{study.path.name}: [[override]] names gauge '{o.gauge}', which is not "
+                             "in the gauge map")
+    load_cols = load_columns(study)
+    readings = read_readings(study.readings_file, gauges=gauge_channels(gauges_df),
+                             loads=load_cols, sentinels=study.sentinels)
+    steps = make_steps(readings.table, load_cols, study.loads, [c.name for c in study.cases],
+                       rule=study.zero, zero_tol=study.zero_tol,
+                       source=Path(readings.path).name)
+    return readings, steps, load_cols
+
+
+@dataclass(frozen=True, eq=False)
+class SeriesPairing:
+    """How a series case's FE states pair with the readings rows (see the module docstring).
+
+    ``fe_load[k]``: FE load of state ``fe_index[k]``; ``load``, ``direction``: each readings
+    row's tared load in the match column and its direction (+1 loading, -1 unloading, 0 neither).
+    """
+
+    fe_index: tuple[int | None, ...]
+    fe_load: NDArray[np.float64]     # (K,)
+    load: NDArray[np.float64]        # (s,)
+    direction: NDArray[np.int64]     # (s,)
+
+    def apply(self, rows: NDArray[np.float64]) -> tuple[NDArray[np.float64], NDArray[np.bool_]]:
+        """Rows (R, K) of every state -> rows (R, s) at every readings row, and which are
+        modelled (NaN where not)."""
+        return interpolate_series(self.fe_load, rows, self.load, self.direction)
+
+    def weights(self, row: int) -> dict[int | None, float] | None:
+        """Weight of each FE state at readings row ``row`` (None: not modelled there); the rule
+        is linear in the rows, so applied to the identity it gives each state's weight."""
+        w, modelled = self.apply(np.eye(len(self.fe_index)))
+        if not modelled[row]:
+            return None
+        return {self.fe_index[k]: float(w[k, row]) for k in range(len(self.fe_index))
+                if w[k, row] != 0}
+
+
+def pair_series(study: Study, model: Model, case: Case, steps: TaredSteps) -> SeriesPairing:
+    """Pair a series case's FE states with every readings row by its tared load.
+
+    Raises
+    ------
+    StudyError
+        When the case has no usable ``match`` naming one of the load columns.
+    """
+    match = case.match or {}
+    column, scale = match.get("column"), match.get("value_at_time_1")
+    if column not in steps.load_names or not isinstance(scale, int | float) or scale == 0:
+        raise StudyError(f"case '{case.name}' is a series (time_index = {case.time_index!r}); run "
+                         "needs match = { column = \"<load column>\", value_at_time_1 = <value> } "
+                         f"naming one of the [[load]] columns ({', '.join(steps.load_names)})")
+    states = case_steps(model, case)
+    load = steps.loads[:, steps.load_names.index(column)]
+    return SeriesPairing(fe_index=tuple(k for k, _ in states),
+                         fe_load=np.array([t * scale for _, t in states]), load=load,
+                         direction=load_direction(load[:, None], steps.sequence,
+                                                  tol=study.zero_tol))
 
 
 def monotonic_segments(load: NDArray[np.float64]) -> list[tuple[int, int, int]]:

@@ -15,7 +15,7 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from correlate.core.names import ROSETTES_COLUMNS
-from correlate.measurement.tare import Steps
+from correlate.comparison.pairing import Steps
 from correlate.mechanics.rosette import check_angles, grid_angles, reduce_rosette
 from correlate.readers.study import Study
 

@@ -16,8 +16,6 @@ import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 from scipy import stats as sps
-from statsmodels.regression.linear_model import OLS  # not statsmodels.api: 2 s to import
-from statsmodels.stats.outliers_influence import OLSInfluence
 
 from correlate.core.errors import ReadingsFormatError, StudyError
 
@@ -61,6 +59,14 @@ def _differences(d: NDArray[np.float64]) -> dict[str, float]:
             "mean_abs_ue": float(np.mean(np.abs(d)))}
 
 
+def _ols_class() -> type:
+    """statsmodels' OLS, imported on first use (``import correlate`` stays light; not
+    statsmodels.api, which takes 2 s to import)."""
+    from statsmodels.regression.linear_model import OLS
+
+    return OLS
+
+
 def _ols(y: NDArray[np.float64], X: NDArray[np.float64], codes: NDArray[np.intp], alpha: float
          ) -> tuple[Any, NDArray[np.float64], NDArray[np.float64]]:
     """Fit y = X b; clustered covariance when there are >= 2 groups and > k points, else classical.
@@ -70,13 +76,13 @@ def _ols(y: NDArray[np.float64], X: NDArray[np.float64], codes: NDArray[np.intp]
     """
     n, k = X.shape
     if n <= k:
-        return OLS(y, X).fit(), np.full(k, NAN), np.full((k, 2), NAN)
+        return _ols_class()(y, X).fit(), np.full(k, NAN), np.full((k, 2), NAN)
     if codes.max() >= 1:
         # use_t: t with G - 1 degrees of freedom (statsmodels' df_resid_inference), the critical
         # value Cameron & Miller (2015, sec. VI) recommend when there are few clusters.
-        res = OLS(y, X).fit(cov_type="cluster", cov_kwds={"groups": codes}, use_t=True)
+        res = _ols_class()(y, X).fit(cov_type="cluster", cov_kwds={"groups": codes}, use_t=True)
     else:
-        res = OLS(y, X).fit()
+        res = _ols_class()(y, X).fit()
     return res, np.asarray(res.bse), np.asarray(res.conf_int(alpha))
 
 
@@ -351,13 +357,15 @@ def influence_by_gauge(measured: ArrayLike, predicted: ArrayLike, groups: ArrayL
                   f"found {m.size} pair(s)")
     else:
         X = np.column_stack([np.ones(m.size), p])
-        res = OLS(m, X).fit()
+        res = _ols_class()(m, X).fit()
         xtx, s2 = X.T @ X, float(res.scale)
         # statsmodels' resid_studentized_external refits the model once per pair (10,000 fits
         # for 1,000 gauges x 10 steps); the deleted-pair variance has a closed form (Cook and
         # Weisberg 1982, ch. 2, from memory; checked against the refits in the tests):
         # s_(i)^2 = ((n - p) s^2 - r_i^2 / (1 - h_i)) / (n - p - 1).
         # A pair with leverage 1 divides by zero; that residual is undefined.
+        from statsmodels.stats.outliers_influence import OLSInfluence
+
         infl = OLSInfluence(res)
         h, r, dof = infl.hat_matrix_diag, np.asarray(res.resid), m.size - 2
         with np.errstate(divide="ignore", invalid="ignore"):

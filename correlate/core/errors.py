@@ -48,6 +48,10 @@ class OutputError(CorrelateError, OSError):
     """An output folder exists or cannot be written."""
 
 
+class RunFolderError(CorrelateError, ValueError):
+    """A folder given to compare is not a run folder, or the two runs cannot be compared."""
+
+
 class MissingDependencyError(CorrelateError, ImportError):
     """An optional library needed for this input is not installed."""
 

@@ -1,4 +1,4 @@
-"""Column names and units of every table the tool writes, defined once.
+"""Column names of every table the tool writes, and the caution text, defined once.
 
 These names are an interface: other tools read the CSV and JSON outputs by them.
 """
@@ -28,4 +28,6 @@ ROSETTES_COLUMNS = (
     "shear_max_ue", "s1", "s2", "von_mises", "residual_ue", "note",
 )
 
-MICRO = 1e6  # microstrain per unit strain
+# the caution every output carries (terminal, summary.json, report, compare page)
+CAUTION = ("These results support, but do not replace, engineering judgement, the applicable codes "
+           "and licensed practice.")

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import os
 import sys
 import time
 from collections.abc import Iterable, Iterator
@@ -80,3 +81,9 @@ def timing_table() -> str:
     width = max((2 * d + len(s) for d, s, _ in _TIMES), default=0)
     lines = [f"  {'  ' * d}{s:<{width - 2 * d}}  {t:8.2f}" for d, s, t in _TIMES]
     return "\n".join(["stage times (seconds):", *lines])
+
+
+def pause(stage: str) -> None:
+    """Test hook: ``CORRELATE_PAUSE_AT=stage`` sleeps there so that a test can kill the run."""
+    if os.environ.get("CORRELATE_PAUSE_AT") == stage:
+        time.sleep(float(os.environ.get("CORRELATE_PAUSE_SECONDS", "30")))

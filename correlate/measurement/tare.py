@@ -1,12 +1,12 @@
-"""Correlation: pair the test readings with the model readings for the test loads.
+"""Tare: each sequence's readings and loads taken relative to its tare row.
 
-Stage: comparison. In: readings per step (tared here), the load mapping, and the model's
-operator rows per case. Out: per gauge and step the predicted and measured readings, the placement
-band, and the status under the analyst's criteria.
+Stage: measurement. In: the readings table (gauge readings and load columns per row) and the
+study's tare rule. Out: the tare row of each sequence, the tared loads and tared readings, and the
+later rows at zero load.
 
-Tare: the tare row of each sequence is subtracted from the gauge readings AND from the load
-columns, and the prediction uses the tared loads, so a seating preload does not bias every step.
-Later zero-load rows are never tared away: they measure the return to zero.
+The tare row of each sequence is subtracted from the gauge readings AND from the load columns, and
+the prediction uses the tared loads, so a seating preload does not bias every step. Later
+zero-load rows are never tared away: they measure the return to zero.
 """
 
 from __future__ import annotations
@@ -18,11 +18,10 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from correlate.core.errors import ReadingsFormatError
-from correlate.readers.study import Criteria, Load
 
 
 @dataclass(frozen=True)
-class Steps:
+class TaredSteps:
     """The load steps after taring: one entry per readings row."""
 
     step: NDArray[np.int64]
@@ -31,7 +30,6 @@ class Steps:
     load_names: tuple[str, ...]
     tare: NDArray[np.bool_]           # the tare row of its sequence
     zero_load: NDArray[np.bool_]      # later rows with every load within zero_tol of zero
-    factors: NDArray[np.float64]      # (s, C) multiplier of each FE case
 
     @property
     def active(self) -> NDArray[np.bool_]:
@@ -90,18 +88,15 @@ def apply_tare(values: NDArray, tare: NDArray[np.bool_], sequence: NDArray) -> N
     return out
 
 
-def case_factors(loads: NDArray, load_names: tuple[str, ...], mapping: tuple[Load, ...],
-                 cases: list[str]) -> NDArray[np.float64]:
-    """Multiplier of each FE case per step: sum over [[load]] of value / reference."""
-    factors = np.zeros((len(loads), len(cases)))
-    for ld in mapping:
-        j = load_names.index(ld.column)
-        factors[:, cases.index(ld.case)] += loads[:, j] / ld.reference
-    return factors
+def tare_steps(table: pd.DataFrame, load_names: tuple[str, ...], *, rule: str, zero_tol: float,
+               source: str) -> TaredSteps:
+    """Tare the load columns of a readings table per sequence (see :func:`tare_rows`).
 
-
-def make_steps(table: pd.DataFrame, load_names: tuple[str, ...], mapping: tuple[Load, ...],
-               cases: list[str], *, rule: str, zero_tol: float, source: str) -> Steps:
+    Raises
+    ------
+    ReadingsFormatError
+        A load value is missing on a row, or the rule finds no tare row.
+    """
     raw = table[list(load_names)].to_numpy(dtype=float)
     if np.isnan(raw).any():
         rows = np.flatnonzero(np.isnan(raw).any(axis=1))
@@ -112,45 +107,21 @@ def make_steps(table: pd.DataFrame, load_names: tuple[str, ...], mapping: tuple[
     tare = tare_rows(raw, sequence, rule=rule, zero_tol=zero_tol, source=source)
     loads = apply_tare(raw, tare, sequence)
     zero = _near_zero(loads, zero_tol) & ~tare
-    return Steps(step=table["step"].to_numpy(dtype=np.int64), sequence=sequence, loads=loads,
-                 load_names=load_names, tare=tare, zero_load=zero,
-                 factors=case_factors(loads, load_names, mapping, cases))
+    return TaredSteps(step=table["step"].to_numpy(dtype=np.int64), sequence=sequence, loads=loads,
+                      load_names=load_names, tare=tare, zero_load=zero)
 
 
-def status_table(measured: NDArray, predicted: NDArray, criteria: Criteria, steps: Steps,
-                 dropped_steps: NDArray[np.bool_], dropped_gauges: NDArray[np.bool_],
-                 flag_text: NDArray) -> dict[str, NDArray]:
-    """Per gauge-step differences and statuses (all arrays (s, g)).
-
-    status: ``pass`` / ``fail`` for healthy active steps; ``tare``; ``zero-load``; ``missing``;
-    otherwise the flag that removed the step or the gauge.
-    """
-    diff = measured - predicted
-    with np.errstate(divide="ignore", invalid="ignore"):
-        ratio = np.where(predicted != 0, measured / predicted, np.nan)
-        relative = diff / np.abs(predicted)
-    # relative only where the relative term can govern: |predicted| >= absolute_ue / relative
-    rel_floor = criteria.absolute_ue / criteria.relative if criteria.relative > 0 else np.inf
-    relative = np.where(np.abs(predicted) >= rel_floor, relative, np.nan)
-    allowed = np.maximum(criteria.relative * np.abs(predicted), criteria.absolute_ue)
-    basis = np.where(criteria.relative * np.abs(predicted) > criteria.absolute_ue, "relative", "floor")
-    ok = np.abs(diff) <= allowed
-    status = np.where(ok, "pass", "fail").astype(object)
-    unconservative = (~ok) & (np.abs(measured) > np.abs(predicted))
-    healthy = ~dropped_steps & ~dropped_gauges[None, :]
-    status = np.where(np.isnan(measured), "missing", status)
-    status = np.where(healthy, status, flag_text)
-    status = np.where(steps.zero_load[:, None], "zero-load", status)
-    status = np.where(steps.tare[:, None], "tare", status)
-    evaluated = (status == "pass") | (status == "fail")
-    unconservative = unconservative & evaluated
-    return {"difference": diff, "ratio": ratio, "relative": relative, "allowed": allowed,
-            "basis": np.where(evaluated, basis, ""), "status": status,
-            "unconservative": unconservative, "evaluated": evaluated}
+def tare_readings(raw: NDArray[np.float64], steps: TaredSteps) -> NDArray[np.float64]:
+    """Tared gauge readings (s, g): NaN where read NaN, and a whole sequence NaN for a gauge whose
+    tare value is missing (an untared sequence is refused rather than guessed)."""
+    measured = apply_tare(np.where(np.isnan(raw), 0.0, raw), steps.tare, steps.sequence)
+    measured[np.isnan(raw)] = np.nan
+    for seq in np.unique(steps.sequence):
+        t = np.flatnonzero(steps.tare & (steps.sequence == seq))
+        if len(t):
+            bad = np.isnan(raw[t[0]])
+            measured[np.ix_(steps.sequence == seq, bad)] = np.nan
+    return measured
 
 
-def reference_step(predicted: NDArray, steps: Steps) -> int:
-    """Index of the step with the largest RMS predicted reading (the reference step)."""
-    rms = np.sqrt(np.nanmean(predicted ** 2, axis=1))
-    rms = np.where(steps.active, rms, -1.0)
-    return int(np.argmax(rms))
+__all__ = ["TaredSteps", "apply_tare", "tare_readings", "tare_rows", "tare_steps"]

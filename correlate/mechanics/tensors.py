@@ -94,3 +94,31 @@ def stress_from_strain(strain: NDArray[np.float64], E: float, nu: float) -> NDAr
     mu = E / (2 * (1 + nu))
     trace = np.trace(strain, axis1=-2, axis2=-1)[..., None, None]
     return lam * trace * np.eye(3) + 2 * mu * strain
+
+
+def small_strain(gradient: NDArray[np.float64]) -> NDArray[np.float64]:
+    """Small-strain tensor from a displacement gradient: eps = (H + H^T) / 2.
+
+    Parameters
+    ----------
+    gradient : ndarray, shape (..., 3, 3)
+        H[..., i, j] = du_i / dx_j. [m/m]
+    """
+    return 0.5 * (gradient + np.swapaxes(gradient, -1, -2))
+
+
+def rotation_magnitude(gradient: NDArray[np.float64]) -> NDArray[np.float64]:
+    """Magnitude |w| of the infinitesimal rotation W = (H - H^T) / 2 of a displacement gradient.
+
+    Parameters
+    ----------
+    gradient : ndarray, shape (..., 3, 3)
+        H[..., i, j] = du_i / dx_j.
+
+    Returns
+    -------
+    ndarray, shape (...)
+        sqrt(W01^2 + W02^2 + W12^2). [rad]
+    """
+    W = 0.5 * (gradient - np.swapaxes(gradient, -1, -2))
+    return np.sqrt(W[..., 0, 1] ** 2 + W[..., 0, 2] ** 2 + W[..., 1, 2] ** 2)

@@ -1,6 +1,6 @@
 """Convention checks: evidence that a strain array's component order or shear convention is wrong.
 
-Stage: checks (used by ``check``, ``predict`` and ``run``; they warn, never refuse). Two tests:
+Stage: model readings (used by ``check``, ``predict`` and ``run``; they warn, never refuse). Two tests:
 
 * Hooke's law against a stress array the case names (``check_stress``): the strain read with the
   declared order and convention must match the strain from the stress; if another common order or
@@ -17,7 +17,9 @@ import itertools
 import numpy as np
 from numpy.typing import NDArray
 
-from correlate.mechanics.tensors import DEFAULT_ORDER, from_voigt
+from correlate.mechanics.tensors import DEFAULT_ORDER, from_voigt, strain_from_stress
+from correlate.model_readings.model import Model, case_steps
+from correlate.readers.model import find_array
 
 # The orders and conventions tried when the declared ones do not fit.
 ALTERNATIVE_ORDERS = (("xx", "yy", "zz", "xy", "yz", "xz"), ("xx", "yy", "zz", "xy", "xz", "yz"),
@@ -109,3 +111,45 @@ def describe(case: str, evidence: dict[str, object]) -> str | None:
         line += f"; components = {list(order)} with shear = \"{shear}\" would fit ({best:.0%})"
     return line + "; check components and shear in the study (near load introduction this check " \
                   "fails for good reasons)"
+
+
+def convention_warnings(model: Model) -> list[str]:
+    """Warnings from the order/convention checks (traction-free surface, Hooke against stress)."""
+    study, op = model.study, model.operator
+    mat = study.material
+    if op.mesh.family != "solid" or mat is None:
+        return []
+    surface = (op.placement.table["mount"] == "surface").to_numpy()
+    pts = op.centre_points
+    out = []
+    for case in study.cases:
+        if case.kind != "strain" or isinstance(case.array, dict):
+            continue
+        fe_index = case.fe_index
+        if case.is_series:
+            fe_index = case_steps(model, case)[0][0]
+        src = model.source(case)
+        location, raw = find_array(src, case.array, fe_index, case=case.name)
+        if raw.shape[1] != 6:
+            continue
+
+        def at_gauges(values: NDArray, location: str = location) -> NDArray:
+            if location == "cell":
+                return values[op.cell[pts]]
+            return (op.interpolation() @ values)[pts]
+
+        raw_g = at_gauges(raw)[surface]
+        stress_strain = None
+        if case.check_stress:
+            s_loc, s_raw = find_array(src, case.check_stress, fe_index, case=case.name)
+            if s_raw.shape[1] == 6:
+                sig = from_voigt(at_gauges(s_raw, s_loc)[surface], DEFAULT_ORDER, shear="tensor")
+                stress_strain = strain_from_stress(sig, mat.E, mat.nu)
+        ev = convention_evidence(raw_g, case.components, case.shear, op.placement.normal[surface],
+                                 op.placement.direction[surface], mat.nu,
+                                 stress_strain=stress_strain)
+        line = describe(case.name, ev)
+        if line:
+            out.append(line)
+    return out
+

@@ -11,9 +11,10 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import NDArray
 
-from correlate.mechanics import elements
-from correlate.model_readings.locator import cell_nodes
-from correlate.model_readings.operator import GaugeOperator, _interpolation
+from correlate.mechanics import elements, mapping
+from correlate.mechanics.tensors import rotation_magnitude, small_strain
+from correlate.model_readings.evaluate import displacement_gradient
+from correlate.model_readings.operator import GaugeOperator
 
 
 def nodal_strain(op: GaugeOperator, displacement: NDArray[np.float64]) -> NDArray[np.float64]:
@@ -21,7 +22,7 @@ def nodal_strain(op: GaugeOperator, displacement: NDArray[np.float64]) -> NDArra
     mesh = op.mesh
     n_nodes = len(mesh.points)
     needed = np.zeros(n_nodes, dtype=bool)
-    block, row = cell_nodes(mesh, np.unique(op.cell))
+    block, row = mesh.block_rows(np.unique(op.cell))
     for b, r in zip(block, row, strict=True):
         needed[mesh.blocks[b][1][r]] = True
     total = np.zeros((n_nodes, 3, 3))
@@ -34,9 +35,8 @@ def nodal_strain(op: GaugeOperator, displacement: NDArray[np.float64]) -> NDArra
         ref = elements.ELEMENTS[ctype].reference_nodes
         for k in range(conn.shape[1]):
             xi = np.tile(ref[k], (len(c), 1))
-            dN, _ = elements.physical_gradients(ctype, mesh.points[c], xi)
-            H = np.einsum("cni,cnj->cij", displacement[c], dN)
-            np.add.at(total, c[:, k], 0.5 * (H + np.swapaxes(H, 1, 2)))
+            H = mapping.element_gradient(ctype, mesh.points[c], displacement[c], xi)
+            np.add.at(total, c[:, k], small_strain(H))
             np.add.at(count, c[:, k], 1.0)
     with np.errstate(invalid="ignore", divide="ignore"):
         return total / count[:, None, None]
@@ -44,12 +44,7 @@ def nodal_strain(op: GaugeOperator, displacement: NDArray[np.float64]) -> NDArra
 
 def rotation_at_points(op: GaugeOperator, displacement: NDArray[np.float64]) -> NDArray[np.float64]:
     """Magnitude of the infinitesimal rotation |w| at each gauge centre. [rad]"""
-    G = _interpolation(op, gradient=True)
-    H = np.stack([g @ displacement for g in G], axis=2)
-    W = 0.5 * (H - np.swapaxes(H, 1, 2))
-    w = np.sqrt(W[:, 0, 1] ** 2 + W[:, 0, 2] ** 2 + W[:, 1, 2] ** 2)
-    point_rows = np.flatnonzero(op.row_kind == 1)
-    return w[op.weights[point_rows].indices]
+    return rotation_magnitude(displacement_gradient(op, displacement))[op.centre_points]
 
 
 __all__ = ["nodal_strain", "rotation_at_points"]

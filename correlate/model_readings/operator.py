@@ -12,14 +12,13 @@ mean over Gauss-Legendre points along the grid, each re-snapped to the surface w
 Because readings are linear in the field, cases are combined row by row first and the band (lowest
 and highest row) is taken after: min and max do not superpose.
 
-What a gauge indicates with transverse sensitivity Kt, calibrated on a material of Poisson's ratio
-nu0 (Vishay Micro-Measurements Tech Note TN-509):  e_ind = (e_a + Kt e_t) / (1 - nu0 Kt).
+Evaluating the operator on a field is in :mod:`correlate.model_readings.evaluate`.
 """
 
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
@@ -27,17 +26,10 @@ from numpy.typing import NDArray
 from scipy import sparse
 
 from correlate.core.errors import CorrelateWarning, GaugeError, GaugeOutsideMeshError, ModelError
-from correlate.mechanics import elements
-from correlate.model_readings.locator import (
-    Locator,
-    SurfacePoints,
-    build_surface,
-    cell_nodes,
-    cell_types,
-    locate_inside,
-    parent_coordinates,
-)
-from correlate.readers.model import Field, Mesh
+from correlate.mechanics import elements, mapping
+from correlate.model_readings.locator import Locator, locate_inside, parent_coordinates
+from correlate.model_readings.surface import build_surface
+from correlate.readers.model import Mesh
 
 OUT_OF_PLANE_ERROR = 45.0    # degrees: refuse a grid direction further out of the tangent plane
 OUT_OF_PLANE_WARN = 10.0     # degrees: warn beyond this
@@ -62,7 +54,9 @@ class GaugeOperator:
     """Sample points and weights: field -> per-row axial and transverse strain.
 
     ``row_gauge[r]``: gauge index of row r; ``row_kind[r]``: 0 nominal, 1 centre point, 2 band.
-    ``weights`` (rows x points) averages sample points into rows.
+    ``weights`` (rows x points) averages sample points into rows. The sparse interpolation
+    matrices are made on first use and kept (:meth:`interpolation`, :meth:`gradients`,
+    :meth:`touched`); nothing outside this class reads or writes that store.
     """
 
     mesh: Mesh
@@ -79,13 +73,81 @@ class GaugeOperator:
     kt: NDArray[np.float64]          # (g,)
     nu0: NDArray[np.float64]         # (g,)
     invalid: NDArray[np.bool_]       # (g,) gauges whose grid left the face (non-strict builds)
-    _cache: dict
+    _store: dict = field(default_factory=dict, repr=False, compare=False)
 
     @property
     def gauges(self) -> list[str]:
-        if "gauges" not in self._cache:
-            self._cache["gauges"] = list(self.placement.table["gauge"])
-        return self._cache["gauges"]
+        if "gauges" not in self._store:
+            self._store["gauges"] = list(self.placement.table["gauge"])
+        return self._store["gauges"]
+
+    @property
+    def centre_points(self) -> NDArray[np.int64]:
+        """Sample point of each gauge's centre (its point row), in gauge order."""
+        return self.weights[np.flatnonzero(self.row_kind == 1)].indices
+
+    def interpolation(self) -> sparse.csr_matrix:
+        """Shape functions at the sample points: a sparse (points x nodes) matrix."""
+        if "values" not in self._store:
+            self._store["values"] = _interpolation(self, gradient=False)[0]
+        return self._store["values"]
+
+    def gradients(self) -> list[sparse.csr_matrix]:
+        """x, y and z derivatives of the shape functions at the sample points (points x nodes)."""
+        if "grad" not in self._store:
+            self._store["grad"] = _interpolation(self, gradient=True)
+        return self._store["grad"]
+
+    def touched(self) -> Touched:
+        """The nodes and cells the operator reads: all that a time-series step needs."""
+        if "touched" not in self._store:
+            N = self.interpolation()
+            mask = np.zeros(N.shape[1], dtype=bool)  # a mask, not a sort: the rows are many
+            mask[N.indices] = True
+            nodes = np.flatnonzero(mask)
+            cols = (np.cumsum(mask) - 1)[N.indices]
+            compact = sparse.csr_matrix((N.data, cols, N.indptr), shape=(N.shape[0], len(nodes)))
+            self._store["touched"] = Touched(point=nodes, cell=np.unique(self.cell),
+                                             compact=compact)
+        return self._store["touched"]
+
+
+@dataclass(frozen=True)
+class Touched:
+    """Nodes (``point``) and cells (``cell``) an operator reads, sorted, and its interpolation
+    on those nodes only (``compact``: columns renumbered in ``point`` order)."""
+
+    point: NDArray[np.int64]
+    cell: NDArray[np.int64]
+    compact: sparse.csr_matrix
+
+
+def _interpolation(op: GaugeOperator, *, gradient: bool) -> list[sparse.csr_matrix]:
+    """Sparse matrices (points x nodes): shape functions, or their x, y, z derivatives."""
+    mesh = op.mesh
+    block, row = mesh.block_rows(op.cell)
+    n_pts, n_nodes = len(op.cell), len(mesh.points)
+    mats: list[list] = [[], [], []] if gradient else [[]]
+    for b, (ctype, conn_b) in enumerate(mesh.blocks):
+        sel = np.flatnonzero(block == b)
+        if not len(sel):
+            continue
+        conn = conn_b[row[sel]]
+        rows = np.repeat(sel, conn.shape[1])
+        if gradient:
+            dN, _ = mapping.physical_gradients(str(ctype), mesh.points[conn], op.xi[sel])
+            for j in range(3):
+                mats[j].append((dN[:, :, j].ravel(), rows, conn.ravel()))
+        else:
+            N = elements.shape_functions(str(ctype), op.xi[sel])
+            mats[0].append((N.ravel(), rows, conn.ravel()))
+    out = []
+    for parts in mats:
+        v = np.concatenate([p[0] for p in parts])
+        r = np.concatenate([p[1] for p in parts])
+        c = np.concatenate([p[2] for p in parts])
+        out.append(sparse.csr_matrix((v, (r, c)), shape=(n_pts, n_nodes)))
+    return out
 
 
 def _unit(v: NDArray) -> NDArray:
@@ -123,12 +185,48 @@ def gauge_locator(mesh: Mesh, gauges: pd.DataFrame, *, snap_tol: float,
                                        reach=reach))
 
 
+@dataclass(frozen=True)
+class _Centres:
+    """Where each gauge centre landed, its outward normal and its grid in the tangent plane."""
+
+    names: list[str]
+    faces: NDArray[np.str_]
+    embedded: NDArray[np.bool_]
+    distance: NDArray[np.float64]
+    cell: NDArray[np.int64]
+    xi: NDArray[np.float64]
+    centre: NDArray[np.float64]
+    normal: NDArray[np.float64]
+    direction: NDArray[np.float64]
+    across: NDArray[np.float64]
+    out_of_plane: NDArray[np.float64]   # degrees
+
+
+@dataclass(frozen=True)
+class _Samples:
+    """Every sample point of every row: where it is and how it is weighted into its row."""
+
+    row: NDArray[np.int64]
+    weight: NDArray[np.float64]
+    cell: NDArray[np.int64]
+    xi: NDArray[np.float64]
+    normal: NDArray[np.float64]
+    direction: NDArray[np.float64]   # the row's grid direction, before re-projection
+    valid_row: NDArray[np.bool_]
+    invalid: NDArray[np.bool_]       # (g,) gauges whose nominal grid left the face
+
+
 def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.0,
                    angle_tol: float = 0.0, snap_tol: float = 1.0, calibration_poisson: float = 0.285,
                    grid_points: int = 5, band: bool = True,
                    locator: Locator | None = None, strict: bool = True,
                    length_unit: str = "") -> GaugeOperator:
     """Locate every gauge and build its sampling operator.
+
+    The build takes four steps: locate the centres on the surface (:func:`_locate_centres`),
+    lay out the rows (nominal, centre, band: :func:`_rows` and :func:`_row_frames`), place the
+    Gauss points of every row's grid on the surface (:func:`_sample_points`), and weight them into
+    rows (:func:`_assemble`).
 
     Parameters
     ----------
@@ -154,34 +252,44 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
     GaugeError
         A grid direction along the normal, a grid overhanging an edge, an unknown face.
     """
-    names = gauges["gauge"].tolist()
-    n = len(names)
-    faces = gauges["face"].to_numpy(dtype=str)
-    if mesh.family == "solid":
-        bad = [g for g, f in zip(names, faces, strict=True) if f]
-        if bad:
-            raise GaugeError(*[f"gauge '{g}' has face '{f}', but the model is a solid; face applies "
-                               "to shell models only: leave it blank" for g, f in
-                               zip(names, faces, strict=True) if f])
     if locator is None:
         locator = gauge_locator(mesh, gauges, snap_tol=snap_tol, position_tol=position_tol,
                                 band=band)
+    c = _locate_centres(mesh, locator, gauges, snap_tol=snap_tol, length_unit=length_unit)
+    n = len(c.names)
+    ptol = gauges["position_tol"].fillna(position_tol).to_numpy(dtype=float) if band else np.zeros(n)
+    atol = gauges["angle_tol"].fillna(angle_tol).to_numpy(dtype=float) if band else np.zeros(n)
+    length = gauges["length"].to_numpy(dtype=float)
+    row_gauge, row_kind, row_off = _rows(ptol * ~c.embedded, atol)
+    rc, rn, rd, rcell, rxi = _row_frames(mesh, locator, c, row_gauge, row_off)
+    s = _sample_points(mesh, locator, c, row_gauge, row_kind, rc, rn, rd, rcell, rxi, length,
+                       grid_points=grid_points, snap_tol=snap_tol, strict=strict)
+    kt = gauges["kt"].to_numpy(dtype=float)
+    nu0 = gauges["nu0"].fillna(calibration_poisson).to_numpy(dtype=float)
+    return _assemble(mesh, c, s, row_gauge, row_kind, row_off, kt, nu0)
+
+
+def _locate_centres(mesh: Mesh, locator: Locator, gauges: pd.DataFrame, *, snap_tol: float,
+                    length_unit: str) -> _Centres:
+    """Project each gauge centre onto the surface (embedded ones: inside their cell), check the
+    snap distance and the grid direction, and turn the grid into the tangent plane."""
+    names = gauges["gauge"].tolist()
+    faces = gauges["face"].to_numpy(dtype=str)
+    if mesh.family == "solid" and any(faces):
+        raise GaugeError(*[f"gauge '{g}' has face '{f}', but the model is a solid; face applies "
+                           "to shell models only: leave it blank" for g, f in
+                           zip(names, faces, strict=True) if f])
     centre_in = gauges[["x", "y", "z"]].to_numpy(dtype=float)
     d_in = gauges[["dir_x", "dir_y", "dir_z"]].to_numpy(dtype=float)
     prefer = gauges[["normal_x", "normal_y", "normal_z"]].to_numpy(dtype=float)
     embedded = gauges["mount"].to_numpy(dtype=str) == "embedded"
-
-    def project(points: NDArray, pref: NDArray | None = None) -> tuple[SurfacePoints, NDArray]:
-        sp = locator.project(points, prefer=pref)
-        return sp, parent_coordinates(mesh, sp)
-
-    sp, xi_c = project(centre_in, prefer)
-    problems = []
-    for i in np.flatnonzero((sp.distance > snap_tol) & ~embedded):
-        unit = f" {length_unit}" if length_unit else ""
-        problems.append(f"gauge '{names[i]}' is {sp.distance[i]:.3g}{unit} from the model surface "
-                        f"(snap_tol {snap_tol:g}{unit}); check the gauge coordinates and length_unit, or "
-                        "raise snap_tol in [gauges]")
+    sp = locator.project(centre_in, prefer=prefer)
+    xi_c = parent_coordinates(mesh, sp)
+    unit = f" {length_unit}" if length_unit else ""
+    problems = [f"gauge '{names[i]}' is {sp.distance[i]:.3g}{unit} from the model surface "
+                f"(snap_tol {snap_tol:g}{unit}); check the gauge coordinates and length_unit, or "
+                "raise snap_tol in [gauges]"
+                for i in np.flatnonzero((sp.distance > snap_tol) & ~embedded)]
     if problems:
         raise GaugeOutsideMeshError(*problems)
     normal = _face_normal_sign(mesh, faces, sp.normal)
@@ -190,59 +298,62 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
     if embedded.any():
         if mesh.family != "solid":
             raise GaugeError("mount = embedded applies to solid models only")
-        cells_e, xi_e = locate_inside(mesh, centre_in[embedded], [names[i] for i in
-                                                                   np.flatnonzero(embedded)])
+        cells_e, xi_e = locate_inside(mesh, centre_in[embedded],
+                                      [names[i] for i in np.flatnonzero(embedded)])
         cell_c[embedded] = cells_e
         xi_c = xi_c.copy()
         xi_c[embedded] = xi_e
-    # grid direction in the tangent plane
     cos_out = np.abs(np.sum(d_in * normal, axis=1))
     out_deg = np.degrees(np.arcsin(np.clip(cos_out, 0, 1)))
-    for i in np.flatnonzero(~embedded & (out_deg > OUT_OF_PLANE_ERROR)):
-        problems.append(f"gauge '{names[i]}': grid direction is {out_deg[i]:.0f} degrees out of the "
-                        f"surface plane (limit {OUT_OF_PLANE_ERROR:.0f}); it points along the surface "
-                        "normal: check dir_x, dir_y, dir_z or the face the gauge is on")
+    problems = [f"gauge '{names[i]}': grid direction is {out_deg[i]:.0f} degrees out of the "
+                f"surface plane (limit {OUT_OF_PLANE_ERROR:.0f}); it points along the surface "
+                "normal: check dir_x, dir_y, dir_z or the face the gauge is on"
+                for i in np.flatnonzero(~embedded & (out_deg > OUT_OF_PLANE_ERROR))]
     if problems:
         raise GaugeError(*problems)
     warn = [names[i] for i in np.flatnonzero(~embedded & (out_deg > OUT_OF_PLANE_WARN))]
     if warn:
         warnings.warn(f"grid directions more than {OUT_OF_PLANE_WARN:.0f} degrees out of the surface "
                       f"plane were projected into it: {', '.join(warn)}", CorrelateWarning,
-                      stacklevel=2)
+                      stacklevel=3)
     direction = _tangent(d_in, normal, embedded)
-    across = np.cross(normal, direction)
+    return _Centres(names=names, faces=faces, embedded=embedded, distance=sp.distance,
+                    cell=cell_c, xi=xi_c, centre=centre, normal=normal, direction=direction,
+                    across=np.cross(normal, direction), out_of_plane=out_deg)
 
-    ptol = gauges["position_tol"].fillna(position_tol).to_numpy(dtype=float) if band else np.zeros(n)
-    atol = gauges["angle_tol"].fillna(angle_tol).to_numpy(dtype=float) if band else np.zeros(n)
-    length = gauges["length"].to_numpy(dtype=float)
-    kt = gauges["kt"].to_numpy(dtype=float)
-    nu0 = gauges["nu0"].fillna(calibration_poisson).to_numpy(dtype=float)
 
-    # rows: nominal, point, band samples (position offset on a circle x angle)
-    row_gauge, row_kind, row_off = _rows(ptol * ~embedded, atol)
-    n_rows = len(row_gauge)
-
-    # row centres and directions
-    rc = centre[row_gauge] + row_off[:, :1] * direction[row_gauge] + row_off[:, 1:2] * across[row_gauge]
+def _row_frames(mesh: Mesh, locator: Locator, c: _Centres, row_gauge: NDArray,
+                row_off: NDArray) -> tuple[NDArray, NDArray, NDArray, NDArray, NDArray]:
+    """Centre, normal, grid direction, cell and natural coordinates of every row's centre
+    (band rows moved on the surface and turned by their offsets)."""
+    rc = (c.centre[row_gauge] + row_off[:, :1] * c.direction[row_gauge]
+          + row_off[:, 1:2] * c.across[row_gauge])
     moved = (row_off[:, 0] != 0) | (row_off[:, 1] != 0)
-    rn = normal[row_gauge].copy()
-    rcell, rxi = cell_c[row_gauge], xi_c[row_gauge]  # where each row centre is
+    rn = c.normal[row_gauge].copy()
+    rcell, rxi = c.cell[row_gauge], c.xi[row_gauge]  # where each row centre is
     if moved.any():
-        spm, rxi[moved] = project(rc[moved], normal[row_gauge[moved]])
+        spm = locator.project(rc[moved], prefer=c.normal[row_gauge[moved]])
+        rxi[moved] = parent_coordinates(mesh, spm)
         rc[moved] = spm.point
         rcell[moved] = spm.cell
-        rn[moved] = _face_normal_sign(mesh, faces[row_gauge[moved]], spm.normal)
-    rd = _tangent(direction[row_gauge], rn, embedded[row_gauge])
+        rn[moved] = _face_normal_sign(mesh, c.faces[row_gauge[moved]], spm.normal)
+    rd = _tangent(c.direction[row_gauge], rn, c.embedded[row_gauge])
     theta = np.radians(row_off[:, 2])[:, None]
     rd = np.cos(theta) * rd + np.sin(theta) * np.cross(rn, rd)
+    return rc, rn, rd, rcell, rxi
 
-    # sample points along each row's grid: Gauss-Legendre points, or the centre alone. Band rows
-    # use at most BAND_GRID_POINTS (3-point Gauss is exact to degree 5 along the grid): they bound
-    # a tolerance, and they are most of the points.
-    row_len = np.where(row_kind != 1, length[row_gauge], 0.0)
+
+def _gauss_points(row_kind: NDArray, row_len: NDArray, grid_points: int
+                  ) -> tuple[NDArray, NDArray, NDArray]:
+    """Row of each sample point, its offset along the grid and its weight.
+
+    Gauss-Legendre points along each row's grid, or the centre alone. Band rows use at most
+    BAND_GRID_POINTS (3-point Gauss is exact to degree 5 along the grid): they bound a
+    tolerance, and they are most of the points.
+    """
     n_gp = np.where(row_kind == 2, min(grid_points, BAND_GRID_POINTS), grid_points)
     count = np.where(row_len > 0, n_gp, 1)
-    p_row = np.repeat(np.arange(n_rows), count)
+    p_row = np.repeat(np.arange(len(row_kind)), count)
     first = np.cumsum(count) - count
     k = np.arange(len(p_row)) - first[p_row]              # index of the point within its row
     p_s = np.zeros(len(p_row))
@@ -252,7 +363,18 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
         sel = count[p_row] == m
         p_s[sel] = gp[k[sel]] * row_len[p_row[sel]] / 2
         p_w[sel] = gw[k[sel]] / 2
-    p_emb = embedded[row_gauge[p_row]]
+    return p_row, p_s, p_w
+
+
+def _sample_points(mesh: Mesh, locator: Locator, c: _Centres, row_gauge: NDArray,
+                   row_kind: NDArray, rc: NDArray, rn: NDArray, rd: NDArray, rcell: NDArray,
+                   rxi: NDArray, length: NDArray, *, grid_points: int, snap_tol: float,
+                   strict: bool) -> _Samples:
+    """Place the Gauss points of every row's grid on the surface, each re-snapped with its own
+    normal; refuse (or, not strict, mark) grids that overhang an edge."""
+    row_len = np.where(row_kind != 1, length[row_gauge], 0.0)
+    p_row, p_s, p_w = _gauss_points(row_kind, row_len, grid_points)
+    p_emb = c.embedded[row_gauge[p_row]]
     p_x = rc[p_row] + p_s[:, None] * rd[p_row]
     p_cell = rcell[p_row].copy()
     p_xi = np.zeros((len(p_row), rxi.shape[1]))
@@ -261,75 +383,83 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
     at_centre = p_s == 0
     p_xi[at_centre] = rxi[p_row[at_centre]]
     need = ~at_centre & ~p_emb
-    valid_row = np.ones(n_rows, dtype=bool)
-    invalid = np.zeros(n, dtype=bool)
+    valid_row = np.ones(len(row_kind), dtype=bool)
+    invalid = np.zeros(len(c.names), dtype=bool)
     if need.any():
-        spg, xig = project(p_x[need], rn[p_row[need]])
-        new_n = _face_normal_sign(mesh, faces[row_gauge[p_row[need]]], spg.normal)
+        spg = locator.project(p_x[need], prefer=rn[p_row[need]])
+        xig = parent_coordinates(mesh, spg)
+        new_n = _face_normal_sign(mesh, c.faces[row_gauge[p_row[need]]], spg.normal)
         turned = np.sum(new_n * rn[p_row[need]], axis=1) < OVERHANG_COS
         off = spg.distance > max(snap_tol, 1e-9)
         # a point past an edge snaps back along the grid; on a curved face it moves along the normal
         slip = np.abs(np.sum((spg.point - p_x[need]) * rd[p_row[need]], axis=1))
-        slipped = slip > SLIP_FRACTION * length[row_gauge[p_row[need]]] + 1e-9 * locator.surface.scale
-        bad_pt = turned | off | slipped
+        slipped = slip > SLIP_FRACTION * length[row_gauge[p_row[need]]] \
+            + 1e-9 * locator.surface.scale
         p_x[need] = spg.point
         p_cell[need] = spg.cell
         p_xi[need] = xig
         p_n[need] = new_n
-        bad_rows = np.unique(p_row[need][bad_pt])
+        bad_rows = np.unique(p_row[need][turned | off | slipped])
         nominal_bad = bad_rows[row_kind[bad_rows] == 0]
         if len(nominal_bad) and not strict:
             invalid[row_gauge[nominal_bad]] = True
             bad_rows = bad_rows[row_kind[bad_rows] != 0]
         elif len(nominal_bad):
             flipped = set(p_row[need][turned & (np.sum(new_n * rn[p_row[need]], axis=1) < 0)])
-            lines = []
-            for r in nominal_bad:
-                gname = names[row_gauge[r]]
-                if mesh.family == "shell" and r in flipped:
-                    lines.append(f"gauge '{gname}': its grid crosses shell elements with opposed "
-                                 "normals, so top and bottom swap under it; orient the shell "
-                                 "normals consistently in the model")
-                else:
-                    lines.append(f"gauge '{gname}': its grid (length {length[row_gauge[r]]:g}) "
-                                 "overhangs an edge of the face it is on; check the position, "
-                                 "direction and length")
-            raise GaugeError(*lines)
+            raise GaugeError(*[_overhang_line(mesh, c.names[row_gauge[r]], r in flipped,
+                                              length[row_gauge[r]]) for r in nominal_bad])
         valid_row[bad_rows] = False
     if (need & p_emb).any():
         raise GaugeError("embedded gauges with a grid length are not supported; give length 0")
-    p_d = _tangent(rd[p_row], p_n, p_emb)
-    p_t = np.cross(p_n, p_d)
-    keep_pt = valid_row[p_row]
-    # drop band rows whose grid left the face (a misplaced gauge cannot overhang an edge either)
-    keep_rows = np.flatnonzero(valid_row)
-    remap = -np.ones(n_rows, dtype=np.int64)
-    remap[keep_rows] = np.arange(len(keep_rows))
-    W = sparse.csr_matrix((p_w[keep_pt], (remap[p_row[keep_pt]], np.arange(keep_pt.sum()))),
-                          shape=(len(keep_rows), keep_pt.sum()))
+    return _Samples(row=p_row, weight=p_w, cell=p_cell, xi=p_xi, normal=p_n, direction=rd[p_row],
+                    valid_row=valid_row, invalid=invalid)
 
+
+def _overhang_line(mesh: Mesh, gauge: str, flipped: bool, length: float) -> str:
+    if mesh.family == "shell" and flipped:
+        return (f"gauge '{gauge}': its grid crosses shell elements with opposed normals, so top "
+                "and bottom swap under it; orient the shell normals consistently in the model")
+    return (f"gauge '{gauge}': its grid (length {length:g}) overhangs an edge of the face it is "
+            "on; check the position, direction and length")
+
+
+def _assemble(mesh: Mesh, c: _Centres, s: _Samples, row_gauge: NDArray, row_kind: NDArray,
+              row_off: NDArray, kt: NDArray, nu0: NDArray) -> GaugeOperator:
+    """Weight the sample points into rows, dropping band rows whose grid left the face (a
+    misplaced gauge cannot overhang an edge either); check the cells under each gauge."""
+    embedded = c.embedded[row_gauge[s.row]]
+    p_d = _tangent(s.direction, s.normal, embedded)
+    p_t = np.cross(s.normal, p_d)
+    keep_pt = s.valid_row[s.row]
+    keep_rows = np.flatnonzero(s.valid_row)
+    remap = -np.ones(len(row_kind), dtype=np.int64)
+    remap[keep_rows] = np.arange(len(keep_rows))
+    W = sparse.csr_matrix((s.weight[keep_pt], (remap[s.row[keep_pt]], np.arange(keep_pt.sum()))),
+                          shape=(len(keep_rows), keep_pt.sum()))
     # cells under the gauge itself (nominal and centre rows; band samples are what-ifs)
-    own = keep_pt & (row_kind[p_row] != 2)
-    _check_cells(mesh, p_cell[own], p_xi[own], [names[g] for g in row_gauge[p_row[own]]])
-    table = pd.DataFrame({
-        "gauge": names,
-        "element": cell_c,
-        "cell_type": cell_types(mesh, cell_c),
-        "snap_distance": np.where(embedded, 0.0, sp.distance),
-        "x": centre[:, 0], "y": centre[:, 1], "z": centre[:, 2],
-        "normal_x": normal[:, 0], "normal_y": normal[:, 1], "normal_z": normal[:, 2],
-        "dir_x": direction[:, 0], "dir_y": direction[:, 1], "dir_z": direction[:, 2],
-        "out_of_plane_deg": np.where(embedded, 0.0, out_deg),
-        "mount": np.where(embedded, "embedded", "surface"),
-        "face": faces,
-    })
-    placement = Placement(table=table, normal=normal, direction=direction, centre=centre)
-    return GaugeOperator(mesh=mesh, placement=placement, cell=p_cell[keep_pt], xi=p_xi[keep_pt],
-                         direction=p_d[keep_pt], transverse=p_t[keep_pt],
-                         face=faces[row_gauge[p_row[keep_pt]]], weights=W,
+    own = keep_pt & (row_kind[s.row] != 2)
+    _check_cells(mesh, s.cell[own], s.xi[own], [c.names[g] for g in row_gauge[s.row[own]]])
+    return GaugeOperator(mesh=mesh, placement=_placement(mesh, c), cell=s.cell[keep_pt],
+                         xi=s.xi[keep_pt], direction=p_d[keep_pt], transverse=p_t[keep_pt],
+                         face=c.faces[row_gauge[s.row[keep_pt]]], weights=W,
                          row_gauge=row_gauge[keep_rows], row_kind=row_kind[keep_rows],
-                         row_offset=row_off[keep_rows], kt=kt, nu0=nu0, invalid=invalid,
-                         _cache={})
+                         row_offset=row_off[keep_rows], kt=kt, nu0=nu0, invalid=s.invalid)
+
+
+def _placement(mesh: Mesh, c: _Centres) -> Placement:
+    table = pd.DataFrame({
+        "gauge": c.names,
+        "element": c.cell,
+        "cell_type": mesh.cell_types(c.cell),
+        "snap_distance": np.where(c.embedded, 0.0, c.distance),
+        "x": c.centre[:, 0], "y": c.centre[:, 1], "z": c.centre[:, 2],
+        "normal_x": c.normal[:, 0], "normal_y": c.normal[:, 1], "normal_z": c.normal[:, 2],
+        "dir_x": c.direction[:, 0], "dir_y": c.direction[:, 1], "dir_z": c.direction[:, 2],
+        "out_of_plane_deg": np.where(c.embedded, 0.0, c.out_of_plane),
+        "mount": np.where(c.embedded, "embedded", "surface"),
+        "face": c.faces,
+    })
+    return Placement(table=table, normal=c.normal, direction=c.direction, centre=c.centre)
 
 
 DEGENERATE = 1e-9  # |det J| below this share of the cell's size (h^dim) is a collapsed cell
@@ -337,7 +467,7 @@ DEGENERATE = 1e-9  # |det J| below this share of the cell's size (h^dim) is a co
 
 def _jacobian_det(ctype: str, nodes: NDArray, xi: NDArray) -> NDArray:
     """det J (3D cells) or the area scale |x_xi x x_eta| (2D cells) at xi."""
-    _, jac = elements._jacobian(ctype, nodes, xi)
+    _, jac = mapping.jacobian(ctype, nodes, xi)
     if jac.shape[2] == 3:
         return np.linalg.det(jac)
     return np.linalg.norm(np.cross(jac[:, :, 0], jac[:, :, 1]), axis=1)
@@ -347,7 +477,7 @@ def _check_cells(mesh: Mesh, cells: NDArray[np.int64], xi: NDArray[np.float64],
                  gauges: list[str]) -> None:
     """Refuse inverted or collapsed elements under a gauge (det J <= 0 or ~0 at a sample point
     or at the cell centre)."""
-    block, row = cell_nodes(mesh, cells)
+    block, row = mesh.block_rows(cells)
     problems = {}
     for b, (ctype, conn_b) in enumerate(mesh.blocks):
         sel = np.flatnonzero(block == b)
@@ -398,126 +528,3 @@ def _rows(ptol: NDArray, atol: NDArray) -> tuple[NDArray, NDArray, NDArray]:
     off = np.r_[np.zeros((2 * n, 3)), off_band]
     order = np.lexsort((np.arange(len(gauge)), gauge))                  # gauge by gauge
     return gauge[order], kind[order], off[order]
-
-
-def _interpolation(op: GaugeOperator, *, gradient: bool) -> list[sparse.csr_matrix]:
-    """Sparse matrices (points x nodes): shape functions, or their x, y, z derivatives."""
-    key = "grad" if gradient else "values"
-    if key in op._cache:
-        return op._cache[key]
-    mesh = op.mesh
-    block, row = cell_nodes(mesh, op.cell)
-    n_pts, n_nodes = len(op.cell), len(mesh.points)
-    mats: list[list] = [[], [], []] if gradient else [[]]
-    for b, (ctype, conn_b) in enumerate(mesh.blocks):
-        sel = np.flatnonzero(block == b)
-        if not len(sel):
-            continue
-        conn = conn_b[row[sel]]
-        rows = np.repeat(sel, conn.shape[1])
-        if gradient:
-            dN, _ = elements.physical_gradients(str(ctype), mesh.points[conn], op.xi[sel])
-            for j in range(3):
-                mats[j].append((dN[:, :, j].ravel(), rows, conn.ravel()))
-        else:
-            N = elements.shape_functions(str(ctype), op.xi[sel])
-            mats[0].append((N.ravel(), rows, conn.ravel()))
-    out = []
-    for parts in mats:
-        v = np.concatenate([p[0] for p in parts])
-        r = np.concatenate([p[1] for p in parts])
-        c = np.concatenate([p[2] for p in parts])
-        out.append(sparse.csr_matrix((v, (r, c)), shape=(n_pts, n_nodes)))
-    op._cache[key] = out
-    return out
-
-
-def strain_at_points(op: GaugeOperator, field: Field) -> NDArray[np.float64]:
-    """Strain tensors (p, 3, 3) at the operator's sample points for one field.
-
-    Only the nodes or cells the operator touches are converted to tensors (the conversion is
-    row by row, and interpolation commutes with it).
-    """
-    index = field.index
-
-    def one(face: str) -> NDArray:
-        if field.kind == "displacement":
-            values = field.values[face] if isinstance(field.values, dict) else field.values
-            G = _interpolation(op, gradient=True)
-            if index is not None:
-                G = [g[:, index] for g in G]
-            H = np.stack([g @ values for g in G], axis=2)  # H[p, i, j] = du_i/dx_j
-            return 0.5 * (H + np.swapaxes(H, 1, 2))
-        if field.location == "cell":
-            return field.at(op.cell if index is None else _positions(index, op.cell, field), face)
-        touched = touched_rows(op)["point"]
-        ids = touched if index is None else _positions(index, touched, field)
-        N = op._cache["compact"]  # made with touched_rows: the interpolation on those nodes only
-        return (N @ field.at(ids, face).reshape(len(ids), 9)).reshape(-1, 3, 3)
-
-    if isinstance(field.data, dict):
-        out = np.zeros((len(op.cell), 3, 3))
-        for face in field.data:
-            sel = op.face == face
-            if face == "top":
-                sel = sel | (op.face == "")
-            out[sel] = one(face)[sel]
-        return out
-    return one("")
-
-
-def _positions(index: NDArray[np.int64], wanted: NDArray[np.int64], field: Field) -> NDArray:
-    """Positions of the wanted nodes/cells in a partial read holding only ``index``."""
-    pos = np.minimum(np.searchsorted(index, wanted), len(index) - 1)
-    if len(index) == 0 or (index[pos] != wanted).any():
-        raise ModelError(f"case '{field.case}': the rows read from '{field.array}' do not hold "
-                         "every node the gauges need (internal error; please report it)")
-    return pos
-
-
-def check_finite(op: GaugeOperator, field: Field, strain: NDArray) -> None:
-    """Refuse NaN or infinite values at any gauge."""
-    bad = ~np.isfinite(strain).all(axis=(1, 2))
-    if bad.any():
-        rows = np.unique(op.weights[:, np.flatnonzero(bad)].nonzero()[0])
-        gauges = sorted({op.gauges[g] for g in op.row_gauge[rows]})
-        raise ModelError(f"case '{field.case}': array '{field.array}' has NaN or infinite values at "
-                         f"gauge(s) {', '.join(gauges)}; check the result file there")
-
-
-def evaluate_rows(op: GaugeOperator, field: Field) -> dict[str, NDArray[np.float64]]:
-    """Axial, transverse and indicated strain [m/m] of every operator row for one field."""
-    eps = strain_at_points(op, field)
-    check_finite(op, field, eps)
-    ea = np.einsum("pi,pij,pj->p", op.direction, eps, op.direction)
-    et = np.einsum("pi,pij,pj->p", op.transverse, eps, op.transverse)
-    axial = op.weights @ ea
-    trans = op.weights @ et
-    kt = op.kt[op.row_gauge]
-    nu0 = op.nu0[op.row_gauge]
-    bad = op.invalid[op.row_gauge]
-    axial, trans = np.where(bad, np.nan, axial), np.where(bad, np.nan, trans)
-    return {"axial": axial, "transverse": trans, "indicated": (axial + kt * trans) / (1 - nu0 * kt)}
-
-
-def centre_strain(op: GaugeOperator, field: Field) -> NDArray[np.float64]:
-    """Full strain tensor (g, 3, 3) at each gauge centre (the point rows)."""
-    eps = strain_at_points(op, field)
-    point_rows = np.flatnonzero(op.row_kind == 1)
-    pts = op.weights[point_rows].indices
-    return eps[pts]
-
-
-def touched_rows(op: GaugeOperator) -> dict[str, NDArray[np.int64]]:
-    """The nodes and cells the operator reads (sorted): all a time-series step needs."""
-    if "touched" not in op._cache:
-        (N,) = _interpolation(op, gradient=False)
-        touched = np.zeros(N.shape[1], dtype=bool)  # a mask, not a sort: the rows are many
-        touched[N.indices] = True
-        nodes = np.flatnonzero(touched)
-        cols = (np.cumsum(touched) - 1)[N.indices]
-        # the interpolation on the touched nodes only (columns renumbered)
-        op._cache["compact"] = sparse.csr_matrix((N.data, cols, N.indptr),
-                                                 shape=(N.shape[0], len(nodes)))
-        op._cache["touched"] = {"point": nodes, "cell": np.unique(op.cell)}
-    return op._cache["touched"]

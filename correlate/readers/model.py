@@ -68,6 +68,17 @@ class Mesh:
         """Global id of the first cell of each block (plus the total at the end)."""
         return np.concatenate([[0], np.cumsum([len(c) for _, c in self.blocks])]).astype(np.int64)
 
+    def block_rows(self, cells: NDArray[np.int64]) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
+        """Block index and local row of global cell ids."""
+        offsets = self.offsets
+        block = np.searchsorted(offsets, cells, side="right") - 1
+        return block, cells - offsets[block]
+
+    def cell_types(self, cells: NDArray[np.int64]) -> NDArray[np.str_]:
+        """Type name of the given global cells."""
+        block, _ = self.block_rows(np.asarray(cells, dtype=np.int64))
+        return np.asarray([ctype for ctype, _ in self.blocks])[block]
+
 
 @dataclass(frozen=True)
 class Field:

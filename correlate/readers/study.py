@@ -55,6 +55,16 @@ class Case:
     check_stress: str | None = None
     match: dict[str, Any] | None = None
 
+    @property
+    def is_series(self) -> bool:
+        """The case holds a load history (matched by load, not superposed)."""
+        return self.time_index == "all" or isinstance(self.time_index, tuple)
+
+    @property
+    def fe_index(self) -> int | None:
+        """The one FE state of a case that is not a series (None: the file's only state)."""
+        return self.time_index if isinstance(self.time_index, int) else None
+
 
 @dataclass(frozen=True)
 class Material:

@@ -21,12 +21,15 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from correlate.report import figures
-from correlate.report.scene import Rendering, reference_index, render_views, write_vtk
+import correlate.report.figures as figures
+from correlate.comparison.correlation import Correlation
+from correlate.comparison.rosettes import rosette_angles
+from correlate.core.names import CAUTION
+from correlate.measurement.health import load_direction
+from correlate.report.scene import Rendering, render_views
+from correlate.report.vtk_files import write_vtk
 
 HERE = Path(__file__).parent
-CAUTION = ("These results support, but do not replace, engineering judgement, the applicable codes "
-           "and licensed practice.")
 CRITERIA_SOURCE = "the analyst's choice for this programme, not a standard"
 
 
@@ -56,7 +59,7 @@ def data_uri(path: Path) -> dict[str, Any]:
             "width": width, "height": height}
 
 
-def _step_label(corr: Any, i: int) -> str:
+def _step_label(corr: Correlation, i: int) -> str:
     steps = corr.steps
     label = f"step {int(steps.step[i])}"
     if len(np.unique(steps.sequence)) > 1:
@@ -64,7 +67,7 @@ def _step_label(corr: Any, i: int) -> str:
     return label
 
 
-def report_rows(spec: Any, corr: Any) -> list[int]:
+def report_rows(spec: Any, corr: Correlation) -> list[int]:
     """Step rows named by ``[report] steps``: step numbers, or [step, sequence] pairs."""
     if spec is None:
         return []
@@ -94,26 +97,26 @@ def diagnosis_text(diagnoses: Any) -> dict[str, str]:
     return {g: "; ".join(v) for g, v in out.items()}
 
 
-def gauge_rows(corr: Any, i: int) -> list[dict[str, str]]:
+def gauge_rows(corr: Correlation, i: int) -> list[dict[str, str]]:
     """Rows of the per-gauge table at step row ``i``, worst first by |difference|."""
     st = corr.status
-    diff = st["difference"][i]
-    order = np.argsort(np.where(np.isfinite(diff) & st["evaluated"][i], -np.abs(diff), np.inf),
+    diff = st.difference[i]
+    order = np.argsort(np.where(np.isfinite(diff) & st.evaluated[i], -np.abs(diff), np.inf),
                        kind="stable")
     diag = diagnosis_text(corr.diagnoses)
     rows = []
     for j in order:
-        status = str(st["status"][i, j])
+        status = str(st.status[i, j])
         rows.append({
             "gauge": corr.gauges[j],
             "predicted": num(corr.predicted[i, j]),
             "measured": num(corr.measured[i, j]),
             "difference": num(diff[j], "+.1f"),
-            "ratio": num(st["ratio"][i, j], ".3f"),
+            "ratio": num(st.ratio[i, j], ".3f"),
             "band": f"{num(corr.band_low[i, j])} to {num(corr.band_high[i, j])}",
             "status": status,
-            "basis": str(st["basis"][i, j]),
-            "unconservative": "yes" if st["unconservative"][i, j] else "",
+            "basis": str(st.basis[i, j]),
+            "unconservative": "yes" if st.unconservative[i, j] else "",
             "diagnosis": diag.get(corr.gauges[j], ""),
             "css": status if status in ("pass", "fail") else "other",
         })
@@ -123,7 +126,7 @@ def gauge_rows(corr: Any, i: int) -> list[dict[str, str]]:
 MAX_CURVES = 96  # load-strain panels in the report (six figures of 16); beyond, the worst gauges
 
 
-def _curve_gauges(corr: Any, words: list[str], ref: int) -> list[int]:
+def _curve_gauges(corr: Correlation, words: list[str], ref: int) -> list[int]:
     """Gauges whose load-strain curves the report draws, in gauge order.
 
     All of them up to MAX_CURVES; beyond, the failing and flagged ones first, then the largest
@@ -132,20 +135,20 @@ def _curve_gauges(corr: Any, words: list[str], ref: int) -> list[int]:
     g = len(corr.gauges)
     if g <= MAX_CURVES:
         return list(range(g))
-    diff = np.abs(np.nan_to_num(corr.status["difference"][ref], nan=0.0))
+    diff = np.abs(np.nan_to_num(corr.status.difference[ref], nan=0.0))
     priority = np.array([0 if w not in ("pass",) else 1 for w in words])
     order = np.lexsort((-diff, priority))
     return sorted(order[:MAX_CURVES].tolist())
 
 
-def _gauge_status(corr: Any) -> list[str]:
+def _gauge_status(corr: Correlation) -> list[str]:
     """One word per gauge over all steps: pass, fail, or the flag that removed it."""
     st = corr.status
-    ev = st["evaluated"]
+    ev = st.evaluated
     out = []
     flags = corr.flags
     for j, g in enumerate(corr.gauges):
-        if ((st["status"][:, j] == "fail") & ev[:, j]).any():
+        if ((st.status[:, j] == "fail") & ev[:, j]).any():
             out.append("fail")
         elif ev[:, j].any():
             out.append("pass")
@@ -155,7 +158,7 @@ def _gauge_status(corr: Any) -> list[str]:
     return out
 
 
-def _flag_rows(corr: Any) -> list[dict[str, str]]:
+def _flag_rows(corr: Correlation) -> list[dict[str, str]]:
     rows = []
     for _, f in corr.flags.iterrows():
         step = f.get("step")
@@ -168,13 +171,11 @@ def _flag_rows(corr: Any) -> list[dict[str, str]]:
     return rows
 
 
-def _rosettes(corr: Any, ref: int) -> tuple[list[dict[str, str]], list[dict[str, Any]]]:
+def _rosettes(corr: Correlation, ref: int) -> tuple[list[dict[str, str]], list[dict[str, Any]]]:
     """Table rows and plot records of the rosettes at the reference step."""
     table = corr.rosettes
     if table is None or not len(table):
         return [], []
-    from correlate.comparison.rosettes import rosette_angles
-
     steps = corr.steps
     at = table[(table["step"] == steps.step[ref]) & (table["sequence"] == steps.sequence[ref])]
     try:
@@ -204,7 +205,7 @@ def _rosettes(corr: Any, ref: int) -> tuple[list[dict[str, str]], list[dict[str,
     return rows, records
 
 
-def _load_axis(corr: Any) -> tuple[NDArray, str, str]:
+def _load_axis(corr: Correlation) -> tuple[NDArray, str, str]:
     """The load column with the largest tared range, its label and a note."""
     loads = corr.steps.loads
     names = corr.steps.load_names
@@ -213,7 +214,7 @@ def _load_axis(corr: Any) -> tuple[NDArray, str, str]:
     return loads[:, j], f"{names[j]} (tared)", note
 
 
-def _render(corr: Any, folder: Path) -> tuple[Rendering | None, str]:
+def _render(corr: Correlation, folder: Path) -> tuple[Rendering | None, str]:
     """Render the 3D views; a machine without OpenGL gets a report without them."""
     views = corr.study.report.get("views")     # [report] views: most views besides the iso one
     kwargs = {}
@@ -230,43 +231,24 @@ def _render(corr: Any, folder: Path) -> tuple[Rendering | None, str]:
         return None, f"The 3D views could not be rendered on this machine ({exc})."
 
 
-def write_report(corr: Any, folder: Path) -> None:
-    """Write report.html, its PNG pictures, gauges.vtp and surface.vtp into ``folder``.
-
-    Parameters
-    ----------
-    corr : Correlation
-        Everything the run computed (:func:`correlate.comparison.correlation.correlate_study`).
-    folder : Path
-        An existing folder (the run's staging folder).
-    """
-    from jinja2 import Environment, FileSystemLoader, StrictUndefined
-
-    from correlate.measurement.health import load_direction
-
-    folder = Path(folder)
+def _figures(corr: Correlation, folder: Path, ref: int) -> dict[str, Any]:
+    """The scatter, load-strain and rosette figures and the gauge tables of the report."""
     study, steps, summary = corr.study, corr.steps, corr.summary
     st = corr.status
-    ref = reference_index(corr)
-    rendering, render_note = _render(corr, folder)
-    write_vtk(corr, folder, rendering.surface if rendering else None)
-    if rendering is not None and rendering.note:
-        render_note = f"Note: {rendering.note}."
-
     crit = study.criteria
     active = steps.active[:, None]
     finite = np.isfinite(corr.measured)
     # readings of a series case outside its FE load range have no model reading: not flagged
-    unmodelled = st["status"] == "not-modelled"
-    flagged = active & finite & ~st["evaluated"] & ~unmodelled
+    unmodelled = st.status == "not-modelled"
+    flagged = active & finite & ~st.evaluated & ~unmodelled
     scatter = figures.plot_scatter(
-        corr.measured, corr.predicted, st["evaluated"], flagged, ref, fit=summary["fit"],
+        corr.measured, corr.predicted, st.evaluated, flagged, ref, fit=summary["fit"],
         relative=crit.relative, absolute_ue=crit.absolute_ue, path=folder / "scatter.png",
         ref_label=f"reference step ({_step_label(corr, ref)})", names=list(corr.gauges))
 
     load, load_label, load_note = _load_axis(corr)
     direction = load_direction(steps.loads, steps.sequence, tol=study.zero_tol)
-    on_path = finite & (st["evaluated"] | steps.tare[:, None] | steps.zero_load[:, None]
+    on_path = finite & (st.evaluated | steps.tare[:, None] | steps.zero_load[:, None]
                         | unmodelled)
     off_path = finite & ~on_path
     predicted = np.where(unmodelled, np.nan, corr.predicted)
@@ -293,6 +275,15 @@ def write_report(corr: Any, folder: Path) -> None:
         if i != ref:
             gauge_tables.append({"title": f"At {_step_label(corr, i)}", "rows": gauge_rows(corr, i)})
 
+    return {"scatter": data_uri(scatter), "relative_pct": f"{crit.relative:.0%}",
+            "absolute_ue": f"{crit.absolute_ue:g}", "gauge_tables": gauge_tables,
+            "load_label": load_label, "load_note": load_note,
+            "load_figures": [data_uri(p) for p in load_files], "rosette_rows": rosette_rows,
+            "rosette_figure": rosette_figure}
+
+
+def _verdict(summary: dict[str, Any]) -> dict[str, Any]:
+    """The verdict box: the result, its reasons and the numbers behind it."""
     fit = summary["fit"]
     verdict = summary["verdict"]
     ci = fit.get("slope_origin_ci") or [None, None]
@@ -310,13 +301,23 @@ def write_report(corr: Any, folder: Path) -> None:
         ("unconservative gauges", str(verdict["unconservative"])),
         ("flagged gauges", f"{verdict['flagged']} of {verdict['gauges']}"),
     ]
+    return {"result": verdict["result"], "ok": verdict["result"] == "meets the criteria",
+            "reasons": list(verdict.get("reasons", [])), "numbers": numbers,
+            "ci_method": str(fit.get("ci_method", ""))}
+
+
+def _context(corr: Correlation, ref: int) -> dict[str, Any]:
+    """Identification, inputs, criteria and conventions of the report."""
+    study, summary = corr.study, corr.summary
+    crit = study.criteria
+    verdict = summary["verdict"]
     prov = summary.get("provenance", {})
     units = summary.get("units", {})
     tare = summary.get("tare", {})
     model_items = [("file", summary.get("model", {}).get("file", study.model_file.name))]
     model_items += [(str(k), text(v)) for k, v in study.model_info.items()]
     ref_info = summary.get("reference_step", {})
-    context = {
+    return {
         "title": str(study.report.get("title") or summary.get("title") or study.title),
         "version": str(prov.get("version", "")),
         "generated": str(prov.get("generated", "")),
@@ -346,27 +347,37 @@ def write_report(corr: Any, folder: Path) -> None:
                       f"{tare.get('note', '')}"))],
         "ref_label": _step_label(corr, ref),
         "ref_rule": str(ref_info.get("rule", "")),
-        "verdict": {"result": verdict["result"], "ok": verdict["result"] == "meets the criteria",
-                    "reasons": list(verdict.get("reasons", [])), "numbers": numbers,
-                    "ci_method": str(fit.get("ci_method", ""))},
-        "views": [{**data_uri(folder / v.file), "title": v.title, "visible": list(v.visible)}
-                  for v in rendering.views]
-        if rendering else [],
-        "not_visible": list(rendering.not_visible) if rendering else [],
-        "render_note": render_note,
-        "scatter": data_uri(scatter),
-        "relative_pct": f"{crit.relative:.0%}",
-        "absolute_ue": f"{crit.absolute_ue:g}",
-        "gauge_tables": gauge_tables,
-        "load_label": load_label,
-        "load_note": load_note,
-        "load_figures": [data_uri(p) for p in load_files],
-        "rosette_rows": rosette_rows,
-        "rosette_figure": rosette_figure,
+        "verdict": _verdict(summary),
         "stress_unit": str(study.stress_unit or "unit of E"),
         "flag_rows": _flag_rows(corr),
         "caution": str(summary.get("caution") or CAUTION),
     }
+
+
+def write_report(corr: Correlation, folder: Path) -> None:
+    """Write report.html, its PNG pictures, gauges.vtp and surface.vtp into ``folder``.
+
+    Parameters
+    ----------
+    corr : Correlation
+        Everything the run computed (:func:`correlate.comparison.correlation.correlate_study`).
+    folder : Path
+        An existing folder (the run's staging folder).
+    """
+    from jinja2 import Environment, FileSystemLoader, StrictUndefined
+
+    folder = Path(folder)
+    ref = corr.reference
+    rendering, render_note = _render(corr, folder)
+    write_vtk(corr, folder, rendering.surface if rendering else None)
+    if rendering is not None and rendering.note:
+        render_note = f"Note: {rendering.note}."
+    context = {**_context(corr, ref), **_figures(corr, folder, ref),
+               "views": [{**data_uri(folder / v.file), "title": v.title,
+                          "visible": list(v.visible)} for v in rendering.views]
+               if rendering else [],
+               "not_visible": list(rendering.not_visible) if rendering else [],
+               "render_note": render_note}
     env = Environment(loader=FileSystemLoader(str(HERE)), autoescape=True,
                       undefined=StrictUndefined, trim_blocks=True, lstrip_blocks=True)
     html = env.get_template("template.html").render(**context)

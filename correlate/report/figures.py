@@ -20,6 +20,8 @@ from typing import Any, TypeVar
 import numpy as np
 from numpy.typing import NDArray
 
+from correlate.comparison.criteria import allowed_difference
+
 DPI = 110
 MEASURED = "#1f4e99"        # measured readings
 UNLOADING = "#c25a00"       # measured readings while the load falls
@@ -76,9 +78,9 @@ def _save(fig, path: Path) -> Path:
 def band_lines(x: NDArray[np.float64], relative: float, absolute_ue: float) -> tuple[NDArray, NDArray]:
     """Lower and upper tolerance lines around measured = predicted.
 
-    The allowed difference is max(relative * |p|, absolute_ue) (the study's criteria).
+    The allowed difference is the study's pass rule (:func:`allowed_difference`).
     """
-    allowed = np.maximum(relative * np.abs(x), absolute_ue)
+    allowed = allowed_difference(x, relative, absolute_ue)
     return x - allowed, x + allowed
 
 

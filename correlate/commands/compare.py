@@ -1,0 +1,60 @@
+"""`correlate compare OLD NEW`: a model revision against the previous one, same test data."""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+from correlate.comparison.revisions import compare_gauges, judge, overall_change
+from correlate.core.errors import OutputError, RunFolderError
+from correlate.core.folders import check_target, staged_folder
+from correlate.core.names import CAUTION
+from correlate.core.tables import write_csv
+from correlate.readers.run_folder import read_run, readings_hash
+from correlate.report.compare_page import cell_text, render_compare_page
+
+
+def _check_out(out: Path, runs: tuple[Path, ...], *, force: bool) -> None:
+    o = out.resolve()
+    for r in (p.resolve() for p in runs):
+        if o == r or r in o.parents or o in r.parents:
+            raise OutputError(f"--out '{out}' is, lies inside or contains the run folder '{r}'; "
+                              "compare never writes into run folders: choose another --out")
+    check_target(out, force=force)
+
+
+def run(args: argparse.Namespace) -> int:
+    """Compare two run folders; print the table and verdict; write outputs with --out."""
+    old, new = Path(args.old), Path(args.new)
+    if args.out is not None:
+        _check_out(Path(args.out), (old, new), force=args.force)
+    a, b = read_run(old), read_run(new)
+    ha, hb = readings_hash(a), readings_hash(b)
+    if ha != hb:
+        raise RunFolderError(f"the runs were made from different test data: readings sha256 "
+                             f"{ha} in '{old}' but {hb} in '{new}'; compare runs of the same test")
+    table = compare_gauges(a, b)
+    overall = overall_change(a, b)
+    verdict, worse, better = judge(overall, slope_tol=args.slope_tol, rms_tol=args.rms_tol)
+    line = f"revision {new} is {verdict} {'as' if verdict == 'about the same' else 'than'} {old}"
+    reasons = worse or better
+    shown = table[["gauge", "class", "old_rms_ue", "new_rms_ue", "old_status", "new_status"]]
+    print(shown.to_string(index=False, formatters={c: cell_text for c in ("old_rms_ue", "new_rms_ue")}))
+    rows = [(k, f"{o:.4g} -> {n:.4g}") for k, (o, n) in overall.items()]
+    print("overall: " + "; ".join(f"{k} {t}" for k, t in rows))
+    ref = b.summary["reference_step"]
+    if [a.summary["reference_step"][k] for k in ("step", "sequence")] != [ref["step"],
+                                                                          ref["sequence"]]:
+        print(f"note: the reference steps differ; both runs are read at NEW's step {ref['step']} "
+              f"(sequence {ref['sequence']})")
+    print(line + (": " + "; ".join(reasons) if reasons else ""))
+    print(CAUTION)
+    if args.out is not None:
+        html = render_compare_page(title=f"Comparison of {new} with {old}", verdict=line,
+                                   reasons=reasons, old=str(old), new=str(new), reference=ref,
+                                   overall=overall, table=table)
+        with staged_folder(Path(args.out), force=args.force) as tmp:
+            write_csv(table, tmp / "compare.csv")
+            (tmp / "compare.html").write_text(html, encoding="utf-8")
+        print(f"comparison written to {Path(args.out) / 'compare.csv'} and compare.html")
+    return 3 if args.fail_if_worse and verdict == "worse" else 0

@@ -1,0 +1,26 @@
+"""`correlate predict STUDY --out DIR`: model readings before the test."""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+from correlate.core.folders import check_target, staged_folder
+from correlate.core.tables import write_csv
+from correlate.model_readings.model import prepare
+from correlate.model_readings.table import predict_table
+from correlate.readers.study import read_study
+
+
+def run(args: argparse.Namespace) -> int:
+    """Write ``model_readings.csv`` and ``placement.csv``."""
+    study = read_study(args.study)
+    check_target(Path(args.out), force=args.force)
+    model = prepare(study)
+    table = predict_table(model)
+    with staged_folder(Path(args.out), force=args.force) as tmp:
+        write_csv(table, tmp / "model_readings.csv")
+        write_csv(model.operator.placement.table, tmp / "placement.csv")
+    print(f"model readings of {len(model.gauges)} gauges x {len(study.cases)} case(s) written "
+          f"to {Path(args.out) / 'model_readings.csv'}")
+    return 0

@@ -1,0 +1,75 @@
+"""`correlate run STUDY --out DIR`: the whole correlation, written to an output folder."""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from correlate.comparison.correlation import Correlation, correlate_study
+from correlate.core import progress
+from correlate.core.folders import check_target, staged_folder
+from correlate.core.names import CAUTION
+from correlate.core.tables import write_csv, write_json
+from correlate.model_readings.model import prepare
+from correlate.readers.study import read_study
+from correlate.report import write_report
+
+
+def write_outputs(corr: Correlation, out: Path, *, force: bool, report: bool = True) -> None:
+    """Write every output into a staged folder and move it into place."""
+    with staged_folder(out, force=force) as tmp:
+        write_csv(corr.gauge_table, tmp / "gauges.csv")
+        write_csv(corr.rosettes, tmp / "rosettes.csv")
+        write_csv(corr.per_gauge, tmp / "gauge_stats.csv")
+        write_csv(corr.flags, tmp / "flags.csv")
+        write_json(corr.summary, tmp / "summary.json")
+        progress.pause("write")
+        if report:
+            with progress.step("writing the report (3D views and figures)"):
+                write_report(corr, tmp)
+
+
+def print_summary(corr: Correlation) -> None:
+    s = corr.summary
+    v, fit = s["verdict"], s["fit"]
+
+    def num(x: Any, fmt: str) -> str:
+        return "n/a" if x is None or (isinstance(x, float) and not np.isfinite(x)) else format(x, fmt)
+
+    print(f"{s['title']}: {v['result']}")
+    for r in v["reasons"]:
+        print(f"  - {r}")
+    ci = fit.get("slope_origin_ci") or [None, None]
+    print(f"measured/predicted strain ratio {num(fit['slope_origin'], '.3f')} "
+          f"(95% {num(ci[0], '.3f')} to {num(ci[1], '.3f')}, {fit.get('ci_method', '')})")
+    print(f"fit: slope {num(fit['slope'], '.3f')}, intercept {num(fit['intercept'], '.1f')} ue, "
+          f"R^2 {num(fit['r2'], '.4f')}, RMS {num(fit['rms_ue'], '.1f')} ue, "
+          f"max {num(fit['max_abs_ue'], '.1f')} ue, n = {fit['n']} pairs")
+    print(f"gauges: {v['passing']} pass, {v['failing']} fail, {v['unconservative']} "
+          f"unconservative, {v['flagged']} flagged, of {v['gauges']}")
+    if v["worst"]:
+        print(f"worst at the reference step: {', '.join(v['worst'])}")
+    for f in s["flags"]:
+        if f["step"] in (-1, None):
+            print(f"flag {f['gauge']}: {f['flag']} - {f['reason']}"
+                  + (f" [{f['disposition']}]" if f.get("disposition") else ""))
+    for d in s["diagnoses"]:
+        print(f"diagnosis {d['gauge']}: {d['explanation']} - {d['detail']}")
+    print(CAUTION)
+
+
+def run(args: argparse.Namespace) -> int:
+    """Correlate the study and write every output; print the summary."""
+    study = read_study(args.study)
+    out = Path(args.out)
+    check_target(out, force=args.force)
+    model = prepare(study)
+    with progress.step("correlating (statistics, health, rosettes)"):
+        corr = correlate_study(study, model)
+    write_outputs(corr, out, force=args.force, report=not args.no_report)
+    print_summary(corr)
+    print(f"outputs in {out}" + ("" if args.no_report else f"; report: {out / 'report.html'}"))
+    return 0

@@ -1,0 +1,73 @@
+"""The regression statistics of a correlation: overall, per step, per gauge, and the metrics beside.
+
+Stage: comparison. In: measured and predicted readings (s, g) and the statuses. Out: the fits
+(cluster-robust through :mod:`correlate.comparison.statistics`) of the evaluated pairs, of all
+pairs with the reversed and suspect gauges, of the reference step and of every active step; the
+per-gauge fits; concordance, Bland-Altman, the area metric and the influence of each gauge.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from correlate.comparison import statistics as stats
+from correlate.comparison.criteria import Statuses
+from correlate.comparison.pairing import Steps
+from correlate.readers.study import Study
+
+
+def fit_statistics(study: Study, steps: Steps, names: list[str], measured: NDArray,
+                predicted: NDArray, st: Statuses, reversed_: NDArray, ref: int) -> dict[str, Any]:
+    from correlate.comparison import (
+        statistics as stats,  # statsmodels: imported when statistics are needed
+    )
+    ev = st.evaluated
+    groups = np.tile(names, (len(steps.step), 1))
+    fit = stats.fit_pairs(measured[ev], predicted[ev], groups[ev])
+    ev_all = ev | (steps.active[:, None] & reversed_[None, :] & np.isfinite(measured))
+    fit_all = stats.fit_pairs(measured[ev_all], predicted[ev_all], groups[ev_all])
+    fit_ref = stats.fit_pairs(measured[ref][ev[ref]], predicted[ref][ev[ref]],
+                              np.asarray(names)[ev[ref]])
+    by_step = []
+    for i in np.flatnonzero(steps.active):
+        f = stats.fit_pairs(measured[i][ev[i]], predicted[i][ev[i]], np.asarray(names)[ev[i]])
+        by_step.append({"step": int(steps.step[i]), "sequence": int(steps.sequence[i]), **f})
+    per_gauge = stats.per_gauge_fits(measured[ev], predicted[ev], groups[ev])
+    m_ref, p_ref = measured[ref][ev[ref]], predicted[ref][ev[ref]]
+    metrics = {
+        "concordance": stats.concordance(measured[ev], predicted[ev]),
+        "concordance_source": "Lin (1989), Biometrics 45:255-268",
+        "bland_altman_reference": stats.bland_altman(m_ref, p_ref),
+        "bland_altman_reference_relative": stats.bland_altman(m_ref, p_ref, relative=True),
+        "bland_altman_source": "Bland and Altman (1986), Lancet i:307-310",
+    }
+    area = area_metrics(steps, names, measured, predicted, ev)
+    infl = stats.influence_by_gauge(measured[ev], predicted[ev], groups[ev])
+    return {"fit": fit, "fit_all": fit_all, "fit_reference": fit_ref, "fit_by_step": by_step,
+            "metrics": metrics, "area_metric": area, "influence": infl,
+            "per_gauge_table": per_gauge}
+
+
+def area_metrics(steps: Steps, names: list[str], measured: NDArray, predicted: NDArray,
+                  ev: NDArray) -> list[dict[str, Any]]:
+    """Area validation metric per gauge and load level where repeated sequences give replicates."""
+    if len(np.unique(steps.sequence)) < 2:
+        return []
+    levels = np.round(steps.loads, 6)
+    out = []
+    keys = {}
+    for i in np.flatnonzero(steps.active):
+        keys.setdefault(tuple(levels[i]), []).append(i)
+    for level, idx in keys.items():
+        if len({int(steps.sequence[i]) for i in idx}) < 2:
+            continue
+        for j, g in enumerate(names):
+            rows = [i for i in idx if ev[i, j]]
+            if len(rows) >= 2:
+                out.append({"gauge": g, "loads": list(level), "replicates": len(rows),
+                            "area_metric_ue": stats.area_metric(measured[rows, j],
+                                                                float(np.mean(predicted[rows, j])))})
+    return out

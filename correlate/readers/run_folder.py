@@ -1,0 +1,69 @@
+"""A run folder written by `correlate run`, read back for `correlate compare`.
+
+Stage: readers. In: a folder path. Out: a :class:`RunFolder` with ``gauges.csv`` and
+``summary.json`` (the parts compare reads), checked for the columns and keys it needs.
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+
+from correlate.core.errors import RunFolderError
+
+
+@dataclass(frozen=True)
+class RunFolder:
+    """The parts of a run folder that compare reads."""
+
+    path: Path
+    rows: pd.DataFrame        # gauges.csv: gauge, step, sequence, difference_ue, status
+    summary: dict[str, Any]   # summary.json
+
+
+def read_run(folder: Path) -> RunFolder:
+    """Read ``gauges.csv`` and ``summary.json`` of a run folder; raise RunFolderError if unusable."""
+    folder = Path(folder)
+    if not folder.is_dir():
+        raise RunFolderError(f"run folder '{folder}' does not exist; give a folder written by "
+                             "`correlate run`")
+    for name in ("gauges.csv", "summary.json"):
+        if not (folder / name).is_file():
+            raise RunFolderError(f"'{folder}' is not a run folder: {name} is missing; give a folder "
+                                 "written by `correlate run`")
+    try:
+        summary = json.loads((folder / "summary.json").read_text(encoding="utf-8"))
+    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+        raise RunFolderError(f"{folder / 'summary.json'}: not valid JSON ({exc}); rerun "
+                             "`correlate run`") from exc
+    # gauge ids and statuses stay text ("NA" is a valid gauge id); numbers are parsed explicitly
+    rows = pd.read_csv(folder / "gauges.csv", dtype=str, keep_default_na=False)
+    missing = [c for c in ("gauge", "step", "sequence", "difference_ue", "status")
+               if c not in rows.columns]
+    if missing:
+        raise RunFolderError(f"{folder / 'gauges.csv'}: lacks column(s) {', '.join(missing)}; "
+                             "rerun `correlate run`")
+    ref = summary.get("reference_step") if isinstance(summary, dict) else None
+    if not isinstance(ref, dict) or not {"step", "sequence"} <= set(ref):
+        raise RunFolderError(f"{folder / 'summary.json'}: reference_step {{step, sequence}} is "
+                             "missing; rerun `correlate run`")
+    for col in ("step", "sequence", "difference_ue"):
+        rows[col] = pd.to_numeric(rows[col], errors="coerce")
+    return RunFolder(path=folder, rows=rows, summary=summary)
+
+
+def readings_hash(run: RunFolder) -> str:
+    """The sha256 of the readings input recorded in the run's provenance."""
+    try:
+        return str(run.summary["provenance"]["inputs"]["readings"]["sha256"])
+    except (KeyError, TypeError) as exc:
+        raise RunFolderError(f"{run.path / 'summary.json'}: provenance.inputs.readings.sha256 is "
+                             "missing, so the test data cannot be checked; rerun `correlate "
+                             "run`") from exc
+
+
+__all__ = ["RunFolder", "read_run", "readings_hash"]
