@@ -105,7 +105,8 @@ def baseline_probe(grid, fields: list[np.ndarray], gauges: pd.DataFrame) -> np.n
 CHILD = """
 import sys
 from correlate.readers.study import read_study
-from correlate.model_readings.model import predict_table, prepare
+from correlate.model_readings.model import prepare
+from correlate.model_readings.table import predict_table
 def hwm():
     # VmHWM of this process image (ru_maxrss survives exec on Linux and would carry the parent's)
     for line in open("/proc/self/status"):
@@ -157,7 +158,8 @@ def write_study(folder: Path, name: str, model: str, *, band: bool, readings: bo
 def timed_predict(study_path: Path) -> tuple[float, list[tuple[int, str, float]], pd.DataFrame]:
     """What `correlate predict` does before writing: total seconds, stage times, the table."""
     from correlate.core import progress
-    from correlate.model_readings.model import predict_table, prepare
+    from correlate.model_readings.model import prepare
+    from correlate.model_readings.table import predict_table
     from correlate.readers.study import read_study
 
     progress.reset_timings()
@@ -303,7 +305,7 @@ def case_b(clock: Clock, folder: Path, scale: float, rng) -> None:
 
 def case_c(clock: Clock, folder: Path, scale: float, rng) -> None:
     from correlate.model_readings.evaluate import evaluate_rows
-from correlate.model_readings.operator import build_operator
+    from correlate.model_readings.operator import build_operator
     from correlate.readers.fields import read_field
     from correlate.readers.gauges import validate_gauges
     from correlate.readers.model import open_model
@@ -325,7 +327,7 @@ def case_d(clock: Clock, folder: Path, scale: float, rng) -> None:
     import meshio
 
     from correlate.model_readings.evaluate import evaluate_rows
-from correlate.model_readings.operator import build_operator
+    from correlate.model_readings.operator import build_operator
     from correlate.readers.fields import read_field
     from correlate.readers.gauges import validate_gauges
     from correlate.readers.model import open_model

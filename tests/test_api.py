@@ -9,7 +9,7 @@ import meshio
 import numpy as np
 import pandas as pd
 import pytest
-from conftest import solid_mesh
+from builders import solid_mesh
 
 import correlate
 

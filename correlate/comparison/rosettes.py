@@ -14,8 +14,8 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from correlate.core.names import ROSETTES_COLUMNS
 from correlate.comparison.pairing import Steps
+from correlate.core.names import ROSETTES_COLUMNS
 from correlate.mechanics.rosette import check_angles, grid_angles, reduce_rosette
 from correlate.readers.study import Study
 

@@ -255,15 +255,8 @@ def _read_case(raw: dict[str, Any], i: int, base: Path, name: str, problems: lis
                 check_stress=raw.get("check_stress"), match=raw.get("match"))
 
 
-def parse_study(text: str, path: Path) -> Study:
-    """Validate a study given as TOML text; ``path`` locates the files it names."""
-    name = path.name
-    try:
-        raw = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise StudyError(f"{name}: not valid TOML: {exc}; fix the syntax at that line") from None
-    base = path.parent
-    problems: list[str] = []
+def _check_tables(raw: dict[str, Any], name: str, problems: list[str]) -> None:
+    """Unknown keys at the top and in each table, tables of the wrong shape."""
     _unknown_keys("the top level", raw, SCHEMA[""], problems, name)
     for section, allowed in SCHEMA.items():
         if not section or section not in raw:
@@ -274,9 +267,13 @@ def parse_study(text: str, path: Path) -> Study:
                 problems.append(f"{name}: [{section}] must be a table")
             elif section not in ("case",):
                 _unknown_keys(f"[{section}]", item, allowed, problems, name)
-
     if "test" in raw and not isinstance(raw["test"], dict):
         problems.append(f"{name}: [test] must be a table of free-text entries")
+
+
+def _model(raw: dict[str, Any], base: Path, name: str, problems: list[str]
+           ) -> tuple[dict[str, Any], Path | None, Any, Any]:
+    """[model]: the table, its file, length unit and plane."""
     model = raw.get("model")
     if not isinstance(model, dict):
         problems.append(f"{name}: the [model] table is missing; it needs file = \"...\" and length_unit")
@@ -291,7 +288,12 @@ def parse_study(text: str, path: Path) -> Study:
     plane = model.get("plane")
     if plane is not None and plane not in ("stress", "strain"):
         problems.append(f"{name}: [model] plane = '{plane}'; expected \"stress\" or \"strain\"")
+    return model, model_file, length_unit, plane
 
+
+def _cases(raw: dict[str, Any], base: Path, name: str, problems: list[str]
+           ) -> tuple[list[Case], set[str]]:
+    """[[case]]: every case, and the names declared (valid or not)."""
     raw_cases = _tables(raw, "case")
     if not raw_cases:
         problems.append(f"{name}: no [[case]] given; add one per FE load case with name and an array")
@@ -307,7 +309,12 @@ def parse_study(text: str, path: Path) -> Study:
         if c.name in seen:
             problems.append(f"{name}: case name '{c.name}' is used twice; names must be unique")
         seen.add(c.name)
+    return cases, declared
 
+
+def _materials(raw: dict[str, Any], cases: list[Case], name: str, problems: list[str]
+               ) -> list[Material]:
+    """[material] (one, or one per cell block)."""
     materials = []
     for m in _tables(raw, "material"):
         E = _number(m, "E", None, "[material]", name, problems, positive=True)
@@ -327,7 +334,11 @@ def parse_study(text: str, path: Path) -> Study:
     if any(c.kind == "stress" for c in cases) and not materials:
         problems.append(f"{name}: a case gives stress, so [material] E and nu are needed to convert it "
                         "to strain")
+    return materials
 
+
+def _gauges(raw: dict[str, Any], base: Path, name: str, problems: list[str]) -> dict[str, Any]:
+    """[gauges]: the map file and the placement settings."""
     gauges = raw.get("gauges")
     if not isinstance(gauges, dict):
         problems.append(f"{name}: the [gauges] table is missing; it needs file = \"gauges.csv\"")
@@ -345,7 +356,15 @@ def parse_study(text: str, path: Path) -> Study:
     if not isinstance(grid_points, int) or not 1 <= grid_points <= 20:
         problems.append(f"{name}: [gauges] grid_points = {grid_points!r}; expected a whole number 1 to 20")
         grid_points = 5
+    return {"gauges_file": gauges_file, "position_tol": position_tol or 0.0,
+            "angle_tol": angle_tol or 0.0, "snap_tol": snap_tol,
+            "calibration_poisson": nu0 if nu0 is not None else 0.285,
+            "grid_points": grid_points, "band": bool(gauges.get("band", True))}
 
+
+def _readings(raw: dict[str, Any], base: Path, name: str, problems: list[str]
+              ) -> dict[str, Any]:
+    """[readings]: the file and the tare rule."""
     readings = _table(raw, "readings")
     readings_file = _path(base, readings.get("file"), "[readings]", name, problems) \
         if readings else None
@@ -356,7 +375,14 @@ def parse_study(text: str, path: Path) -> Study:
     if zero_tol is not None and not 0 <= zero_tol < 1:
         problems.append(f"{name}: [readings] zero_tol = {zero_tol:g}; expected a fraction of each "
                         "load's peak from 0 to below 1 (0.01 for 1 %)")
+    return {"readings_file": readings_file, "zero": zero,
+            "zero_tol": zero_tol if zero_tol is not None else 0.01,
+            "kt_corrected": bool(readings.get("kt_corrected", False))}
 
+
+def _loads(raw: dict[str, Any], cases: list[Case], declared: set[str], name: str,
+           problems: list[str]) -> list[Load]:
+    """[[load]]: load column -> case -> reference value."""
     loads = []
     case_names = {c.name for c in cases}
     for i, ld in enumerate(_tables(raw, "load")):
@@ -381,7 +407,11 @@ def parse_study(text: str, path: Path) -> Study:
             problems.append(f"{name}: [[load]] '{column}' names case '{case}', which is not a [[case]] "
                             f"(cases: {', '.join(sorted(case_names))}){hint}")
         loads.append(Load(column=column, case=case, reference=ref))
+    return loads
 
+
+def _criteria(raw: dict[str, Any], name: str, problems: list[str]) -> Criteria:
+    """[criteria]: the pass rule and the verdict's thresholds."""
     crit = _table(raw, "criteria")
     slope = crit.get("slope", [0.90, 1.10])
     if not (isinstance(slope, list) and len(slope) == 2
@@ -402,13 +432,17 @@ def parse_study(text: str, path: Path) -> Study:
     if pass_fraction is not None and not 0 <= pass_fraction <= 1:
         problems.append(f"{name}: [criteria] pass_fraction = {pass_fraction:g}; expected a "
                         "fraction from 0 to 1 (0.9 for 90 %)")
-    criteria = Criteria(
+    return Criteria(
         relative=0.10 if relative is None else relative,
         absolute_ue=50.0 if absolute_ue is None else absolute_ue,
         slope=(float(slope[0]), float(slope[1])),
         pass_fraction=0.90 if pass_fraction is None else pass_fraction)
 
-    sentinels = readings.get("sentinels")
+
+def _sentinels_and_health(raw: dict[str, Any], name: str, problems: list[str]
+                          ) -> tuple[Any, dict[str, Any]]:
+    """[readings] sentinels and the [health] thresholds."""
+    sentinels = _table(raw, "readings").get("sentinels")
     if sentinels is not None and not (isinstance(sentinels, list) and all(
             isinstance(v, int | float | str) and not isinstance(v, bool) for v in sentinels)):
         problems.append(f"{name}: [readings] sentinels = {sentinels!r}; expected a list of numbers "
@@ -418,7 +452,11 @@ def parse_study(text: str, path: Path) -> Study:
     for key, value in health.items():
         if isinstance(value, bool) or not isinstance(value, int | float):
             problems.append(f"{name}: [health] {key} = {value!r} is not a number")
+    return sentinels, health
 
+
+def _overrides(raw: dict[str, Any], name: str, problems: list[str]) -> list[Override]:
+    """[[override]]: the analyst's dispositions of flags."""
     overrides = []
     for o in _tables(raw, "override"):
         action = o.get("action")
@@ -434,22 +472,41 @@ def parse_study(text: str, path: Path) -> Study:
             problems.append(f"{name}: [[override]] for gauge '{o.get('gauge')}' needs a reason")
             continue
         overrides.append(Override(gauge=str(o.get("gauge")), action=action, reason=str(o["reason"])))
+    return overrides
 
+
+def parse_study(text: str, path: Path) -> Study:
+    """Validate a study given as TOML text; ``path`` locates the files it names.
+
+    Each section is read by its own function, which appends one line per problem; every problem
+    is reported at once.
+    """
+    name = path.name
+    try:
+        raw = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise StudyError(f"{name}: not valid TOML: {exc}; fix the syntax at that line") from None
+    base = path.parent
+    problems: list[str] = []
+    _check_tables(raw, name, problems)
+    model, model_file, length_unit, plane = _model(raw, base, name, problems)
+    cases, declared = _cases(raw, base, name, problems)
+    materials = _materials(raw, cases, name, problems)
+    gauges = _gauges(raw, base, name, problems)
+    readings = _readings(raw, base, name, problems)
+    loads = _loads(raw, cases, declared, name, problems)
+    criteria = _criteria(raw, name, problems)
+    sentinels, health = _sentinels_and_health(raw, name, problems)
+    overrides = _overrides(raw, name, problems)
     if problems:
         raise StudyError(*problems)
     info = {k: v for k, v in model.items() if k not in ("file", "length_unit", "stress_unit", "plane")}
     return Study(
         path=path, title=str(raw.get("title", path.stem)), model_file=model_file,  # type: ignore[arg-type]
         length_unit=length_unit, stress_unit=model.get("stress_unit"), plane=plane, model_info=info,
-        cases=tuple(cases), materials=tuple(materials), gauges_file=gauges_file,  # type: ignore[arg-type]
-        position_tol=position_tol or 0.0, angle_tol=angle_tol or 0.0,
-        snap_tol=snap_tol, calibration_poisson=nu0 if nu0 is not None else 0.285,
-        grid_points=grid_points, band=bool(gauges.get("band", True)),
-        test=dict(_table(raw, "test")), readings_file=readings_file, zero=zero,
-        zero_tol=zero_tol if zero_tol is not None else 0.01,
-        sentinels=tuple(sentinels) if sentinels is not None else None,
-        kt_corrected=bool(readings.get("kt_corrected", False)), loads=tuple(loads),
-        criteria=criteria, overrides=tuple(overrides), health=dict(health),
+        cases=tuple(cases), materials=tuple(materials), **gauges, test=dict(_table(raw, "test")),
+        **readings, sentinels=tuple(sentinels) if sentinels is not None else None,
+        loads=tuple(loads), criteria=criteria, overrides=tuple(overrides), health=dict(health),
         report=dict(_table(raw, "report")), raw=raw)
 
 

@@ -18,7 +18,7 @@ import warnings
 import numpy as np
 import pandas as pd
 import pytest
-from conftest import gauge_frame, solid_mesh
+from builders import gauge_frame, solid_mesh
 from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 from scipy.spatial.transform import Rotation
@@ -33,7 +33,7 @@ from correlate.readers.model import Field, Mesh
 from correlate.readers.study import SCHEMA, parse_study
 
 FAST = {"derandomize": True, "deadline": None, "suppress_health_check": [HealthCheck.too_slow]}
-SIZE = (4.0, 3.0, 2.0)  # the conftest box: top face z = 2, outward normal +z
+SIZE = (4.0, 3.0, 2.0)  # the builders box: top face z = 2, outward normal +z
 
 
 @functools.cache

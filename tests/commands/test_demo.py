@@ -15,7 +15,7 @@ import pytest
 
 from correlate.commands.cli import main
 
-ROOT = Path(__file__).resolve().parent.parent
+ROOT = Path(__file__).resolve().parents[2]
 spec = importlib.util.spec_from_file_location("make_test_log", ROOT / "demo_models" / "make_test_log.py")
 LOG = importlib.util.module_from_spec(spec)
 spec.loader.exec_module(LOG)

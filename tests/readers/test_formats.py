@@ -11,7 +11,7 @@ import os
 import meshio
 import numpy as np
 import pytest
-from conftest import gauge_frame, solid_mesh
+from builders import gauge_frame, solid_mesh
 
 from correlate.model_readings.evaluate import evaluate_rows
 from correlate.model_readings.operator import build_operator

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from conftest import flat_panel, gauge_frame
+from builders import flat_panel, gauge_frame
 
 from correlate.core.errors import GaugeError
 from correlate.mechanics import elements, mapping
@@ -69,7 +69,7 @@ def test_grid_over_opposed_shell_normals_is_refused():
 
 
 def test_face_on_a_solid_is_refused():
-    from conftest import solid_mesh
+    from builders import solid_mesh
 
     gauges = gauge_frame([dict(gauge="S", x=1.0, y=1.0, z=2.0, dir_x=1, dir_y=0, dir_z=0, face="top")])
     with pytest.raises(GaugeError, match=r"'S' has face 'top'.*solid"):

@@ -1,7 +1,7 @@
 """A catalogue of bad inputs, driven through the command line in-process.
 
 Each case builds a small study in tmp_path (linear hexahedra, three gauges, readings that agree with
-the analytic fields of conftest.write_block_study), breaks one thing, runs ``correlate check`` or
+the analytic fields of builders.write_block_study), breaks one thing, runs ``correlate check`` or
 ``correlate run`` and asserts the exit code (2 for a problem with the input), that every line on
 stderr is one problem (``error: ...``) or one warning, that no traceback leaks without ``--debug``,
 and that one error line names the culprit (file, row, gauge, array) and what was expected versus
@@ -23,7 +23,7 @@ import meshio
 import numpy as np
 import pandas as pd
 import pytest
-from conftest import block_indicated, block_readings, default_gauges, flat_panel, write_small_study
+from builders import block_indicated, block_readings, default_gauges, flat_panel, write_small_study
 
 from correlate.commands.cli import main
 
@@ -732,7 +732,7 @@ def _run_ok(study: Path, folder: Path, capsys) -> tuple[pd.DataFrame, pd.DataFra
 
 
 def _expected_measured(gauges: pd.DataFrame) -> pd.DataFrame:
-    # Reference: the analytic readings (strain transformation and TN-509, see conftest), tared by
+    # Reference: the analytic readings (strain transformation and TN-509, see builders), tared by
     # the first row, which is zero here.
     return block_readings(gauges).set_index("step")
 
@@ -834,7 +834,7 @@ def test_rosette_at_valid_angles_passes_the_angle_check(tmp_path, capsys):
 
 
 def test_indicated_reference_agrees_with_the_tool(tmp_path):
-    # Guards the helper the accepted-input tests rely on: the analytic readings of conftest are
+    # Guards the helper the accepted-input tests rely on: the analytic readings of builders are
     # what the tool predicts for the block (both from the same closed forms, no tool output used).
     from correlate.model_readings.model import prepare
     from correlate.model_readings.table import predict_table

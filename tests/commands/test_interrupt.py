@@ -25,7 +25,7 @@ import time
 from pathlib import Path
 
 import pytest
-from conftest import block_readings, default_gauges, write_small_study
+from builders import block_readings, default_gauges, write_small_study
 
 from correlate.commands.cli import main
 

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import numpy as np
-from conftest import SOLID_TYPES, solid_mesh
+from builders import SOLID_TYPES, solid_mesh
 
 from correlate.mechanics import elements
 from correlate.model_readings.locator import Locator

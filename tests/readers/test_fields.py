@@ -6,7 +6,7 @@ import itertools
 
 import numpy as np
 import pytest
-from conftest import gauge_frame, solid_mesh
+from builders import gauge_frame, solid_mesh
 
 from correlate.core.errors import ModelError
 from correlate.mechanics.tensors import from_voigt, strain_from_stress, stress_from_strain, to_voigt

@@ -366,7 +366,7 @@ def test_surface_from_displacement_is_the_exact_strain(tmp_path: Path) -> None:
 def test_surface_of_a_series_case_interpolates_between_fe_steps(tmp_path: Path) -> None:
     """A series case (one FE state per load): the surface at the reference step is the field
     interpolated linearly in load between the neighbouring FE steps, as the run pairs readings."""
-    from conftest import solid_mesh
+    from builders import solid_mesh
 
     from correlate.report.scene import model_surface
 

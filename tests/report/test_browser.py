@@ -3,7 +3,7 @@
 Checks that every picture decodes (in Chromium, through a copy of the page with a probe script,
 and again with matplotlib's PNG reader), that the gauge table holds every gauge after load, and
 saves a screenshot to test-output/report.png at the repository root for a person to look at.
-The study is the hostile one of test_report_document (HTML, quotes, Unicode and a 500-character id).
+The study is the hostile one of test_document (HTML, quotes, Unicode and a 500-character id).
 """
 
 from __future__ import annotations
@@ -20,12 +20,12 @@ import numpy as np
 import pytest
 
 # pytest puts this folder on sys.path (rootdir conftest, no __init__.py): share the study builder
-from test_report_document import _Page, _tables, build_correlation
+from test_document import _Page, _tables, build_correlation
 
 pytestmark = pytest.mark.browser
 
 CHROMIUM = Path("/usr/bin/chromium")
-REPO = Path(__file__).resolve().parents[1]
+REPO = Path(__file__).resolve().parents[2]
 PROBE = """<pre id="probe"></pre><script>
 window.addEventListener("load", function () {
   var out = [];

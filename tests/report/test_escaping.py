@@ -17,12 +17,12 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
-from conftest import block_readings, write_block_study
+from builders import block_readings, write_block_study
 
 report = pytest.importorskip("correlate.report", reason="the report package does not import yet")
 from correlate.commands.cli import main  # noqa: E402 - after the import guard above
 
-PACKAGE = Path(__file__).resolve().parents[1] / "correlate"
+PACKAGE = Path(__file__).resolve().parents[2] / "correlate"
 
 TITLE = '<script>alert("title")</script> & "double" \'single\' Prüfkörper'
 LONG = "G-" + "long" * 60  # 242 characters

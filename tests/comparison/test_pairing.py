@@ -7,7 +7,7 @@ import os
 import meshio
 import numpy as np
 import pandas as pd
-from conftest import default_gauges, solid_mesh
+from builders import default_gauges, solid_mesh
 
 from correlate.commands.cli import main
 from correlate.comparison.pairing import interpolate_series, monotonic_segments

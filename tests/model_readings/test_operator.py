@@ -8,7 +8,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-from conftest import SOLID_TYPES, gauge_frame, solid_mesh
+from builders import SOLID_TYPES, gauge_frame, solid_mesh
 
 from correlate.core.errors import GaugeError, GaugeOutsideMeshError
 from correlate.model_readings.evaluate import evaluate_rows

@@ -21,7 +21,7 @@ import pytest
 
 from correlate.mechanics.tensors import DEFAULT_ORDER, from_voigt, strain_from_stress
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 DEMO = ROOT / "correlate" / "data" / "demo"
 GEOMETRY = json.loads((ROOT / "demo_models" / "geometry.json").read_text())
 

@@ -12,7 +12,7 @@ import json
 import numpy as np
 import pandas as pd
 import pytest
-from conftest import write_block_study
+from builders import write_block_study
 from scipy import stats as sps
 
 from correlate.commands.cli import main
