@@ -1,1 +1,2 @@
-"""commands."""
+"""Commands: argument parsing, one module per command, printing and exit codes.
+"""

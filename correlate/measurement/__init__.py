@@ -1,1 +1,2 @@
-"""measurement."""
+"""Measurement: the test side (tare per sequence, channel corrections, channel health).
+"""

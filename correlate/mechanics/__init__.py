@@ -1,1 +1,3 @@
-"""mechanics."""
+"""Mechanics: pure formulas (tensors and Hooke, reference elements, the isoparametric map, rosette
+reduction, the transverse-sensitivity relation).
+"""
