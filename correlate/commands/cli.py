@@ -12,7 +12,10 @@ from __future__ import annotations
 
 import argparse
 import importlib
+import os
+import signal
 import sys
+import threading
 import traceback
 import warnings
 from pathlib import Path
@@ -25,42 +28,52 @@ from correlate.core.names import CAUTION
 EXIT_OK, EXIT_INTERNAL, EXIT_INPUT, EXIT_GATE = 0, 1, 2, 3
 
 
+def _global_options(p: argparse.ArgumentParser, default: object) -> None:
+    """The options accepted before the command and after it (``correlate run --quiet ...``)."""
+    p.add_argument("--debug", action="store_true", default=default,
+                   help="show the traceback of internal errors")
+    p.add_argument("--quiet", action="store_true", default=default, help="no progress bars")
+    p.add_argument("--timings", action="store_true", default=default,
+                   help="print the time of each stage on stderr at the end")
+
+
 def _parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(
         prog="correlate",
         description="Correlate a finite-element model with strain-gauge readings from a test.",
         epilog=CAUTION)
     p.add_argument("--version", action="version", version=f"correlate {__version__}")
-    p.add_argument("--debug", action="store_true", help="show the traceback of internal errors")
-    p.add_argument("--quiet", action="store_true", help="no progress bars")
-    p.add_argument("--timings", action="store_true",
-                   help="print the time of each stage on stderr at the end")
+    _global_options(p, False)
+    after = argparse.ArgumentParser(add_help=False)
+    _global_options(after, argparse.SUPPRESS)   # given after the command: kept only if given
     sub = p.add_subparsers(dest="command", metavar="COMMAND")
 
-    c = sub.add_parser("check", help="read a study and report every problem, and where each "
-                                     "gauge landed")
+    c = sub.add_parser("check", parents=[after],
+                       help="read a study and report every problem, and where each gauge landed")
     c.add_argument("study", type=Path, help="study file (TOML)")
 
-    pr = sub.add_parser("predict", help="model readings of every gauge (before the test)")
+    pr = sub.add_parser("predict", parents=[after],
+                        help="model readings of every gauge (before the test)")
     pr.add_argument("study", type=Path)
-    pr.add_argument("--out", type=Path, required=True, help="output folder")
+    pr.add_argument("--out", required=True, help="output folder")
     pr.add_argument("--force", action="store_true", help="replace an existing output folder")
 
-    r = sub.add_parser("run", help="correlate the test readings with the model")
+    r = sub.add_parser("run", parents=[after], help="correlate the test readings with the model")
     r.add_argument("study", type=Path)
-    r.add_argument("--out", type=Path, required=True, help="output folder")
+    r.add_argument("--out", required=True, help="output folder")
     r.add_argument("--force", action="store_true", help="replace an existing output folder")
     r.add_argument("--no-report", action="store_true", help="tables only, no report.html")
 
-    d = sub.add_parser("demo", help="run the invented demo campaign end to end")
-    d.add_argument("--out", type=Path, default=Path("correlate-demo"),
+    d = sub.add_parser("demo", parents=[after], help="run the invented demo campaign end to end")
+    d.add_argument("--out", default="correlate-demo",
                    help="working folder (default ./correlate-demo)")
     d.add_argument("--force", action="store_true", help="replace an existing working folder")
 
-    cm = sub.add_parser("compare", help="compare two run folders (model revisions, same test)")
+    cm = sub.add_parser("compare", parents=[after],
+                        help="compare two run folders (model revisions, same test)")
     cm.add_argument("old", type=Path)
     cm.add_argument("new", type=Path)
-    cm.add_argument("--out", type=Path, help="folder for compare.csv and compare.html")
+    cm.add_argument("--out", help="folder for compare.csv and compare.html")
     cm.add_argument("--force", action="store_true")
     cm.add_argument("--fail-if-worse", action="store_true", help="exit 3 when the new run is worse")
     cm.add_argument("--slope-tol", type=float, default=0.01,
@@ -83,6 +96,10 @@ def _print_warnings(caught: list[warnings.WarningMessage]) -> None:
             print(f"warning: {text}", file=sys.stderr)
 
 
+def _interrupt(signum: int, frame: object) -> None:
+    raise KeyboardInterrupt
+
+
 def main(argv: list[str] | None = None) -> int:
     """Run the command line; return the exit code."""
     parser = _parser()
@@ -95,6 +112,8 @@ def main(argv: list[str] | None = None) -> int:
         return EXIT_INPUT
     progress.set_quiet(args.quiet)
     progress.reset_timings()
+    if threading.current_thread() is threading.main_thread():
+        signal.signal(signal.SIGTERM, _interrupt)   # a kill ends the run like Ctrl-C: cleaned up
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         warnings.filterwarnings("ignore", category=DeprecationWarning)
@@ -109,6 +128,11 @@ def main(argv: list[str] | None = None) -> int:
         except KeyboardInterrupt:
             print("interrupted; nothing was written", file=sys.stderr)
             return 130
+        except BrokenPipeError:
+            # the reader of our output went away (`correlate check ... | head -1`): end quietly
+            devnull = os.open(os.devnull, os.O_WRONLY)
+            os.dup2(devnull, sys.stdout.fileno())
+            return EXIT_OK
         except Exception as exc:
             _print_warnings(caught)
             if args.debug:

@@ -7,7 +7,7 @@ from pathlib import Path
 
 from correlate.comparison.revisions import compare_gauges, judge, overall_change
 from correlate.core.errors import OutputError, RunFolderError
-from correlate.core.folders import check_target, staged_folder
+from correlate.core.folders import check_target, output_path, staged_folder
 from correlate.core.names import CAUTION
 from correlate.core.tables import write_csv
 from correlate.readers.run_folder import read_run, readings_hash
@@ -20,14 +20,15 @@ def _check_out(out: Path, runs: tuple[Path, ...], *, force: bool) -> None:
         if o == r or r in o.parents or o in r.parents:
             raise OutputError(f"--out '{out}' is, lies inside or contains the run folder '{r}'; "
                               "compare never writes into run folders: choose another --out")
-    check_target(out, force=force)
+    check_target(out, force=force, inputs=runs)
 
 
 def run(args: argparse.Namespace) -> int:
     """Compare two run folders; print the table and verdict; write outputs with --out."""
     old, new = Path(args.old), Path(args.new)
-    if args.out is not None:
-        _check_out(Path(args.out), (old, new), force=args.force)
+    out = output_path(args.out) if args.out is not None else None
+    if out is not None:
+        _check_out(out, (old, new), force=args.force)
     a, b = read_run(old), read_run(new)
     ha, hb = readings_hash(a), readings_hash(b)
     if ha != hb:
@@ -49,12 +50,12 @@ def run(args: argparse.Namespace) -> int:
               f"(sequence {ref['sequence']})")
     print(line + (": " + "; ".join(reasons) if reasons else ""))
     print(CAUTION)
-    if args.out is not None:
+    if out is not None:
         html = render_compare_page(title=f"Comparison of {new} with {old}", verdict=line,
                                    reasons=reasons, old=str(old), new=str(new), reference=ref,
                                    overall=overall, table=table)
-        with staged_folder(Path(args.out), force=args.force) as tmp:
+        with staged_folder(out, force=args.force, inputs=(old, new)) as tmp:
             write_csv(table, tmp / "compare.csv")
             (tmp / "compare.html").write_text(html, encoding="utf-8")
-        print(f"comparison written to {Path(args.out) / 'compare.csv'} and compare.html")
+        print(f"comparison written to {out / 'compare.csv'} and compare.html")
     return 3 if args.fail_if_worse and verdict == "worse" else 0

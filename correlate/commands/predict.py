@@ -3,9 +3,9 @@
 from __future__ import annotations
 
 import argparse
-from pathlib import Path
 
-from correlate.core.folders import check_target, staged_folder
+from correlate.commands.outputs import study_inputs
+from correlate.core.folders import check_target, output_path, staged_folder
 from correlate.core.tables import write_csv
 from correlate.model_readings.model import prepare
 from correlate.model_readings.table import predict_table
@@ -15,12 +15,13 @@ from correlate.readers.study import read_study
 def run(args: argparse.Namespace) -> int:
     """Write ``model_readings.csv`` and ``placement.csv``."""
     study = read_study(args.study)
-    check_target(Path(args.out), force=args.force)
+    out = output_path(args.out)
+    check_target(out, force=args.force, inputs=study_inputs(study))
     model = prepare(study)
     table = predict_table(model)
-    with staged_folder(Path(args.out), force=args.force) as tmp:
+    with staged_folder(out, force=args.force, inputs=study_inputs(study)) as tmp:
         write_csv(table, tmp / "model_readings.csv")
         write_csv(model.operator.placement.table, tmp / "placement.csv")
     print(f"model readings of {len(model.gauges)} gauges x {len(study.cases)} case(s) written "
-          f"to {Path(args.out) / 'model_readings.csv'}")
+          f"to {out / 'model_readings.csv'}")
     return 0

@@ -8,9 +8,10 @@ from typing import Any
 
 import numpy as np
 
+from correlate.commands.outputs import study_inputs
 from correlate.comparison.correlation import Correlation, correlate_study
 from correlate.core import progress
-from correlate.core.folders import check_target, staged_folder
+from correlate.core.folders import check_target, output_path, staged_folder
 from correlate.core.names import CAUTION
 from correlate.core.tables import write_csv, write_json
 from correlate.model_readings.model import prepare
@@ -20,7 +21,7 @@ from correlate.report import write_report
 
 def write_outputs(corr: Correlation, out: Path, *, force: bool, report: bool = True) -> None:
     """Write every output into a staged folder and move it into place."""
-    with staged_folder(out, force=force) as tmp:
+    with staged_folder(out, force=force, inputs=study_inputs(corr.study)) as tmp:
         write_csv(corr.gauge_table, tmp / "gauges.csv")
         write_csv(corr.rosettes, tmp / "rosettes.csv")
         write_csv(corr.per_gauge, tmp / "gauge_stats.csv")
@@ -64,8 +65,8 @@ def print_summary(corr: Correlation) -> None:
 def run(args: argparse.Namespace) -> int:
     """Correlate the study and write every output; print the summary."""
     study = read_study(args.study)
-    out = Path(args.out)
-    check_target(out, force=args.force)
+    out = output_path(args.out)
+    check_target(out, force=args.force, inputs=study_inputs(study))
     model = prepare(study)
     with progress.step("correlating (statistics, health, rosettes)"):
         corr = correlate_study(study, model)

@@ -40,8 +40,49 @@ def _sig(v: float) -> float:
     return float(f"{v:.{FLOAT_DIGITS}g}")
 
 
+FORMULA_START = ("=", "+", "-", "@", "\t", "\r")  # what spreadsheets evaluate at a cell's start
+
+
+def _is_number(text: str) -> bool:
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
+
+
+def safe_cell(value: object) -> object:
+    """A text cell that a spreadsheet would run as a formula gets a leading apostrophe (the usual
+    mitigation of CSV injection, e.g. OWASP's "CSV Injection" page); numbers and other cells are
+    returned as they are."""
+    if isinstance(value, str) and value.startswith(FORMULA_START) and not _is_number(value):
+        return "'" + value
+    return value
+
+
+def safe_text(df: pd.DataFrame) -> pd.DataFrame:
+    """The table with :func:`safe_cell` applied to its text columns (a copy where needed)."""
+    out = df
+    for col in df.columns:
+        s = df[col]
+        if isinstance(s.dtype, pd.CategoricalDtype):
+            cats = s.cat.categories
+            if any(safe_cell(c) != c for c in cats):
+                out = out.copy() if out is df else out
+                out[col] = s.cat.rename_categories([safe_cell(c) for c in cats])
+        elif s.dtype == object or pd.api.types.is_string_dtype(s.dtype):
+            # judged on the distinct values: a long table repeats a few ids
+            unsafe = {v: safe_cell(v) for v in pd.unique(s) if safe_cell(v) is not v}
+            if unsafe:
+                out = out.copy() if out is df else out
+                out[col] = s.map(lambda v: unsafe.get(v, v) if isinstance(v, str) else v)
+    return out
+
+
 def write_csv(df: pd.DataFrame, path: Path) -> None:
-    round_table(df).to_csv(path, index=False, lineterminator="\n", float_format="%.10g")
+    """Write a table as CSV: fixed precision, formula-like text cells escaped (:func:`safe_cell`)."""
+    safe_text(round_table(df)).to_csv(path, index=False, lineterminator="\n",
+                                      float_format="%.10g")
 
 
 def clean_json(obj: Any, key: str = "") -> Any:

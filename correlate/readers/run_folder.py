@@ -47,13 +47,34 @@ def read_run(folder: Path) -> RunFolder:
     if missing:
         raise RunFolderError(f"{folder / 'gauges.csv'}: lacks column(s) {', '.join(missing)}; "
                              "rerun `correlate run`")
-    ref = summary.get("reference_step") if isinstance(summary, dict) else None
-    if not isinstance(ref, dict) or not {"step", "sequence"} <= set(ref):
-        raise RunFolderError(f"{folder / 'summary.json'}: reference_step {{step, sequence}} is "
-                             "missing; rerun `correlate run`")
+    _check_summary(summary, folder / "summary.json")
     for col in ("step", "sequence", "difference_ue"):
         rows[col] = pd.to_numeric(rows[col], errors="coerce")
     return RunFolder(path=folder, rows=rows, summary=summary)
+
+
+def _number_or_null(value: Any) -> bool:
+    return value is None or (isinstance(value, int | float) and not isinstance(value, bool))
+
+
+def _check_summary(summary: Any, path: Path) -> None:
+    """Refuse a summary that lacks, or has the wrong type for, a key compare reads."""
+    ref = summary.get("reference_step") if isinstance(summary, dict) else None
+    if not isinstance(ref, dict) or not {"step", "sequence"} <= set(ref) or not all(
+            isinstance(ref[k], int) and not isinstance(ref[k], bool) for k in ("step", "sequence")):
+        raise RunFolderError(f"{path}: reference_step {{step, sequence}} is missing or not whole "
+                             "numbers; the folder is damaged: rerun `correlate run`")
+    wanted = {"fit": ("slope_origin", "r2", "rms_ue", "max_abs_ue"), "verdict": ("failing",)}
+    for table, keys in wanted.items():
+        block = summary.get(table)
+        if not isinstance(block, dict):
+            raise RunFolderError(f"{path}: '{table}' is missing or not a table; the folder is "
+                                 "damaged: rerun `correlate run`")
+        for key in keys:
+            if key not in block or not _number_or_null(block[key]):
+                raise RunFolderError(f"{path}: {table}.{key} is missing or not a number "
+                                     f"({block.get(key)!r}); the folder is damaged: rerun "
+                                     "`correlate run`")
 
 
 def readings_hash(run: RunFolder) -> str:

@@ -279,8 +279,13 @@ def test_existing_out_needs_force(tmp_path: Path) -> None:
     (out / "old.txt").write_text("x")
     assert main(["compare", str(a), str(b), "--out", str(out)]) == 2
     assert (out / "old.txt").exists()
+    # --force replaces only a folder the tool wrote (issue 15): a foreign file stays
+    assert main(["compare", str(a), str(b), "--out", str(out), "--force"]) == 2
+    assert (out / "old.txt").exists()
+    (out / "old.txt").unlink()
+    (out / "compare.csv").write_text("an earlier comparison\n")
     assert main(["compare", str(a), str(b), "--out", str(out), "--force"]) == 0
-    assert not (out / "old.txt").exists() and (out / "compare.csv").is_file()
+    assert (out / "compare.csv").read_text() != "an earlier comparison\n"
 
 
 def test_html_is_self_contained_escaped_and_cautioned(tmp_path: Path) -> None:

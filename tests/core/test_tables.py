@@ -1,0 +1,22 @@
+"""Tables written at a fixed precision, with text cells safe for spreadsheets."""
+
+from __future__ import annotations
+
+import csv
+
+import pandas as pd
+
+from correlate.core.tables import write_csv
+
+
+def test_formula_like_ids_get_an_apostrophe_and_numbers_do_not(tmp_path):
+    # The usual mitigation of CSV injection (OWASP, "CSV Injection"): a text cell starting with
+    # = + - @ tab or carriage return is prefixed with an apostrophe; numbers stay numbers.
+    df = pd.DataFrame({"gauge": ["=G02", "+G03", "-G04", "@G05", "G06", "-5"],
+                       "case": pd.Categorical(["=1+1", "a", "a", "a", "a", "a"]),
+                       "measured_ue": [1.0, -2.0, 3.0, 4.0, 5.0, 6.0]})
+    write_csv(df, tmp_path / "t.csv")
+    with open(tmp_path / "t.csv", newline="") as f:
+        rows = list(csv.DictReader(f))
+    assert [r["gauge"] for r in rows] == ["'=G02", "'+G03", "'-G04", "'@G05", "G06", "-5"]
+    assert rows[0]["case"] == "'=1+1" and rows[1]["measured_ue"] == "-2"
