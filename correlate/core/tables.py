@@ -75,7 +75,7 @@ def safe_text(df: pd.DataFrame) -> pd.DataFrame:
             unsafe = {v: safe_cell(v) for v in pd.unique(s) if safe_cell(v) is not v}
             if unsafe:
                 out = out.copy() if out is df else out
-                out[col] = s.map(lambda v: unsafe.get(v, v) if isinstance(v, str) else v)
+                out[col] = s.replace(unsafe)
     return out
 
 
