@@ -161,12 +161,12 @@ def test_existing_output_needs_force_and_inputs_are_untouched(tmp_path, capsys):
     before = {p.name: p.read_bytes() for p in tmp_path.iterdir() if p.is_file()}
     out = tmp_path / "out"
     out.mkdir()
-    (out / "keep.txt").write_text("previous run")
+    (out / "report.html").write_text("previous run")   # a file of the tool's own: its folder
     assert main(["--quiet", "run", str(study), "--out", str(out), "--no-report"]) == 2
     assert "--force" in capsys.readouterr().err
-    assert (out / "keep.txt").read_text() == "previous run"
+    assert (out / "report.html").read_text() == "previous run"
     assert main(["--quiet", "run", str(study), "--out", str(out), "--no-report", "--force"]) == 0
-    assert not (out / "keep.txt").exists()
+    assert not (out / "report.html").exists()
     after = {p.name: p.read_bytes() for p in tmp_path.iterdir() if p.is_file()}
     assert before == after
 
