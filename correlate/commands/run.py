@@ -33,6 +33,13 @@ def write_outputs(corr: Correlation, out: Path, *, force: bool, report: bool = T
                 write_report(corr, tmp)
 
 
+def verdict_line(verdict: dict[str, Any]) -> str:
+    """The verdict in words: the state, and for a provisional one what the criteria alone say."""
+    if verdict["state"] == "provisional":
+        return f"provisional (the criteria alone: {verdict['result']}; see the reasons)"
+    return verdict["result"]
+
+
 def print_summary(corr: Correlation) -> None:
     s = corr.summary
     v, fit = s["verdict"], s["fit"]
@@ -40,9 +47,13 @@ def print_summary(corr: Correlation) -> None:
     def num(x: Any, fmt: str) -> str:
         return "n/a" if x is None or (isinstance(x, float) and not np.isfinite(x)) else format(x, fmt)
 
-    print(f"{s['title']}: {v['result']}")
+    print(f"{s['title']}: {verdict_line(v)}")
     for r in v["reasons"]:
         print(f"  - {r}")
+    print(f"direction: {v['direction']}"
+          + (f"; unconservative beyond the criterion: {', '.join(v['unconservative_gauges'])}"
+             if v["unconservative_gauges"] else ""))
+    print(f"criteria: {v['criteria']['source']}")
     ci = fit.get("slope_origin_ci") or [None, None]
     print(f"measured/predicted strain ratio {num(fit['slope_origin'], '.3f')} "
           f"(95% {num(ci[0], '.3f')} to {num(ci[1], '.3f')}, {fit.get('ci_method', '')})")

@@ -20,8 +20,11 @@ from numpy.typing import NDArray
 
 from correlate.comparison.pairing import Steps
 from correlate.measurement.health import assess_channels, load_direction
-from correlate.readers.study import Study
+from correlate.readers.study import Override, Study
 
+#: columns of flags.csv after the original ten: the override that disposed of a flag (its
+#: action, who and when) and, for a reversal, the gauge's ratio after it (``value`` is before)
+RECORD_COLUMNS = ("action", "by", "date", "value_after")
 REVERSED_BAND = (-1.5, -0.5)   # per-gauge ratio taken as reversed polarity (common practice)
 REVERSED_R2 = 0.9
 PENDING = "needs a disposition"
@@ -75,7 +78,21 @@ def health_flags(measured: NDArray, names: list[str], steps: Steps, gauges: pd.D
                                         + sent["value"].astype(str)})
         flags = pd.concat([extra, flags], ignore_index=True)  # a sentinel says more than "missing"
     flags["disposition"] = ""
+    for col in RECORD_COLUMNS:
+        flags[col] = np.nan if col == "value_after" else ""
     return flags
+
+
+def _mark(flags: pd.DataFrame, i: int, o: Override) -> None:
+    """Record the override that disposed of flag row ``i``."""
+    flags.loc[i, ["action", "by", "date"]] = [o.action, o.by, o.date]
+
+
+def _add(flags: pd.DataFrame, row: dict, o: Override | None = None) -> None:
+    record = {"action": "", "by": "", "date": "", "value_after": np.nan, **row}
+    if o is not None:
+        record.update(action=o.action, by=o.by, date=o.date)
+    flags.loc[len(flags)] = record
 
 
 def dispose_health(flags: pd.DataFrame, study: Study, names: list[str], steps: Steps
@@ -95,6 +112,7 @@ def dispose_health(flags: pd.DataFrame, study: Study, names: list[str], steps: S
         j = gidx[f["gauge"]]
         if f["gauge"] in keep and f["drops"] == "gauge":
             flags.at[i, "disposition"] = f"kept: {keep[f['gauge']].reason}"
+            _mark(flags, i, keep[f["gauge"]])
             continue
         if f["drops"] == "gauge":
             excl.drop_gauge(j, f["flag"])
@@ -105,10 +123,10 @@ def dispose_health(flags: pd.DataFrame, study: Study, names: list[str], steps: S
                 excl.text[k, j] = excl.text[k, j] or f["flag"]
     for g, o in exclude.items():
         excl.drop_gauge(gidx[g], "excluded", overwrite=True)
-        flags.loc[len(flags)] = {"gauge": g, "step": -1, "sequence": -1, "flag": "excluded",
-                                 "value": np.nan, "threshold": np.nan, "scope": "gauge",
-                                 "drops": "gauge", "reason": "excluded by the study",
-                                 "disposition": f"excluded: {o.reason}"}
+        _add(flags, {"gauge": g, "step": -1, "sequence": -1, "flag": "excluded",
+                     "value": np.nan, "threshold": np.nan, "scope": "gauge",
+                     "drops": "gauge", "reason": "excluded by the study",
+                     "disposition": f"excluded: {o.reason}"}, o)
     return excl
 
 
@@ -138,14 +156,24 @@ def flag_reversed(measured: NDArray, predicted: NDArray, names: list[str], steps
     for j in np.flatnonzero(reversed_):
         g = names[j]
         disp = f"kept: {keep[g].reason}" if g in keep else PENDING
-        flags.loc[len(flags)] = {"gauge": g, "step": -1, "sequence": -1, "flag": "reversed",
-                                 "value": float(k[j]), "threshold": REVERSED_BAND[1],
-                                 "scope": "gauge", "drops": "gauge",
-                                 "reason": f"ratio {k[j]:.3f} with R^2 {r2[j]:.3f}: fits the model "
-                                           "with the sign reversed (suspected reversed polarity)",
-                                 "disposition": disp}
+        _add(flags, {"gauge": g, "step": -1, "sequence": -1, "flag": "reversed",
+                     "value": float(k[j]), "threshold": REVERSED_BAND[1],
+                     "scope": "gauge", "drops": "gauge",
+                     "reason": f"ratio {k[j]:.3f} with R^2 {r2[j]:.3f}: fits the model "
+                               "with the sign reversed (suspected reversed polarity)",
+                     "disposition": disp}, keep.get(g))
         if g not in keep:
             excl.drop_gauge(j, "reversed")
+    for o in study.overrides:
+        if o.action == "reverse":
+            j = names.index(o.gauge)
+            after = float(k[j]) if np.isfinite(k[j]) else np.nan
+            _add(flags, {"gauge": o.gauge, "step": -1, "sequence": -1, "flag": "reversed",
+                         "value": -after, "threshold": REVERSED_BAND[1], "scope": "gauge",
+                         "drops": "none",
+                         "reason": f"sign reversed by the study: ratio {-after:.3f} before, "
+                                   f"{after:.3f} after",
+                         "disposition": f"reversed: {o.reason}", "value_after": after}, o)
     return reversed_
 
 
@@ -163,11 +191,11 @@ def flag_installation(faults: list[tuple[str, str]], names: list[str], reversed_
             continue
         suspect[j] = True
         disp = f"kept: {keep[gauge].reason}" if gauge in keep else PENDING
-        flags.loc[len(flags)] = {"gauge": gauge, "step": -1, "sequence": -1,
-                                 "flag": "installation", "value": np.nan, "threshold": np.nan,
-                                 "scope": "gauge", "drops": "gauge",
-                                 "reason": f"failing gauge explained by: {explanation} (see the "
-                                           "diagnosis)", "disposition": disp}
+        _add(flags, {"gauge": gauge, "step": -1, "sequence": -1,
+                     "flag": "installation", "value": np.nan, "threshold": np.nan,
+                     "scope": "gauge", "drops": "gauge",
+                     "reason": f"failing gauge explained by: {explanation} (see the "
+                               "diagnosis)", "disposition": disp}, keep.get(gauge))
         if gauge not in keep:
             excl.drop_gauge(j, "installation", overwrite=True)
     return suspect

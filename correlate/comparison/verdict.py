@@ -18,31 +18,61 @@ from numpy.typing import NDArray
 
 from correlate._version import __version__
 from correlate.comparison.criteria import Statuses
+from correlate.comparison.dispositions import PENDING
 from correlate.comparison.pairing import Steps
 from correlate.core.folders import sha256
 from correlate.core.names import CAUTION
 from correlate.model_readings.model import Model
 from correlate.readers.study import Study
 
+CRITERIA_SOURCE = "the analyst's choice for this programme, not a standard"
+DEFAULT_CRITERIA_SOURCE = "tool defaults (no criteria given in the study)"
+STATES = ("meets", "does not meet", "provisional")
 
-def summarise(study: Study, model: Model, readings: Any, steps: Steps, names: list[str],
-             result: dict, per_gauge: pd.DataFrame, flags: pd.DataFrame, diag: pd.DataFrame,
-             ref: int, st: Statuses, reversed_: NDArray) -> dict[str, Any]:
+
+def _direction(ratio: Any, st: Statuses, names: list[str]) -> tuple[str, list[str]]:
+    """Which way the model errs overall, and the gauges unconservative beyond the criterion.
+
+    measured/predicted above 1: the test strains are larger than the model's, so the model
+    under-predicts strain and is unconservative for strain-based margins (common practice).
+    """
+    beyond = [names[j] for j in np.flatnonzero((st.unconservative & st.evaluated).any(axis=0))]
+    if ratio is None or not np.isfinite(ratio):
+        return "the overall ratio is not defined", beyond
+    if ratio > 1:
+        text = (f"the model under-predicts strain overall (measured/predicted {ratio:.3f} > 1: "
+                "the test strains are larger than the model's), so it is unconservative for "
+                "strain-based margins")
+    elif ratio < 1:
+        text = (f"the model over-predicts strain overall (measured/predicted {ratio:.3f} < 1: "
+                "the test strains are smaller than the model's), so it is conservative for "
+                "strain-based margins")
+    else:
+        text = "the model predicts the overall strain level exactly (measured/predicted 1.000)"
+    return text, beyond
+
+
+def judge(study: Study, names: list[str], fit: dict[str, Any], st: Statuses,
+          flags: pd.DataFrame) -> dict[str, Any]:
+    """The verdict: the criteria's result, and a state that is ``provisional`` while a flag
+    awaits a disposition or too few gauges are left healthy, whatever the criteria say.
+
+    ``result`` keeps its meaning (the criteria alone: ``meets the criteria`` or ``does not meet
+    the criteria``); ``state`` is ``meets``, ``does not meet`` or ``provisional``, and
+    ``leaning`` says which way the criteria lean today.
+    """
     ev = st.evaluated
-    status = st.status
     healthy = ev.any(axis=0)
-    failing = ((status == "fail") & ev).any(axis=0)
+    failing = ((st.status == "fail") & ev).any(axis=0)
     passing = healthy & ~failing
     uncons = (st.unconservative & ev).any(axis=0)
-    flagged = sorted(set(flags["gauge"]))
     crit = study.criteria
-    fit = result["fit"]
     slope_ok = fit["slope_origin"] is not None and np.isfinite(fit["slope_origin"]) and \
         crit.slope[0] <= fit["slope_origin"] <= crit.slope[1]
     n_healthy = int(healthy.sum())
     frac = float(passing.sum()) / n_healthy if n_healthy else 0.0
     frac_ok = n_healthy > 0 and frac >= crit.pass_fraction
-    verdict = "meets the criteria" if slope_ok and frac_ok else "does not meet the criteria"
+    result = "meets the criteria" if slope_ok and frac_ok else "does not meet the criteria"
     reasons = []
     if not slope_ok:
         reasons.append(f"measured/predicted ratio {fit['slope_origin']:.3f} outside "
@@ -51,10 +81,45 @@ def summarise(study: Study, model: Model, readings: Any, steps: Steps, names: li
         reasons.append(f"{passing.sum()} of {n_healthy} healthy gauges pass ({frac:.0%}); "
                        f"{crit.pass_fraction:.0%} required")
     pending = sorted({str(f["gauge"]) for _, f in flags.iterrows()
-                      if f.get("disposition") == "needs a disposition"})
+                      if f.get("disposition") == PENDING})
+    leaning = "meets" if result == "meets the criteria" else "does not meet"
+    provisional = []
     if pending:
-        reasons.append(f"{len(pending)} flagged gauge(s) need a disposition before sign-off: "
-                       f"{', '.join(pending)} (see the flags)")
+        provisional.append(f"{len(pending)} flagged gauge(s) need a disposition before sign-off: "
+                           f"{', '.join(pending)} (see the flags)")
+    min_healthy = float(getattr(crit, "min_healthy_fraction", 0.8))
+    share = n_healthy / len(names) if names else 0.0
+    if share < min_healthy:
+        provisional.append(f"only {n_healthy} of {len(names)} gauges ({share:.0%}) are left "
+                           f"healthy; {min_healthy:.0%} are needed for a verdict "
+                           "([criteria] min_healthy_fraction)")
+    state = "provisional" if provisional else leaning
+    if provisional:
+        provisional.append(f"the criteria alone would say the model {leaning} them")
+    direction, beyond = _direction(fit["slope_origin"], st, names)
+    given = getattr(study, "criteria_given", True)
+    return {
+        "result": result, "state": state, "leaning": leaning, "reasons": reasons + provisional,
+        "open_dispositions": pending, "excluded_fraction": 1.0 - share if names else 0.0,
+        "direction": direction, "unconservative_gauges": beyond,
+        "criteria": {"relative": crit.relative, "absolute_ue": crit.absolute_ue,
+                     "slope": list(crit.slope), "pass_fraction": crit.pass_fraction,
+                     "min_healthy_fraction": min_healthy,
+                     "source": CRITERIA_SOURCE if given else DEFAULT_CRITERIA_SOURCE},
+        "gauges": len(names), "healthy": n_healthy, "passing": int(passing.sum()),
+        "failing": int(failing.sum()), "unconservative": int(uncons.sum()),
+        "flagged": len(set(flags["gauge"])), "pass_fraction": frac,
+        "pending_dispositions": pending,
+    }
+
+
+def summarise(study: Study, model: Model, readings: Any, steps: Steps, names: list[str],
+             result: dict, per_gauge: pd.DataFrame, flags: pd.DataFrame, diag: pd.DataFrame,
+             ref: int, st: Statuses, reversed_: NDArray) -> dict[str, Any]:
+    ev = st.evaluated
+    verdict = judge(study, names, result["fit"], st, flags)
+    failing = ((st.status == "fail") & ev).any(axis=0)
+    passing = ev.any(axis=0) & ~failing
     diff = np.abs(st.difference[ref])
     worst = [names[j] for j in np.argsort(-np.where(ev[ref], diff, -1)) if ev[ref, j]][:5]
     inputs = {"study": study.path, "model": study.model_file, "gauges": study.gauges_file,
@@ -76,15 +141,7 @@ def summarise(study: Study, model: Model, readings: Any, steps: Steps, names: li
         rec["status"] = status_by_gauge.get(rec["gauge"], "")
     return {
         "title": study.title,
-        "verdict": {"result": verdict, "reasons": reasons,
-                    "criteria": {"relative": crit.relative, "absolute_ue": crit.absolute_ue,
-                                 "slope": list(crit.slope), "pass_fraction": crit.pass_fraction,
-                                 "source": "the analyst's choice for this programme, not a standard"},
-                    "gauges": len(names), "healthy": n_healthy, "passing": int(passing.sum()),
-                    "failing": int(failing.sum()), "unconservative": int(uncons.sum()),
-                    "flagged": len(flagged), "pass_fraction": frac, "worst": worst,
-                    "pending_dispositions": pending,
-                    "note": "counts are gauges, not gauge-steps"},
+        "verdict": {**verdict, "worst": worst, "note": "counts are gauges, not gauge-steps"},
         "fit": result["fit"], "fit_all": result["fit_all"], "fit_reference": result["fit_reference"],
         "fit_by_step": result["fit_by_step"],
         "reference_step": {"step": int(steps.step[ref]), "sequence": int(steps.sequence[ref]),

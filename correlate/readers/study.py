@@ -30,7 +30,7 @@ SCHEMA: dict[str, set[str]] = {
     "readings": {"file", "zero", "zero_tol", "sentinels", "kt_corrected"},
     "load": {"column", "case", "reference"},
     "criteria": {"relative", "absolute_ue", "slope", "pass_fraction"},
-    "override": {"gauge", "action", "reason"},
+    "override": {"gauge", "action", "reason", "by", "date"},
     "health": {"dead_ue", "rail_fraction", "drift_ue", "drift_fraction", "nonlinear_fraction",
                "hysteresis_fraction", "noise_ue", "reversed_ratio", "min_points"},
     "report": {"steps", "views", "title"},
@@ -90,9 +90,14 @@ class Criteria:
 
 @dataclass(frozen=True)
 class Override:
+    """An analyst's disposition of a gauge: keep, exclude or reverse, with the reason, who decided
+    (``by``) and when (``date``, free text)."""
+
     gauge: str
     action: str
     reason: str
+    by: str = ""
+    date: str = ""
 
 
 @dataclass(frozen=True)
@@ -471,7 +476,8 @@ def _overrides(raw: dict[str, Any], name: str, problems: list[str]) -> list[Over
         if not o.get("reason"):
             problems.append(f"{name}: [[override]] for gauge '{o.get('gauge')}' needs a reason")
             continue
-        overrides.append(Override(gauge=str(o.get("gauge")), action=action, reason=str(o["reason"])))
+        overrides.append(Override(gauge=str(o.get("gauge")), action=action, reason=str(o["reason"]),
+                                  by=str(o.get("by", "")), date=str(o.get("date", ""))))
     return overrides
 
 

@@ -96,3 +96,31 @@ def test_report_is_identical_between_runs_but_for_time_and_pictures(demo, tmp_pa
         return re.sub(r"\d{4}-\d\d-\d\dT\d\d:\d\d:\d\dZ", "TIME", text)
 
     assert normalised(tmp_path / "again" / "report.html") == normalised(demo["run"] / "report.html")
+
+
+def test_verdict_is_provisional_until_the_flags_are_disposed_of(demo, tmp_path):
+    # Issue 12: the shipped demo has three flags awaiting a disposition, so no verdict yet; the
+    # dispositions written in demo_models/README.md (the invented analyst's) settle them.
+    v = demo["summary"]["verdict"]
+    assert v["state"] == "provisional"
+    assert v["open_dispositions"] == ["G07", "G09", "G15"]
+    assert v["result"] == "meets the criteria"      # what the criteria alone say, kept
+    readme = (ROOT / "demo_models" / "README.md").read_text(encoding="utf-8")
+    block = readme.split("```toml\n[[override]]", 1)[1].split("```", 1)[0]
+    import shutil
+
+    work = tmp_path / "work"
+    shutil.copytree(demo["out"], work, ignore=shutil.ignore_patterns("run"))
+    with open(work / "study.toml", "a", encoding="utf-8") as f:
+        f.write("\n[[override]]" + block)
+    assert main(["--quiet", "run", str(work / "study.toml"), "--out", str(work / "run")]) == 0
+    summary = json.loads((work / "run" / "summary.json").read_text())
+    assert summary["verdict"]["state"] == "meets"
+    flags = pd.read_csv(work / "run" / "flags.csv", keep_default_na=False)
+    for gauge, word in (("G07", "lead wires found swapped"), ("G09", "3 mm off"),
+                        ("G15", "turned 90 degrees")):
+        rows = flags[flags["gauge"] == gauge]
+        assert rows["disposition"].str.contains(word).any(), gauge
+        assert (rows["by"] == "A. Analyst (invented)").any()
+    html = (work / "run" / "report.html").read_text(encoding="utf-8")
+    assert "lead wires found swapped" in html
