@@ -9,18 +9,18 @@ from typing import TYPE_CHECKING, Any
 
 from correlate._version import __version__
 
-__all__ = ["__version__", "predict_readings", "read_study"]
+__all__ = ["__version__", "predict_readings", "read_study", "run_study"]
 
 if TYPE_CHECKING:  # pragma: no cover
-    from correlate.api import predict_readings
+    from correlate.api import predict_readings, run_study
     from correlate.readers.study import read_study
 
 
 def __getattr__(name: str) -> Any:
-    if name == "predict_readings":
-        from correlate.api import predict_readings
+    if name in ("predict_readings", "run_study"):
+        from correlate import api
 
-        return predict_readings
+        return getattr(api, name)
     if name == "read_study":
         from correlate.readers.study import read_study
 

@@ -1,22 +1,28 @@
-"""Library call: model readings from Python objects (a meshio or pyvista mesh, a DataFrame of gauges).
+"""The library entry points: a whole correlation (``run_study``) and model readings from Python
+objects (``predict_readings``: a meshio or pyvista mesh, a DataFrame of gauges).
 
-This is the same computation as ``correlate predict``, without files.
+``run_study`` is ``correlate run`` returning its tables; ``predict_readings`` is the computation of
+``correlate predict`` without files.
 """
 
 from __future__ import annotations
 
 from collections.abc import Mapping
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 import pandas as pd
 
+from correlate.commands.run import write_outputs
+from correlate.comparison.correlation import Correlation, correlate_study
+from correlate.core.folders import output_path
 from correlate.model_readings.model import Model
 from correlate.model_readings.operator import build_operator, gauge_locator
 from correlate.model_readings.table import predict_table
 from correlate.readers.gauges import validate_gauges
 from correlate.readers.model import from_meshio
-from correlate.readers.study import Case, Material, Study
+from correlate.readers.study import Case, Material, Study, read_study
 
 
 def _as_meshio(mesh: Any) -> Any:
@@ -93,3 +99,68 @@ def predict_readings(mesh: Any, gauges: pd.DataFrame, cases: Mapping[str, str | 
     model = Model(study=study, sources={source.path: source}, gauges=gdf, operator=op,
                   locator=locator)
     return predict_table(model)
+
+
+@dataclass(frozen=True)
+class StudyResult:
+    """The whole correlation of a study, as tables: what ``correlate run`` writes, in memory.
+
+    ``gauges`` (gauges.csv), ``per_gauge`` (gauge_stats.csv), ``flags`` (flags.csv),
+    ``rosettes`` (rosettes.csv) and ``diagnoses`` are DataFrames; ``summary`` is the content of
+    summary.json and ``verdict`` its verdict. ``correlation`` holds every array of the run.
+    """
+
+    gauges: pd.DataFrame
+    per_gauge: pd.DataFrame
+    flags: pd.DataFrame
+    rosettes: pd.DataFrame
+    diagnoses: pd.DataFrame
+    summary: dict[str, Any]
+    correlation: Correlation = field(repr=False)
+
+    @property
+    def verdict(self) -> dict[str, Any]:
+        return self.summary["verdict"]
+
+    def __repr__(self) -> str:
+        v, fit = self.verdict, self.summary["fit"]
+        ratio = fit.get("slope_origin")
+        ratio_text = "n/a" if ratio is None else f"{ratio:.3f}"
+        return (f"<StudyResult {self.summary['title']!r}: {v['state']} "
+                f"(criteria alone: {v['result']}); measured/predicted {ratio_text}; "
+                f"{v['passing']} of {v['healthy']} healthy gauges pass, {v['flagged']} flagged>")
+
+
+def run_study(study_or_path: Study | str | Path, out: str | Path | None = None, *,
+              force: bool = False, report: bool = True) -> StudyResult:
+    """Correlate a study, as ``correlate run`` does; write the output folder only when ``out``
+    is given.
+
+    Parameters
+    ----------
+    study_or_path : Study or path
+        A study read with :func:`correlate.read_study`, or the path of its TOML file.
+    out : path, optional
+        Output folder (the same files as ``correlate run --out``); nothing is written without it.
+    force : bool
+        Replace an existing output folder that the tool wrote.
+    report : bool
+        Write report.html and its pictures into ``out``.
+
+    Returns
+    -------
+    StudyResult
+        The tables, the summary and the verdict.
+
+    Raises
+    ------
+    CorrelateError
+        With one line per problem of the study's inputs.
+    """
+    study = study_or_path if isinstance(study_or_path, Study) else read_study(study_or_path)
+    corr = correlate_study(study)
+    if out is not None:
+        write_outputs(corr, output_path(out), force=force, report=report)
+    return StudyResult(gauges=corr.gauge_table, per_gauge=corr.per_gauge, flags=corr.flags,
+                       rosettes=corr.rosettes, diagnoses=corr.diagnoses, summary=corr.summary,
+                       correlation=corr)

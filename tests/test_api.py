@@ -45,3 +45,30 @@ def test_import_and_help_stay_light():
             "'scipy', 'pandas', 'meshio') if m in sys.modules))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "[]"
+
+
+def test_run_study_gives_the_tables_run_writes(tmp_path):
+    # The library call and the command are one computation: each table the call returns, written
+    # by the same writer, is byte for byte the file `correlate run` wrote.
+    from builders import block_readings, default_gauges, write_block_study
+
+    from correlate.commands.cli import main
+    from correlate.core.tables import write_csv
+
+    gauges = default_gauges()
+    study = write_block_study(tmp_path, readings_rows=block_readings(gauges, offset=3.0),
+                              gauges=gauges)
+    result = correlate.run_study(study)
+    assert not (tmp_path / "lib").exists()                      # nothing written without out
+    assert main(["--quiet", "run", str(study), "--out", str(tmp_path / "cli"),
+                 "--no-report"]) == 0
+    for table, file in (("gauges", "gauges.csv"), ("per_gauge", "gauge_stats.csv"),
+                        ("flags", "flags.csv"), ("rosettes", "rosettes.csv")):
+        write_csv(getattr(result, table), tmp_path / f"lib-{file}")
+        assert (tmp_path / f"lib-{file}").read_bytes() == (tmp_path / "cli" / file).read_bytes()
+    assert result.verdict["state"] in ("meets", "does not meet", "provisional")
+    assert repr(result).startswith("<StudyResult 'Synthetic block': ")
+    written = correlate.run_study(study, out=tmp_path / "lib", report=False)
+    assert (tmp_path / "lib" / "gauges.csv").read_bytes() == \
+        (tmp_path / "cli" / "gauges.csv").read_bytes()
+    assert written.summary["fit"] == result.summary["fit"]

@@ -25,7 +25,7 @@ from correlate.readers.study import Override, Study
 #: columns of flags.csv after the original ten: the override that disposed of a flag (its
 #: action, who and when) and, for a reversal, the gauge's ratio after it (``value`` is before)
 RECORD_COLUMNS = ("action", "by", "date", "value_after")
-REVERSED_BAND = (-1.5, -0.5)   # per-gauge ratio taken as reversed polarity (common practice)
+REVERSED_RATIO = 0.5   # [health] reversed_ratio: ratios in [-(2 - r), -r] are reversed (common practice)
 REVERSED_R2 = 0.9
 PENDING = "needs a disposition"
 
@@ -130,6 +130,13 @@ def dispose_health(flags: pd.DataFrame, study: Study, names: list[str], steps: S
     return excl
 
 
+def reversed_band(study: Study) -> tuple[float, float]:
+    """Per-gauge ratios taken as reversed polarity: [-(2 - r), -r] for ``[health]
+    reversed_ratio`` r (default 0.5: -1.5 to -0.5), with R^2 at least 0.9."""
+    r = float(study.health.get("reversed_ratio", REVERSED_RATIO))
+    return -(2.0 - r), -r
+
+
 def gauge_ratios(measured: NDArray, predicted: NDArray, ok: NDArray) -> tuple[NDArray, NDArray]:
     """Per-gauge ratio and R^2 of measured against predicted (through the origin)."""
     g = measured.shape[1]
@@ -152,12 +159,13 @@ def flag_reversed(measured: NDArray, predicted: NDArray, names: list[str], steps
     usable = (steps.active[:, None] & ~excl.steps & ~excl.gauges[None, :]
               & np.isfinite(measured))
     k, r2 = gauge_ratios(measured, predicted, usable)
-    reversed_ = (k >= REVERSED_BAND[0]) & (k <= REVERSED_BAND[1]) & (r2 >= REVERSED_R2)
+    low, high = reversed_band(study)
+    reversed_ = (k >= low) & (k <= high) & (r2 >= REVERSED_R2)
     for j in np.flatnonzero(reversed_):
         g = names[j]
         disp = f"kept: {keep[g].reason}" if g in keep else PENDING
         _add(flags, {"gauge": g, "step": -1, "sequence": -1, "flag": "reversed",
-                     "value": float(k[j]), "threshold": REVERSED_BAND[1],
+                     "value": float(k[j]), "threshold": high,
                      "scope": "gauge", "drops": "gauge",
                      "reason": f"ratio {k[j]:.3f} with R^2 {r2[j]:.3f}: fits the model "
                                "with the sign reversed (suspected reversed polarity)",
@@ -169,7 +177,7 @@ def flag_reversed(measured: NDArray, predicted: NDArray, names: list[str], steps
             j = names.index(o.gauge)
             after = float(k[j]) if np.isfinite(k[j]) else np.nan
             _add(flags, {"gauge": o.gauge, "step": -1, "sequence": -1, "flag": "reversed",
-                         "value": -after, "threshold": REVERSED_BAND[1], "scope": "gauge",
+                         "value": -after, "threshold": high, "scope": "gauge",
                          "drops": "none",
                          "reason": f"sign reversed by the study: ratio {-after:.3f} before, "
                                    f"{after:.3f} after",

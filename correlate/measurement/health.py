@@ -35,7 +35,7 @@ DEFAULTS: dict[str, float] = {
 FLAG_COLUMNS = ("gauge", "step", "sequence", "flag", "value", "threshold", "scope", "drops", "reason")
 DROPS = {"dead": "gauge", "missing": "step", "rail": "step", "drift": "gauge", "nonlinear": "none",
          "hysteresis": "none"}
-# [health] keys that other stages use (reversed_ratio compares with the model); accepted, unused here.
+# [health] keys that other stages use (reversed_ratio: comparison.dispositions.reversed_band).
 _OTHER_KEYS = frozenset(SCHEMA["health"]) - frozenset(DEFAULTS)
 # The dead check needs loads that vary over the gauge's steps: some load column must span at least
 # this fraction of its largest |value| (common practice), so that the jitter of a held load does not

@@ -28,7 +28,7 @@ def _steps(n: int = 4) -> Steps:
 
 
 def _study(*overrides: Override) -> SimpleNamespace:
-    return SimpleNamespace(overrides=tuple(overrides))
+    return SimpleNamespace(overrides=tuple(overrides), health={})
 
 
 def _flags(rows: list[dict]) -> pd.DataFrame:
@@ -104,3 +104,15 @@ def test_installation_flag_once_per_gauge_and_not_on_a_reversed_one():
     assert suspect.tolist() == [True, False, False]
     assert flags["flag"].tolist() == ["installation"]
     assert (excl.text[:, 0] == "installation").all()
+
+
+def test_reversed_ratio_of_the_study_sets_the_band():
+    # [health] reversed_ratio r: ratios in [-(2 - r), -r] count as reversed (common practice).
+    steps = _steps()
+    predicted = np.outer(steps.loads[:, 0], [100.0, 50.0, 80.0])
+    measured = predicted * np.array([1.0, -1.2, 1.0])
+    for r, expected in ((0.5, True), (0.95, False)):
+        study = SimpleNamespace(overrides=(), health={"reversed_ratio": r})
+        flags = _flags([])
+        excl = dispose_health(flags, study, NAMES, steps)
+        assert flag_reversed(measured, predicted, NAMES, steps, excl, flags, study)[1] == expected
