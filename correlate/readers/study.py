@@ -23,7 +23,7 @@ SCHEMA: dict[str, set[str]] = {
     "model": {"file", "length_unit", "stress_unit", "plane", "revision", "description", "solver",
               "element", "mesh_size", "materials", "thickness"},
     "case": {"name", "strain", "displacement", "stress", "components", "shear", "time_index", "file",
-             "average", "axes", "check_stress", "rotation", "match"},
+             "average", "axes", "check_stress", "match"},
     "material": {"E", "nu", "blocks", "name"},
     "gauges": {"file", "position_tol", "angle_tol", "snap_tol", "calibration_poisson", "grid_points",
                "band"},
