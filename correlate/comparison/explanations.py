@@ -281,8 +281,14 @@ def _swaps(failing: list[GaugeEvidence], criterion: Criterion) -> list[dict[str,
 
 
 def _frame(rows: list[dict[str, Any]], gauges: list[str]) -> pd.DataFrame:
-    """Rows in gauge order, then in the order of ``_ORDER``."""
-    rows = sorted(rows, key=lambda r: (gauges.index(r["gauge"]), _ORDER.index(r["explanation"])))
+    """Rows in gauge order, then best fit first (RMS difference after the explanation, to
+    0.001 ue), then in the order of ``_ORDER``."""
+    def fit(r: dict[str, Any]) -> float:
+        after = r["rms_after_ue"]
+        return round(float(after), 3) if np.isfinite(after) else np.inf
+
+    rows = sorted(rows, key=lambda r: (gauges.index(r["gauge"]), fit(r),
+                                       _ORDER.index(r["explanation"])))
     return pd.DataFrame(rows, columns=list(COLUMNS)).astype({"plausible": object})
 
 

@@ -127,6 +127,17 @@ def test_grid_rotated_90_in_uniaxial_field():
     assert angle["plausible"].tolist() == [False]
 
 
+def test_explanations_of_a_gauge_are_ranked_by_how_well_they_fit():
+    # Issue 12: a rotated gauge lists the exact 90-degree turn before any partial fit; within a
+    # gauge the rows go from the smallest RMS difference after the explanation upwards.
+    ev = _gauge("SG-4", cases=(CASE_A,), loads=RAMP, angle=90.0)
+    df = diagnose([ev], CRIT)
+    after = df["rms_after_ue"].to_numpy()
+    assert (np.diff(np.round(after, 3)) >= 0).all()
+    assert df["explanation"].iloc[0] in ("grid rotated 90 degrees", "grid angle")
+    assert after[0] < 1e-6                      # the true turn fits exactly
+
+
 def test_position_offset_three_units_is_found_and_implausible():
     # True offset (2.4, -1.8): distance 3 (3-4-5 triangle). The two load cases have gradients in
     # different directions, so both offset components are determined.
