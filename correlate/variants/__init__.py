@@ -1,0 +1,1 @@
+"""Model variants: response surfaces over a parameter study and parameter identification."""

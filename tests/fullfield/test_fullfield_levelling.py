@@ -1,0 +1,156 @@
+"""Levelling (spatial filtering) of fields at scattered points."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy import integrate, ndimage
+from scipy.spatial.transform import Rotation
+
+from correlate.core.errors import StudyError
+from correlate.fullfield.levelling import (
+    apply_weights,
+    gaussian_level,
+    gaussian_second_moment,
+    gaussian_weights,
+    mean_level,
+    window_weights,
+)
+
+A, B, C = 0.7, -0.3, 0.45  # quadratic field coefficients (our own example)
+
+
+def _grid(n, h=1.0):
+    g = (np.arange(n) - (n - 1) / 2) * h
+    X, Y = np.meshgrid(g, g, indexing="ij")
+    return X.ravel(), Y.ravel()
+
+
+def _in_3d(x, y):
+    """Place plane coordinates on a tilted plane in 3D (a rigid motion: distances kept)."""
+    R = Rotation.from_rotvec([0.4, -0.7, 0.2]).as_matrix()
+    return np.c_[x, y, np.zeros_like(x)] @ R.T + [10.0, -3.0, 250.0]
+
+
+def _quadratic(x, y):
+    return A * x**2 + B * y**2 + C * x * y + 0.2 * x - 0.1 * y + 3.0
+
+
+def _continuous_moment(sigma, radius):
+    """E[x^2] of a 2D Gaussian truncated to a disc, by numerical quadrature (scipy.integrate)."""
+    pdf = lambda r: r * np.exp(-r * r / (2 * sigma**2))  # noqa: E731  (radial density, unnormalised)
+    m = integrate.quad(lambda r: 0.5 * r * r * pdf(r), 0, radius, epsabs=0, epsrel=1e-13)[0]
+    return m / integrate.quad(pdf, 0, radius, epsabs=0, epsrel=1e-13)[0]
+
+
+@pytest.mark.parametrize("factor", [1.0, 2.0, 3.0, 5.0])
+def test_second_moment_closed_form_matches_quadrature(factor):
+    # quadrature of the truncated Gaussian (scipy.integrate.quad); rtol: quad's 1e-13 target
+    np.testing.assert_allclose(gaussian_second_moment(2.0, factor * 2.0),
+                               _continuous_moment(2.0, factor * 2.0), rtol=1e-11)
+    assert gaussian_second_moment(2.0, np.inf) == 4.0  # no truncation: sigma^2 exactly
+
+
+def test_quadratic_field_is_shifted_by_the_second_moment_of_the_kernel():
+    # Smoothing a quadratic by a symmetric kernel of per-axis second moment m2 adds
+    # m2 (a + b): E[(x + u)^2] = x^2 + m2, E[u] = E[u v] = 0 (moments of a symmetric kernel).
+    # h = 0.17 sigma: 9 sigma^2 / h^2 is no integer, so no lattice offset lies on the rim of
+    # the 3-sigma disc, where the rounding of the tilted coordinates could move it in or out
+    sigma, h = 1.0, 0.17
+    x, y = _grid(61, h)  # 10.2 sigma square
+    f = _quadratic(x, y)
+    out = gaussian_level(_in_3d(x, y), f, sigma=sigma)  # radius 3 sigma by default
+    inner = (np.abs(x) <= 2.0) & (np.abs(y) <= 2.0)  # at least 3 sigma from every edge
+    shift = (out - f)[inner] / (A + B)
+    # exact: the lattice's own truncated moment, summed directly over offsets in the disc
+    k = np.arange(-18, 19) * h
+    KX, KY = np.meshgrid(k, k, indexing="ij")
+    r2, rim2 = KX**2 + KY**2, (3 * sigma) ** 2
+    w = np.exp(-r2 / (2 * sigma**2)) * (r2 <= rim2)
+    lattice_m2 = np.sum(w * KX**2) / np.sum(w)
+    np.testing.assert_allclose(shift, lattice_m2, rtol=1e-9)  # round-off of ~1000-term sums
+    # the continuous truncated moment, 0.9494 sigma^2: the lattice differs by a few 0.1 % at
+    # h = 0.17 sigma (points enter the 3-sigma disc one ring at a time), so rtol 0.5 %
+    np.testing.assert_allclose(shift, _continuous_moment(sigma, 3 * sigma), rtol=5e-3)
+    # and the untruncated sigma^2 is 5 % away: the truncation is not negligible
+    assert np.all(np.abs(shift - sigma**2) > 0.04)
+
+
+def test_gaussian_level_matches_scipy_ndimage_on_a_grid():
+    # scipy.ndimage.gaussian_filter is the reference Gaussian smoothing on a regular grid; with
+    # both kernels cut at 8 sigma (disc here, square there) the weights left out are < 1e-13.
+    rng = np.random.default_rng(1)
+    n, s = 60, 1.5
+    img = rng.normal(size=(n, n))
+    x, y = _grid(n)
+    out = gaussian_level(np.c_[x, y], img.ravel(), sigma=s, radius=8 * s).reshape(n, n)
+    ref = ndimage.gaussian_filter(img, sigma=s, truncate=8.0)
+    c = slice(12, n - 12)  # 8 sigma from the edges
+    np.testing.assert_allclose(out[c, c], ref[c, c], rtol=0, atol=1e-12)  # round-off
+
+
+def test_mean_level_matches_scipy_uniform_and_disc_filters():
+    rng = np.random.default_rng(2)
+    n = 40
+    img = rng.normal(size=(n, n))
+    x, y = _grid(n)
+    c = slice(3, n - 3)
+    # square of side 5 spacings = scipy.ndimage.uniform_filter(size=5)
+    sq = mean_level(np.c_[x, y], img.ravel(), size=5.0, shape="square").reshape(n, n)
+    np.testing.assert_allclose(sq[c, c], ndimage.uniform_filter(img, size=5)[c, c], rtol=0,
+                               atol=1e-13)  # round-off of 25-term means
+    # disc of diameter 6.2: offsets with i^2 + j^2 <= 9.61 (no offset on the rim, so rounding
+    # of the tilted coordinates cannot move one in or out), as a normalised ndimage.correlate
+    i, j = np.mgrid[-3:4, -3:4]
+    foot = (i**2 + j**2 <= 9).astype(float)
+    disc = mean_level(_in_3d(x, y), img.ravel(), size=6.2).reshape(n, n)
+    ref = ndimage.correlate(img, foot / foot.sum())
+    np.testing.assert_allclose(disc[c, c], ref[c, c], rtol=0, atol=1e-13)  # round-off
+
+
+def test_missing_values_carry_no_weight():
+    # Normalised convolution (Knutsson & Westin 1993): filter(v * ok) / filter(ok), checked
+    # against scipy.ndimage on a grid with 20 % of the values missing.
+    rng = np.random.default_rng(3)
+    n, s = 50, 1.2
+    img = rng.normal(size=(n, n))
+    ok = rng.random((n, n)) > 0.2
+    x, y = _grid(n)
+    out = gaussian_level(np.c_[x, y], np.where(ok, img, np.nan).ravel(), sigma=s,
+                         radius=8 * s).reshape(n, n)
+    ref = (ndimage.gaussian_filter(np.where(ok, img, 0.0), s, truncate=8.0)
+           / ndimage.gaussian_filter(ok.astype(float), s, truncate=8.0))
+    c = slice(10, n - 10)
+    assert np.isnan(out[~ok]).all()  # no hole filled
+    np.testing.assert_allclose(out[c, c][ok[c, c]], ref[c, c][ok[c, c]], rtol=0, atol=1e-12)
+    # a constant field stays exactly constant whatever is missing (normalised weights)
+    const = gaussian_level(np.c_[x, y], np.where(ok, 7.5e-4, np.nan).ravel(), sigma=s)
+    np.testing.assert_allclose(const[ok.ravel()], 7.5e-4, rtol=1e-14, atol=0)
+
+
+def test_several_columns_and_one_operator_for_many_fields():
+    rng = np.random.default_rng(4)
+    p = rng.uniform(0, 30, (2000, 3))
+    v = rng.normal(size=(2000, 3))
+    W = gaussian_weights(p, sigma=2.0)
+    both = apply_weights(W, v)
+    for k in range(3):  # column by column gives the same (the filter is linear per column)
+        np.testing.assert_allclose(both[:, k], gaussian_level(p, v[:, k], sigma=2.0),
+                                   rtol=1e-13, atol=1e-15)
+    assert (W != W.T).nnz == 0 and np.all(W.diagonal() == 1.0)
+    assert window_weights(p, size=4.0).max() == 1.0
+
+
+@pytest.mark.parametrize("bad", [{"sigma": 0.0}, {"sigma": -1.0}, {"sigma": 1.0, "radius": 0.0},
+                                 {"sigma": np.nan}])
+def test_bad_filter_sizes_raise_one_line(bad):
+    with pytest.raises(StudyError) as err:
+        gaussian_level(np.zeros((3, 3)) + np.arange(3)[:, None], np.ones(3), **bad)
+    assert "\n" not in str(err.value)
+
+
+def test_values_must_match_the_points():
+    with pytest.raises(StudyError, match="expected shape"):
+        gaussian_level(np.eye(3), np.ones(4), sigma=1.0)
+    with pytest.raises(StudyError, match="'disc' or 'square'"):
+        mean_level(np.eye(3), np.ones(3), size=1.0, shape="hexagon")
