@@ -1,7 +1,6 @@
 """`python -m correlate` runs the command line."""
 
-import sys
 
-from correlate.commands.cli import main
+from correlate.commands.cli import entry
 
-sys.exit(main())
+entry()

@@ -110,6 +110,7 @@ def main(argv: list[str] | None = None) -> int:
     if args.command is None:
         parser.print_help()
         return EXIT_INPUT
+    startup = progress.startup_seconds()
     progress.set_quiet(args.quiet)
     progress.reset_timings()
     if threading.current_thread() is threading.main_thread():
@@ -119,7 +120,10 @@ def main(argv: list[str] | None = None) -> int:
         warnings.filterwarnings("ignore", category=DeprecationWarning)
         warnings.filterwarnings("ignore", category=FutureWarning)
         try:
-            code = importlib.import_module(f"correlate.commands.{args.command}").run(args)
+            with progress.step(f"correlate {args.command} (the whole command)"):
+                with progress.step("loading the command's modules"):
+                    handler = importlib.import_module(f"correlate.commands.{args.command}").run
+                code = handler(args)
         except CorrelateError as exc:
             _print_warnings(caught)
             for line in exc.problems:
@@ -142,9 +146,25 @@ def main(argv: list[str] | None = None) -> int:
             return EXIT_INTERNAL
     _print_warnings(caught)
     if args.timings:
-        print(progress.timing_table(), file=sys.stderr)
+        print(progress.timing_table(startup=startup), file=sys.stderr)
     return code
 
 
+def entry() -> None:
+    """The console script: run, then end the process without the interpreter's teardown.
+
+    Every output is written and closed inside ``main`` (staged folders, ``with`` blocks); what is
+    left at exit is freeing the numerical libraries' objects, which took about 0.6 s of a 4 s
+    command (measured on the demo). Streams are flushed first.
+    """
+    code = main()
+    try:
+        sys.stdout.flush()
+        sys.stderr.flush()
+    except BrokenPipeError:
+        pass
+    os._exit(code)
+
+
 if __name__ == "__main__":
-    sys.exit(main())
+    entry()

@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 
 from correlate.commands.outputs import study_inputs
+from correlate.core import progress
 from correlate.core.folders import check_target, output_path, staged_folder
 from correlate.core.tables import write_csv
 from correlate.model_readings.model import prepare
@@ -14,11 +15,13 @@ from correlate.readers.study import read_study
 
 def run(args: argparse.Namespace) -> int:
     """Write ``model_readings.csv`` and ``placement.csv``."""
-    study = read_study(args.study)
+    with progress.step("reading the study"):
+        study = read_study(args.study)
     out = output_path(args.out)
     check_target(out, force=args.force, inputs=study_inputs(study))
     model = prepare(study)
-    table = predict_table(model)
+    with progress.step("model readings of every case"):
+        table = predict_table(model)
     with staged_folder(out, force=args.force, inputs=study_inputs(study)) as tmp:
         write_csv(table, tmp / "model_readings.csv")
         write_csv(model.operator.placement.table, tmp / "placement.csv")

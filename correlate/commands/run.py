@@ -75,7 +75,8 @@ def print_summary(corr: Correlation) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Correlate the study and write every output; print the summary."""
-    study = read_study(args.study)
+    with progress.step("reading the study"):
+        study = read_study(args.study)
     out = output_path(args.out)
     check_target(out, force=args.force, inputs=study_inputs(study))
     model = prepare(study)

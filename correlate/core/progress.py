@@ -76,11 +76,58 @@ def timings() -> list[tuple[int, str, float]]:
     return list(_TIMES)
 
 
-def timing_table() -> str:
-    """The stage times as indented text lines (``--timings``)."""
-    width = max((2 * d + len(s) for d, s, _ in _TIMES), default=0)
-    lines = [f"  {'  ' * d}{s:<{width - 2 * d}}  {t:8.2f}" for d, s, t in _TIMES]
-    return "\n".join(["stage times (seconds):", *lines])
+def startup_seconds() -> float | None:
+    """Seconds from the start of this process to now, from the kernel's own accounting (Linux
+    /proc; None elsewhere): the interpreter's start and the imports before the command ran."""
+    try:
+        with open("/proc/self/stat", encoding="ascii") as f:
+            start_ticks = float(f.read().rsplit(")", 1)[1].split()[19])
+        with open("/proc/uptime", encoding="ascii") as f:
+            uptime = float(f.read().split()[0])
+    except (OSError, ValueError, IndexError):
+        return None
+    return max(uptime - start_ticks / os.sysconf("SC_CLK_TCK"), 0.0)
+
+
+def timing_table(startup: float | None = None) -> str:
+    """The stage times as indented text lines (``--timings``).
+
+    Under each stage that has stages inside it, a row "(in none of the stages above)" holds the
+    rest of its time, so that every level adds up to its parent; ``startup`` (seconds before the
+    command began) is its own first line.
+    """
+    rows: list[tuple[int, str, float]] = []
+    for k, (d, s, t) in enumerate(_TIMES):
+        rows.append((d, s, t))
+        # the last child of a parent: add the parent's remainder after it
+        end = next((j for j in range(k + 1, len(_TIMES)) if _TIMES[j][0] <= d), len(_TIMES))
+        children = [c for c in _TIMES[k + 1:end] if c[0] == d + 1]
+        if children:
+            rows_left = t - sum(c[2] for c in children)
+            rows.append((d + 1, "(in none of the stages above)", rows_left))
+    ordered = _order(rows)
+    width = max((2 * d + len(s) for d, s, _ in ordered), default=0)
+    width = max(width, len("start-up (interpreter and imports)"))
+    lines = ["stage times (seconds):"]
+    if startup is not None:
+        lines.append(f"  {'start-up (interpreter and imports)':<{width}}  {startup:8.2f}")
+    lines += [f"  {'  ' * d}{s:<{width - 2 * d}}  {t:8.2f}" for d, s, t in ordered]
+    return "\n".join(lines)
+
+
+def _order(rows: list[tuple[int, str, float]]) -> list[tuple[int, str, float]]:
+    """Move each remainder row after the last descendant of its parent."""
+    out: list[tuple[int, str, float]] = []
+    pending: list[tuple[int, str, float]] = []
+    for row in rows:
+        if row[1] == "(in none of the stages above)":
+            pending.append(row)
+            continue
+        while pending and pending[-1][0] > row[0]:
+            out.append(pending.pop())
+        out.append(row)
+    out.extend(reversed(pending))
+    return out
 
 
 def pause(stage: str) -> None:

@@ -13,6 +13,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from correlate.core import progress
+
 FLOAT_DIGITS = 6          # significant decimals for ratios and other dimensionless numbers
 UE_DECIMALS = 3           # microstrain to 0.001
 LENGTH_DECIMALS = 6       # lengths (snap distances, positions) to 1e-6 of the model's unit
@@ -81,8 +83,9 @@ def safe_text(df: pd.DataFrame) -> pd.DataFrame:
 
 def write_csv(df: pd.DataFrame, path: Path) -> None:
     """Write a table as CSV: fixed precision, formula-like text cells escaped (:func:`safe_cell`)."""
-    safe_text(round_table(df)).to_csv(path, index=False, lineterminator="\n",
-                                      float_format="%.10g")
+    with progress.step(f"writing {Path(path).name}"):
+        safe_text(round_table(df)).to_csv(path, index=False, lineterminator="\n",
+                                          float_format="%.10g")
 
 
 def clean_json(obj: Any, key: str = "") -> Any:
@@ -106,5 +109,6 @@ def clean_json(obj: Any, key: str = "") -> Any:
 
 
 def write_json(obj: Any, path: Path) -> None:
-    path.write_text(json.dumps(clean_json(obj), indent=2, sort_keys=False, ensure_ascii=False)
-                    + "\n", encoding="utf-8")
+    with progress.step(f"writing {Path(path).name}"):
+        text = json.dumps(clean_json(obj), indent=2, sort_keys=False, ensure_ascii=False)
+        path.write_text(text + "\n", encoding="utf-8")
