@@ -6,7 +6,8 @@ opened sources, the gauge map and its operator) and the operator rows of any cas
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+import warnings
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
@@ -15,14 +16,21 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from correlate.core import progress
-from correlate.core.errors import ModelError
+from correlate.core.errors import (
+    CorrelateError,
+    CorrelateWarning,
+    GaugeError,
+    GaugeOutsideMeshError,
+    ModelError,
+)
+from correlate.model_readings.conventions import convention_warnings
 from correlate.model_readings.evaluate import evaluate_rows
 from correlate.model_readings.gradients import nodal_strain, rotation_at_points
 from correlate.model_readings.locator import Locator
 from correlate.model_readings.operator import GaugeOperator, build_operator, gauge_locator
 from correlate.readers.fields import read_field
 from correlate.readers.gauges import read_gauges
-from correlate.readers.model import ModelSource, open_model
+from correlate.readers.model import Mesh, ModelSource, find_array, open_model
 from correlate.readers.study import Case, Study
 
 
@@ -37,6 +45,7 @@ class Model:
     locator: Locator
     warnings: list[str] = field(default_factory=list)
     fields: dict[tuple[str, int | None], Any] = field(default_factory=dict)
+    conventions: list[str] | None = None   # the convention checks' findings, once made
 
     def case_field(self, case: Case, fe_index: int | None,
                    operator: GaugeOperator | None = None) -> Any:
@@ -77,15 +86,100 @@ def open_sources(study: Study) -> dict[Path, ModelSource]:
 
 
 def prepare(study: Study) -> Model:
-    """Read the gauge map and the model, locate every gauge, build the operator."""
+    """Read the gauge map and the model, locate every gauge, build the operator.
+
+    The steps :func:`open_sources`, :func:`read_gauges`, :func:`settle_family` and
+    :func:`locate` in turn; then the convention checks, whose findings are warnings
+    (:func:`~correlate.model_readings.conventions.convention_warnings`).
+    """
     with progress.step("reading the model"):
         sources = open_sources(study)
     with progress.step("reading the gauge map"):
         gauges = read_gauges(study.gauges_file)
+    settle_family(study, sources, gauges)
+    model = locate(study, sources, gauges)
+    model.conventions = convention_warnings(model)
+    for line in model.conventions:
+        warnings.warn(line, CorrelateWarning, stacklevel=2)
+    return model
+
+
+def model_family(study: Study, mesh: Mesh, gauges: pd.DataFrame | None) -> str:
+    """Solid, shell or plane: the mesh's cells and, for a flat 2D mesh in z = 0, what the study says.
+
+    A flat mesh of 2D cells in the plane z = 0 is a shell when the study says so in any way (a
+    case with top and bottom arrays, a gauge map ``face`` column with values, a ``[model]
+    thickness``, or ``[model] kind = "shell"``) and a 2D plane model only when it says
+    ``[model] plane = ...`` (or ``kind = "plane"``); saying neither, or both, is refused.
+    """
+    name = study.model_file.name
+    kind = study.model_info.get("kind")
+    types = ", ".join(sorted({t for t, _ in mesh.blocks}))
+    if mesh.family == "solid":
+        if kind in ("shell", "plane"):
+            raise ModelError(f"{name}: [model] kind = \"{kind}\", but the model holds solid cells "
+                             f"({types}); remove kind or give the {kind} model's file")
+        return "solid"
+    if kind == "solid":
+        raise ModelError(f"{name}: [model] kind = \"solid\", but the model holds only 2D cells "
+                         f"({types}); say kind = \"shell\" (or \"plane\" for a 2D plane model)")
+    shell = _shell_evidence(study, gauges)
+    if mesh.family == "shell":   # 2D cells off the plane z = 0: a shell in space
+        if kind == "plane":
+            raise ModelError(f"{name}: [model] kind = \"plane\", but the mesh does not lie in the "
+                             "plane z = 0 (a 2D plane model must); say kind = \"shell\"")
+        return "shell"
+    plane_said = study.plane is not None or kind == "plane"
+    if plane_said and (shell or kind == "shell"):
+        said = f"plane = \"{study.plane}\"" if study.plane is not None else "kind = \"plane\""
+        why = shell[0] if shell else "kind = \"shell\""
+        raise ModelError(f"{name}: the study says [model] {said} (a 2D plane model) but also "
+                         f"{why} (a shell); keep one: [model] plane = ... for a plane model, or "
+                         "[model] kind = \"shell\" without plane for a shell")
+    if kind == "plane" and study.plane is None:
+        raise ModelError(f"{name}: [model] kind = \"plane\"; say also plane = \"stress\" or "
+                         "\"strain\"")
+    if plane_said:
+        return "plane"
+    if shell or kind == "shell":
+        return "shell"
+    raise ModelError(f"{name} is a flat 2D mesh in z = 0: a 2D plane model or a flat shell, and the "
+                     "study says neither; say [model] plane = \"stress\" or \"strain\" for a 2D "
+                     "plane model, or [model] kind = \"shell\" for a shell")
+
+
+def _shell_evidence(study: Study, gauges: pd.DataFrame | None) -> list[str]:
+    """What in the study says the model is a shell (one phrase each)."""
+    out = [f"case '{c.name}' gives top and bottom arrays" for c in study.cases
+           if isinstance(c.array, dict)]
+    if gauges is not None and "face" in gauges and (gauges["face"] != "").any():
+        out.append("the gauge map gives a face column")
+    thickness = study.model_info.get("thickness")
+    if isinstance(thickness, int | float) and not isinstance(thickness, bool) and thickness > 0:
+        out.append("[model] thickness is given")
+    return out
+
+
+def settle_family(study: Study, sources: dict[Path, ModelSource],
+                  gauges: pd.DataFrame | None) -> None:
+    """Give every opened source's mesh the family the study settles (see :func:`model_family`)."""
+    family = model_family(study, sources[study.model_file].mesh, gauges)
+    for src in sources.values():
+        if src.mesh.family != family:
+            src.mesh = replace(src.mesh, family=family)
+
+
+def locate(study: Study, sources: dict[Path, ModelSource], gauges: pd.DataFrame) -> Model:
+    """Locate every gauge on the model and build the operator.
+
+    Raises
+    ------
+    GaugeError
+        The gauge map fits the model only after a unit factor (25.4 or 1000, or their inverses).
+    GaugeOutsideMeshError
+        Gauges farther than ``snap_tol`` from the surface (every such gauge, one line each).
+    """
     mesh = sources[study.model_file].mesh
-    if mesh.family == "plane" and study.plane is None:
-        raise ModelError(f"{study.model_file.name} is a 2D plane model (all z = 0); say "
-                         "[model] plane = \"stress\" or \"strain\" in the study")
     snap_tol = study.snap_tol
     if snap_tol is None:  # neither snap_tol nor position_tol given: 1 % of the model size
         snap_tol = 0.01 * float(np.linalg.norm(np.diff(mesh.bounds, axis=0)))
@@ -97,17 +191,70 @@ def prepare(study: Study) -> Model:
         locator = gauge_locator(mesh, gauges, snap_tol=snap_tol, position_tol=study.position_tol,
                                 band=study.band)
     with progress.step(f"locating {len(gauges)} gauges and building their operator"):
-        op = build_operator(mesh, gauges, position_tol=study.position_tol,
-                            angle_tol=study.angle_tol, snap_tol=snap_tol,
-                            calibration_poisson=study.calibration_poisson,
-                            grid_points=study.grid_points, band=study.band, locator=locator,
-                            length_unit=study.length_unit)
+        try:
+            op = build_operator(mesh, gauges, position_tol=study.position_tol,
+                                angle_tol=study.angle_tol, snap_tol=snap_tol,
+                                calibration_poisson=study.calibration_poisson,
+                                grid_points=study.grid_points, band=study.band, locator=locator,
+                                length_unit=study.length_unit)
+        except GaugeOutsideMeshError:
+            line = unit_mismatch(study, mesh, locator, gauges, snap_tol)
+            if line is not None:
+                raise GaugeError(line) from None
+            raise
     return Model(study=study, sources=sources, gauges=gauges, operator=op, locator=locator)
+
+
+# Unit factors a gauge map is tried at when it does not fit the model: (factor, what it means)
+UNIT_FACTORS = ((25.4, "a gauge map in inches against a model in millimetres"),
+                (1 / 25.4, "a gauge map in millimetres against a model in inches"),
+                (1000.0, "a gauge map in metres against a model in millimetres"),
+                (1e-3, "a gauge map in millimetres against a model in metres"))
+ON_MODEL_SHARE = 0.5   # below this share of gauges on the surface, a unit factor is looked for
+
+
+def unit_mismatch(study: Study, mesh: Mesh, locator: Locator, gauges: pd.DataFrame,
+                  snap_tol: float) -> str | None:
+    """One line when the gauge map fits the model only after a unit factor, else None.
+
+    Most surface gauges lie farther than ``snap_tol`` from the model, and every one lies within
+    it once the coordinates are multiplied by 25.4 or 1000 (or their inverses): the gauge map
+    and the model are in different units, whatever the study's ``length_unit`` says.
+    """
+    surface = (gauges["mount"] != "embedded").to_numpy()
+    xyz = gauges[["x", "y", "z"]].to_numpy(dtype=float)[surface]
+    prefer = gauges[["normal_x", "normal_y", "normal_z"]].to_numpy(dtype=float)[surface]
+    if not len(xyz):
+        return None
+
+    def share_on(factor: float) -> float:
+        return float(np.mean(locator.project(xyz * factor, prefer=prefer).distance <= snap_tol))
+
+    if share_on(1.0) >= ON_MODEL_SHARE:
+        return None
+    for factor, meaning in UNIT_FACTORS:
+        if share_on(factor) == 1.0:
+            unit = study.length_unit
+            return (f"{study.gauges_file.name}: the gauge coordinates ({_span(xyz)}) lie off the "
+                    f"model ({_span(mesh.bounds)} {unit}), but every gauge lies on the model "
+                    f"surface once they are multiplied by {factor:.6g}: that is {meaning}; the "
+                    f"study says length_unit = \"{unit}\" for both, so convert the gauge map (or "
+                    f"the model) to {unit}")
+    return None
+
+
+def _span(points: NDArray[np.float64]) -> str:
+    lo, hi = points.min(axis=0), points.max(axis=0)
+    return ", ".join(f"{a} {lo[k]:.4g} to {hi[k]:.4g}" for k, a in enumerate("xyz"))
 
 
 def case_steps(model: Model, case: Case) -> list[tuple[int | None, float | None]]:
     """The (fe_index, fe_time) states a case stands for: one, or every step of a series."""
-    src = model.source(case)
+    return source_steps(model.source(case), case)
+
+
+def source_steps(src: ModelSource, case: Case) -> list[tuple[int | None, float | None]]:
+    """The (fe_index, fe_time) states of a case in its opened source (see :func:`case_steps`)."""
     ti = case.time_index
     if ti == "all" or isinstance(ti, tuple):
         if not src.times:
@@ -121,6 +268,34 @@ def case_steps(model: Model, case: Case) -> list[tuple[int | None, float | None]
     if isinstance(ti, int):
         return [(ti, src.times[ti] if src.times and ti < len(src.times) else None)]
     return [(None, None)]
+
+
+def case_problems(study: Study, sources: dict[Path, ModelSource], case: Case) -> list[str]:
+    """Every problem with the arrays a case names, found without the gauges (one line each).
+
+    Each named array (per face, the axes, the stress of ``check_stress``) is looked up in the
+    case's first FE state; when all are there, the field is read as a run would read it
+    (component count and names, shear, axes, material).
+    """
+    src = sources[case.file or study.model_file]
+    try:
+        fe_index = source_steps(src, case)[0][0]
+    except CorrelateError as exc:
+        return list(exc.problems)
+    names = list(case.array.values()) if isinstance(case.array, dict) else [case.array]
+    names += [n for n in (case.axes, case.check_stress) if n]
+    problems: list[str] = []
+    for name in names:
+        try:
+            find_array(src, name, fe_index, case=case.name)
+        except CorrelateError as exc:
+            problems.extend(exc.problems)
+    if not problems:
+        try:
+            read_field(src, case, study.materials, fe_index)
+        except CorrelateError as exc:
+            problems.extend(exc.problems)
+    return problems
 
 
 def case_rows(model: Model, case: Case, fe_index: int | None,

@@ -240,7 +240,8 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
     calibration_poisson : float
         Poisson's ratio of the gauge manufacturer's calibration beam (nu0).
     grid_points : int
-        Gauss-Legendre points along a grid of non-zero length.
+        Gauss-Legendre points along a grid of non-zero length, at least; a grid that spans more
+        elements gets more (:func:`grid_point_count`).
     strict : bool
         Refuse a gauge whose grid overhangs an edge (default). When False (model searches), such a
         gauge is marked in ``invalid`` and its readings are NaN.
@@ -262,8 +263,10 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
     length = gauges["length"].to_numpy(dtype=float)
     row_gauge, row_kind, row_off = _rows(ptol * ~c.embedded, atol)
     rc, rn, rd, rcell, rxi = _row_frames(mesh, locator, c, row_gauge, row_off)
+    points = grid_point_count(mesh, c.cell, c.direction, length, grid_points)
     s = _sample_points(mesh, locator, c, row_gauge, row_kind, rc, rn, rd, rcell, rxi, length,
-                       grid_points=grid_points, snap_tol=snap_tol, strict=strict)
+                       grid_points=grid_points, gauge_points=points, snap_tol=snap_tol,
+                       strict=strict)
     kt = gauges["kt"].to_numpy(dtype=float)
     nu0 = gauges["nu0"].fillna(calibration_poisson).to_numpy(dtype=float)
     return _assemble(mesh, c, s, row_gauge, row_kind, row_off, kt, nu0)
@@ -343,15 +346,66 @@ def _row_frames(mesh: Mesh, locator: Locator, c: _Centres, row_gauge: NDArray,
     return rc, rn, rd, rcell, rxi
 
 
-def _gauss_points(row_kind: NDArray, row_len: NDArray, grid_points: int
-                  ) -> tuple[NDArray, NDArray, NDArray]:
+MAX_GRID_POINTS = 64   # Gauss points along one grid at most (a grid over 31 elements or more)
+
+
+def grid_point_count(mesh: Mesh, cells: NDArray[np.int64], direction: NDArray[np.float64],
+                     length: NDArray[np.float64], grid_points: int) -> NDArray[np.int64]:
+    """Gauss-Legendre points along each gauge's grid: the study's count, or more on small elements.
+
+    Parameters
+    ----------
+    mesh : Mesh
+    cells : ndarray, shape (g,)
+        The cell under each gauge centre.
+    direction : ndarray, shape (g, 3)
+        Grid direction (unit).
+    length : ndarray, shape (g,)
+        Grid length. [length unit]
+    grid_points : int
+        The study's ``[gauges] grid_points`` (default 5).
+
+    Returns
+    -------
+    ndarray of int, shape (g,)
+        n = min(max(grid_points, ceil(2 L / h) + 1), MAX_GRID_POINTS), h the extent along the
+        grid of the cell under the centre (its corners projected on the grid direction).
+
+    Notes
+    -----
+    The field along a grid is smooth within an element and kinked (or, for cell data and
+    element gradients, stepped) at its edges, so a Gauss rule is accurate only with a few points
+    per element: two per element spanned, and one more, keeps every element sampled. A grid
+    spanning up to (grid_points - 1) / 2 elements keeps the study's count (the usual case: a
+    grid over one or two elements), so only long grids over small elements change.
+    """
+    block, row = mesh.block_rows(cells)
+    extent = np.full(len(cells), np.inf)
+    for b, (ctype, conn) in enumerate(mesh.blocks):
+        sel = np.flatnonzero(block == b)
+        if len(sel):
+            corners = mesh.points[conn[row[sel], :elements.ELEMENTS[ctype].n_corners]]
+            extent[sel] = np.ptp(np.einsum("gki,gi->gk", corners, direction[sel]), axis=1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        spans = np.where(extent > 0, length / extent, 0.0)
+    need = np.ceil(np.nan_to_num(2 * spans, posinf=MAX_GRID_POINTS)).astype(np.int64) + 1
+    return np.minimum(np.maximum(grid_points, need), max(grid_points, MAX_GRID_POINTS))
+
+
+def _gauss_points(row_kind: NDArray, row_len: NDArray, grid_points: int,
+                  row_points: NDArray | None = None) -> tuple[NDArray, NDArray, NDArray]:
     """Row of each sample point, its offset along the grid and its weight.
 
-    Gauss-Legendre points along each row's grid, or the centre alone. Band rows use at most
+    Gauss-Legendre points along each row's grid, or the centre alone: ``grid_points`` (the
+    study's count), or ``row_points`` per row (:func:`grid_point_count`). Band rows use at most
     BAND_GRID_POINTS (3-point Gauss is exact to degree 5 along the grid): they bound a
-    tolerance, and they are most of the points.
+    tolerance, and they are most of the points; a row whose grid spans more elements than the
+    study's count handles takes its nominal count.
     """
-    n_gp = np.where(row_kind == 2, min(grid_points, BAND_GRID_POINTS), grid_points)
+    n_rows = np.full(len(row_kind), grid_points, dtype=np.int64) if row_points is None \
+        else np.asarray(row_points, dtype=np.int64)
+    n_band = np.where(n_rows > grid_points, n_rows, min(grid_points, BAND_GRID_POINTS))
+    n_gp = np.where(row_kind == 2, n_band, n_rows)
     count = np.where(row_len > 0, n_gp, 1)
     p_row = np.repeat(np.arange(len(row_kind)), count)
     first = np.cumsum(count) - count
@@ -369,11 +423,12 @@ def _gauss_points(row_kind: NDArray, row_len: NDArray, grid_points: int
 def _sample_points(mesh: Mesh, locator: Locator, c: _Centres, row_gauge: NDArray,
                    row_kind: NDArray, rc: NDArray, rn: NDArray, rd: NDArray, rcell: NDArray,
                    rxi: NDArray, length: NDArray, *, grid_points: int, snap_tol: float,
-                   strict: bool) -> _Samples:
+                   strict: bool, gauge_points: NDArray | None = None) -> _Samples:
     """Place the Gauss points of every row's grid on the surface, each re-snapped with its own
     normal; refuse (or, not strict, mark) grids that overhang an edge."""
     row_len = np.where(row_kind != 1, length[row_gauge], 0.0)
-    p_row, p_s, p_w = _gauss_points(row_kind, row_len, grid_points)
+    p_row, p_s, p_w = _gauss_points(row_kind, row_len, grid_points,
+                                    None if gauge_points is None else gauge_points[row_gauge])
     p_emb = c.embedded[row_gauge[p_row]]
     p_x = rc[p_row] + p_s[:, None] * rd[p_row]
     p_cell = rcell[p_row].copy()

@@ -119,8 +119,9 @@ def predict_table(model: Model) -> pd.DataFrame:
         parts.append(pd.DataFrame(data, copy=False))
     table = parts[0] if len(parts) == 1 else pd.concat(parts, ignore_index=True)
     _warn_displacement(model, table)
-    for line in convention_warnings(model):
-        warnings.warn(line, CorrelateWarning, stacklevel=2)
+    if model.conventions is None:  # prepare() has warned already
+        for line in convention_warnings(model):
+            warnings.warn(line, CorrelateWarning, stacklevel=2)
     return table
 
 

@@ -13,7 +13,7 @@ from numpy.typing import NDArray
 
 from correlate.core.errors import ModelError
 from correlate.mechanics.tensors import DEFAULT_ORDER, PLANE_ORDER, from_voigt, strain_from_stress
-from correlate.readers.model import Field, ModelSource, find_array
+from correlate.readers.model import Field, ModelSource, component_names, component_of, find_array
 from correlate.readers.study import Case, Material
 
 ROW_MAJOR = ("xx", "xy", "xz", "yx", "yy", "yz", "zx", "zy", "zz")
@@ -25,16 +25,42 @@ def _components(case: Case, count: int, source: ModelSource, array: str,
         if len(case.components) != count:
             raise ModelError(f"{source.path.name}: array '{array}' of case '{case.name}' has {count} "
                              f"components but the case lists {len(case.components)}; fix components")
-        return case.components
+        return _agree_with_file(case.components, source, array, case, declared=True)
     if count == 6:
-        return DEFAULT_ORDER
+        return _agree_with_file(DEFAULT_ORDER, source, array, case, declared=False)
     if count == 9:
-        return ROW_MAJOR
+        return _agree_with_file(ROW_MAJOR, source, array, case, declared=False)
     if count == 3 and family in ("shell", "plane"):
-        return PLANE_ORDER
+        return _agree_with_file(PLANE_ORDER, source, array, case, declared=False)
     raise ModelError(f"{source.path.name}: array '{array}' of case '{case.name}' has {count} "
                      "component(s); a strain or stress array needs 6 (Voigt), 9 (full, row-major) "
                      "or 3 (xx, yy, xy; 2D and shell models)")
+
+
+def _agree_with_file(order: tuple[str, ...], source: ModelSource, array: str, case: Case, *,
+                     declared: bool) -> tuple[str, ...]:
+    """Refuse a component order that contradicts the names the file gives the components.
+
+    A VTU may name each component of an array (``ComponentName0`` ... as VTK writes them); a
+    name such as "XY" or "Ezx" is compared with the order's component at the same position (xz
+    and zx are the same shear of a symmetric tensor). Names that are not recognised are ignored.
+    """
+    stored = component_names(source, array)
+    if len(stored) != len(order):
+        return order
+    ours = [component_of(n) for n in stored]
+    differ = [k for k, c in enumerate(ours) if c is not None and sorted(c) != sorted(order[k])]
+    if not differ:
+        return order
+    names = "[" + ", ".join(repr(n) for n in stored) + "]"
+    said = (f"declares components = {list(order)}" if declared else
+            f"gives no components, so the default order {list(order)} would be read")
+    fix = (f"set components = {list(ours)}" if all(ours) else "set components to match")
+    k = differ[0]
+    raise ModelError(f"{source.path.name}: array '{array}' names its components {names} in the "
+                     f"file, but case '{case.name}' {said} (component {k + 1} is "
+                     f"'{stored[k]}' in the file, '{order[k]}' in the study); {fix} in the "
+                     "[[case]], or correct the file")
 
 
 def _check_axes(axes: NDArray, source: ModelSource, case: Case) -> None:

@@ -27,6 +27,9 @@ KT_LIMIT = 0.1  # |kt| above this is almost surely a percentage
 def read_gauges(path: str | Path) -> pd.DataFrame:
     """Read and validate a gauge map CSV. See :func:`validate_gauges` for the result."""
     path = Path(path)
+    if path.is_dir():
+        raise GaugeError(f"gauge map '{path}' is a folder, not a file; give the path of the gauge "
+                         "map CSV in [gauges] file")
     try:
         raw = pd.read_csv(path, dtype=str, keep_default_na=False, skipinitialspace=True,
                           encoding="utf-8-sig")

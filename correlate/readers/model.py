@@ -14,7 +14,12 @@ from __future__ import annotations
 
 import contextlib
 import difflib
+import errno
 import io
+import os
+import re
+import stat
+import warnings
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from functools import cached_property
@@ -24,7 +29,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from correlate.core.errors import MissingDependencyError, ModelError
+from correlate.core.errors import CorrelateWarning, MissingDependencyError, ModelError
 
 SUPPORTED = ("triangle", "triangle6", "quad", "quad8", "quad9", "tetra", "tetra10", "hexahedron",
              "hexahedron20", "hexahedron27", "wedge")
@@ -132,6 +137,7 @@ class ModelSource:
     _reader: Any = None
     _cache: dict[int, tuple[dict, dict]] = field(default_factory=dict)
     _h5: dict[Path, Any] = field(default_factory=dict)
+    _names: dict[str, tuple[str, ...]] | None = None
 
     def arrays(self, time_index: int | None) -> tuple[dict[str, Any], dict[str, Any]]:
         """Point and cell data, of one step for a time series."""
@@ -237,15 +243,45 @@ def _mesh_from(points: NDArray, cells: list[tuple[str, NDArray]], source: str) -
         keep = [k for k, b in enumerate(blocks) if b[0] in SOLID]
         blocks = [blocks[k] for k in keep]
         ids = [ids[k] for k in keep]
-        family = "solid"
-    else:
-        family = "plane" if np.allclose(points[:, 2], 0.0) else "shell"
     for ctype, conn in blocks:
         if conn.size and (conn.min() < 0 or conn.max() >= len(points)):
             raise ModelError(f"{source}: {ctype} cells refer to points that do not exist; the file "
                              "is damaged or truncated")
+    points = _finite_points(points, blocks, source)
+    if solid:
+        family = "solid"
+    else:
+        # a flat mesh in z = 0 is a plane model or a shell: the study decides (model_family)
+        family = "plane" if np.allclose(points[:, 2], 0.0) else "shell"
     return Mesh(points=points, blocks=tuple(blocks), block_ids=tuple(ids), family=family,
                 source=source)
+
+
+def _finite_points(points: NDArray, blocks: list[tuple[str, NDArray]], source: str) -> NDArray:
+    """Refuse a cell node with a non-finite coordinate; ignore (and warn of) unused ones.
+
+    A node no cell uses enters no computation, but its NaN would spoil the model's bounds and
+    the views: it is moved onto a node that cells use, which changes nothing a gauge reads.
+    """
+    bad = ~np.isfinite(points).all(axis=1)
+    if not bad.any():
+        return points
+    used = np.zeros(len(points), dtype=bool)
+    for _, conn in blocks:
+        used[conn.ravel()] = True
+    bad_used = np.flatnonzero(bad & used)
+    if len(bad_used):
+        k = int(bad_used[0])
+        ctype = next(t for t, conn in blocks if (conn == k).any())
+        more = f" (and {len(bad_used) - 1} more node(s))" if len(bad_used) > 1 else ""
+        raise ModelError(f"{source}: node {k} has a non-finite coordinate "
+                         f"({', '.join(f'{v:g}' for v in points[k])}) and belongs to a {ctype} "
+                         f"cell{more}; fix the mesh coordinates in the model file")
+    points = points.copy()
+    points[bad] = points[int(np.flatnonzero(used)[0])]
+    warnings.warn(f"{source}: {int(bad.sum())} node(s) that no cell uses have non-finite "
+                  "coordinates; they are ignored", CorrelateWarning, stacklevel=4)
+    return points
 
 
 def _meshio_formats(path: Path) -> list[str]:
@@ -330,11 +366,30 @@ def _open_exodus(path: Path) -> ModelSource:
                        cell_data={k: list(v) for k, v in m.cell_data.items()})
 
 
+def _check_file(path: Path) -> None:
+    """Refuse a model path that is no regular file: missing, a folder, a looping link, a device."""
+    try:
+        info = path.stat()
+    except OSError as exc:
+        if exc.errno == errno.ELOOP:
+            raise ModelError(f"model file '{path}' is a symbolic link that loops back on itself; "
+                             "point it at the result file or give the file's own path") from None
+        if path.is_symlink():
+            raise ModelError(f"model file '{path}' is a symbolic link to "
+                             f"'{os.readlink(path)}', which does not exist") from None
+        raise ModelError(f"model file '{path}' does not exist") from None
+    if stat.S_ISDIR(info.st_mode):
+        raise ModelError(f"model file '{path}' is a folder, not a file; give the path of the result "
+                         "file (.vtu, .xdmf, ...) in [model] file")
+    if not stat.S_ISREG(info.st_mode):
+        raise ModelError(f"model file '{path}' is not a regular file (a device, pipe or socket); "
+                         "give the path of the result file")
+
+
 def open_model(path: str | Path) -> ModelSource:
     """Open a model result file; a time-series XDMF is read one step at a time."""
     path = Path(path)
-    if not path.is_file():
-        raise ModelError(f"model file '{path}' does not exist")
+    _check_file(path)
     if path.stat().st_size == 0:
         raise ModelError(f"{path.name}: the file is empty")
     suffix = path.suffix.lower()
@@ -391,3 +446,71 @@ def find_array(source: ModelSource, name: str, time_index: int | None, *,
     hint = f"; did you mean '{near[0]}'?" if near else ""
     raise ModelError(f"{source.path.name}: case '{case}' names array '{name}', which is not in the "
                      f"file; arrays found: {_available(point_data, cell_data)}{hint}")
+
+
+# A component name as a VTU stores it ("XX", "Exy", "eps_zx", "S.YZ"): an optional short prefix
+# (letters other than x, y, z, or anything ending in a separator) and two axis letters.
+COMPONENT_NAME = re.compile(r"(?:[a-w]{0,3}|.*[_\-. :])([xyz])([xyz])")
+
+
+def component_of(name: str) -> str | None:
+    """Our component name ("xy") of a name a file gives a component, None if not recognised."""
+    m = COMPONENT_NAME.fullmatch(name.strip().lower())
+    return None if m is None else m.group(1) + m.group(2)
+
+
+def component_names(source: ModelSource, array: str) -> tuple[str, ...]:
+    """The component names a VTU stores for an array (ComponentName0, 1, ...), as written.
+
+    Empty when the file stores none (meshio writes none), when the array is not in the file, or
+    for formats other than VTU (XDMF has no such attribute). Point data first, as
+    :func:`find_array` reads. VTK's own XML parser reads the file's structure only (the heavy
+    data are skipped), once per file.
+    """
+    if source._names is None:
+        source._names = _vtu_component_names(source.path)
+    return source._names.get(array, ())
+
+
+def _vtu_component_names(path: Path) -> dict[str, tuple[str, ...]]:
+    if path.suffix.lower() != ".vtu" or not path.is_file():
+        return {}
+    from vtkmodules.vtkCommonCore import vtkObject
+    from vtkmodules.vtkIOXMLParser import vtkXMLDataParser
+
+    parser = vtkXMLDataParser()
+    parser.SetFileName(str(path))
+    quiet = vtkObject.GetGlobalWarningDisplay()
+    vtkObject.GlobalWarningDisplayOff()  # a file meshio read but VTK's parser refuses: no names
+    try:
+        if not parser.Parse():
+            return {}
+    finally:
+        vtkObject.SetGlobalWarningDisplay(quiet)
+    found: dict[str, tuple[str, ...]] = {}
+    for section in ("PointData", "CellData"):
+        for element in _elements(parser.GetRootElement(), section):
+            for k in range(element.GetNumberOfNestedElements()):
+                da = element.GetNestedElement(k)
+                name = da.GetAttribute("Name")
+                count = da.GetAttribute("NumberOfComponents")
+                if da.GetName() != "DataArray" or name is None or name in found:
+                    continue
+                names = tuple(da.GetAttribute(f"ComponentName{i}") or ""
+                              for i in range(int(count) if count and count.isdigit() else 1))
+                if any(names):
+                    found[name] = names
+    return found
+
+
+def _elements(root: Any, name: str) -> list[Any]:
+    """Every element called ``name`` under ``root`` (depth first)."""
+    out, stack = [], [root]
+    while stack:
+        element = stack.pop()
+        if element is None:
+            continue
+        if element.GetName() == name:
+            out.append(element)
+        stack.extend(element.GetNestedElement(k) for k in range(element.GetNumberOfNestedElements()))
+    return out

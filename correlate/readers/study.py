@@ -21,7 +21,7 @@ SCHEMA: dict[str, set[str]] = {
     "": {"title", "model", "case", "material", "gauges", "test", "readings", "load", "criteria",
          "override", "health", "report"},
     "model": {"file", "length_unit", "stress_unit", "plane", "revision", "description", "solver",
-              "element", "mesh_size", "materials", "thickness"},
+              "element", "mesh_size", "materials", "thickness", "kind"},
     "case": {"name", "strain", "displacement", "stress", "components", "shear", "time_index", "file",
              "average", "axes", "check_stress", "match"},
     "material": {"E", "nu", "blocks", "name"},
@@ -190,7 +190,12 @@ def _path(base: Path, value: Any, where: str, name: str, problems: list[str],
     if not isinstance(value, str) or not value:
         problems.append(f"{name}: {where} file is missing; give the path relative to the study file")
         return None
-    path = (base / value).resolve()
+    try:
+        path = (base / value).resolve()
+    except (RuntimeError, OSError):  # Python 3.11 raises RuntimeError on a symbolic-link loop
+        problems.append(f"{name}: {where} file '{value}' is a symbolic link that loops back on "
+                        "itself; point it at the real file")
+        return None
     if must_exist and not path.exists():
         problems.append(f"{name}: {where} file '{value}' does not exist (looked for {path})")
     return path
@@ -293,6 +298,9 @@ def _model(raw: dict[str, Any], base: Path, name: str, problems: list[str]
     plane = model.get("plane")
     if plane is not None and plane not in ("stress", "strain"):
         problems.append(f"{name}: [model] plane = '{plane}'; expected \"stress\" or \"strain\"")
+    if model.get("kind", "solid") not in ("solid", "shell", "plane"):
+        problems.append(f"{name}: [model] kind = {model['kind']!r}; expected \"solid\", \"shell\" "
+                        "or \"plane\"")
     return model, model_file, length_unit, plane
 
 

@@ -14,6 +14,7 @@ pyvista is imported inside the functions so that ``import correlate`` stays ligh
 from __future__ import annotations
 
 import inspect
+import warnings
 from collections.abc import Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass
@@ -24,6 +25,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from correlate.comparison.reference_field import reference_strain, strain_arrays
+from correlate.core.errors import CorrelateWarning
 from correlate.mechanics import elements
 from correlate.report.annotations import add_labels, add_text, bands, nice_range, scalar_bar
 from correlate.report.camera import (
@@ -93,13 +95,33 @@ def model_surface(corr: Any) -> tuple[Any, str]:
     location, tensors, note = field.location, field.tensors, field.note
     if tensors is not None:
         data = grid.point_data if location == "point" else grid.cell_data
+        bad = ~np.isfinite(tensors).all(axis=(1, 2))
+        if bad.any():
+            _warn_non_finite(corr, location, int(bad.sum()))
+            tensors = np.where(bad[:, None, None], 0.0, tensors)
         for name, arr in strain_arrays(tensors).items():
-            data[name] = arr
+            # non-finite values far from the gauges: left uncoloured (NaN colour), never drawn
+            data[name] = np.where(bad.reshape((-1,) + (1,) * (arr.ndim - 1)), np.nan, arr)
     options: dict[str, Any] = {"pass_pointid": False, "pass_cellid": False}
     if "algorithm" in inspect.signature(grid.extract_surface).parameters:
         options["algorithm"] = "dataset_surface"   # handles quadratic faces; pyvista >= 0.47
     surface = grid.extract_surface(**options)
     return surface, note
+
+
+def _warn_non_finite(corr: Any, location: str, entities: int) -> None:
+    """One warning naming the arrays with non-finite values and how many there are."""
+    counts = []
+    for fld in corr.model.fields.values():
+        arrays = fld.data if isinstance(fld.data, dict) else {"": fld.data}
+        count = sum(int(np.size(raw) - np.isfinite(raw).sum()) for raw in arrays.values())
+        if count:
+            counts.append(f"'{fld.array}' of case '{fld.case}' ({count} value(s))")
+    what = ", ".join(dict.fromkeys(counts)) or "the reference-step field"
+    where = "nodes" if location == "point" else "cells"
+    warnings.warn(f"non-finite (NaN or infinite) values in {what}: {entities} {where} of the "
+                  "reference-step surface are left uncoloured in the report views",
+                  CorrelateWarning, stacklevel=3)
 
 
 @contextmanager
@@ -136,8 +158,10 @@ class _Scene:
         ticks = 5
         if "max_principal_ue" in surface.array_names:
             v = np.asarray(surface["max_principal_ue"])
-            low, high, ticks = nice_range(float(np.min(v)), float(np.max(v)))
-            self.clim = (low, high)
+            v = v[np.isfinite(v)]
+            if len(v):
+                low, high, ticks = nice_range(float(np.min(v)), float(np.max(v)))
+                self.clim = (low, high)
         pl = self.plotter
         if self.clim is not None:
             actor = pl.add_mesh(surface, scalars="max_principal_ue", cmap=SEQUENTIAL, clim=self.clim,
