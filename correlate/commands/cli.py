@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import argparse
 import importlib
+import math
 import os
 import signal
 import sys
@@ -19,6 +20,7 @@ import threading
 import traceback
 import warnings
 from pathlib import Path
+from typing import NoReturn
 
 from correlate._version import __version__
 from correlate.core import progress
@@ -37,14 +39,32 @@ def _global_options(p: argparse.ArgumentParser, default: object) -> None:
                    help="print the time of each stage on stderr at the end")
 
 
+class _Parser(argparse.ArgumentParser):
+    """argparse with a usage error in one line (the usage itself is one --help away)."""
+
+    def error(self, message: str) -> NoReturn:
+        self.exit(EXIT_INPUT, f"error: {self.prog}: {message}; see {self.prog} --help\n")
+
+
+def _tolerance(text: str) -> float:
+    """A gate tolerance: a finite number of 0 or more (NaN would never fail the gate)."""
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"'{text}' is not a number") from None
+    if not math.isfinite(value) or value < 0:
+        raise argparse.ArgumentTypeError(f"{text} must be a finite number of 0 or more")
+    return value
+
+
 def _parser() -> argparse.ArgumentParser:
-    p = argparse.ArgumentParser(
+    p = _Parser(
         prog="correlate",
         description="Correlate a finite-element model with strain-gauge readings from a test.",
         epilog=CAUTION)
     p.add_argument("--version", action="version", version=f"correlate {__version__}")
     _global_options(p, False)
-    after = argparse.ArgumentParser(add_help=False)
+    after = _Parser(add_help=False)
     _global_options(after, argparse.SUPPRESS)   # given after the command: kept only if given
     sub = p.add_subparsers(dest="command", metavar="COMMAND")
 
@@ -76,9 +96,9 @@ def _parser() -> argparse.ArgumentParser:
     cm.add_argument("--out", help="folder for compare.csv and compare.html")
     cm.add_argument("--force", action="store_true")
     cm.add_argument("--fail-if-worse", action="store_true", help="exit 3 when the new run is worse")
-    cm.add_argument("--slope-tol", type=float, default=0.01,
+    cm.add_argument("--slope-tol", type=_tolerance, default=0.01,
                     help="worse if |slope_origin - 1| grows by more than this (default 0.01)")
-    cm.add_argument("--rms-tol", type=float, default=0.05,
+    cm.add_argument("--rms-tol", type=_tolerance, default=0.05,
                     help="worse if the RMS difference grows by more than this fraction (0.05)")
     return p
 

@@ -148,6 +148,25 @@ def _require_loads(study: Study) -> None:
         raise StudyError(f"{study.path.name}: run needs [readings] file = \"...\" and at least one "
                          "[[load]] mapping a load column to a case; use predict for model "
                          "readings alone")
+    loaded = {ld.case for ld in study.loads}
+    unused = [c.name for c in study.cases if not c.is_series and c.name not in loaded]
+    if unused:
+        raise StudyError(*[f"{study.path.name}: case '{n}' has no [[load]], so it would add "
+                           "nothing to any step; add a [[load]] naming it, or remove the case "
+                           "from the study" for n in unused])
+
+
+def _require_pairs(study: Study, steps: Steps, measured: NDArray) -> None:
+    """Refuse a test with nothing to compare, saying what is missing (never a NaN verdict)."""
+    name = study.readings_file.name if study.readings_file else study.path.name
+    if not steps.active.any():
+        what = ("only one row" if len(steps.step) < 2 else
+                "every load is zero (within zero_tol of its peak) or every row is a tare row")
+        raise StudyError(f"{name}: no loaded step to compare: {what}; a run needs rows with the "
+                         "loads applied beside the tare row")
+    if not np.isfinite(measured[steps.active]).any():
+        raise StudyError(f"{name}: no gauge has a reading at a loaded step (every gauge column "
+                         "is blank there); check the gauge columns or the channel names")
 
 
 def correlate_study(study: Study, model: Model | None = None) -> Correlation:
@@ -156,6 +175,7 @@ def correlate_study(study: Study, model: Model | None = None) -> Correlation:
     model = model or prepare(study)
     names = model.gauges["gauge"].tolist()
     readings, steps, measured = measured_readings(study, model)
+    _require_pairs(study, steps, measured)
     progress.pause("readings")
     m = model_readings(study, model, steps)
     progress.pause("model")

@@ -16,7 +16,7 @@ range, or unloading rows when the series never unloads, are not modelled.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any
 
@@ -24,7 +24,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from correlate.core.errors import StudyError
+from correlate.core.errors import ReadingsFormatError, StudyError
 from correlate.measurement.health import load_direction
 from correlate.measurement.tare import TaredSteps, tare_steps
 from correlate.model_readings.model import Model, case_steps
@@ -77,10 +77,33 @@ def read_test_data(study: Study, gauges_df: pd.DataFrame) -> tuple[Any, Steps, t
     load_cols = load_columns(study)
     readings = read_readings(study.readings_file, gauges=gauge_channels(gauges_df),
                              loads=load_cols, sentinels=study.sentinels)
+    readings = in_step_order(readings, newest_first=study.newest_first)
     steps = make_steps(readings.table, load_cols, study.loads, [c.name for c in study.cases],
                        rule=study.zero, zero_tol=study.zero_tol,
                        source=Path(readings.path).name)
     return readings, steps, load_cols
+
+
+def in_step_order(readings: Any, *, newest_first: bool) -> Any:
+    """The readings with their rows in step order within each sequence.
+
+    A file written newest first would be tared on its last step: it is refused unless the study
+    says ``[readings] order = "newest-first"``, and then its rows are turned round.
+    """
+    table = readings.table
+    if newest_first:
+        table = table.iloc[::-1].reset_index(drop=True)
+    name = Path(readings.path).name
+    for seq, rows in table.groupby("sequence", sort=False):
+        step = rows["step"].to_numpy()
+        down = np.flatnonzero(np.diff(step) < 0)
+        if len(down):
+            i = down[0]
+            raise ReadingsFormatError(
+                f"{name}: in sequence {seq} step {step[i + 1]} follows step {step[i]}; rows must "
+                "be in step order (the first row is the tare): if the file lists the newest step "
+                "first, say [readings] order = \"newest-first\"")
+    return replace(readings, table=table) if newest_first else readings
 
 
 @dataclass(frozen=True, eq=False)

@@ -100,7 +100,9 @@ def tare_steps(table: pd.DataFrame, load_names: tuple[str, ...], *, rule: str, z
     raw = table[list(load_names)].to_numpy(dtype=float)
     if np.isnan(raw).any():
         rows = np.flatnonzero(np.isnan(raw).any(axis=1))
-        raise ReadingsFormatError(f"{source}: load value missing at step(s) "
+        cols = [c for c, bad in zip(load_names, np.isnan(raw).any(axis=0), strict=True) if bad]
+        raise ReadingsFormatError(f"{source}: load value missing in column(s) {', '.join(cols)} "
+                                  "at step(s) "
                                   f"{', '.join(str(s) for s in table['step'].to_numpy()[rows][:10])}; "
                                   "every row needs its loads")
     sequence = table["sequence"].to_numpy(dtype=np.int64)

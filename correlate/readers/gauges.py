@@ -7,12 +7,13 @@ with gauge ids as strings. Coordinates and lengths stay in the model's length un
 from __future__ import annotations
 
 import difflib
+import warnings
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from correlate.core.errors import GaugeError
+from correlate.core.errors import CorrelateWarning, GaugeError
 
 REQUIRED = ("gauge", "x", "y", "z", "dir_x", "dir_y", "dir_z")
 NUMERIC_OPTIONAL = ("length", "kt", "position_tol", "angle_tol", "nu0", "normal_x", "normal_y",
@@ -61,6 +62,43 @@ def _numeric(raw: pd.DataFrame, col: str, source: str, problems: list[str]) -> n
             continue
         out[i] = value
     return out
+
+
+# (column, lowest, highest, whether the lowest is allowed, what it is): physical ranges per grid
+RANGES = (
+    ("nu0", 0.0, 0.5, True, "Poisson's ratio of the calibration material (0.285 is usual)"),
+    ("gauge_factor", 0.0, np.inf, False, "the grid's gauge factor (about 2 for foil gauges)"),
+    ("daq_gauge_factor", 0.0, np.inf, False, "the gauge factor the acquisition was set to"),
+    ("range_ue", 0.0, np.inf, False, "the channel's range in microstrain"),
+    ("position_tol", 0.0, np.inf, True, "a placement tolerance (length unit)"),
+    ("angle_tol", 0.0, np.inf, True, "an angle tolerance in degrees"),
+)
+
+
+def _check_ranges(out: pd.DataFrame, source: str, problems: list[str]) -> None:
+    """One line per grid whose value lies outside its physical range, and channels read twice."""
+    for col, low, high, closed, what in RANGES:
+        values = out[col].to_numpy(dtype=float)
+        bad = np.isfinite(values) & ((values < low if closed else values <= low) | (values >= high))
+        for i in np.flatnonzero(bad):
+            bound = f"[{low:g}, {high:g})" if np.isfinite(high) else \
+                f"{'at least' if closed else 'above'} {low:g}"
+            problems.append(f"{source} row {out['row'].iloc[i]} (gauge '{out['gauge'].iloc[i]}'): "
+                            f"{col} = {values[i]:g} is outside {bound}, the range of {what}")
+    gf, daq = out["gauge_factor"].to_numpy(dtype=float), out["daq_gauge_factor"].to_numpy(dtype=float)
+    alone = [str(g) for g, a, b in zip(out["gauge"], gf, daq, strict=True)
+             if np.isfinite(a) and not np.isfinite(b)]
+    if alone:
+        warnings.warn(f"{source}: gauge_factor is given without daq_gauge_factor for "
+                      f"{', '.join(alone)}: no gauge-factor correction is applied to them (give "
+                      "the factor the acquisition was set to)", CorrelateWarning, stacklevel=3)
+    channel = [c or g for g, c in zip(out["gauge"], out["channel"], strict=True)]
+    seen: dict[str, str] = {}
+    for g, c in zip(out["gauge"], channel, strict=True):
+        if c in seen:
+            problems.append(f"{source}: gauges '{seen[c]}' and '{g}' both read channel '{c}'; "
+                            "each readings column belongs to one gauge: correct the channel column")
+        seen.setdefault(c, g)
 
 
 def validate_gauges(raw: pd.DataFrame, *, source: str = "gauge map") -> pd.DataFrame:
@@ -123,6 +161,7 @@ def validate_gauges(raw: pd.DataFrame, *, source: str = "gauge map") -> pd.DataF
         for _, r in out[out["length"] < 0].iterrows():
             problems.append(f"{source} row {r['row']} (gauge '{r['gauge']}'): length {r['length']} "
                             "is negative")
+    _check_ranges(out, source, problems)
     for _, r in out[out["kt"].abs() > KT_LIMIT].iterrows():
         problems.append(f"{source} row {r['row']} (gauge '{r['gauge']}'): kt = {r['kt']} is too "
                         f"large for a fraction; if it is a percentage, write {r['kt'] / 100:g}")

@@ -27,15 +27,16 @@ SCHEMA: dict[str, set[str]] = {
     "material": {"E", "nu", "blocks", "name"},
     "gauges": {"file", "position_tol", "angle_tol", "snap_tol", "calibration_poisson", "grid_points",
                "band"},
-    "readings": {"file", "zero", "zero_tol", "sentinels", "kt_corrected"},
+    "readings": {"file", "zero", "zero_tol", "sentinels", "kt_corrected", "order"},
     "load": {"column", "case", "reference"},
-    "criteria": {"relative", "absolute_ue", "slope", "pass_fraction"},
+    "criteria": {"relative", "absolute_ue", "slope", "pass_fraction", "min_healthy_fraction"},
     "override": {"gauge", "action", "reason", "by", "date"},
     "health": {"dead_ue", "rail_fraction", "drift_ue", "drift_fraction", "nonlinear_fraction",
                "hysteresis_fraction", "noise_ue", "reversed_ratio", "min_points"},
     "report": {"steps", "views", "title"},
 }
 FREE_TEXT = {"test"}
+ABSOLUTE_UE_MAX = 10_000.0   # microstrain: a pass floor above 1 % strain is no floor
 FIELD_KINDS = ("strain", "displacement", "stress")
 
 
@@ -86,6 +87,7 @@ class Criteria:
     absolute_ue: float = 50.0
     slope: tuple[float, float] = (0.90, 1.10)
     pass_fraction: float = 0.90
+    min_healthy_fraction: float = 0.80
 
 
 @dataclass(frozen=True)
@@ -126,6 +128,7 @@ class Study:
     zero_tol: float = 0.01
     sentinels: tuple[Any, ...] | None = None
     kt_corrected: bool = False
+    newest_first: bool = False
     loads: tuple[Load, ...] = ()
     criteria: Criteria = Criteria()
     overrides: tuple[Override, ...] = ()
@@ -185,6 +188,17 @@ def _number(table: dict[str, Any], key: str, default: float | None, where: str, 
     return float(value)
 
 
+def _boolean(table: dict[str, Any], key: str, default: bool, where: str, name: str,
+             problems: list[str]) -> bool:
+    """A true/false key, strictly: a string such as "false" is never read as a boolean."""
+    value = table.get(key, default)
+    if isinstance(value, bool):
+        return value
+    problems.append(f"{name}: {where} {key} = {value!r} is not true or false; write {key} = true "
+                    "or false, without quotes")
+    return default
+
+
 def _path(base: Path, value: Any, where: str, name: str, problems: list[str],
           *, must_exist: bool = True) -> Path | None:
     if not isinstance(value, str) or not value:
@@ -241,6 +255,10 @@ def _read_case(raw: dict[str, Any], i: int, base: Path, name: str, problems: lis
                     _pair(c)
                 except ValueError as exc:
                     problems.append(f"{name}: {where} {exc}")
+            repeated = sorted({c for c in components if components.count(c) > 1})
+            if repeated:
+                problems.append(f"{name}: {where} components name {', '.join(repeated)} more than "
+                                "once; each component must appear once, in the array's order")
             components = tuple(components)
     time_index = raw.get("time_index")
     if time_index is not None:
@@ -365,14 +383,20 @@ def _gauges(raw: dict[str, Any], base: Path, name: str, problems: list[str]) -> 
     for key, value in (("position_tol", position_tol), ("angle_tol", angle_tol)):
         if value is not None and value < 0:
             problems.append(f"{name}: [gauges] {key} = {value:g} is negative; give 0 or more")
+    if nu0 is not None and not 0 <= nu0 < 0.5:
+        problems.append(f"{name}: [gauges] calibration_poisson = {nu0:g} is outside [0, 0.5), the "
+                        "range of Poisson's ratio of a calibration material (0.285 is usual); a "
+                        "percentage or a misplaced decimal point?")
     grid_points = gauges.get("grid_points", 5)
-    if not isinstance(grid_points, int) or not 1 <= grid_points <= 20:
+    if isinstance(grid_points, bool) or not isinstance(grid_points, int) \
+            or not 1 <= grid_points <= 20:
         problems.append(f"{name}: [gauges] grid_points = {grid_points!r}; expected a whole number 1 to 20")
         grid_points = 5
     return {"gauges_file": gauges_file, "position_tol": position_tol or 0.0,
             "angle_tol": angle_tol or 0.0, "snap_tol": snap_tol,
             "calibration_poisson": nu0 if nu0 is not None else 0.285,
-            "grid_points": grid_points, "band": bool(gauges.get("band", True))}
+            "grid_points": grid_points,
+            "band": _boolean(gauges, "band", True, "[gauges]", name, problems)}
 
 
 def _readings(raw: dict[str, Any], base: Path, name: str, problems: list[str]
@@ -390,7 +414,17 @@ def _readings(raw: dict[str, Any], base: Path, name: str, problems: list[str]
                         "load's peak from 0 to below 1 (0.01 for 1 %)")
     return {"readings_file": readings_file, "zero": zero,
             "zero_tol": zero_tol if zero_tol is not None else 0.01,
-            "kt_corrected": bool(readings.get("kt_corrected", False))}
+            "kt_corrected": _boolean(readings, "kt_corrected", False, "[readings]", name,
+                                     problems),
+            "newest_first": _order(readings, name, problems)}
+
+
+def _order(readings: dict[str, Any], name: str, problems: list[str]) -> bool:
+    order = readings.get("order", "oldest-first")
+    if order not in ("oldest-first", "newest-first"):
+        problems.append(f"{name}: [readings] order = {order!r}; expected \"oldest-first\" (the "
+                        "default) or \"newest-first\"")
+    return order == "newest-first"
 
 
 def _loads(raw: dict[str, Any], cases: list[Case], declared: set[str], name: str,
@@ -419,6 +453,10 @@ def _loads(raw: dict[str, Any], cases: list[Case], declared: set[str], name: str
             hint = f"; did you mean '{near[0]}'?" if near else ""
             problems.append(f"{name}: [[load]] '{column}' names case '{case}', which is not a [[case]] "
                             f"(cases: {', '.join(sorted(case_names))}){hint}")
+        if any(ld.column == column and ld.case == case for ld in loads):
+            problems.append(f"{name}: [[load]] column '{column}' -> case '{case}' is given twice, "
+                            "so it would be summed twice; remove the copy")
+            continue
         loads.append(Load(column=column, case=case, reference=ref))
     return loads
 
@@ -442,14 +480,29 @@ def _criteria(raw: dict[str, Any], name: str, problems: list[str]) -> Criteria:
     if relative == 0 and absolute_ue == 0:
         problems.append(f"{name}: [criteria] relative and absolute_ue are both 0, so no gauge "
                         "could pass; give at least one of them")
-    if pass_fraction is not None and not 0 <= pass_fraction <= 1:
+    if pass_fraction is not None and not 0 < pass_fraction <= 1:
         problems.append(f"{name}: [criteria] pass_fraction = {pass_fraction:g}; expected a "
-                        "fraction from 0 to 1 (0.9 for 90 %)")
+                        "fraction above 0 and at most 1 (0.9 for 90 %)")
+    if relative is not None and relative >= 1:
+        problems.append(f"{name}: [criteria] relative = {relative:g} is 100 % or more of the "
+                        "predicted reading; it is a fraction: for 10 % write relative = 0.10")
+    if absolute_ue is not None and absolute_ue > ABSOLUTE_UE_MAX:
+        problems.append(f"{name}: [criteria] absolute_ue = {absolute_ue:g} microstrain is above "
+                        f"{ABSOLUTE_UE_MAX:g} (1 % strain), which is no floor; give it in "
+                        "microstrain, e.g. 50")
+    if "slope" in crit and not slope[0] < 1 < slope[1]:
+        problems.append(f"{name}: [criteria] slope = {slope!r} does not contain 1 (a model that "
+                        "predicts exactly); give [low, high] around 1, e.g. [0.9, 1.1]")
+    min_healthy = _number(crit, "min_healthy_fraction", 0.80, "[criteria]", name, problems)
+    if min_healthy is not None and not 0 < min_healthy <= 1:
+        problems.append(f"{name}: [criteria] min_healthy_fraction = {min_healthy:g}; expected a "
+                        "fraction above 0 and at most 1 (0.8 for 80 %)")
     return Criteria(
         relative=0.10 if relative is None else relative,
         absolute_ue=50.0 if absolute_ue is None else absolute_ue,
         slope=(float(slope[0]), float(slope[1])),
-        pass_fraction=0.90 if pass_fraction is None else pass_fraction)
+        pass_fraction=0.90 if pass_fraction is None else pass_fraction,
+        min_healthy_fraction=0.80 if min_healthy is None else min_healthy)
 
 
 def _sentinels_and_health(raw: dict[str, Any], name: str, problems: list[str]
@@ -486,6 +539,14 @@ def _overrides(raw: dict[str, Any], name: str, problems: list[str]) -> list[Over
             continue
         overrides.append(Override(gauge=str(o.get("gauge")), action=action, reason=str(o["reason"]),
                                   by=str(o.get("by", "")), date=str(o.get("date", ""))))
+    by_gauge: dict[str, list[str]] = {}
+    for o in overrides:
+        by_gauge.setdefault(o.gauge, []).append(o.action)
+    for gauge, actions in by_gauge.items():
+        if len(actions) != len(set(actions)) or ("exclude" in actions and len(actions) > 1):
+            problems.append(f"{name}: [[override]] for gauge '{gauge}' gives {', '.join(actions)}; "
+                            "they conflict (exclude goes alone, and each action once): keep one "
+                            "disposition per flag")
     return overrides
 
 
@@ -534,10 +595,12 @@ def read_study(path: str | Path) -> Study:
         missing files and keys.
     """
     path = Path(path).resolve()
+    if path.is_dir():
+        raise StudyError(f"'{path}' is a folder; give the path of the study file (.toml) in it")
     if not path.is_file():
         raise StudyError(f"study file '{path}' does not exist; give the path to a .toml study")
     try:
-        text = path.read_text(encoding="utf-8")
+        text = path.read_text(encoding="utf-8-sig")   # a byte-order mark is dropped
     except UnicodeDecodeError:
         raise StudyError(f"{path.name}: not UTF-8 text; save the study as UTF-8") from None
     return parse_study(text, path)

@@ -204,10 +204,11 @@ strain_ue = st.floats(-3000.0, 3000.0)
 def test_rosette_reduction_recovers_any_plane_strain_state(ex, ey, gxy, angles, kt):
     # Reference: the strain transformation e(t) = ex cos^2 t + ey sin^2 t + gxy sin t cos t (ASTM
     # E1561) gives each grid's strain; with Kt the grid indicates (e(t) + Kt e(t + 90)) / (1 - nu0
-    # Kt) (TN-509). Angles are any set whose design matrix is well conditioned (numpy.linalg.cond,
-    # the same limit of 40 the tool documents). Tolerance: condition number x round-off on 3000 ue.
+    # Kt) (TN-509). Angles are any set whose design matrix is well conditioned (numpy.linalg.cond
+    # below 30, a margin under the tool's own limit of 35, mechanics.rosette.MAX_CONDITION, which
+    # it measures on its own scaling). Tolerance: condition number x round-off on 3000 ue.
     a = np.array(angles) - angles[0]  # grid A at 0, as the tool measures angles
-    assume(np.linalg.cond(_design(a)) < 39.0)  # margin: the tool's limit is 40 by its own SVD
+    assume(np.linalg.cond(_design(a)) < 30.0)
     strain = np.array([ex, ey, gxy])
     e = _design(a) @ strain
     if kt:
@@ -373,6 +374,8 @@ def gauge_tables(draw) -> pd.DataFrame:
 def test_gauge_map_validation_gives_a_table_or_a_correlate_error(table):
     with warnings.catch_warnings():
         warnings.simplefilter("error")
+        # a random map may give gauge_factor without daq_gauge_factor: warned about, by design
+        warnings.filterwarnings("ignore", message=".*gauge_factor is given without")
         try:
             out = validate_gauges(table, source="fuzz.csv")
         except CorrelateError as exc:
