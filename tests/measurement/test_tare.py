@@ -55,7 +55,7 @@ def test_tared_loads_and_later_zero_rows():
 
 def test_missing_load_value_names_the_step():
     table = _table([0, np.nan, 10], [0, 0, 0])
-    with pytest.raises(ReadingsFormatError, match="load value missing in column.s. F at step"):
+    with pytest.raises(ReadingsFormatError, match=r"load value missing in column\(s\) F at step"):
         tare_steps(table, ("F",), rule="first", zero_tol=0.01, source="log.csv")
 
 
