@@ -167,7 +167,9 @@ def _flag_rows(corr: Correlation) -> list[dict[str, str]]:
         scope = "all steps" if whole else f"step {int(step)}, sequence {int(f['sequence'])}"
         rows.append({"gauge": str(f["gauge"]), "scope": scope, "flag": str(f["flag"]),
                      "reason": str(f.get("reason", "")),
-                     "disposition": str(f.get("disposition", "") or "")})
+                     "disposition": str(f.get("disposition", "") or ""),
+                     "decided": ", ".join(str(f.get(k) or "") for k in ("by", "date")
+                                          if isinstance(f.get(k), str) and f.get(k))})
     return rows
 
 
@@ -301,7 +303,16 @@ def _verdict(summary: dict[str, Any]) -> dict[str, Any]:
         ("unconservative gauges", str(verdict["unconservative"])),
         ("flagged gauges", f"{verdict['flagged']} of {verdict['gauges']}"),
     ]
-    return {"result": verdict["result"], "ok": verdict["result"] == "meets the criteria",
+    state = verdict.get("state", "meets" if verdict["result"] == "meets the criteria"
+                        else "does not meet")
+    headline = {"meets": "The model meets the criteria.",
+                "does not meet": "The model does not meet the criteria.",
+                "provisional": "Provisional: no verdict yet."}[state]
+    css = {"meets": "ok", "does not meet": "not-ok", "provisional": "provisional"}[state]
+    return {"result": verdict["result"], "state": state, "headline": headline, "css": css,
+            "ok": state == "meets", "leaning": str(verdict.get("leaning", "")),
+            "direction": str(verdict.get("direction", "")),
+            "unconservative": list(verdict.get("unconservative_gauges", [])),
             "reasons": list(verdict.get("reasons", [])), "numbers": numbers,
             "ci_method": str(fit.get("ci_method", ""))}
 
@@ -331,7 +342,9 @@ def _context(corr: Correlation, ref: int) -> dict[str, Any]:
             ("absolute floor", f"{crit.absolute_ue:g} ue"),
             ("allowed difference", "max(relative x |predicted|, floor)"),
             ("ratio range", f"{crit.slope[0]:g} to {crit.slope[1]:g}"),
-            ("gauges that must pass", f"{crit.pass_fraction:.0%} of the healthy gauges")],
+            ("gauges that must pass", f"{crit.pass_fraction:.0%} of the healthy gauges"),
+            ("gauges left healthy", f"at least {crit.min_healthy_fraction:.0%} of all gauges, "
+                                    "else the verdict is provisional")],
         "criteria_source": verdict.get("criteria", {}).get("source", CRITERIA_SOURCE),
         "conventions": [
             ("strain", f"{units.get('strain', 'microstrain (ue)')}; 1 ue = 1e-6 m/m"),
