@@ -2,6 +2,7 @@
 
 Stage: input. In: a study file path. Out: :class:`Study`. Paths in the study are relative to it.
 Unknown keys are refused with the nearest valid key suggested; every problem is reported at once.
+The records themselves are in :mod:`correlate.readers.records` (imported here too).
 """
 
 from __future__ import annotations
@@ -9,12 +10,12 @@ from __future__ import annotations
 import difflib
 import math
 import tomllib
-from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 from correlate.core.errors import StudyError
 from correlate.core.units import LENGTH_UNITS
+from correlate.readers.records import Case, Criteria, Load, Material, Override, Study
 
 # The keys each table accepts. Free-text tables ([test], [model] description keys) accept any key.
 SCHEMA: dict[str, set[str]] = {
@@ -38,108 +39,6 @@ SCHEMA: dict[str, set[str]] = {
 FREE_TEXT = {"test"}
 ABSOLUTE_UE_MAX = 10_000.0   # microstrain: a pass floor above 1 % strain is no floor
 FIELD_KINDS = ("strain", "displacement", "stress")
-
-
-@dataclass(frozen=True)
-class Case:
-    """One FE load case: which array holds it and how to read it."""
-
-    name: str
-    kind: str                                # strain, displacement or stress
-    array: str | dict[str, str]              # array name, or {"top": ..., "bottom": ...} for shells
-    components: tuple[str, ...] | None       # None: the default for the component count
-    shear: str = "engineering"
-    time_index: int | str | tuple[int, int] | None = None
-    file: Path | None = None
-    average: str = "cell"                    # for cell data: "cell" (constant) or "nodal"
-    axes: str | None = None
-    check_stress: str | None = None
-    match: dict[str, Any] | None = None
-
-    @property
-    def is_series(self) -> bool:
-        """The case holds a load history (matched by load, not superposed)."""
-        return self.time_index == "all" or isinstance(self.time_index, tuple)
-
-    @property
-    def fe_index(self) -> int | None:
-        """The one FE state of a case that is not a series (None: the file's only state)."""
-        return self.time_index if isinstance(self.time_index, int) else None
-
-
-@dataclass(frozen=True)
-class Material:
-    E: float
-    nu: float
-    blocks: tuple[int, ...] | None = None
-
-
-@dataclass(frozen=True)
-class Load:
-    column: str
-    case: str
-    reference: float
-
-
-@dataclass(frozen=True)
-class Criteria:
-    relative: float = 0.10
-    absolute_ue: float = 50.0
-    slope: tuple[float, float] = (0.90, 1.10)
-    pass_fraction: float = 0.90
-    min_healthy_fraction: float = 0.80
-
-
-@dataclass(frozen=True)
-class Override:
-    """An analyst's disposition of a gauge: keep, exclude or reverse, with the reason, who decided
-    (``by``) and when (``date``, free text)."""
-
-    gauge: str
-    action: str
-    reason: str
-    by: str = ""
-    date: str = ""
-
-
-@dataclass(frozen=True)
-class Study:
-    """Everything the study file says, validated, with absolute paths."""
-
-    path: Path
-    title: str
-    model_file: Path
-    length_unit: str
-    stress_unit: str | None
-    plane: str | None
-    model_info: dict[str, Any]
-    cases: tuple[Case, ...]
-    materials: tuple[Material, ...]
-    gauges_file: Path
-    position_tol: float
-    angle_tol: float
-    snap_tol: float | None
-    calibration_poisson: float
-    grid_points: int
-    band: bool
-    test: dict[str, Any] = field(default_factory=dict)
-    readings_file: Path | None = None
-    zero: str = "first"
-    zero_tol: float = 0.01
-    sentinels: tuple[Any, ...] | None = None
-    kt_corrected: bool = False
-    newest_first: bool = False
-    loads: tuple[Load, ...] = ()
-    criteria: Criteria = Criteria()
-    overrides: tuple[Override, ...] = ()
-    health: dict[str, float] = field(default_factory=dict)
-    report: dict[str, Any] = field(default_factory=dict)
-    raw: dict[str, Any] = field(default_factory=dict)
-
-    @property
-    def material(self) -> Material | None:
-        """The single material, or the first when several are given per block."""
-        return self.materials[0] if self.materials else None
 
 
 def _table(raw: dict[str, Any], key: str) -> dict[str, Any]:
@@ -604,3 +503,7 @@ def read_study(path: str | Path) -> Study:
     except UnicodeDecodeError:
         raise StudyError(f"{path.name}: not UTF-8 text; save the study as UTF-8") from None
     return parse_study(text, path)
+
+
+__all__ = ["SCHEMA", "Case", "Criteria", "Load", "Material", "Override", "Study", "parse_study",
+           "read_study"]

@@ -1,0 +1,112 @@
+"""The records a study file becomes: cases, materials, loads, criteria, overrides, the study.
+
+Stage: readers. Made by :func:`correlate.readers.study.read_study`; every later stage reads them.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+
+@dataclass(frozen=True)
+class Case:
+    """One FE load case: which array holds it and how to read it."""
+
+    name: str
+    kind: str                                # strain, displacement or stress
+    array: str | dict[str, str]              # array name, or {"top": ..., "bottom": ...} for shells
+    components: tuple[str, ...] | None       # None: the default for the component count
+    shear: str = "engineering"
+    time_index: int | str | tuple[int, int] | None = None
+    file: Path | None = None
+    average: str = "cell"                    # for cell data: "cell" (constant) or "nodal"
+    axes: str | None = None
+    check_stress: str | None = None
+    match: dict[str, Any] | None = None
+
+    @property
+    def is_series(self) -> bool:
+        """The case holds a load history (matched by load, not superposed)."""
+        return self.time_index == "all" or isinstance(self.time_index, tuple)
+
+    @property
+    def fe_index(self) -> int | None:
+        """The one FE state of a case that is not a series (None: the file's only state)."""
+        return self.time_index if isinstance(self.time_index, int) else None
+
+
+@dataclass(frozen=True)
+class Material:
+    E: float
+    nu: float
+    blocks: tuple[int, ...] | None = None
+
+
+@dataclass(frozen=True)
+class Load:
+    column: str
+    case: str
+    reference: float
+
+
+@dataclass(frozen=True)
+class Criteria:
+    relative: float = 0.10
+    absolute_ue: float = 50.0
+    slope: tuple[float, float] = (0.90, 1.10)
+    pass_fraction: float = 0.90
+    min_healthy_fraction: float = 0.80
+
+
+@dataclass(frozen=True)
+class Override:
+    """An analyst's disposition of a gauge: keep, exclude or reverse, with the reason, who decided
+    (``by``) and when (``date``, free text)."""
+
+    gauge: str
+    action: str
+    reason: str
+    by: str = ""
+    date: str = ""
+
+
+@dataclass(frozen=True)
+class Study:
+    """Everything the study file says, validated, with absolute paths."""
+
+    path: Path
+    title: str
+    model_file: Path
+    length_unit: str
+    stress_unit: str | None
+    plane: str | None
+    model_info: dict[str, Any]
+    cases: tuple[Case, ...]
+    materials: tuple[Material, ...]
+    gauges_file: Path
+    position_tol: float
+    angle_tol: float
+    snap_tol: float | None
+    calibration_poisson: float
+    grid_points: int
+    band: bool
+    test: dict[str, Any] = field(default_factory=dict)
+    readings_file: Path | None = None
+    zero: str = "first"
+    zero_tol: float = 0.01
+    sentinels: tuple[Any, ...] | None = None
+    kt_corrected: bool = False
+    newest_first: bool = False
+    loads: tuple[Load, ...] = ()
+    criteria: Criteria = Criteria()
+    overrides: tuple[Override, ...] = ()
+    health: dict[str, float] = field(default_factory=dict)
+    report: dict[str, Any] = field(default_factory=dict)
+    raw: dict[str, Any] = field(default_factory=dict)
+
+    @property
+    def material(self) -> Material | None:
+        """The single material, or the first when several are given per block."""
+        return self.materials[0] if self.materials else None
