@@ -215,7 +215,17 @@ def _read_parquet(path: str | PathLike[str], gauge_map: dict[str, str], loads: t
                      dict.fromkeys(loads, ""))
 
 
+# a number that groups thousands with dots beside a decimal comma ("1.512,2", "12.345"): ambiguous
+_GROUPED = re.compile(r"'-?\d{1,3}(?:\.\d{3})+(?:,\d*)?'")
+
+
 def _raise(problems: list[str], name: str) -> None:
+    grouped = [m.group(0) for p in problems if (m := _GROUPED.search(p))]
+    if grouped:
+        raise ReadingsFormatError(
+            f"{name}: numbers such as {grouped[0]} group thousands with '.' beside decimal "
+            f"commas ({len(grouped)} cell(s)); the tool does not guess which is meant: export "
+            "the log without thousands separators")
     if problems:
         more = len(problems) - _MAX_PROBLEMS
         tail = [f"{name}: ... and {more} more problems like these"] if more > 0 else []

@@ -170,3 +170,18 @@ def test_readings_of_the_block_still_pass(tmp_path):
     study = _study(tmp_path)
     assert block_readings(default_gauges().iloc[[0, 1, 2]]).shape[0] == 5
     assert main(["--quiet", "run", str(study), "--out", str(tmp_path / "out"), "--no-report"]) == 0
+
+
+def test_thousands_dots_beside_decimal_commas_are_refused_not_guessed(tmp_path, capsys):
+    # "1.512,2" means 1512.2 in a locale that groups thousands, 1.5122 nowhere: refuse, one line.
+    study = _study(tmp_path)
+    r = pd.read_csv(tmp_path / "readings.csv")
+    lines = [";".join(r.columns)]
+    for _, row in r.iterrows():
+        cells = [str(int(row["step"]))] + [f"{v:.1f}".replace(".", ",") for v in row.iloc[1:]]
+        lines.append(";".join(cells))
+    lines[-2] = lines[-2].rsplit(";", 1)[0] + ";1.512,2"
+    (tmp_path / "readings.csv").write_text("\n".join(lines) + "\n")
+    assert main(["--quiet", "check", str(study)]) == 2
+    err = [line for line in capsys.readouterr().err.splitlines() if line.startswith("error:")]
+    assert len(err) == 1 and "'1.512,2'" in err[0] and "thousands" in err[0]
