@@ -220,12 +220,14 @@ _GROUPED = re.compile(r"'-?\d{1,3}(?:\.\d{3})+(?:,\d*)?'")
 
 
 def _raise(problems: list[str], name: str) -> None:
-    grouped = [m.group(0) for p in problems if (m := _GROUPED.search(p))]
+    grouped = [(p, m.group(0)) for p in problems if (m := _GROUPED.search(p))]
     if grouped:
+        where = re.search(r" line \d+", grouped[0][0])
         raise ReadingsFormatError(
-            f"{name}: numbers such as {grouped[0]} group thousands with '.' beside decimal "
-            f"commas ({len(grouped)} cell(s)); the tool does not guess which is meant: export "
-            "the log without thousands separators")
+            f"{name}{where.group(0) if where else ''}: numbers such as {grouped[0][1]} group "
+            "thousands with '.' beside decimal "
+            f"commas ({len(grouped)} cell(s) in the file); the tool does not guess which is "
+            "meant: export the log without thousands separators")
     if problems:
         more = len(problems) - _MAX_PROBLEMS
         tail = [f"{name}: ... and {more} more problems like these"] if more > 0 else []
