@@ -20,7 +20,7 @@ from correlate.readers.records import Case, Criteria, Load, Material, Override, 
 # The keys each table accepts. Free-text tables ([test], [model] description keys) accept any key.
 SCHEMA: dict[str, set[str]] = {
     "": {"title", "model", "case", "material", "gauges", "test", "readings", "load", "criteria",
-         "override", "health", "report"},
+         "override", "health", "report", "document"},
     "model": {"file", "length_unit", "stress_unit", "plane", "revision", "description", "solver",
               "element", "mesh_size", "materials", "thickness", "kind"},
     "case": {"name", "strain", "displacement", "stress", "components", "shear", "time_index", "file",
@@ -35,6 +35,8 @@ SCHEMA: dict[str, set[str]] = {
     "health": {"dead_ue", "rail_fraction", "drift_ue", "drift_fraction", "nonlinear_fraction",
                "hysteresis_fraction", "noise_ue", "reversed_ratio", "min_points"},
     "report": {"steps", "views", "title"},
+    "document": {"number", "revision", "prepared", "checked", "approved", "prepared_date",
+                 "checked_date", "approved_date"},
 }
 FREE_TEXT = {"test"}
 ABSOLUTE_UE_MAX = 10_000.0   # microstrain: a pass floor above 1 % strain is no floor
