@@ -61,13 +61,16 @@ def add_labels(plotter: Any, glyphs: Glyphs, shown: NDArray[np.bool_],
                 size: tuple[int, int]) -> list[Any]:
     """Gauge ids beside the bar ends, moved around to avoid each other and the marker points.
 
-    At most MAX_LABELS per view: the flagged (grey) gauges and the largest discrepancies; the
-    others keep their coloured bar without an id (every gauge is in the report's tables).
+    At most MAX_LABELS per view: the prominent gauges (failing, flagged, not evaluated) first,
+    then the largest discrepancies; the others keep their coloured bar without an id (every gauge
+    is in the report's tables). A prominent gauge's label names its state, in bold with a dark
+    frame, and a ring outlines the gauge itself.
     """
     idx = np.flatnonzero(shown)
+    prominent = glyphs.prominent if len(glyphs.state) else np.zeros(len(shown), dtype=bool)
     if len(idx) > MAX_LABELS:
-        d = np.abs(glyphs.discrepancy[idx])
-        keep = np.argsort(-np.nan_to_num(d, nan=np.inf), kind="stable")[:MAX_LABELS]
+        d = np.abs(np.nan_to_num(glyphs.discrepancy[idx], nan=np.inf))
+        keep = np.lexsort((-d, ~prominent[idx]))[:MAX_LABELS]
         idx = np.sort(idx[keep])
     actors: list[Any] = []
     if not len(idx):
@@ -80,14 +83,20 @@ def add_labels(plotter: Any, glyphs: Glyphs, shown: NDArray[np.bool_],
     bars = project(plotter, (glyphs.start[idx, None, :] + along[None, :, None]
                              * (glyphs.end - glyphs.start)[idx, None, :]).reshape(-1, 3))
     taken = [(x - pad, y - pad, x + pad, y + pad) for x, y in np.r_[anchors, bars]]
+    rings = [tuple(a) for a, i in zip(anchors, idx, strict=True) if prominent[i]]
+    taken += [(x - RING - pad, y - RING - pad, x + RING + pad, y + RING + pad) for x, y in rings]
     for k, i in enumerate(idx):
-        actor = add_text(plotter, label_text(glyphs.gauges[i]), 0, 0, FONT)
+        text = label_text(glyphs.gauges[i])
+        if prominent[i]:
+            text += f" \u00b7 {label_text(glyphs.state[i])}"
+        actor = add_text(plotter, text, 0, 0, FONT)
         prop = actor.GetTextProperty()
         prop.SetBackgroundColor(1.0, 1.0, 1.0)
-        prop.SetBackgroundOpacity(0.85)
+        prop.SetBackgroundOpacity(0.9 if prominent[i] else 0.85)
         prop.SetFrame(True)
-        prop.SetFrameColor(0.4, 0.4, 0.4)
-        prop.SetFrameWidth(1)
+        prop.SetFrameColor(*((0.05, 0.05, 0.05) if prominent[i] else (0.4, 0.4, 0.4)))
+        prop.SetFrameWidth(2 if prominent[i] else 1)
+        prop.SetBold(bool(prominent[i]))
         bbox = [0.0, 0.0, 0.0, 0.0]
         actor.GetBoundingBox(plotter.renderer, bbox)
         w, h = bbox[1] - bbox[0] + 4, bbox[3] - bbox[2] + 4
@@ -119,11 +128,56 @@ def add_labels(plotter: Any, glyphs: Glyphs, shown: NDArray[np.bool_],
             leaders.append(((ex, ey), near))
     if leaders:
         actors.append(leader_lines(plotter, leaders))
+    if rings:
+        actors.append(ring_lines(plotter, rings, RING))
     return actors
 
 
-def bands(plotter: Any, size: tuple[int, int]) -> Any:
-    """White rectangles over the top and bottom text bands, with a thin rule at their edges."""
+RING = 13.0   # radius of the ring around a prominent gauge [px]
+
+
+def ring_lines(plotter: Any, centres: list[tuple[float, float]], radius: float) -> Any:
+    """A dark ring of ``radius`` pixels around each centre (one 2D actor, drawn over the part)."""
+    t = np.linspace(0.0, 2 * np.pi, 33)
+    segments = []
+    for cx, cy in centres:
+        x, y = cx + radius * np.cos(t), cy + radius * np.sin(t)
+        segments += [((x[k], y[k]), (x[k + 1], y[k + 1])) for k in range(len(t) - 1)]
+    actor = leader_lines(plotter, segments)
+    actor.GetProperty().SetColor(0.05, 0.05, 0.05)
+    actor.GetProperty().SetLineWidth(2.5)
+    return actor
+
+
+def nice_length(target: float) -> float:
+    """The largest of 1, 2, 5 x 10^k not above ``target`` (a scale bar's length)."""
+    if not target > 0:
+        return 1.0
+    power = 10.0 ** np.floor(np.log10(target))
+    return float(max(m for m in (1.0, 2.0, 5.0, 10.0) if m * power <= target * (1 + 1e-9)) * power)
+
+
+def scale_bar(plotter: Any, per_unit: float, unit: str, size: tuple[int, int]) -> list[Any]:
+    """A scale bar in the top band, right: a round length of the model's unit, about a fifth of
+    the width (parallel projection: one scale anywhere in the picture plane)."""
+    W, H = size
+    length = nice_length(0.2 * W / per_unit)
+    pixels = length * per_unit
+    x1, y = W - 24.0, H - 26.0
+    x0 = x1 - pixels
+    line = leader_lines(plotter, [((x0, y), (x1, y)), ((x0, y - 6), (x0, y + 6)),
+                                  ((x1, y - 6), (x1, y + 6))])
+    line.GetProperty().SetColor(0.05, 0.05, 0.05)
+    line.GetProperty().SetLineWidth(3.0)
+    text = add_text(plotter, f"{length:g} {unit}", 0, 0, 14)
+    bbox = [0.0, 0.0, 0.0, 0.0]
+    text.GetBoundingBox(plotter.renderer, bbox)
+    text.SetDisplayPosition(round(x0 - (bbox[1] - bbox[0]) - 10), round(y - 7))
+    return [line, text]
+
+
+def band_shapes(size: tuple[int, int]) -> Any:
+    """White rectangles over the top and bottom text bands of a picture of ``size``."""
     from vtkmodules.vtkCommonCore import vtkPoints
     from vtkmodules.vtkCommonDataModel import vtkCellArray, vtkPolyData
 
@@ -137,9 +191,19 @@ def bands(plotter: Any, size: tuple[int, int]) -> Any:
     poly = vtkPolyData()
     poly.SetPoints(points)
     poly.SetPolys(polys)
-    actor = overlay(plotter, poly, (1.0, 1.0, 1.0))
+    return poly
+
+
+def bands(plotter: Any, size: tuple[int, int]) -> Any:
+    """The text bands as one 2D actor; add it before the colour bars so that it lies under them
+    (:func:`resize_bands` fits it to another picture size)."""
+    actor = overlay(plotter, band_shapes(size), (1.0, 1.0, 1.0))
     actor.GetProperty().SetOpacity(0.92)
     return actor
+
+
+def resize_bands(actor: Any, size: tuple[int, int]) -> None:
+    actor.GetMapper().SetInputData(band_shapes(size))
 
 
 def overlay(plotter: Any, poly: Any, color: tuple[float, float, float]) -> Any:
@@ -194,23 +258,33 @@ def tick_format(low: float, high: float, ticks: int = 5) -> str:
     return f"%.{digits}f"
 
 
+BAR_WIDTH = 0.30               # colour bar width, share of the picture width
+BAR_BOTTOM, BAR_HEIGHT, BAR_TITLE = 22, 81, 107   # colour bar and its title in the bottom band [px]
+
+
 def scalar_bar(plotter: Any, mapper: Any, title: str, x: float, ticks: int = 5) -> list[Any]:
     """A horizontal colour bar in the bottom band, tick labels under it, its title above it.
 
     The title is a separate text actor: VTK's own scalar-bar title overlaps the tick labels of a
-    horizontal bar.
+    horizontal bar. :func:`place_scalar_bar` keeps it in the band when the picture height changes.
     """
     width, height = plotter.window_size
     low, high = mapper.GetScalarRange()
     bar = plotter.add_scalar_bar(
         title=" " * (1 + len(plotter.scalar_bars)), mapper=mapper, vertical=False,
-        position_x=x, position_y=0.025, width=0.38, height=0.09, n_labels=ticks,
-        fmt=tick_format(low, high, ticks),
+        position_x=x, position_y=BAR_BOTTOM / height, width=BAR_WIDTH,
+        height=BAR_HEIGHT / height, n_labels=ticks, fmt=tick_format(low, high, ticks),
         color="black", label_font_size=14, font_family="arial", render=False)
     bar.SetTextPositionToPrecedeScalarBar()
     bar.SetBarRatio(0.45)
     font(bar.GetLabelTextProperty(), 14)
     bar.GetLabelTextProperty().SetBold(False)
     bar.GetLabelTextProperty().SetShadow(False)
-    label = add_text(plotter, title, int(x * width) + 2, int(0.115 * height) + 4, 15)
+    label = add_text(plotter, title, int(x * width) + 2, BAR_TITLE + 4, 15)
     return [bar, label]
+
+
+def place_scalar_bar(bar: Any, x: float, size: tuple[int, int]) -> None:
+    """Keep a colour bar at fixed pixels in the bottom band of a picture of ``size``."""
+    bar.SetPosition(x, BAR_BOTTOM / size[1])
+    bar.SetPosition2(BAR_WIDTH, BAR_HEIGHT / size[1])

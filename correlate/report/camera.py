@@ -1,6 +1,7 @@
 """Cameras of the 3D views: which directions to look from, framing, projection and visibility.
 
-A gauge counts as visible in a view when its marker point faces the camera (normal within 75 degrees
+Each camera fits the whole part with a small margin and the picture is cropped to it (its height
+follows the part's projected shape). A gauge counts as visible in a view when its marker point faces the camera (normal within 75 degrees
 of the view direction), projects inside the picture, and the depth buffer of the bare surface holds
 nothing nearer to the camera than the point (tolerance 1 % of the model size).
 """
@@ -54,35 +55,63 @@ def iso_direction(normals: NDArray) -> NDArray:
     return best  # type: ignore[return-value]
 
 
-def camera(points: NDArray, towards_camera: NDArray, size: tuple[int, int],
-            frame: NDArray | None = None, pad: float = 0.0,
-            ) -> tuple[NDArray, NDArray, NDArray, float]:
-    """Parallel camera seeing ``points`` from the side ``towards_camera``, leaving text bands free.
+MARGIN = 0.04                       # free space around the part, share of its larger extent
+MIN_PART_HEIGHT = 260               # pixels between the bands, at least (room for the labels)
 
-    ``frame`` (points) and ``pad`` (model units) narrow the picture to a detail; the camera stays
-    outside the whole model. Returns position, focal point, view up and parallel scale (half the
-    picture height in model units).
-    """
+
+def view_frame(towards_camera: NDArray) -> tuple[NDArray, NDArray, NDArray]:
+    """Unit vectors (towards the camera, picture right, picture up); +z up unless looking along z."""
     w = unit(np.asarray(towards_camera, dtype=float))
     up = np.array([0.0, 0.0, 1.0]) if abs(w[2]) < 0.95 else np.array([0.0, 1.0, 0.0])
     right = unit(np.cross(up, w))
-    up = np.cross(w, right)
+    return w, right, np.cross(w, right)
+
+
+def fit_camera(points: NDArray, towards_camera: NDArray, width: int, max_height: int,
+               ) -> tuple[tuple[NDArray, NDArray, NDArray, float], tuple[int, int]]:
+    """Parallel camera that fits the whole part, and the picture size that crops empty space.
+
+    The part's projection (all ``points``, not the corners of its 3D box) fills the picture width
+    with a margin of :data:`MARGIN` of its larger extent; the picture height is what the part then
+    needs between the title band and the colour-bar band (at least :data:`MIN_PART_HEIGHT`, at
+    most ``max_height`` overall, in which case the height governs and the width has room to spare).
+
+    Parameters
+    ----------
+    points : ndarray, shape (n, 3)
+        The part's surface points. [length unit]
+    towards_camera : ndarray, shape (3,)
+        Direction from the part to the camera.
+    width, max_height : int
+        Picture width and the largest picture height. [px]
+
+    Returns
+    -------
+    camera : (position, focal point, view up, parallel scale)
+        The parallel scale is half the picture height in model units.
+    size : (int, int)
+        Picture width and height. [px]
+    """
+    w, right, up = view_frame(towards_camera)
     lo, hi = points.min(axis=0), points.max(axis=0)
     centre = 0.5 * (lo + hi)
-    if frame is None:
-        frame = np.array([[x, y, z] for x in (lo[0], hi[0]) for y in (lo[1], hi[1])
-                          for z in (lo[2], hi[2])])
-    u, v = (frame - centre) @ right, (frame - centre) @ up
-    cx, cy = 0.5 * (u.min() + u.max()), 0.5 * (v.min() + v.max())
-    hx = 0.5 * (u.max() - u.min()) + pad or 1.0
-    hy = 0.5 * (v.max() - v.min()) + pad or 1.0
-    W, H = size
-    usable = H - TOP_BAND - BOTTOM_BAND
-    scale = max(hy * H / (0.92 * usable), hx * H / (0.92 * W))
-    shift = 0.5 * (BOTTOM_BAND - TOP_BAND) * 2 * scale / H      # model units
-    focal = centre + cx * right + (cy - shift) * up
+    u, v = (points - centre) @ right, (points - centre) @ up
+    du, dv = float(np.ptp(u)), float(np.ptp(v))
+    extent = max(du, dv) or 1.0
+    pad = MARGIN * extent
+    across, tall = (du + 2 * pad) or 1.0, (dv + 2 * pad) or 1.0
+    bands = TOP_BAND + BOTTOM_BAND
+    per_unit = width / across                                   # pixels per model unit
+    if tall * per_unit > max_height - bands:
+        per_unit = (max_height - bands) / tall
+    height = min(int(np.ceil(max(tall * per_unit, MIN_PART_HEIGHT))) + bands,
+                 max(int(max_height), MIN_PART_HEIGHT + bands))
+    scale = 0.5 * height / per_unit
+    # the part's centre sits in the middle of the space between the bands, not of the picture
+    shift = 0.5 * (BOTTOM_BAND - TOP_BAND) / per_unit
+    focal = centre + 0.5 * (u.min() + u.max()) * right + (0.5 * (v.min() + v.max()) - shift) * up
     diag = float(np.linalg.norm(hi - lo)) or 1.0
-    return focal + 3 * diag * w, focal, up, scale
+    return (focal + 3 * diag * w, focal, up, scale), (int(width), height)
 
 
 def set_camera(plotter: Any, position: NDArray, focal: NDArray, up: NDArray, scale: float) -> None:

@@ -6,7 +6,9 @@ normals) and the list of gauges that no view shows. The surface is coloured by t
 maximum principal strain at the reference step (:mod:`correlate.comparison.reference_field`); the
 gauges are drawn by :mod:`correlate.report.glyphs`, framed by :mod:`correlate.report.camera` and
 labelled by :mod:`correlate.report.annotations`. Each view draws and labels only the gauges it
-shows; gauges not evaluated at the reference step are grey.
+shows; gauges not evaluated at the reference step are magenta, and they and the failing ones are
+ringed and labelled with their state. Every view fits the whole part, carries an axis triad and a
+scale bar in the model's length unit.
 
 pyvista is imported inside the functions so that ``import correlate`` stays light.
 """
@@ -27,13 +29,20 @@ from numpy.typing import NDArray
 from correlate.comparison.reference_field import reference_strain, strain_arrays
 from correlate.core.errors import CorrelateWarning
 from correlate.mechanics import elements
-from correlate.report.annotations import add_labels, add_text, bands, nice_range, scalar_bar
-from correlate.report.camera import (
-    camera as view_camera,
+from correlate.report.annotations import (
+    add_labels,
+    add_text,
+    bands,
+    nice_range,
+    place_scalar_bar,
+    resize_bands,
+    scalar_bar,
+    scale_bar,
 )
 from correlate.report.camera import (
     cluster_normals,
     direction_name,
+    fit_camera,
     iso_direction,
     set_camera,
     unit,
@@ -41,12 +50,15 @@ from correlate.report.camera import (
 )
 from correlate.report.glyphs import Glyphs, bars, gauge_glyphs
 
-SIZE = (1200, 900)                  # picture size [px]
+SIZE = (1200, 1100)                 # picture width and largest height [px]
 DIVERGING = "RdBu_r"                # gauge discrepancy: blue below zero, red above
 SEQUENTIAL = "viridis"              # surface strain
-GREY = (0.55, 0.55, 0.55)           # gauges not evaluated at the reference step
+# gauges not evaluated at the reference step (flagged, excluded, missing): a colour on neither
+# colour map, so that they stand out instead of fading
+FLAGGED = (0.85, 0.0, 0.75)
 MAX_VIEWS = 6
-MAX_ZOOM = 2.0                      # detail views: at most twice as close as the whole part
+BAR_X = (0.03, 0.39)                # left edges of the two colour bars, share of the width
+TRIAD = 130                         # axis triad: a square of this many pixels, bottom right
 
 
 @dataclass(frozen=True)
@@ -139,21 +151,26 @@ def vtk_errors_only() -> Iterator[None]:
 
 
 class _Scene:
-    """One off-screen plotter holding the surface and the gauge bars; one camera per view."""
+    """One off-screen plotter holding the surface and the gauge bars; one camera and picture size
+    per view (the bands, the title, the legend and the scale bar are laid out again for each)."""
 
-    def __init__(self, surface: Any, glyphs: Glyphs, size: tuple[int, int]) -> None:
+    def __init__(self, surface: Any, glyphs: Glyphs, width: int, unit: str) -> None:
         import pyvista as pv
 
         theme = pv.themes.DocumentTheme()
         theme.multi_samples = 1          # multisampling costs 4x per frame in software OpenGL
-        self.plotter = pv.Plotter(off_screen=True, window_size=list(size), theme=theme)
+        self.size = (int(width), int(0.75 * width))
+        self.plotter = pv.Plotter(off_screen=True, window_size=list(self.size), theme=theme)
         self.plotter.set_background("white")
         # no anti-aliasing: SSAA, the only kind software OpenGL offers, costs 10x per frame
-        self.size = size
         self.glyphs = glyphs
-        # hidden during the depth test; first, drawn first: opaque bands under the title and the
-        # colour bars, since a detail view fills the picture
-        self.overlay: list[Any] = [bands(self.plotter, size)]
+        self.unit = unit
+        # 2D props that keep their pixels (colour-bar titles) or are refitted (the bands); the
+        # bands first, so that they lie under the colour bars and the text
+        self.bands = bands(self.plotter, self.size)
+        self.static: list[Any] = [self.bands]
+        self.bars_2d: list[tuple[Any, float]] = []
+        self.per_view: list[Any] = []    # 2D props laid out for each picture size
         self.clim: tuple[float, float] | None = None
         ticks = 5
         if "max_principal_ue" in surface.array_names:
@@ -167,8 +184,7 @@ class _Scene:
             actor = pl.add_mesh(surface, scalars="max_principal_ue", cmap=SEQUENTIAL, clim=self.clim,
                                 show_scalar_bar=False, ambient=0.3, diffuse=0.75, specular=0.0,
                                 render=False)
-            self.overlay += scalar_bar(pl, actor.mapper, "max principal strain [ue]", 0.05,
-                                        ticks)
+            self._colour_bar(actor.mapper, "max principal strain [ue]", BAR_X[0], ticks)
         else:
             pl.add_mesh(surface, color=(0.85, 0.85, 0.82), ambient=0.3, diffuse=0.75, render=False)
         edges = surface.extract_feature_edges(feature_angle=30.0, boundary_edges=True,
@@ -176,31 +192,60 @@ class _Scene:
         if edges.n_points:
             pl.add_mesh(edges, color=(0.15, 0.15, 0.15), line_width=1.0, lighting=False,
                         render=False)
-        # bars: one coloured and one grey actor whose input is set per view (its visible gauges)
+        # bars: one coloured and one flagged actor whose input is set per view (its visible gauges)
         self.finite = np.isfinite(glyphs.discrepancy)
-        self.bars = self.grey = None
+        self.bars = self.flagged = None
         if self.finite.any():
             self.bars = pl.add_mesh(bars(glyphs, self.finite), scalars="discrepancy_ue",
                                     cmap=DIVERGING, clim=(-glyphs.limit, glyphs.limit),
                                     lighting=False, n_colors=256, show_scalar_bar=False,
                                     render=False)
-            self.overlay += scalar_bar(pl, self.bars.mapper, "measured - predicted [ue]", 0.57)
+            self._colour_bar(self.bars.mapper, "measured - predicted [ue]", BAR_X[1])
         if (~self.finite).any():
-            self.grey = pl.add_mesh(bars(glyphs, ~self.finite), color=GREY, lighting=False,
-                                    render=False)
-            self.overlay.append(add_text(pl, "grey bars: not evaluated at the reference step",
-                                      12, 8, 13, (0.3, 0.3, 0.3)))
-        self.title = add_text(pl, "", 14, size[1] - 34, 17)
-        self.overlay.append(self.title)
+            self.flagged = pl.add_mesh(bars(glyphs, ~self.finite), color=FLAGGED, lighting=False,
+                                       render=False)
+        self.triad = pl.add_axes(interactive=False, line_width=3, labels_off=False)
+        pl.renderer.axes_widget.SetZoom(1.6)   # the marker fills its square, labels inside
+        self.title: Any = None
         self.labels: list[Any] = []
         self.first = True
 
-    def look(self, camera: tuple[NDArray, NDArray, NDArray, float]) -> None:
-        set_camera(self.plotter, *camera)
+    def _colour_bar(self, mapper: Any, title: str, x: float, ticks: int = 5) -> None:
+        bar, label = scalar_bar(self.plotter, mapper, title, x, ticks)
+        self.bars_2d.append((bar, x))
+        self.static.append(label)
+
+    def look(self, camera: tuple[NDArray, NDArray, NDArray, float], size: tuple[int, int]
+             ) -> None:
+        """Resize the picture, lay out its bands and legend, and set the camera."""
+        pl = self.plotter
+        for actor in self.per_view:
+            pl.renderer.RemoveViewProp(actor)
+        if tuple(pl.window_size) != tuple(size):
+            pl.window_size = list(size)
+        self.size = (int(size[0]), int(size[1]))
+        W, H = self.size
+        resize_bands(self.bands, self.size)
+        self.per_view = []
+        for bar, x in self.bars_2d:
+            place_scalar_bar(bar, x, self.size)
+        self.title = add_text(pl, "", 14, H - 34, 17)
+        self.per_view.append(self.title)
+        self.per_view.append(add_text(
+            pl, "magenta bars: flagged or not evaluated at the reference step; ringed and "
+            "labelled with their state: failing or flagged gauges", 12, 5, 12, (0.25, 0.25, 0.25)))
+        per_unit = 0.5 * H / camera[3]
+        self.per_view += scale_bar(pl, per_unit, self.unit, self.size)
+        # the axis triad in the bottom band, right: a square of TRIAD pixels
+        pl.renderer.axes_widget.SetViewport(1 - (TRIAD + 8) / W, 4 / H, 1 - 8 / W, (TRIAD + 4) / H)
+        set_camera(pl, *camera)
+
+    def overlays(self) -> list[Any]:
+        return [*self.per_view, *self.static, *(b for b, _ in self.bars_2d), self.triad]
 
     def visible(self) -> NDArray[np.bool_]:
         """Render the bare surface and run the depth test."""
-        for actor in self.overlay + self.labels + [self.bars, self.grey]:
+        for actor in self.overlays() + self.labels + [self.bars, self.flagged]:
             if actor is not None:
                 actor.SetVisibility(False)
         if self.first:
@@ -209,21 +254,21 @@ class _Scene:
         else:
             self.plotter.render()
         shown = visible_gauges(self.plotter, self.glyphs, self.size)
-        for actor in self.overlay:
+        for actor in self.overlays():
             actor.SetVisibility(True)
         return shown
 
-    def save(self, path: Path, title: str, shown: NDArray[np.bool_], thickness: float = 1.0
-             ) -> None:
+    def save(self, path: Path, title: str, shown: NDArray[np.bool_]) -> None:
         renderer = self.plotter.renderer
         for actor in self.labels:
             renderer.RemoveViewProp(actor)
         self.title.SetInput(title)
         # only the gauges this view shows: others would be edge-on sticks or hidden anyway
-        for actor, select in ((self.bars, self.finite & shown), (self.grey, ~self.finite & shown)):
+        for actor, select in ((self.bars, self.finite & shown),
+                              (self.flagged, ~self.finite & shown)):
             if actor is not None:
                 if select.any():
-                    actor.mapper.SetInputData(bars(self.glyphs, select, thickness))
+                    actor.mapper.SetInputData(bars(self.glyphs, select))
                 actor.SetVisibility(bool(select.any()))
         self.labels = add_labels(self.plotter, self.glyphs, shown, self.size)
         self.plotter.render()
@@ -248,7 +293,8 @@ def render_views(corr: Any, folder: Path, *, size: tuple[int, int] = SIZE,
     folder : Path
         Where ``view_iso.png``, ``view_1.png``, ... are written.
     size : (int, int)
-        Picture width and height. [px]
+        Picture width and largest height; each picture's height follows the part's projected
+        shape (:func:`correlate.report.camera.fit_camera`). [px]
     max_views : int
         Views besides the isometric one (at most).
 
@@ -258,7 +304,7 @@ def render_views(corr: Any, folder: Path, *, size: tuple[int, int] = SIZE,
         Views with their cameras and visible gauges, and the gauges no view shows.
     """
     surface, note = model_surface(corr)
-    glyphs = gauge_glyphs(corr)
+    glyphs = gauge_glyphs(corr, surface)
     pts = np.asarray(surface.points)
     normals = glyphs.normal
     queue: list[tuple[str, NDArray, NDArray]] = [("iso", iso_direction(normals),
@@ -266,61 +312,50 @@ def render_views(corr: Any, folder: Path, *, size: tuple[int, int] = SIZE,
     for members in cluster_normals(normals)[:max_views]:
         queue.append(("group", unit(normals[members].sum(axis=0)), members))
     with vtk_errors_only():
-        return _render_all(queue, surface, glyphs, pts, normals, folder, size, max_views, note)
+        scene = _Scene(surface, glyphs, size[0], str(corr.study.length_unit))
+        try:
+            return _render_all(queue, scene, pts, normals, folder, size, max_views, note, surface)
+        finally:
+            scene.close()
 
 
-def _render_all(queue: list[tuple[str, NDArray, NDArray]], surface: Any, glyphs: Glyphs,
-                pts: NDArray, normals: NDArray, folder: Path, size: tuple[int, int],
-                max_views: int, note: str) -> Rendering:
+def _render_all(queue: list[tuple[str, NDArray, NDArray]], scene: _Scene, pts: NDArray,
+                normals: NDArray, folder: Path, size: tuple[int, int], max_views: int, note: str,
+                surface: Any) -> Rendering:
     """Work through the queue of view directions (see :func:`render_views`)."""
+    glyphs = scene.glyphs
     seen = np.zeros(len(glyphs.gauges), dtype=bool)
     seen_faces = np.zeros(len(glyphs.gauges), dtype=bool)
     views: list[View] = []
     retried = False
-    scene = _Scene(surface, glyphs, size)
-    try:
-        while queue:
-            kind, w, members = queue.pop(0)
-            if kind != "iso" and len(views) > max_views:
-                break
-            camera = view_camera(pts, w, size)
-            scene.look(camera)
-            shown = scene.visible()
-            # a view is kept for a gauge of its own group no earlier face view showed
-            wanted = shown[members] & ~seen_faces[members] if kind == "group" else shown & ~seen
-            if kind != "iso" and not wanted.any():
-                continue
-            thickness = 1.0
-            if kind != "iso":
-                # frame the gauges it shows (occlusion along a direction does not depend on zoom)
-                pad = max(0.12 * glyphs.size, 2.0 * float(np.max(np.linalg.norm(
-                    glyphs.end[shown] - glyphs.start[shown], axis=1))))
-                detail = view_camera(pts, w, size, frame=glyphs.anchor[shown], pad=pad)
-                if detail[3] < 0.85 * camera[3]:
-                    # at most MAX_ZOOM times closer, so that the part stays recognisable
-                    ratio = max(detail[3] / camera[3], 1.0 / MAX_ZOOM)
-                    camera = (*detail[:3], ratio * camera[3])
-                    thickness = ratio           # bars keep their thickness on the picture
-                    scene.look(camera)
-                seen_faces |= shown
-            position, focal, up, scale = camera
-            name = "iso" if kind == "iso" else str(len(views))
-            title = ("isometric view" if kind == "iso"
-                     else f"view {name}: {direction_name(w)}")
-            title += f" - {int(shown.sum())} of {len(shown)} gauges visible"
-            file = f"view_{name}.png"
-            scene.save(folder / file, title, shown, thickness)
-            seen |= shown
-            views.append(View(
-                name=name, file=file, title=title, position=tuple(map(float, position)),
-                focal_point=tuple(map(float, focal)), view_up=tuple(map(float, up)),
-                parallel_scale=float(scale), size=(int(size[0]), int(size[1])),
-                visible=tuple(g for g, s in zip(glyphs.gauges, shown, strict=True) if s)))
-            if not queue and not retried:
-                retried = True
-                queue = [("single", normals[i], np.array([i])) for i in np.flatnonzero(~seen)]
-    finally:
-        scene.close()
+    while queue:
+        kind, w, members = queue.pop(0)
+        if kind != "iso" and len(views) > max_views:
+            break
+        camera, picture = fit_camera(pts, w, size[0], size[1])
+        scene.look(camera, picture)
+        shown = scene.visible()
+        # a view is kept for a gauge of its own group no earlier face view showed
+        wanted = shown[members] & ~seen_faces[members] if kind == "group" else shown & ~seen
+        if kind != "iso" and not wanted.any():
+            continue
+        if kind != "iso":
+            seen_faces |= shown
+        position, focal, up, scale = camera
+        name = "iso" if kind == "iso" else str(len(views))
+        title = "isometric view" if kind == "iso" else f"view {name}: {direction_name(w)}"
+        title += f" - {int(shown.sum())} of {len(shown)} gauges visible"
+        file = f"view_{name}.png"
+        scene.save(folder / file, title, shown)
+        seen |= shown
+        views.append(View(
+            name=name, file=file, title=title, position=tuple(map(float, position)),
+            focal_point=tuple(map(float, focal)), view_up=tuple(map(float, up)),
+            parallel_scale=float(scale), size=picture,
+            visible=tuple(g for g, s in zip(glyphs.gauges, shown, strict=True) if s)))
+        if not queue and not retried:
+            retried = True
+            queue = [("single", normals[i], np.array([i])) for i in np.flatnonzero(~seen)]
     not_visible = tuple(g for g, s in zip(glyphs.gauges, seen, strict=True) if not s)
     return Rendering(views=tuple(views), not_visible=not_visible, glyphs=glyphs, surface=surface,
                      note=note)

@@ -36,7 +36,7 @@ GAUGES = [
     ("B1", (30, 20, 12), (0, 0, 1), 1.8),
     ("E1", (40, 10, 12), (0, 1, 0), 1.0),
     ("D1", (26, 10, 0), (1, 0, 0), 1.25),
-    ("W1", (0, 10, 12), (0, 0, 1), 1.0),      # excluded by the study: drawn grey
+    ("W1", (0, 10, 12), (0, 0, 1), 1.0),      # excluded by the study: drawn in the flagged colour
     ("S1", (19, 10, 10), (0, 1, 0), 1.0),     # on the slot wall, 14 below the top
 ]
 SIZE = (900, 700)
@@ -139,7 +139,9 @@ def test_views_have_the_requested_size_and_are_not_blank(rendered) -> None:
     assert 2 <= len(result.views) <= 7
     for view in result.views:
         img = _image(out / view.file)
-        assert img.shape == (SIZE[1], SIZE[0], 3)
+        # the requested width; the height crops the space the part leaves (at most the requested)
+        assert img.shape == (view.size[1], SIZE[0], 3)
+        assert view.size[0] == SIZE[0] and view.size[1] <= SIZE[1]
         painted = (img < 250).any(axis=2).mean()
         assert painted > 0.15
         packed = img[..., 0] * 65536 + img[..., 1] * 256 + img[..., 2]
@@ -149,16 +151,17 @@ def test_views_have_the_requested_size_and_are_not_blank(rendered) -> None:
 def test_each_visible_gauge_shows_its_discrepancy_colour(rendered) -> None:
     from matplotlib import colormaps
 
-    from correlate.report.scene import GREY
+    from correlate.report.scene import FLAGGED
 
     corr, result, out = rendered
     ref = 2                                             # the 10 kN step: largest readings
     ev = corr.status.evaluated[ref]
     diff = corr.measured[ref] - corr.predicted[ref]
     limit = np.max(np.abs(diff[ev]))
-    # reference: matplotlib's RdBu_r at the symmetric limits; grey for the excluded gauge
+    # reference: matplotlib's RdBu_r at the symmetric limits; the flagged colour for the excluded
+    # gauge (drawn prominent, not faded)
     rgb = colormaps["RdBu_r"]((diff + limit) / (2 * limit))[:, :3] * 255
-    rgb[~ev] = np.array(GREY) * 255
+    rgb[~ev] = np.array(FLAGGED) * 255
     assert (~ev).sum() == 1 and not ev[corr.gauges.index("W1")]
     checked = 0
     for view in result.views:
