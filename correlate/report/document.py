@@ -15,6 +15,7 @@ import base64
 import json
 import struct
 import warnings
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -22,6 +23,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 import correlate.report.figures as figures
+import correlate.report.tables as tables
 from correlate.comparison.correlation import Correlation
 from correlate.comparison.rosettes import rosette_angles
 from correlate.core.names import CAUTION
@@ -31,17 +33,17 @@ from correlate.report.vtk_files import write_vtk
 
 HERE = Path(__file__).parent
 CRITERIA_SOURCE = "the analyst's choice for this programme, not a standard"
+num = tables.num
 
 
-def num(value: Any, fmt: str = ".1f") -> str:
-    """Format a number; a dash for None or NaN."""
-    if value is None:
-        return "\u2013"
-    try:
-        x = float(value)
-    except (TypeError, ValueError):
-        return str(value)
-    return "\u2013" if not np.isfinite(x) else format(x, fmt)
+def css_string(text: Any) -> str:
+    """A CSS string literal holding ``text``: every character but ASCII letters and digits as a
+    six-digit escape, so that no input text can end the string or the style element (a space is
+    escaped too: CSS drops one space after an escape)."""
+    out = []
+    for ch in str(text):
+        out.append(ch if ch.isascii() and ch.isalnum() else f"\\{ord(ch):06x}")
+    return '"' + "".join(out) + '"'
 
 
 def text(value: Any) -> str:
@@ -112,6 +114,7 @@ def gauge_rows(corr: Correlation, i: int) -> list[dict[str, str]]:
             "predicted": num(corr.predicted[i, j]),
             "measured": num(corr.measured[i, j]),
             "difference": num(diff[j], "+.1f"),
+            "allowed": num(st.allowed[i, j]),
             "ratio": num(st.ratio[i, j], ".3f"),
             "band": f"{num(corr.band_low[i, j])} to {num(corr.band_high[i, j])}",
             "status": status,
@@ -123,7 +126,7 @@ def gauge_rows(corr: Correlation, i: int) -> list[dict[str, str]]:
     return rows
 
 
-MAX_CURVES = 96  # load-strain panels in the report (six figures of 16); beyond, the worst gauges
+MAX_CURVES = 96  # load-strain panels in the report (twelve figures of 8); beyond, the worst gauges
 
 
 def _curve_gauges(corr: Correlation, words: list[str], ref: int) -> list[int]:
@@ -156,21 +159,6 @@ def _gauge_status(corr: Correlation) -> list[str]:
             hit = flags[(flags["gauge"] == g) & (flags["drops"] == "gauge")] if len(flags) else []
             out.append(str(hit["flag"].iloc[0]) if len(hit) else "not evaluated")
     return out
-
-
-def _flag_rows(corr: Correlation) -> list[dict[str, str]]:
-    rows = []
-    for _, f in corr.flags.iterrows():
-        step = f.get("step")
-        whole = step is None or (isinstance(step, int | float | np.integer | np.floating)
-                                 and (not np.isfinite(step) or int(step) == -1))
-        scope = "all steps" if whole else f"step {int(step)}, sequence {int(f['sequence'])}"
-        rows.append({"gauge": str(f["gauge"]), "scope": scope, "flag": str(f["flag"]),
-                     "reason": str(f.get("reason", "")),
-                     "disposition": str(f.get("disposition", "") or ""),
-                     "decided": ", ".join(str(f.get(k) or "") for k in ("by", "date")
-                                          if isinstance(f.get(k), str) and f.get(k))})
-    return rows
 
 
 def _rosettes(corr: Correlation, ref: int) -> tuple[list[dict[str, str]], list[dict[str, Any]]]:
@@ -207,13 +195,85 @@ def _rosettes(corr: Correlation, ref: int) -> tuple[list[dict[str, str]], list[d
     return rows, records
 
 
-def _load_axis(corr: Correlation) -> tuple[NDArray, str, str]:
-    """The load column with the largest tared range, its label and a note."""
-    loads = corr.steps.loads
-    names = corr.steps.load_names
-    j = int(np.argmax(np.ptp(loads, axis=0))) if loads.size else 0
-    note = "" if len(names) < 2 else " (the load with the largest range)"
-    return loads[:, j], f"{names[j]} (tared)", note
+PROPORTIONAL_TOL = 0.02   # loads rise together: each within 2 % of its peak of a multiple of the
+#                          first (about the accuracy of a test rig's load cells; common practice)
+
+
+@dataclass(frozen=True)
+class LoadAxis:
+    """The horizontal axis of the load-strain curves: one value per step, its label and a note."""
+
+    values: NDArray[np.float64]      # (s,)
+    label: str
+    note: str
+    steps: bool                      # True: the position of each step in the test
+
+
+def _proportional(loads: NDArray, tol: float = PROPORTIONAL_TOL) -> bool:
+    """Whether every load column is a multiple of the first over the steps (within ``tol`` of
+    each column's peak; rows with a missing load are left out)."""
+    rows = np.isfinite(loads).all(axis=1)
+    x = loads[rows]
+    peak = np.max(np.abs(x), axis=0) if len(x) else np.zeros(loads.shape[1])
+    if not len(x) or not peak[0] > 0:
+        return False
+    first = x[:, 0] / peak[0]
+    for k in range(1, x.shape[1]):
+        if not peak[k] > 0:
+            continue                 # a load that stays at zero rises with any other
+        col = x[:, k] / peak[k]
+        multiple = float(first @ col) / float(first @ first)
+        if np.max(np.abs(col - multiple * first)) > tol:
+            return False
+    return True
+
+
+def load_axis(corr: Correlation) -> LoadAxis:
+    """What the load-strain curves are drawn against, so that no load moves unseen.
+
+    One load column: its tared value. Several that rise together (:func:`_proportional`): the
+    factor of the first FE case (tared load / reference), a combined load parameter. Otherwise the
+    position of each step in the test: a load that rises while another is held then shows as
+    strain changing from step to step, never as a vertical jump at a fixed value of one load.
+    """
+    steps = corr.steps
+    loads, names = steps.loads, steps.load_names
+    if loads.size and len(names) == 1:
+        return LoadAxis(loads[:, 0], f"{names[0]} (tared)", "", False)
+    if loads.size and steps.factors is not None and steps.factors.size and _proportional(loads):
+        mapped = [ld for ld in corr.study.loads if ld.column in names]
+        cases = [c.name for c in corr.study.cases]
+        if mapped:
+            case = mapped[0].case
+            return LoadAxis(steps.factors[:, cases.index(case)],
+                            f"load factor of case '{case}' (tared load / reference)",
+                            " (every load rises and falls with it)", False)
+    return LoadAxis(np.arange(1.0, len(steps.step) + 1.0),
+                    "step in test order (1 = first row of the readings)",
+                    " (the loads do not rise together, so each curve runs through the steps in "
+                    "test order; the load history above shows which load moves when)", True)
+
+
+def _load_history(corr: Correlation, axis: LoadAxis, folder: Path) -> Path | None:
+    """The load history figure when the curves run through the steps: each [[load]] column as
+    tared load / reference (its case factor), other load columns over their peak."""
+    if not axis.steps or not corr.steps.loads.size:
+        return None
+    steps = corr.steps
+    reference = {ld.column: ld.reference for ld in corr.study.loads}
+    columns, names = [], []
+    for k, name in enumerate(steps.load_names):
+        col = steps.loads[:, k]
+        if name in reference:
+            columns.append(col / reference[name])
+            names.append(f"{name} / {reference[name]:g}")
+        else:
+            peak = float(np.nanmax(np.abs(col))) if np.isfinite(col).any() else 0.0
+            columns.append(col / peak if peak > 0 else col)
+            names.append(f"{name} / its peak")
+    return figures.plot_load_history(axis.values, np.column_stack(columns), names, steps.sequence,
+                                     folder / "load_history.png",
+                                     ylabel="tared load / reference")
 
 
 def _render(corr: Correlation, folder: Path) -> tuple[Rendering | None, str]:
@@ -248,7 +308,9 @@ def _figures(corr: Correlation, folder: Path, ref: int) -> dict[str, Any]:
         relative=crit.relative, absolute_ue=crit.absolute_ue, path=folder / "scatter.png",
         ref_label=f"reference step ({_step_label(corr, ref)})", names=list(corr.gauges))
 
-    load, load_label, load_note = _load_axis(corr)
+    axis = load_axis(corr)
+    load, load_label, load_note = axis.values, axis.label, axis.note
+    history = _load_history(corr, axis, folder)
     direction = load_direction(steps.loads, steps.sequence, tol=study.zero_tol)
     on_path = finite & (st.evaluated | steps.tare[:, None] | steps.zero_load[:, None]
                         | unmodelled)
@@ -265,7 +327,8 @@ def _figures(corr: Correlation, folder: Path, ref: int) -> dict[str, Any]:
                                           corr.measured[:, curves], predicted[:, curves],
                                           on_path[:, curves], off_path[:, curves],
                                           [corr.gauges[j] for j in curves],
-                                          [titles[j] for j in curves], folder)
+                                          [titles[j] for j in curves], folder,
+                                          steps_axis=axis.steps)
 
     rosette_rows, rosette_records = _rosettes(corr, ref)
     rosette_figure = (data_uri(figures.plot_rosettes(rosette_records, folder / "rosettes.png"))
@@ -280,12 +343,14 @@ def _figures(corr: Correlation, folder: Path, ref: int) -> dict[str, Any]:
     return {"scatter": data_uri(scatter), "relative_pct": f"{crit.relative:.0%}",
             "absolute_ue": f"{crit.absolute_ue:g}", "gauge_tables": gauge_tables,
             "load_label": load_label, "load_note": load_note,
-            "load_figures": [data_uri(p) for p in load_files], "rosette_rows": rosette_rows,
+            "load_figures": [data_uri(p) for p in load_files],
+            "load_history": data_uri(history) if history else None, "rosette_rows": rosette_rows,
             "rosette_figure": rosette_figure}
 
 
 def _verdict(summary: dict[str, Any]) -> dict[str, Any]:
-    """The verdict box: the result, its reasons and the numbers behind it."""
+    """The verdict box: the state, what the criteria alone say, the reasons, the direction of the
+    result and the unconservative gauges, and the numbers behind them."""
     fit = summary["fit"]
     verdict = summary["verdict"]
     ci = fit.get("slope_origin_ci") or [None, None]
@@ -307,13 +372,20 @@ def _verdict(summary: dict[str, Any]) -> dict[str, Any]:
                         else "does not meet")
     headline = {"meets": "The model meets the criteria.",
                 "does not meet": "The model does not meet the criteria.",
-                "provisional": "Provisional: no verdict yet."}[state]
+                "provisional": "Provisional: no verdict until the reasons below are settled."
+                }[state]
     css = {"meets": "ok", "does not meet": "not-ok", "provisional": "provisional"}[state]
+    source = str(verdict.get("criteria", {}).get("source", CRITERIA_SOURCE))
+    leaning = str(verdict.get("leaning", ""))
     return {"result": verdict["result"], "state": state, "headline": headline, "css": css,
-            "ok": state == "meets", "leaning": str(verdict.get("leaning", "")),
+            "ok": state == "meets", "leaning": leaning,
+            "alone": f"The criteria alone: the model {verdict['result']}.",
+            "source": source, "defaults": source.startswith("tool defaults"),
             "direction": str(verdict.get("direction", "")),
             "unconservative": list(verdict.get("unconservative_gauges", [])),
             "reasons": list(verdict.get("reasons", [])), "numbers": numbers,
+            "excluded": num(100 * float(verdict.get("excluded_fraction", np.nan)), ".0f"),
+            "open": list(verdict.get("open_dispositions", [])),
             "ci_method": str(fit.get("ci_method", ""))}
 
 
@@ -362,7 +434,16 @@ def _context(corr: Correlation, ref: int) -> dict[str, Any]:
         "ref_rule": str(ref_info.get("rule", "")),
         "verdict": _verdict(summary),
         "stress_unit": str(study.stress_unit or "unit of E"),
-        "flag_rows": _flag_rows(corr),
+        "flag_rows": tables.flag_rows(corr),
+        "document": tables.document_block(corr),
+        "running": {k: css_string(v) for k, v in tables.running_text(corr).items()},
+        "load_rows": tables.load_mapping(corr),
+        "material_rows": tables.material_rows(corr),
+        "health_rows": tables.health_rows(corr),
+        "map_rows": tables.gauge_map_rows(corr),
+        "length_unit": str(study.length_unit),
+        "snap_tol": num(study.snap_tol, "g"),
+        "stats": tables.statistics(summary),
         "caution": str(summary.get("caution") or CAUTION),
     }
 

@@ -29,7 +29,7 @@ PREDICTED = "#4d4d4d"       # model readings
 REFERENCE = "#e08a00"       # the reference step in the scatter
 FLAGGED = "#9a9a9a"
 FIT = "#b2182b"
-PER_FIGURE = 16             # load-strain panels per figure (4 x 4)
+PER_FIGURE = 8              # load-strain panels per figure (4 x 2: under half a printed page)
 TITLE_CHARS = 28
 
 
@@ -179,13 +179,14 @@ def plot_load_strain(load: NDArray, load_label: str, direction: NDArray, sequenc
                      measured: NDArray, predicted: NDArray, healthy: NDArray[np.bool_],
                      flagged: NDArray[np.bool_], gauges: list[str], titles: list[str],
                      folder: Path, *, per_figure: int = PER_FIGURE,
-                     stem: str = "load_strain") -> list[Path]:
+                     stem: str = "load_strain", steps_axis: bool = False) -> list[Path]:
     """Small multiples of strain against load, measured and predicted, one panel per gauge.
 
     Parameters
     ----------
     load : ndarray, shape (s,)
-        The tared load of each step on the horizontal axis.
+        The horizontal coordinate of each step: a tared load, a combined load parameter, or the
+        position of the step in the test (``steps_axis``).
     direction : ndarray of int, shape (s,)
         +1 loading, -1 unloading, 0 neither (see :func:`correlate.measurement.health.load_direction`).
     sequence : ndarray, shape (s,)
@@ -200,6 +201,9 @@ def plot_load_strain(load: NDArray, load_label: str, direction: NDArray, sequenc
         Gauge ids and the panel titles.
     folder : Path
         Where ``load_strain_1.png``, ``load_strain_2.png``, ... are written.
+    steps_axis : bool
+        The horizontal axis counts steps: whole-number ticks and a dotted line where a new load
+        sequence starts.
 
     Returns
     -------
@@ -210,6 +214,7 @@ def plot_load_strain(load: NDArray, load_label: str, direction: NDArray, sequenc
 
     files = []
     n = len(gauges)
+    starts = [float(load[i]) for i in range(1, len(sequence)) if sequence[i] != sequence[i - 1]]
     for f, first in enumerate(range(0, n, per_figure), start=1):
         idx = list(range(first, min(first + per_figure, n)))
         cols = min(4, len(idx))
@@ -224,8 +229,12 @@ def plot_load_strain(load: NDArray, load_label: str, direction: NDArray, sequenc
             if k >= len(idx):
                 ax.set_visible(False)
                 continue
-            _load_panel(ax, idx[k], load, direction, sequence, measured, predicted, healthy,
-                        flagged)
+            draw_load_panel(ax, idx[k], load, direction, sequence, measured, predicted, healthy,
+                            flagged)
+            if steps_axis:
+                for x0 in starts:
+                    ax.axvline(x0 - 0.5, color="#999999", lw=0.8, ls=":", zorder=1)
+                ax.xaxis.get_major_locator().set_params(integer=True)
             ax.set_title(plain(titles[idx[k]]), fontsize=9.5, loc="left")
             if k % cols == 0:
                 ax.set_ylabel("strain [ue]", fontsize=8.5)
@@ -244,6 +253,47 @@ def plot_load_strain(load: NDArray, load_label: str, direction: NDArray, sequenc
     return files
 
 
+@_quiet
+def plot_load_history(steps: NDArray, loads: NDArray, names: list[str], sequence: NDArray,
+                      path: Path, *, ylabel: str) -> Path:
+    """Each load against the step position: which load moves in which part of the test.
+
+    Parameters
+    ----------
+    steps : ndarray, shape (s,)
+        Position of each step in the test (the horizontal axis of the load-strain curves).
+    loads : ndarray, shape (s, L)
+        Each load as plotted (e.g. tared load / reference: the factor of its FE case).
+    names : list of str
+        Legend entry of each load.
+    sequence : ndarray, shape (s,)
+        Load sequence of each step; a dotted line marks where a new one starts.
+    path : Path
+        PNG file to write.
+    """
+    fig = _figure(13.5, 2.6)
+    ax = fig.add_subplot(1, 1, 1)
+    colours = ["#1f4e99", "#c25a00", "#2e7d32", "#7b1fa2", "#5d4037", "#00838f"]
+    for j, name in enumerate(names):
+        for seq in np.unique(sequence):
+            rows = np.flatnonzero(sequence == seq)
+            ax.plot(steps[rows], loads[rows, j], color=colours[j % len(colours)], lw=1.6,
+                    marker="o", ms=3.5, label=plain(name) if seq == sequence[0] else None)
+    for i in range(1, len(sequence)):
+        if sequence[i] != sequence[i - 1]:
+            ax.axvline(steps[i] - 0.5, color="#999999", lw=0.8, ls=":")
+    ax.xaxis.get_major_locator().set_params(integer=True)
+    ax.grid(True, color="#eeeeee", lw=0.6)
+    ax.tick_params(labelsize=8)
+    ax.set_xlabel("step in test order (1 = first row of the readings)", fontsize=8.5)
+    ax.set_ylabel(plain(ylabel), fontsize=8.5)
+    ax.set_title("Load history", fontsize=10, loc="left", pad=4)
+    ax.legend(loc="lower center", bbox_to_anchor=(0.5, 1.0), ncol=min(len(names), 6),
+              fontsize=8.5, frameon=False)
+    fig.subplots_adjust(left=0.06, right=0.98, bottom=0.2, top=0.84)
+    return _save(fig, path)
+
+
 def _paths(x: NDArray, y: NDArray, pairs: list[tuple[int, int]]) -> tuple[NDArray, NDArray]:
     """Separate two-point segments as one polyline broken by NaN (one artist, fast to draw)."""
     if not pairs:
@@ -253,9 +303,11 @@ def _paths(x: NDArray, y: NDArray, pairs: list[tuple[int, int]]) -> tuple[NDArra
     return np.c_[x[a], x[b], nan].ravel(), np.c_[y[a], y[b], nan].ravel()
 
 
-def _load_panel(ax, j: int, load: NDArray, direction: NDArray, sequence: NDArray,
-                measured: NDArray, predicted: NDArray, healthy: NDArray, flagged: NDArray) -> None:
-    """One gauge: predicted path, measured loading and unloading paths, flagged points."""
+def draw_load_panel(ax, j: int, load: NDArray, direction: NDArray, sequence: NDArray,
+                    measured: NDArray, predicted: NDArray, healthy: NDArray,
+                    flagged: NDArray) -> None:
+    """One gauge on ``ax``: predicted path, measured loading and unloading paths, flagged points
+    (the arguments of :func:`plot_load_strain`, ``j`` the gauge's column)."""
     m = measured[:, j]
     up_pairs, down_pairs = [], []
     for seq in np.unique(sequence):

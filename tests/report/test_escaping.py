@@ -32,6 +32,7 @@ ROSETTE = "<u>R</u>&amp;"
 ARTICLE = "<img src=x onerror=alert(3)>"
 REVISION = "</td></tr><tr><td>injected"
 MODEL_FILE = 'blo<c>k & "q".vtu'
+DOC_NUMBER = '"; } body { display: none } </style><script>alert(4)</script> \\0041 ü'
 
 
 def _toml(value: str) -> str:
@@ -74,7 +75,8 @@ def hostile(tmp_path_factory):
     gauges = pd.DataFrame(rows)
     study = write_block_study(folder, readings_rows=block_readings(gauges),
                               gauges=gauges, ctype="hexahedron",
-                              extra_toml=f"[test]\narticle = {_toml(ARTICLE)}\n")
+                              extra_toml=f"[test]\narticle = {_toml(ARTICLE)}\n"
+                              f"[document]\nnumber = {_toml(DOC_NUMBER)}\n")
     (folder / "block.vtu").rename(folder / MODEL_FILE)
     text = study.read_text(encoding="utf-8")
     text = text.replace('title = "Synthetic block"', f"title = {_toml(TITLE)}")
@@ -102,9 +104,10 @@ def test_no_element_or_attribute_comes_from_the_inputs(hostile):
     assert "injected" not in [v for _, a in tags for _, v in a]
 
 
-@pytest.mark.parametrize("value", [TITLE, ARTICLE, REVISION, MODEL_FILE, ROSETTE, *IDS[:4]],
+@pytest.mark.parametrize("value", [TITLE, ARTICLE, REVISION, MODEL_FILE, ROSETTE, *IDS[:4],
+                                   DOC_NUMBER],
                          ids=["title", "article", "revision", "model-file", "rosette-id", "html-id",
-                              "quote-id", "amp-id", "unicode-id"])
+                              "quote-id", "amp-id", "unicode-id", "document-number"])
 def test_input_text_reads_back_unchanged(hostile, value):
     # what the reader sees (the decoded text) is the original string, character for character
     assert value in hostile["text"]
@@ -115,6 +118,26 @@ def test_raw_markup_never_reaches_the_file(hostile):
     for raw in ("<script>alert", "<img src=x", "<b>G1</b>", 'onmouseover="alert',
                 "</td></tr><tr><td>injected", "<u>R</u>", 'blo<c>k'):
         assert raw not in html
+
+
+def test_running_header_is_one_css_string_that_reads_back(hostile):
+    # The document number goes into the page's running header: a CSS string in a style element.
+    # Two style elements, each closed once (the text cannot end one), and the string, unescaped
+    # as CSS Syntax Level 3 section 4.3.7 says (up to six hex digits, one space after them
+    # dropped), is the header text with the number as given (shortened to 90 characters).
+    html = hostile["html"]
+    styles = re.findall(r"<style>(.*?)</style>", html, flags=re.DOTALL)
+    assert len(styles) == 2 and html.count("</style>") == 2
+    found = re.search(r'@top-left \{ content: "([^"]*)"; \}', styles[1])
+    assert found
+
+    def unescape(text: str) -> str:
+        return re.sub(r"\\([0-9a-fA-F]{1,6}) ?", lambda m: chr(int(m.group(1), 16)), text)
+
+    header = f"Document {' '.join(DOC_NUMBER.split())}, revision not given"
+    # a running header holds at most 90 characters: longer text ends in "..."
+    assert len(header) > 90
+    assert unescape(found.group(1)) == header[:87] + "..."
 
 
 def test_long_gauge_id_is_shown_whole_or_visibly_shortened(hostile):
