@@ -50,7 +50,7 @@ def test_runs_are_named_by_their_model_revision(tmp_path: Path) -> None:
     assert "RMS difference fell from 80 to 20 ue (revision A to revision B <rev>)" in text
     # the folders appear once each, in the runs table, and nowhere in the headline
     assert old not in page.h1 and sum(c == old for t in page.tables for r in t for c in r) == 1
-    runs = [t for t in page.tables if t and t[0][:2] == ["run", "folder"]][0]
+    runs = next(t for t in page.tables if t and t[0][:2] == ["run", "folder"])
     assert [r[:2] for r in runs[1:]] == [["revision A", old], ["revision B <rev>", new]]
     verdict = [a for tag, a in page.tags if tag == "div" and "verdict" in (a.get("class") or "")]
     assert verdict[0]["data-verdict"] == "better" and "ok" in verdict[0]["class"].split()
