@@ -121,9 +121,10 @@ def gauge_glyphs(corr: Any, surface: Any | None = None) -> Glyphs:
     ahead = np.where(fan, length, 0.5 * length)
     behind = np.where(fan, 0.0, 0.5 * length)
     if surface is not None and len(centre):
-        ahead = ahead * face_extent(surface, centre, d, n, ahead, size)
-        back = face_extent(surface, centre, -d, n, np.where(fan, 1.0, behind), size)
-        behind = np.where(fan, 0.0, behind * back)
+        # both halves in one search (one locator and one set of normals for the surface)
+        share = face_extent(surface, np.r_[centre, centre], np.r_[d, -d], np.r_[n, n],
+                            np.r_[ahead, behind], size)
+        ahead, behind = ahead * share[:len(d)], behind * share[len(d):]
     lift = (radius + 0.002 * size) * n
     start = centre - behind[:, None] * d + lift
     end = centre + ahead[:, None] * d + lift
