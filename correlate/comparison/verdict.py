@@ -97,7 +97,7 @@ def judge(study: Study, names: list[str], fit: dict[str, Any], st: Statuses,
     if provisional:
         provisional.append(f"the criteria alone would say the model {leaning} them")
     direction, beyond = _direction(fit["slope_origin"], st, names)
-    given = getattr(study, "criteria_given", True)
+    given = study.criteria_given
     return {
         "result": result, "state": state, "leaning": leaning, "reasons": reasons + provisional,
         "open_dispositions": pending, "excluded_fraction": 1.0 - share if names else 0.0,

@@ -6,6 +6,7 @@ Microstrain to 0.001, lengths to 1e-6 of the model's unit, other floats to six s
 from __future__ import annotations
 
 import json
+import datetime
 import math
 from pathlib import Path
 from typing import Any
@@ -105,6 +106,8 @@ def clean_json(obj: Any, key: str = "") -> Any:
         return round(v, UE_DECIMALS) if key.endswith("_ue") else _sig(v)
     if isinstance(obj, Path):
         return str(obj)
+    if isinstance(obj, datetime.date | datetime.time):  # TOML dates and times
+        return obj.isoformat()
     return obj
 
 

@@ -101,6 +101,7 @@ class Study:
     newest_first: bool = False
     loads: tuple[Load, ...] = ()
     criteria: Criteria = Criteria()
+    criteria_given: bool = True  # False: no [criteria] table, the tool's defaults apply
     overrides: tuple[Override, ...] = ()
     health: dict[str, float] = field(default_factory=dict)
     report: dict[str, Any] = field(default_factory=dict)

@@ -482,7 +482,7 @@ def parse_study(text: str, path: Path) -> Study:
         length_unit=length_unit, stress_unit=model.get("stress_unit"), plane=plane, model_info=info,
         cases=tuple(cases), materials=tuple(materials), **gauges, test=dict(_table(raw, "test")),
         **readings, sentinels=tuple(sentinels) if sentinels is not None else None,
-        loads=tuple(loads), criteria=criteria, overrides=tuple(overrides), health=dict(health),
+        loads=tuple(loads), criteria=criteria, criteria_given="criteria" in raw, overrides=tuple(overrides), health=dict(health),
         report=dict(_table(raw, "report")), raw=raw)
 
 

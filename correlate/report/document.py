@@ -26,13 +26,13 @@ import correlate.report.figures as figures
 import correlate.report.tables as tables
 from correlate.comparison.correlation import Correlation
 from correlate.comparison.rosettes import rosette_angles
+from correlate.comparison.verdict import CRITERIA_SOURCE
 from correlate.core.names import CAUTION
 from correlate.measurement.health import load_direction
 from correlate.report.scene import Rendering, render_views
 from correlate.report.vtk_files import write_vtk
 
 HERE = Path(__file__).parent
-CRITERIA_SOURCE = "the analyst's choice for this programme, not a standard"
 num = tables.num
 
 

@@ -20,3 +20,19 @@ def test_formula_like_ids_get_an_apostrophe_and_numbers_do_not(tmp_path):
         rows = list(csv.DictReader(f))
     assert [r["gauge"] for r in rows] == ["'=G02", "'+G03", "'-G04", "'@G05", "G06", "-5"]
     assert rows[0]["case"] == "'=1+1" and rows[1]["measured_ue"] == "-2"
+
+
+def test_toml_dates_in_the_summary_are_written_as_iso_text(tmp_path):
+    # TOML 1.0 (toml.io) local dates and date-times become datetime objects in tomllib;
+    # the summary must hold them as ISO 8601 text, not crash json.dumps
+    import datetime
+    import json
+    import tomllib
+
+    from correlate.core.tables import write_json
+
+    raw = tomllib.loads('[document]\nprepared_date = 2026-11-30\nissued = 2026-12-01T09:30:00\n')
+    write_json({"document": raw["document"]}, tmp_path / "s.json")
+    back = json.loads((tmp_path / "s.json").read_text(encoding="utf-8"))
+    assert back["document"] == {"prepared_date": "2026-11-30", "issued": "2026-12-01T09:30:00"}
+    assert isinstance(raw["document"]["prepared_date"], datetime.date)

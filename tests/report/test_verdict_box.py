@@ -40,10 +40,8 @@ def _report(folder: Path, *, gain: float = 1.0, extra: str = "", criteria: str =
     assert text.count(BUILDER_CRITERIA) == 1
     study.write_text(text.replace(BUILDER_CRITERIA, criteria), encoding="utf-8")
     corr = correlate_study(read_study(study))
-    if defaults:
-        # what the run writes for a study without [criteria] once the study reader marks it
-        # (comparison.verdict reads study.criteria_given); the report shows what summary says
-        corr.summary["verdict"]["criteria"]["source"] = DEFAULT_CRITERIA_SOURCE
+    # a study without [criteria] is marked by the reader (Study.criteria_given) and labelled
+    assert (corr.summary["verdict"]["criteria"]["source"] == DEFAULT_CRITERIA_SOURCE) == defaults
     out = folder / "out"
     out.mkdir()
     with pytest.MonkeyPatch.context() as mp:
