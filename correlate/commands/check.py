@@ -4,14 +4,16 @@ from __future__ import annotations
 
 import argparse
 import sys
+import tomllib
 import warnings
 from collections.abc import Callable
+from pathlib import Path
 from typing import Any
 
 import pandas as pd
 
-from correlate.comparison.pairing import read_test_data
-from correlate.core.errors import CorrelateError
+from correlate.comparison.pairing import gauge_channels, load_columns, read_test_data
+from correlate.core.errors import CorrelateError, StudyError
 from correlate.model_readings.conventions import convention_warnings
 from correlate.model_readings.model import (
     Model,
@@ -23,6 +25,7 @@ from correlate.model_readings.model import (
     settle_family,
 )
 from correlate.readers.gauges import read_gauges
+from correlate.readers.readings import read_readings
 from correlate.readers.study import Study, read_study
 
 
@@ -68,15 +71,80 @@ def check_study(study: Study) -> tuple[Model, pd.DataFrame, list[str]]:
                     _attempt(problems, case_rows, model, case, fe_index)
         if study.readings_file is not None and gauges is not None:
             _attempt(problems, read_test_data, study, gauges)
+        elif study.readings_file is not None and (channels := _raw_channels(study.gauges_file)):
+            _attempt(problems, lambda: read_readings(study.readings_file, gauges=channels,
+                                                     loads=load_columns(study),
+                                                     sentinels=study.sentinels))
         if problems or model is None:
             raise CorrelateError(*dict.fromkeys(problems))
         notes = convention_warnings(model)
     return model, model.operator.placement.table, [str(w.message) for w in caught] + notes
 
 
+def _beside_the_study(path: Path) -> list[str]:
+    """Problems of the gauge map and the readings a study names, when the study itself is bad.
+
+    The files are taken from the study's raw tables (the study could not be validated), so
+    that one ``check`` reports the study's problems and theirs together.
+    """
+    try:
+        raw = tomllib.loads(Path(path).read_text(encoding="utf-8-sig"))
+    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError):
+        return []
+    base = Path(path).resolve().parent
+
+    def named(table: str) -> Path | None:
+        value = raw.get(table, {}).get("file") if isinstance(raw.get(table), dict) else None
+        if not isinstance(value, str) or not value:
+            return None
+        try:
+            file = (base / value).resolve()
+        except (RuntimeError, OSError):
+            return None
+        return file if file.is_file() else None
+
+    problems: list[str] = []
+    gauges_file, readings_file = named("gauges"), named("readings")
+    if gauges_file is None:
+        return problems
+    _, gauges = _attempt(problems, read_gauges, gauges_file)
+    channels = _raw_channels(gauges_file) if gauges is None else gauge_channels(gauges)
+    if not channels or readings_file is None:
+        return problems
+    loads = raw.get("load", [])
+    columns = tuple(dict.fromkeys(ld["column"] for ld in (loads if isinstance(loads, list) else [])
+                                  if isinstance(ld, dict) and isinstance(ld.get("column"), str)))
+    readings = raw.get("readings", {})
+    sentinels = readings.get("sentinels")
+    if not (isinstance(sentinels, list) and all(isinstance(v, int | float | str)
+                                                 and not isinstance(v, bool) for v in sentinels)):
+        sentinels = None
+    _attempt(problems, lambda: read_readings(readings_file, gauges=channels, loads=columns,
+                                             sentinels=sentinels))
+    return problems
+
+
+def _raw_channels(gauges_file: Path) -> dict[str, str]:
+    """Readings column of each gauge id of a gauge map that failed validation ({}: unreadable)."""
+    try:
+        raw = pd.read_csv(gauges_file, dtype=str, keep_default_na=False, skipinitialspace=True,
+                          encoding="utf-8-sig")
+    except (ValueError, OSError, UnicodeDecodeError):
+        return {}
+    if "gauge" not in raw:
+        return {}
+    ids = raw["gauge"].str.strip()
+    channel = raw["channel"].str.strip() if "channel" in raw else ids
+    return {g: (c or g) for g, c in zip(ids, channel, strict=True) if g}
+
+
 def run(args: argparse.Namespace) -> int:
     """Check the study and print where each gauge landed."""
-    study = read_study(args.study)
+    try:
+        study = read_study(args.study)
+    except StudyError as exc:
+        more = [line for line in _beside_the_study(args.study) if line not in exc.problems]
+        raise StudyError(*exc.problems, *more) from None
     model, placement, notes = check_study(study)
     mesh = model.operator.mesh
     print(f"model: {study.model_file.name}: {len(mesh.points)} nodes, {mesh.n_cells} cells "

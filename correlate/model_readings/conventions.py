@@ -37,6 +37,7 @@ RESIDUAL_LIMIT = 0.25   # share of the in-plane strain magnitude (common practic
 BETTER_BY = 3.0          # an alternative is reported when it fits this many times better
 FLOOR = 20e-6            # ignore gauges whose in-plane strain is below this (m/m)
 MATTERS = 0.02           # an alternative that moves a reading by less than this share: no evidence
+TIE = 0.01               # alternatives whose residuals differ by less than this share fit alike
 
 
 @dataclass(frozen=True)
@@ -144,7 +145,7 @@ def convention_evidence(raw_at_gauges: NDArray, components: tuple[str, ...] | No
     """
     components = tuple(components or DEFAULT_ORDER)
     candidates = _candidates(components, shear)
-    scores, weighted = [], None
+    scores, fits, weighted = [], [], None
     tensor_d = from_voigt(raw_at_gauges, components, shear=shear)
     resid_d, size_d = _residual(tensor_d, normal, direction, nu, stress_strain)
     reading_d = _reading(tensor_d, direction)
@@ -162,10 +163,14 @@ def convention_evidence(raw_at_gauges: NDArray, components: tuple[str, ...] | No
             continue
         declared_w = float(np.sum(w * np.nan_to_num(resid_d)) / w.sum())
         alt_w = float(np.sum(w * np.nan_to_num(r)) / w.sum())
-        if declared_w > RESIDUAL_LIMIT and alt_w * BETTER_BY <= declared_w \
-                and (weighted is None or alt_w < weighted.residual):
-            weighted = Alternative(order=order, shear=sh, declared=declared_w, residual=alt_w,
-                                   gauges=tuple(int(k) for k in np.flatnonzero(w)))
+        if declared_w > RESIDUAL_LIMIT and alt_w * BETTER_BY <= declared_w:
+            fits.append(Alternative(order=order, shear=sh, declared=declared_w, residual=alt_w,
+                                    gauges=tuple(int(k) for k in np.flatnonzero(w))))
+    if fits:
+        # alternatives that fit equally well (within TIE): the one nearest the declared wins
+        least = min(a.residual for a in fits)
+        weighted = min(fits, key=lambda a: (a.residual > least + TIE, a.shear != shear,
+                                            a.order != components, a.residual))
     declared = scores[0][2]
     best = min(scores, key=lambda s: np.inf if np.isnan(s[2]) else s[2])
     return {"declared": declared, "best": best, "weighted": weighted,

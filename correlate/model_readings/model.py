@@ -20,7 +20,6 @@ from correlate.core.errors import (
     CorrelateError,
     CorrelateWarning,
     GaugeError,
-    GaugeOutsideMeshError,
     ModelError,
 )
 from correlate.model_readings.conventions import convention_warnings
@@ -191,17 +190,14 @@ def locate(study: Study, sources: dict[Path, ModelSource], gauges: pd.DataFrame)
         locator = gauge_locator(mesh, gauges, snap_tol=snap_tol, position_tol=study.position_tol,
                                 band=study.band)
     with progress.step(f"locating {len(gauges)} gauges and building their operator"):
-        try:
-            op = build_operator(mesh, gauges, position_tol=study.position_tol,
-                                angle_tol=study.angle_tol, snap_tol=snap_tol,
-                                calibration_poisson=study.calibration_poisson,
-                                grid_points=study.grid_points, band=study.band, locator=locator,
-                                length_unit=study.length_unit)
-        except GaugeOutsideMeshError:
-            line = unit_mismatch(study, mesh, locator, gauges, snap_tol)
-            if line is not None:
-                raise GaugeError(line) from None
-            raise
+        line = unit_mismatch(study, mesh, locator, gauges, snap_tol)
+        if line is not None:
+            raise GaugeError(line)
+        op = build_operator(mesh, gauges, position_tol=study.position_tol,
+                            angle_tol=study.angle_tol, snap_tol=snap_tol,
+                            calibration_poisson=study.calibration_poisson,
+                            grid_points=study.grid_points, band=study.band, locator=locator,
+                            length_unit=study.length_unit)
     return Model(study=study, sources=sources, gauges=gauges, operator=op, locator=locator)
 
 
@@ -211,36 +207,52 @@ UNIT_FACTORS = ((25.4, "a gauge map in inches against a model in millimetres"),
                 (1000.0, "a gauge map in metres against a model in millimetres"),
                 (1e-3, "a gauge map in millimetres against a model in metres"))
 ON_MODEL_SHARE = 0.5   # below this share of gauges on the surface, a unit factor is looked for
+CLOSER_BY = 10.0       # gauges that snap, but sit this many times closer once scaled up
+MIN_GAUGES = 3         # ... and are at least this many
 
 
 def unit_mismatch(study: Study, mesh: Mesh, locator: Locator, gauges: pd.DataFrame,
                   snap_tol: float) -> str | None:
     """One line when the gauge map fits the model only after a unit factor, else None.
 
-    Most surface gauges lie farther than ``snap_tol`` from the model, and every one lies within
-    it once the coordinates are multiplied by 25.4 or 1000 (or their inverses): the gauge map
-    and the model are in different units, whatever the study's ``length_unit`` says.
+    Two signs, each with every surface gauge within ``snap_tol`` of the model once the
+    coordinates are multiplied by the factor (25.4 or 1000, or their inverses): most gauges lie
+    off the model as given; or, for the enlarging factors (a gauge map in inches or metres
+    crowded near the origin of a model in millimetres, where it may snap to some face), at least
+    MIN_GAUGES snap as given but lie CLOSER_BY times closer to the surface once scaled (scaling
+    a gauge map that is right moves its gauges off the surface instead). The scaled points are
+    projected only when they all lie in the model's bounding box.
     """
     surface = (gauges["mount"] != "embedded").to_numpy()
     xyz = gauges[["x", "y", "z"]].to_numpy(dtype=float)[surface]
     prefer = gauges[["normal_x", "normal_y", "normal_z"]].to_numpy(dtype=float)[surface]
     if not len(xyz):
         return None
-
-    def share_on(factor: float) -> float:
-        return float(np.mean(locator.project(xyz * factor, prefer=prefer).distance <= snap_tol))
-
-    if share_on(1.0) >= ON_MODEL_SHARE:
+    lo, hi = mesh.bounds[0] - snap_tol, mesh.bounds[1] + snap_tol
+    given = locator.project(xyz, prefer=prefer).distance
+    snapped = float(np.mean(given <= snap_tol)) >= ON_MODEL_SHARE
+    if snapped and (len(xyz) < MIN_GAUGES or not np.median(given) > 0):
         return None
+    fits = []   # (median distance once scaled, factor, meaning)
     for factor, meaning in UNIT_FACTORS:
-        if share_on(factor) == 1.0:
-            unit = study.length_unit
-            return (f"{study.gauges_file.name}: the gauge coordinates ({_span(xyz)}) lie off the "
-                    f"model ({_span(mesh.bounds)} {unit}), but every gauge lies on the model "
-                    f"surface once they are multiplied by {factor:.6g}: that is {meaning}; the "
-                    f"study says length_unit = \"{unit}\" for both, so convert the gauge map (or "
-                    f"the model) to {unit}")
-    return None
+        scaled = xyz * factor
+        if (snapped and factor < 1) or not ((scaled >= lo) & (scaled <= hi)).all():
+            continue
+        distance = locator.project(scaled, prefer=prefer).distance
+        if not (distance <= snap_tol).all():
+            continue
+        if snapped and not np.median(distance) * CLOSER_BY <= np.median(given):
+            continue
+        fits.append((float(np.median(distance)), factor, meaning))
+    if not fits:
+        return None
+    _, factor, meaning = min(fits)  # on a small model several may fit: the closest wins
+    unit = study.length_unit
+    where = "lie off the model" if not snapped else "snap to the model only loosely"
+    return (f"{study.gauges_file.name}: the gauge coordinates ({_span(xyz)}) {where} "
+            f"({_span(mesh.bounds)} {unit}), but every gauge lies on the model surface once "
+            f"they are multiplied by {factor:.6g}: that is {meaning}; the study says "
+            f"length_unit = \"{unit}\" for both, so convert the gauge map (or the model) to {unit}")
 
 
 def _span(points: NDArray[np.float64]) -> str:

@@ -185,3 +185,38 @@ def test_thousands_dots_beside_decimal_commas_are_refused_not_guessed(tmp_path, 
     assert main(["--quiet", "check", str(study)]) == 2
     err = [line for line in capsys.readouterr().err.splitlines() if line.startswith("error:")]
     assert len(err) == 1 and "'1.512,2'" in err[0] and "thousands" in err[0]
+
+
+@pytest.mark.parametrize(("factor", "meaning"), [(25.4, "inches"), (1000.0, "metres")])
+def test_a_gauge_map_in_other_units_is_refused_with_the_factor(factor, meaning, tmp_path, capsys):
+    # Common practice: a gauge map exported in inches (25.4 mm per inch, exact by definition,
+    # NIST SP 811 appendix B) or in metres against a millimetre model. Scaled down, the gauges
+    # crowd near the block's corner at the origin, where some still snap to a face: the check
+    # must see that all of them land on the surface only once multiplied by the factor.
+    study = _study(tmp_path)
+    g = pd.read_csv(tmp_path / "gauges.csv", keep_default_na=False, dtype=str)
+    for c in "xyz":
+        g[c] = (g[c].astype(float) / factor).map(repr)
+    g.to_csv(tmp_path / "gauges.csv", index=False)
+    before = _hashes(tmp_path)
+    assert main(["check", str(study)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and f"multiplied by {factor:g}" in err[0] and meaning in err[0]
+    assert _hashes(tmp_path) == before
+
+
+def test_check_reports_the_problems_of_study_gauge_map_and_readings_together(tmp_path, capsys):
+    # README: `check` reads everything and reports every problem, one line each: a study key
+    # out of range, a gauge-map value out of range and a readings cell that is not a number.
+    study = _study(tmp_path)
+    _toml("relative = 0.10", "relative = 10")(study)
+    _gauge_column("nu0", 28.5)(study)
+    r = pd.read_csv(tmp_path / "readings.csv", dtype=str)
+    r.loc[2, "S00"] = "12,5x"
+    r.to_csv(tmp_path / "readings.csv", index=False)
+    assert main(["check", str(study)]) == 2
+    err = capsys.readouterr().err
+    assert "Traceback" not in err
+    assert re.search(r"\[criteria\] relative = 10", err)
+    assert re.search(r"S01.*nu0 = 28\.5", err)
+    assert re.search(r"readings\.csv.*S00", err)
