@@ -179,12 +179,34 @@ def _best_angle(ev: GaugeEvidence, criterion: Criterion, mask: NDArray[np.bool_]
     return _row(ev.gauge, "grid angle", detail, before, after, abs(a) <= ev.angle_tol, a)
 
 
+WIDENINGS = 3   # an offset found at the rim of the disc doubles the radius, at most this often
+RIM = 0.95      # ... "at the rim": this share of the radius or more
+
+
 def _best_offset(ev: GaugeEvidence, criterion: Criterion, mask: NDArray[np.bool_], before: float,
                  radius: float) -> dict[str, Any] | None:
+    """The offset search of :func:`_offset_in_disc`, widened while the best offset sits at the rim.
+
+    A best offset at the edge of the disc is clipped, not found: the disc's radius is doubled (at
+    most WIDENINGS times) and the detail says how far the search went.
+    """
+    for widened in range(WIDENINGS + 1):
+        found, x = _offset_in_disc(ev, criterion, mask, before, radius)
+        if x is None or float(np.hypot(*x)) < RIM * radius or widened == WIDENINGS:
+            break
+        radius *= 2.0
+    if found is not None and widened:
+        found["detail"] += f"; search widened to a radius of {radius:.3g}"
+    return found
+
+
+def _offset_in_disc(ev: GaugeEvidence, criterion: Criterion, mask: NDArray[np.bool_],
+                    before: float, radius: float) -> tuple[dict[str, Any] | None, Array | None]:
     """Search the grid centre offset over a disc: 21 x 21 scan, then Nelder-Mead from the best.
 
     When the readings depend on one offset component only (one load case in a linear field), the
-    fit is a line of offsets; the shortest one is reported and the detail says so.
+    fit is a line of offsets; the shortest one is reported and the detail says so. Returns the
+    row (None when no offset makes the gauge pass) and the offset found (None when none is).
     """
     m = ev.measured
     h = radius / 10.0
@@ -200,7 +222,7 @@ def _best_offset(ev: GaugeEvidence, criterion: Criterion, mask: NDArray[np.bool_
 
     r = _rms_rows(m, _evaluate(ev, X, np.zeros(len(X))), mask)
     if not np.any(np.isfinite(r)):
-        return None
+        return None, None
     x0 = X[np.argmin(r)]
     res = optimize.minimize(rms, x0, method="Nelder-Mead", options={
         "initial_simplex": x0 + np.array([[0.0, 0.0], [h / 2, 0.0], [0.0, h / 2]]),
@@ -218,11 +240,11 @@ def _best_offset(ev: GaugeEvidence, criterion: Criterion, mask: NDArray[np.bool_
         note = "; only the component along the strain gradient is determined, shortest shown"
     after = _fits(m, _evaluate(ev, x[None], np.zeros(1))[0], mask, criterion, before)
     if after is None:
-        return None
+        return None, x
     d = float(np.hypot(*x))
     detail = (f"grid centre moved by (along, across) = ({x[0]:+.3g}, {x[1]:+.3g}), distance "
               f"{d:.3g} (tolerance {ev.position_tol:g}){note}")
-    return _row(ev.gauge, "position offset", detail, before, after, d <= ev.position_tol, d)
+    return _row(ev.gauge, "position offset", detail, before, after, d <= ev.position_tol, d), x
 
 
 ALTERNATIVE_DETAIL = {

@@ -81,14 +81,14 @@ def _check_ranges(out: pd.DataFrame, source: str, problems: list[str]) -> None:
         values = out[col].to_numpy(dtype=float)
         bad = np.isfinite(values) & ((values < low if closed else values <= low) | (values >= high))
         for i in np.flatnonzero(bad):
-            bound = f"[{low:g}, {high:g})" if np.isfinite(high) else \
-                f"{'at least' if closed else 'above'} {low:g}"
+            bound = f"is outside [{low:g}, {high:g})" if np.isfinite(high) else \
+                f"must be {'at least' if closed else 'above'} {low:g}"
             problems.append(f"{source} row {out['row'].iloc[i]} (gauge '{out['gauge'].iloc[i]}'): "
-                            f"{col} = {values[i]:g} is outside {bound}, the range of {what}")
+                            f"{col} = {values[i]:g} {bound}, the range of {what}")
     gf, daq = out["gauge_factor"].to_numpy(dtype=float), out["daq_gauge_factor"].to_numpy(dtype=float)
     alone = [str(g) for g, a, b in zip(out["gauge"], gf, daq, strict=True)
              if np.isfinite(a) and not np.isfinite(b)]
-    if alone:
+    if alone and not problems:  # a refused map needs no warning beside its errors
         warnings.warn(f"{source}: gauge_factor is given without daq_gauge_factor for "
                       f"{', '.join(alone)}: no gauge-factor correction is applied to them (give "
                       "the factor the acquisition was set to)", CorrelateWarning, stacklevel=3)

@@ -296,6 +296,23 @@ def _meshio_formats(path: Path) -> list[str]:
     return formats
 
 
+# VTK cell type ids meshio's VTK readers skip with a warning (VTK's vtkCellType.h)
+VTK_SKIPPED = {2: "poly-vertex", 4: "poly-line", 6: "triangle strip", 8: "pixel", 11: "voxel",
+               15: "pentagonal prism", 16: "hexagonal prism", 42: "polyhedron"}
+
+
+def _refuse_dropped_cells(path: Path, complaint: str) -> None:
+    """meshio drops VTK cells it cannot handle and only prints a warning: refuse instead."""
+    ids = sorted({int(t) for t in re.findall(r"cannot handle \(types? \[?(\d+)", complaint)})
+    if "cannot handle" not in complaint:
+        return
+    named = ", ".join(f"{i} ({VTK_SKIPPED.get(i, 'unknown')})" for i in ids) or "unknown"
+    raise ModelError(f"{path.name}: holds cells of VTK type {named}, which the reader skips, so "
+                     "part of the model would be lost; write them as supported cells (a voxel is a "
+                     "hexahedron with nodes 3-4 and 7-8 swapped, a pixel a quad with nodes 3-4 "
+                     f"swapped); supported: {', '.join(SUPPORTED)}")
+
+
 def _meshio_read(path: Path) -> Any:
     import meshio
 
@@ -308,7 +325,7 @@ def _meshio_read(path: Path) -> Any:
     said, shouted = io.StringIO(), io.StringIO()
     try:
         with contextlib.redirect_stdout(said), contextlib.redirect_stderr(shouted):
-            return meshio.read(path)
+            m = meshio.read(path)
     except SystemExit:
         reason = " ".join(said.getvalue().split())
         raise ModelError(f"{path.name}: cannot be read as {' or '.join(formats)}"
@@ -323,6 +340,8 @@ def _meshio_read(path: Path) -> Any:
         if type(exc).__name__ == "ReadError":
             raise ModelError(f"{path.name}: cannot be read ({exc})") from None
         raise
+    _refuse_dropped_cells(path, shouted.getvalue())
+    return m
 
 
 def _open_series(path: Path) -> ModelSource | None:

@@ -228,10 +228,35 @@ def _raise(problems: list[str], name: str) -> None:
             "thousands with '.' beside decimal "
             f"commas ({len(grouped)} cell(s) in the file); the tool does not guess which is "
             "meant: export the log without thousands separators")
+    problems = _by_row(problems)
     if problems:
         more = len(problems) - _MAX_PROBLEMS
         tail = [f"{name}: ... and {more} more problems like these"] if more > 0 else []
         raise ReadingsFormatError(*problems[:_MAX_PROBLEMS], *tail)
+
+
+_CELL = re.compile(r"^(?P<where>.* line \d+), column (?P<column>[^:]*): (?P<what>.*)$")
+
+
+def _by_row(problems: list[str]) -> list[str]:
+    """One line per row: the cell problems of a row that has several are joined into one."""
+    rows: dict[str, list[tuple[str, str]]] = {}
+    for p in problems:
+        if m := _CELL.match(p):
+            rows.setdefault(m["where"], []).append((m["column"], m["what"].split(";")[0]))
+    out, said = [], set()
+    for p in problems:
+        m = _CELL.match(p)
+        if m is None or len(rows[m["where"]]) == 1:
+            out.append(p)
+        elif m["where"] not in said:
+            said.add(m["where"])
+            cells = "; ".join(f"column {c}: {w}" for c, w in rows[m["where"]])
+            comment = " (a comment line? the file must hold only the header, an optional units " \
+                      "row and data rows: delete it)" if "'#" in cells else ""
+            out.append(f"{m['where']}: {len(rows[m['where']])} cells cannot be read ({cells})"
+                       f"{comment}")
+    return out
 
 
 def _sentinel_sets(sentinels: Sequence[float | str]) -> tuple[NDArray[np.float64], frozenset[str]]:
@@ -301,6 +326,16 @@ def _columns(header: list[str], gauges: dict[str, str], loads: tuple[str, ...],
             hint = f"closest name: {close[0]!r}" if close else "no similar name"
             problems.append(f"{name}: no column {column!r} for {role}; {hint}; "
                             f"the file has columns: {have}")
+    repeated = [p for p in problems if " times in the header " in p]
+    if repeated:  # the mapping of the other columns cannot be trusted before the header is fixed
+        return columns, repeated
+    missing = [g for g in gauges if g not in columns]
+    if len(gauges) > 1 and len(missing) == len(gauges):
+        listed = ", ".join(gauges.values()) if len(gauges) <= 6 else \
+            ", ".join(list(gauges.values())[:5]) + ", ..."
+        return columns, [f"{name}: none of the {len(gauges)} gauge channels ({listed}) is a column "
+                         f"of this file, so it is not the readings of these gauges; check the "
+                         f"readings file the study names; the file has columns: {have}"]
     keys = [_STEP, _SEQUENCE, *loads, *gauges]
     problems += [f"{name}: {k!r} names two of step, sequence, the loads and the gauge ids; give "
                  "each its own name" for k in sorted({k for k in keys if keys.count(k) > 1})]

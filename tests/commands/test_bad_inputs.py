@@ -246,6 +246,22 @@ def _truncated(f):
     return s
 
 
+def _voxels(f):
+    # the block's hexahedra written as VTK voxels (type 11: the same cell, nodes 3-4 and 7-8
+    # swapped, VTK's vtkCellType.h), which meshio's VTU reader skips with only a warning
+    import pyvista as pv
+
+    s = small(f)
+    grid = pv.read(f / "block.vtu")
+    voxels = grid.cells_dict[pv.CellType.HEXAHEDRON][:, [0, 1, 3, 2, 4, 5, 7, 6]]
+    out = pv.UnstructuredGrid(np.c_[np.full(len(voxels), 8), voxels].ravel(),
+                              np.full(len(voxels), pv.CellType.VOXEL, np.uint8), grid.points)
+    for name in grid.point_data:
+        out.point_data[name] = grid.point_data[name]
+    out.save(f / "block.vtu")
+    return s
+
+
 def _empty_model(f):
     s = small(f)
     (f / "block.vtu").write_bytes(b"")
@@ -497,6 +513,8 @@ CATALOGUE: dict[str, Bad] = {
         _unknown_format, ("block.res", "no reader recognises")),
     "model-pyramid": Bad(
         _model_edit(_pyramid), ("block.vtu", "pyramid", "not supported", "supported: triangle")),
+    "model-voxels": Bad(
+        _voxels, ("block.vtu", "VTK type 11 (voxel)", "skips", "supported: triangle")),
     "model-lines-only": Bad(
         _model_edit(_lines_only), ("block.vtu", "line cells", "shell or solid")),
     "model-missing-array": Bad(

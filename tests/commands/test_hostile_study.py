@@ -64,6 +64,19 @@ def _blank_gauges(r: pd.DataFrame) -> pd.DataFrame:
     return r
 
 
+def _raw_readings(change_lines: Callable[[list[str]], list[str]]) -> Callable[[Path], None]:
+    def change(study: Path) -> None:
+        path = study.parent / "readings.csv"
+        path.write_text("\n".join(change_lines(path.read_text().splitlines())) + "\n")
+    return change
+
+
+def _header_twice(lines: list[str]) -> list[str]:
+    header = lines[0].split(",")
+    header[header.index("S01")] = "S00"   # two columns named S00, none named S01
+    return [",".join(header), *lines[1:]]
+
+
 LOAD = '[[load]]\ncolumn = "P_kN"\ncase = "pull"\nreference = 10.0\n'
 CASES = {
     "load-pasted-twice": (_append("\n" + LOAD), r"P_kN.*twice"),
@@ -101,6 +114,15 @@ CASES = {
     "all-loads-zero": (_readings(lambda r: r.assign(P_kN=0.0, S_kN=0.0)),
                        r"readings\.csv.*every load is zero"),
     "every-gauge-blank": (_readings(_blank_gauges), r"readings\.csv.*no gauge has a reading"),
+    # a row that fails in several cells is one problem: one line naming the row
+    "trailing-comment-line": (_raw_readings(lambda ls: [*ls, "# end of log, operator AB"]),
+                              r"readings\.csv line \d+: 2 cells cannot be read.*comment line"),
+    # a repeated header name: the mapping is not trusted, only the repetition is reported
+    "gauge-column-twice": (_raw_readings(_header_twice),
+                           r"readings\.csv: column 'S00' appears 2 times"),
+    # the gauge map named as the readings: one line, not one per missing channel
+    "readings-are-the-gauge-map": (_toml('file = "readings.csv"', 'file = "gauges.csv"'),
+                                   r"gauges\.csv: none of the \d+ gauge channels"),
 }
 
 
@@ -122,7 +144,7 @@ def test_refused_in_one_line_naming_the_culprit(case, tmp_path, capsys):
     err = capsys.readouterr().err
     errors = [line for line in err.splitlines() if line.startswith("error:")]
     assert code == 2, err
-    assert errors, err
+    assert len(err.strip().splitlines()) == 1, err                    # one line, no more
     assert any(re.search(culprit, line) for line in errors), err
     assert "Traceback" not in err
     assert _hashes(folder) == before                                 # inputs unchanged

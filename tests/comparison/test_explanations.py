@@ -329,3 +329,23 @@ def test_rosette_mirrored_detected_and_healthy_rosette_quiet():
     assert "rosette mirrored" in set(df["explanation"])
     quiet = diagnose_rosette("R-3", ["A", "B", "C"], predicted, predicted, mirrored, active, CRIT)
     assert quiet.empty
+
+
+def test_offset_at_the_rim_of_the_search_widens_it_instead_of_reporting_the_clip():
+    # True offset (4.8, -3.6), distance 6, with a search radius of 3.5: a disc of radius 3.5 can only
+    # offer its rim (distance 3.5), which does not fit the linear field exactly. The search doubles
+    # its radius and finds the true offset; 0.01 is the optimiser's stopping tolerance as above.
+    ev = _gauge("SG-5", phi=30.0, offset=(4.8, -3.6), position_tol=1.0)
+    assert _fails(ev)
+    row = diagnose([ev], CRIT, search_radius=3.5).query("explanation == 'position offset'")
+    assert len(row) == 1
+    detail = row["detail"].iloc[0]
+    along, across = map(float, re.findall(r"\(([-+\d.e]+), ([-+\d.e]+)\)", detail)[0])
+    np.testing.assert_allclose([along, across], [4.8, -3.6], atol=0.01)
+    assert "search widened to a radius of 7" in detail
+
+
+def test_offset_inside_the_search_is_not_widened():
+    ev = _gauge("SG-5", phi=30.0, offset=(2.4, -1.8), position_tol=1.0)
+    row = diagnose([ev], CRIT, search_radius=5.0).query("explanation == 'position offset'")
+    assert "widened" not in row["detail"].iloc[0]
