@@ -1,0 +1,73 @@
+"""Model files that are odd far from the gauges: the run goes on, says so, and the numbers hold.
+
+A NaN coordinate on a node no cell uses, and infinite strain values at a node far from every
+gauge, are seen in results exported by solvers (unused nodes, a singular corner). Neither can
+change a gauge's reading: the shape functions of the cells under the gauges never touch them. The
+reference is the run of the same study on the clean file (metamorphic check, common practice).
+"""
+
+from __future__ import annotations
+
+import hashlib
+from pathlib import Path
+
+import meshio
+import numpy as np
+import pandas as pd
+import pytest
+from builders import write_small_study
+
+from correlate.commands.cli import main
+
+
+def _hashes(folder: Path) -> dict[str, str]:
+    return {p.name: hashlib.sha256(p.read_bytes()).hexdigest()
+            for p in folder.iterdir() if p.is_file()}
+
+
+def _run(folder: Path, *extra: str) -> tuple[int, pd.DataFrame | None]:
+    out = folder.parent / f"{folder.name}-out"
+    code = main(["--quiet", "run", str(folder / "study.toml"), "--out", str(out), *extra])
+    return code, pd.read_csv(out / "gauges.csv") if code == 0 else None
+
+
+def _nan_unused_node(mesh: meshio.Mesh) -> meshio.Mesh:
+    points = np.vstack([mesh.points, [[np.nan, 0.0, 0.0]]])
+    data = {k: np.vstack([v, v[:1]]) for k, v in mesh.point_data.items()}
+    return meshio.Mesh(points, mesh.cells, point_data=data)
+
+
+def _inf_far_corner(mesh: meshio.Mesh) -> meshio.Mesh:
+    # the block's corner (4, 3, 0): the gauges sit on the top face z = 2 at x <= 3.3
+    far = int(np.argmin(np.linalg.norm(mesh.points - [4.0, 3.0, 0.0], axis=1)))
+    data = {k: v.copy() for k, v in mesh.point_data.items()}
+    data["E_side"][far] = np.inf
+    return meshio.Mesh(mesh.points, mesh.cells, point_data=data)
+
+
+@pytest.mark.parametrize(("change", "warned", "report"), [
+    (_nan_unused_node, "1 node(s) that no cell uses have non-finite coordinates", False),
+    pytest.param(_inf_far_corner, "non-finite (NaN or infinite) values", True,
+                 marks=pytest.mark.render),
+], ids=["nan-coordinate-unused-node", "inf-strain-far-from-gauges"])
+def test_odd_values_far_from_the_gauges_are_warned_and_change_nothing(tmp_path, capsys, change,
+                                                                        warned, report):
+    clean, odd = tmp_path / "clean", tmp_path / "odd"
+    for folder in (clean, odd):
+        folder.mkdir()
+        write_small_study(folder)
+    meshio.write(odd / "block.vtu", change(meshio.read(odd / "block.vtu")))
+    extra = () if report else ("--no-report",)
+    code, ref = _run(clean, *extra)
+    assert code == 0
+    capsys.readouterr()
+    before = _hashes(odd)
+    code, got = _run(odd, *extra)
+    err = capsys.readouterr().err
+    assert code == 0, err
+    assert warned in err and "Traceback" not in err
+    assert _hashes(odd) == before
+    # the readings are the same to the written precision (0.001 ue)
+    pd.testing.assert_frame_equal(got, ref, check_exact=False, atol=1e-3, rtol=0)
+    if report:
+        assert "<html" in (tmp_path / "odd-out" / "report.html").read_text(encoding="utf-8")
