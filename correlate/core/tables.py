@@ -22,18 +22,30 @@ LENGTH_DECIMALS = 6       # lengths (snap distances, positions) to 1e-6 of the m
 LENGTH_COLUMNS = {"snap_distance", "x", "y", "z"}
 
 
+NOISE = 1e-12   # a value this small beside its column's largest is round-off: written as 0
+
+
 def round_table(df: pd.DataFrame) -> pd.DataFrame:
-    """Round microstrain columns to 0.001 and other floats to fixed significant digits."""
+    """Round microstrain columns to 0.001 and other floats to fixed significant digits.
+
+    In the other float columns a value below NOISE times the column's largest magnitude (an angle
+    of 6.5e-17 degrees beside 45) is round-off of the arithmetic, not a figure: it is written as 0.
+    No column is written with a negative zero.
+    """
     df = df.copy()
     for col in df.columns:
         if not pd.api.types.is_float_dtype(df[col]):
             continue
         if col.endswith("_ue"):
-            df[col] = df[col].round(UE_DECIMALS)
+            df[col] = df[col].round(UE_DECIMALS) + 0.0  # + 0.0: no "-0"
         elif col in LENGTH_COLUMNS:
-            df[col] = df[col].round(LENGTH_DECIMALS) + 0.0  # + 0.0: no "-0"
+            df[col] = df[col].round(LENGTH_DECIMALS) + 0.0
         else:
-            df[col] = df[col].map(lambda v: _sig(v))
+            values = df[col].to_numpy(dtype=float)
+            finite = np.abs(values[np.isfinite(values)])
+            if finite.size:
+                values = np.where(np.abs(values) < NOISE * finite.max(), 0.0, values)
+            df[col] = pd.Series(values, index=df.index).map(lambda v: _sig(v) + 0.0)
     return df
 
 
@@ -103,7 +115,7 @@ def clean_json(obj: Any, key: str = "") -> Any:
         v = float(obj)
         if not math.isfinite(v):
             return None
-        return round(v, UE_DECIMALS) if key.endswith("_ue") else _sig(v)
+        return round(v, UE_DECIMALS) + 0.0 if key.endswith("_ue") else _sig(v) + 0.0
     if isinstance(obj, Path):
         return str(obj)
     if isinstance(obj, datetime.date | datetime.time):  # TOML dates and times

@@ -36,3 +36,14 @@ def test_toml_dates_in_the_summary_are_written_as_iso_text(tmp_path):
     back = json.loads((tmp_path / "s.json").read_text(encoding="utf-8"))
     assert back["document"] == {"prepared_date": "2026-11-30", "issued": "2026-12-01T09:30:00"}
     assert isinstance(raw["document"]["prepared_date"], datetime.date)
+
+
+def test_round_off_is_written_as_zero_and_no_negative_zero(tmp_path):
+    # 6.5e-17 beside 45 is the round-off of a double (machine epsilon 2.2e-16 times the
+    # operands, IEEE 754 binary64), not a figure; -0 is a sign of round-off too. A column whose
+    # values are all tiny keeps them: it is their own scale.
+    df = pd.DataFrame({"angle_deg": [6.5e-17, 45.0, -1e-15], "ratio": [1e-30, 2e-30, 3e-30],
+                       "delta_ue": [-6.5e-17, 12.0, -0.0004]})
+    write_csv(df, tmp_path / "t.csv")
+    lines = (tmp_path / "t.csv").read_text().splitlines()
+    assert lines[1:] == ["0,1e-30,0", "45,2e-30,12", "0,3e-30,0"]
