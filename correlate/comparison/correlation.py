@@ -10,6 +10,7 @@ result is a :class:`Correlation` that the outputs and the report read.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -38,11 +39,21 @@ from correlate.comparison.verdict import summarise
 from correlate.core import progress
 from correlate.core.errors import StudyError
 from correlate.core.units import MICROSTRAIN
+from correlate.measurement.channels import (
+    ChainApplied,
+    apply_chain,
+    chain_used,
+    corrections_table,
+)
 from correlate.measurement.corrections import channel_scale
 from correlate.measurement.tare import tare_readings
 from correlate.model_readings.model import Model, case_rows, prepare
 from correlate.model_readings.table import band_limits
 from correlate.readers.study import Study
+
+CHAIN_ORDER = ("polarity", "gauge-factor ratio and lead-wire factor (or shunt gain)",
+               "quarter-bridge non-linearity", "thermal output since the tare temperature",
+               "gauge factor at temperature", "tare")
 
 
 @dataclass
@@ -68,6 +79,8 @@ class Correlation:
     summary: dict[str, Any]
     readings_info: dict[str, Any] = field(default_factory=dict)
     rows_by_case: dict[str, dict[str, NDArray]] = field(default_factory=dict)
+    chain: ChainApplied | None = None    # the measurement chain, when the study uses it
+    corrections: pd.DataFrame | None = None  # corrections.csv, when the study uses it
 
     @property
     def reference(self) -> int:
@@ -96,13 +109,27 @@ def measured_readings(study: Study, model: Model) -> tuple[Any, Steps, NDArray[n
 
     Returns the readings record, the steps and the measured readings (s, g) in microstrain.
     """
+    readings, steps, measured, _ = chain_readings(study, model)
+    return readings, steps, measured
+
+
+def chain_readings(study: Study, model: Model
+                  ) -> tuple[Any, Steps, NDArray[np.float64], ChainApplied | None]:
+    """:func:`measured_readings` with the measurement chain's record (None when not used)."""
     gauges = model.gauges
     with progress.step("reading the test data"):
         readings, steps, _ = read_test_data(study, gauges)
     names = gauges["gauge"].tolist()
-    scale = channel_scale(gauges) * reverse_signs(gauges, study)
+    signs = reverse_signs(gauges, study)
+    if chain_used(gauges, study.chain):
+        signs = signs * gauges["polarity"].fillna(1.0).to_numpy(dtype=float)
+        chain = apply_chain(readings.table[names].to_numpy(dtype=float), signs, gauges,
+                            study.chain, readings.table, steps, units=readings.load_units,
+                            source=Path(readings.path).name)
+        return readings, steps, chain.measured_ue, chain
+    scale = channel_scale(gauges) * signs
     raw = readings.table[names].to_numpy(dtype=float) * scale[None, :]
-    return readings, steps, tare_readings(raw, steps)
+    return readings, steps, tare_readings(raw, steps), None
 
 
 def model_readings(study: Study, model: Model, steps: Steps) -> ModelForTest:
@@ -174,7 +201,7 @@ def correlate_study(study: Study, model: Model | None = None) -> Correlation:
     _require_loads(study)
     model = model or prepare(study)
     names = model.gauges["gauge"].tolist()
-    readings, steps, measured = measured_readings(study, model)
+    readings, steps, measured, chain = chain_readings(study, model)
     _require_pairs(study, steps, measured)
     progress.pause("readings")
     m = model_readings(study, model, steps)
@@ -194,12 +221,17 @@ def correlate_study(study: Study, model: Model | None = None) -> Correlation:
                                         model.operator)
     summary = summarise(study, model, readings, steps, names, result, per_gauge, flags, diag,
                         ref, st, reversed_)
+    corrections = None if chain is None else corrections_table(chain, ref)
+    if corrections is not None:
+        summary["measurement_chain"] = {
+            "order": CHAIN_ORDER, "reference_step": summary["reference_step"],
+            "channels": corrections.to_dict(orient="records")}
     return Correlation(study=study, model=model, steps=steps, gauges=names, measured=measured,
                        predicted=m.predicted, predicted_axial=m.axial, band_low=m.low.T,
                        band_high=m.high.T, contributions=m.contributions, status=st, flags=flags,
-                       gauge_table=gauge_table(names, steps, measured, m, st),
+                       gauge_table=gauge_table(names, steps, measured, m, st, chain),
                        per_gauge=per_gauge, rosettes=ros, diagnoses=diag, summary=summary,
-                       rows_by_case=m.rows_by_case,
+                       rows_by_case=m.rows_by_case, chain=chain, corrections=corrections,
                        readings_info={"ignored": list(readings.ignored),
                                       "load_units": readings.load_units})
 
@@ -230,8 +262,9 @@ def _compare(study: Study, model: Model, steps: Steps, names: list[str], measure
 
 
 def gauge_table(names: list[str], steps: Steps, measured: NDArray, m: ModelForTest,
-                st: Statuses) -> pd.DataFrame:
-    """The rows of ``gauges.csv``: one per gauge and step."""
+                st: Statuses, chain: ChainApplied | None = None) -> pd.DataFrame:
+    """The rows of ``gauges.csv``: one per gauge and step (``raw_ue`` beside ``measured_ue``
+    when the measurement chain is used)."""
     s, g = measured.shape
     low, high = m.low, m.high
     in_band = (measured >= low.T - 1e-9) & (measured <= high.T + 1e-9)
@@ -243,6 +276,7 @@ def gauge_table(names: list[str], steps: Steps, measured: NDArray, m: ModelForTe
         "sequence": np.repeat(steps.sequence, g),
         "predicted_ue": m.predicted.ravel(),
         "measured_ue": measured.ravel(),
+        **({} if chain is None else {"raw_ue": chain.raw_ue.ravel()}),
         "difference_ue": st.difference.ravel(),
         "ratio": st.ratio.ravel(),
         "relative": st.relative.ravel(),
@@ -256,5 +290,12 @@ def gauge_table(names: list[str], steps: Steps, measured: NDArray, m: ModelForTe
     })
 
 
-__all__ = ["Correlation", "ModelForTest", "correlate_study", "gauge_table", "measured_readings",
-           "model_readings"]
+__all__ = [
+    "Correlation",
+    "ModelForTest",
+    "chain_readings",
+    "correlate_study",
+    "gauge_table",
+    "measured_readings",
+    "model_readings",
+]

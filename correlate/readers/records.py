@@ -73,6 +73,36 @@ class Override:
 
 
 @dataclass(frozen=True)
+class GaugeLot:
+    """A ``[[gauge_lot]]``: the data sheet of one lot of gauges (thermal output, gauge factor).
+
+    ``thermal_output`` holds a0 .. a4 [microstrain / degC^j] at a gauge factor of 2.00,
+    ``gauge_factor_tc`` is in % per 100 degC (None: not given), temperatures in degC.
+    """
+
+    name: str
+    thermal_output: tuple[float, ...]
+    gauge_factor: float
+    range_C: tuple[float, float]
+    gauge_factor_tc: float | None = None
+    reference_C: float = 24.0
+
+
+@dataclass(frozen=True)
+class ChainSettings:
+    """The study's measurement-chain tables: lots, the thermocouple column, non-linearity."""
+
+    lots: dict[str, GaugeLot] = field(default_factory=dict)
+    thermal_column: str | None = None      # [thermal] column: default thermocouple column
+    nonlinearity: str = ""                 # [gauges] nonlinearity: "quarter-bridge" or ""
+
+    @property
+    def used(self) -> bool:
+        """Whether the study gives any measurement-chain key."""
+        return bool(self.lots or self.thermal_column or self.nonlinearity)
+
+
+@dataclass(frozen=True)
 class Study:
     """Everything the study file says, validated, with absolute paths."""
 
@@ -106,6 +136,7 @@ class Study:
     health: dict[str, float] = field(default_factory=dict)
     report: dict[str, Any] = field(default_factory=dict)
     raw: dict[str, Any] = field(default_factory=dict)
+    chain: ChainSettings = ChainSettings()
 
     @property
     def material(self) -> Material | None:
