@@ -17,69 +17,29 @@ import json
 import numpy as np
 import pandas as pd
 import pytest
-from builders import BLOCK_LOADS, block_readings, default_gauges, write_small_study
+from builders import (
+    BLOCK_LOADS,
+    chain_study,
+    default_gauges,
+    write_small_study,
+)
+from builders import (
+    CHAIN_GF as GF,
+)
+from builders import (
+    CHAIN_GF_DAQ as GF_DAQ,
+)
+from builders import (
+    CHAIN_RG as RG,
+)
+from builders import (
+    CHAIN_TEMPS as TEMPS,
+)
+from builders import (
+    chain_thermal_output as thermal_output,
+)
 
 from correlate.commands.cli import main
-
-RG = 350.0                      # ohm, gauge and completion resistors
-GF, GF_DAQ, TC = 2.11, 2.00, 1.2  # lot's gauge factor, acquisition setting, % per 100 degC
-TO = (-28.0, 2.2, -0.055, 3.0e-4, -5.0e-7)  # invented thermal output a0..a4 [ue / degC^j]
-TEMPS = (23.0, 35.0, 50.0, 80.0, 95.0)      # degC per step of BLOCK_LOADS (a heated test)
-PRESTRAIN = (420.0, -260.0, 150.0)          # ue in each grid at the tare (bonding, preload)
-LEADS = {"S00": ("3-wire", 4.0), "S01": ("2-wire", 2.5), "S02": ("3-wire", 6.0)}
-STUDY = ('[[gauge_lot]]\nname = "L1"\nthermal_output = [-28.0, 2.2, -0.055, 3.0e-4, -5.0e-7]\n'
-         'gauge_factor = 2.11\ngauge_factor_tc = 1.2\nrange_C = [-50.0, 150.0]\n'
-         '[thermal]\ncolumn = "temp_C"\n')
-
-
-def thermal_output(t):
-    return sum(a * np.asarray(t, dtype=float) ** j for j, a in enumerate(TO))
-
-
-def indicated(true_ue, t, wiring, rl):
-    """What a constant-voltage quarter bridge shows at GF_DAQ, from the circuit.
-
-    Arm 1 is the gauge with its lead(s), arm 2 the completion resistor with the second lead of a
-    3-wire circuit (TT-612, from memory), arms 3 and 4 the instrument's half bridge. A 2-wire
-    circuit is taken balanced (completion arm equal to the gauge arm at zero strain, as the
-    bridge balance leaves it; common practice), where RG/(RG + 2 RL) is exact.
-    """
-    x = GF * (1 + TC / 100 * (np.asarray(t) - 24.0) / 100) * true_ue * 1e-6 \
-        + 2.0 * (thermal_output(t) - thermal_output(TEMPS[0])) * 1e-6    # dR/R of the grid
-    leads_in_gauge_arm = 2.0 if wiring == "2-wire" else 1.0
-    r1 = RG * (1 + x) + leads_in_gauge_arm * rl
-    r2 = RG + leads_in_gauge_arm * rl
-    ratio = r1 / (r1 + r2) - RG / (RG + RG)
-    return 4.0 * ratio / GF_DAQ * 1e6
-
-
-def chain_study(folder, gauges, *, shunt=False, wiring_rows=LEADS):
-    """The block study with the chain's columns and tables, and readings made by the circuit."""
-    g = gauges.copy()
-    g["gauge_ohm"] = RG
-    g["wiring"] = [wiring_rows[n][0] for n in g["gauge"]]
-    g["lead_ohm"] = [wiring_rows[n][1] for n in g["gauge"]]
-    g["daq_gauge_factor"] = GF_DAQ
-    g["lot"] = "L1"
-    if shunt:
-        # the shunt across the gauge, at the gauge end of the 3-wire leads, sees RG/(RG + RL)
-        # (TN-514, from memory): a measured over expected response of exactly that
-        g["shunt_gain"] = [RG / (RG + LEADS[n][1]) if n == "S02" else "" for n in g["gauge"]]
-    truth = block_readings(gauges)                        # the model's readings: the truth
-    names = list(gauges["gauge"])
-    raw = pd.DataFrame({"step": truth["step"], "P_kN": truth["P_kN"], "S_kN": truth["S_kN"],
-                        "temp_C": TEMPS})
-    for j, n in enumerate(names):
-        wiring, rl = LEADS[n]
-        raw[n] = indicated(truth[n].to_numpy() + PRESTRAIN[j], np.array(TEMPS), wiring, rl)
-    study = write_small_study(folder, gauges=g, extra_toml=STUDY)
-    study.write_text(study.read_text(encoding="utf-8").replace(
-        "[gauges]\n", '[gauges]\nnonlinearity = "quarter-bridge"\n'), encoding="utf-8")
-    with open(folder / "readings.csv", "w", encoding="utf-8", newline="\n") as fh:
-        fh.write(",".join(raw.columns) + "\n" + ",".join(["", "kN", "kN", "degC"]
-                                                         + ["ue"] * len(names)) + "\n")
-        raw.to_csv(fh, index=False, header=False, lineterminator="\n", float_format="%.12g")
-    return study, truth, raw
 
 
 @pytest.fixture
