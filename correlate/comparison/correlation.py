@@ -206,7 +206,8 @@ def correlate_study(study: Study, model: Model | None = None) -> Correlation:
     progress.pause("readings")
     m = model_readings(study, model, steps)
     progress.pause("model")
-    flags = health_flags(measured, names, steps, model.gauges, study, readings.flags)
+    flags = health_flags(measured, names, steps, model.gauges, study, readings.flags,
+                         raw=None if chain is None else chain.raw_ue)
     excl = dispose_health(flags, study, names, steps)
     reversed_ = flag_reversed(measured, m.predicted, names, steps, excl, flags, study)
     excl.text[:] = np.where(excl.text == "", "flagged", excl.text)

@@ -165,3 +165,21 @@ def test_temperature_outside_the_lot_range_is_refused_not_extrapolated(tmp_path,
     assert main(["run", str(study), "--out", str(tmp_path / "run"), "--no-report"]) == 2
     err = capsys.readouterr().err
     assert f"temperature 95 degC at step {len(BLOCK_LOADS) - 1}" in err and "not extrapolated" in err
+
+
+def test_dead_channel_is_judged_as_read_not_after_the_thermal_correction(tmp_path, gauges):
+    # An open channel reads flat whatever the temperature; the thermal-output correction would
+    # make it vary by tens of ue, so dead (and railed) channels are judged on raw_ue (common
+    # practice: channel checks are made on what the instrument read).
+    study, _, raw = chain_study(tmp_path, gauges)
+    raw["S01"] = -12.0
+    with open(tmp_path / "readings.csv", "w", encoding="utf-8", newline="\n") as fh:
+        fh.write(",".join(raw.columns) + "\n" + ",".join(["", "kN", "kN", "degC", "ue", "ue", "ue"])
+                 + "\n")
+        raw.to_csv(fh, index=False, header=False, lineterminator="\n", float_format="%.12g")
+    assert main(["--quiet", "run", str(study), "--out", str(tmp_path / "run"), "--no-report"]) == 0
+    flags = pd.read_csv(tmp_path / "run" / "flags.csv")
+    assert ((flags["gauge"] == "S01") & (flags["flag"] == "dead")).any()
+    table = pd.read_csv(tmp_path / "run" / "gauges.csv")
+    corrected = table.loc[table["gauge"] == "S01", "measured_ue"]
+    assert np.ptp(corrected) > 5.0    # the corrected readings alone would not look dead
