@@ -11,8 +11,10 @@ from __future__ import annotations
 import math
 from typing import Any
 
-from correlate.readers.records import ChainSettings, GaugeLot
+from correlate.readers.records import CaseThermal, ChainSettings, GaugeLot
 
+CASE_THERMAL_KEYS = {"temperature", "alpha", "reference_C"}
+_ALPHA_LIMIT = 1e-3   # 1/degC: engineering materials lie within 0 .. 5e-5; 1e-3 is a unit slip
 LOT_KEYS = {"name", "thermal_output", "gauge_factor", "gauge_factor_tc", "reference_C", "range_C"}
 THERMAL_KEYS = {"column"}
 NONLINEARITY = ("", "none", "quarter-bridge")
@@ -64,6 +66,47 @@ def parse_chain(raw: dict[str, Any], name: str, problems: list[str]) -> ChainSet
         nonlinearity = ""
     return ChainSettings(lots=lots, thermal_column=column,
                          nonlinearity="" if nonlinearity == "none" else nonlinearity)
+
+
+def parse_case_thermal(raw: dict[str, Any], where: str, name: str, kind: str,
+                       problems: list[str]) -> CaseThermal | None:
+    """A case's ``thermal = { temperature, alpha, reference_C }``, or None when absent.
+
+    Appends one line per problem: a key missing or unknown, a number in quotes, an ``alpha``
+    that is not per degC, a stress case (its strain from Hooke's law is mechanical already).
+    """
+    if "thermal" not in raw:
+        return None
+    table = raw["thermal"]
+    if not isinstance(table, dict):
+        problems.append(f"{name}: {where} thermal = {table!r}; expected {{ temperature = \"T\", "
+                        "alpha = 23e-6, reference_C = 20.0 }")
+        return None
+    before = len(problems)
+    for key in table:
+        if key not in CASE_THERMAL_KEYS:
+            problems.append(f"{name}: {where} thermal: unknown key '{key}'; valid keys: "
+                            f"{', '.join(sorted(CASE_THERMAL_KEYS))}")
+    array = table.get("temperature")
+    if not isinstance(array, str) or not array.strip():
+        problems.append(f"{name}: {where} thermal temperature = {array!r}; expected the name of "
+                        "the model's temperature array")
+    for key in ("alpha", "reference_C"):
+        if key not in table:
+            problems.append(f"{name}: {where} thermal needs {key} ("
+                            + ("the gauged material's expansion coefficient per degC, e.g. 23e-6"
+                               if key == "alpha" else "the model's stress-free temperature in "
+                               "degC") + ")")
+    alpha = _value(table, "alpha", None, f"{where} thermal", name, problems, low=0.0,
+                   high=_ALPHA_LIMIT)
+    ref = _value(table, "reference_C", None, f"{where} thermal", name, problems,
+                 low=_ABSOLUTE_ZERO_C, high=5000.0)
+    if kind == "stress":
+        problems.append(f"{name}: {where} is a stress case: the strain from Hooke's law is "
+                        "mechanical already; remove thermal or give the total strain array")
+    if len(problems) > before:
+        return None
+    return CaseThermal(temperature=array.strip(), alpha=float(alpha), reference_C=float(ref))  # type: ignore[arg-type,union-attr]
 
 
 def _lot(item: Any, i: int, name: str, problems: list[str]) -> GaugeLot | None:
@@ -126,4 +169,5 @@ def _value(table: dict[str, Any], key: str, default: float | None, where: str, n
     return float(value)
 
 
-__all__ = ["LOT_KEYS", "NONLINEARITY", "THERMAL_KEYS", "parse_chain"]
+__all__ = ["CASE_THERMAL_KEYS", "LOT_KEYS", "NONLINEARITY", "THERMAL_KEYS", "parse_case_thermal",
+           "parse_chain"]

@@ -11,6 +11,16 @@ from typing import Any
 
 
 @dataclass(frozen=True)
+class CaseThermal:
+    """A thermo-mechanical case's ``thermal = {...}``: the temperature array, the gauged
+    material's expansion coefficient [1/degC] and the model's stress-free temperature [degC]."""
+
+    temperature: str
+    alpha: float
+    reference_C: float
+
+
+@dataclass(frozen=True)
 class Case:
     """One FE load case: which array holds it and how to read it."""
 
@@ -25,6 +35,7 @@ class Case:
     axes: str | None = None
     check_stress: str | None = None
     match: dict[str, Any] | None = None
+    thermal: CaseThermal | None = None       # thermo-mechanical: mechanical strain is read
 
     @property
     def is_series(self) -> bool:
