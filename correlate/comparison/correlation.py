@@ -102,6 +102,7 @@ class ModelForTest:
     contributions: NDArray[np.float64]   # (s, g, C) per case
     not_modelled: NDArray[np.bool_]      # (s,) rows a series case does not reach
     rows_by_case: dict[str, dict[str, NDArray]]
+    height: NDArray[np.float64] | None = None  # (s, g) grid-height correction, microstrain
 
 
 def measured_readings(study: Study, model: Model) -> tuple[Any, Steps, NDArray[np.float64]]:
@@ -166,7 +167,26 @@ def model_readings(study: Study, model: Model, steps: Steps) -> ModelForTest:
     low, high = band_limits(op, combined)
     return ModelForTest(predicted=combined[nominal].T, axial=combined_axial[nominal].T, low=low,
                         high=high, contributions=contributions, not_modelled=not_modelled,
-                        rows_by_case=rows_by_case)
+                        rows_by_case=rows_by_case,
+                        height=height_correction(study, model, steps, rows_by_case))
+
+
+def height_correction(study: Study, model: Model, steps: Steps,
+                      rows_by_case: dict[str, dict[str, NDArray]]) -> NDArray[np.float64] | None:
+    """The grid-height correction of the model reading (s, g) in microstrain, superposed like
+    the readings; None without heights. Series cases: NaN (their states pair row by row)."""
+    if not any("height_indicated" in r for r in rows_by_case.values()):
+        return None
+    nominal = model.operator.row_kind == 0
+    n = int(nominal.sum())
+    out = np.zeros((len(steps.step), n))
+    for j, case in enumerate(study.cases):
+        if case.is_series:
+            return np.full((len(steps.step), n), np.nan)
+        rows = rows_by_case[case.name].get("height_indicated")
+        if rows is not None:
+            out += np.outer(steps.factors[:, j], rows[nominal]) * MICROSTRAIN
+    return out
 
 
 def _require_loads(study: Study) -> None:
@@ -222,7 +242,7 @@ def correlate_study(study: Study, model: Model | None = None) -> Correlation:
                                         model.operator)
     summary = summarise(study, model, readings, steps, names, result, per_gauge, flags, diag,
                         ref, st, reversed_)
-    corrections = None if chain is None else corrections_table(chain, ref)
+    corrections = None if chain is None else corrections_table(chain, ref, m.height)
     if corrections is not None:
         summary["measurement_chain"] = {
             "order": CHAIN_ORDER, "reference_step": summary["reference_step"],

@@ -173,7 +173,8 @@ def apply_chain(raw: Float, signs: Float, gauges: pd.DataFrame, chain: ChainSett
         lot=tuple(lots), temperature_column=tuple(columns), notes=tuple(notes))
 
 
-def corrections_table(chain: ChainApplied, reference: int) -> pd.DataFrame:
+def corrections_table(chain: ChainApplied, reference: int,
+                      height_ue: Float | None = None) -> pd.DataFrame:
     """The rows of ``corrections.csv``: one per channel, every factor and term at one step.
 
     Parameters
@@ -181,6 +182,8 @@ def corrections_table(chain: ChainApplied, reference: int) -> pd.DataFrame:
     chain : ChainApplied
     reference : int
         Row index of the reference step.
+    height_ue : ndarray (s, g), optional
+        The grid-height correction of the model reading (model side), written as ``height_ue``.
 
     Returns
     -------
@@ -189,9 +192,10 @@ def corrections_table(chain: ChainApplied, reference: int) -> pd.DataFrame:
         ``multiplier``), the terms at the reference step (``nonlinearity_ue``, ``thermal_ue``,
         ``gf_temperature_factor``, ``temperature_C``), ``raw_ue`` and ``measured_ue`` there and
         their difference ``change_ue``, the ``lot`` and ``temperature_column``, and a ``note``
-        saying which of the lead-wire factor and the shunt gain applied.
+        saying which of the lead-wire factor and the shunt gain applied; ``height_ue`` when given.
     """
     k = reference
+    height = {} if height_ue is None else {"height_ue": height_ue[k]}
     return pd.DataFrame({
         "gauge": list(chain.gauges),
         "gf_ratio": chain.gf_ratio,
@@ -208,6 +212,7 @@ def corrections_table(chain: ChainApplied, reference: int) -> pd.DataFrame:
         "lot": list(chain.lot),
         "temperature_column": list(chain.temperature_column),
         "note": list(chain.notes),
+        **height,
     })
 
 

@@ -12,7 +12,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-CHAIN_NUMERIC = ("gauge_ohm", "lead_ohm", "shunt_gain")
+CHAIN_NUMERIC = ("gauge_ohm", "lead_ohm", "shunt_gain", "height")
 CHAIN_TEXT = ("wiring", "nonlinearity", "lot", "temperature")
 CHAIN_COLUMNS = CHAIN_NUMERIC + CHAIN_TEXT
 WIRINGS = ("", "2-wire", "3-wire")
@@ -23,6 +23,8 @@ _RANGES = (
     ("lead_ohm", 0.0, True, "the resistance of one lead wire in ohm"),
     ("shunt_gain", 0.0, False, "the measured over the expected shunt-calibration response "
                                "(near 1)"),
+    ("height", 0.0, True, "the grid's height above the surface (backing plus adhesive) in the "
+                          "length unit"),
 )
 
 

@@ -30,8 +30,9 @@ def chain_rows(corrections: Any) -> list[dict[str, str]]:
         return []
     rows = []
     for r in corrections.itertuples(index=False):
+        height = getattr(r, "height_ue", np.nan)
         terms = (r.gf_ratio, r.lead_wire_factor, r.shunt_gain, r.nonlinearity_ue, r.thermal_ue,
-                 r.gf_temperature_factor)
+                 r.gf_temperature_factor, height if height != 0 else np.nan)
         if all(not np.isfinite(v) for v in terms) and r.multiplier == 1.0:
             continue
 
@@ -46,7 +47,8 @@ def chain_rows(corrections: Any) -> list[dict[str, str]]:
             "gf_t": shown(r.gf_temperature_factor, ".5f"),
             "temperature": shown(r.temperature_C, ".1f"), "lot": str(r.lot or DASH),
             "raw": shown(r.raw_ue, ".1f"), "measured": shown(r.measured_ue, ".1f"),
-            "change": shown(r.change_ue, "+.2f"), "note": str(r.note)})
+            "change": shown(r.change_ue, "+.2f"), "height": shown(height, "+.2f"),
+            "note": str(r.note)})
     return rows
 
 
