@@ -10,7 +10,7 @@ from typing import Any
 
 import pandas as pd
 
-from correlate.comparison.pairing import read_test_data
+from correlate.comparison.correlation import chain_readings
 from correlate.core.errors import CorrelateError
 from correlate.model_readings.conventions import convention_warnings
 from correlate.model_readings.model import (
@@ -67,7 +67,7 @@ def check_study(study: Study) -> tuple[Model, pd.DataFrame, list[str]]:
                 for fe_index, _ in case_steps(model, case)[:1]:
                     _attempt(problems, case_rows, model, case, fe_index)
         if study.readings_file is not None and gauges is not None:
-            _attempt(problems, read_test_data, study, gauges)
+            _attempt(problems, chain_readings, study, gauges)  # the chain's inputs too
         if problems or model is None:
             raise CorrelateError(*dict.fromkeys(problems))
         notes = convention_warnings(model)

@@ -110,14 +110,14 @@ def measured_readings(study: Study, model: Model) -> tuple[Any, Steps, NDArray[n
 
     Returns the readings record, the steps and the measured readings (s, g) in microstrain.
     """
-    readings, steps, measured, _ = chain_readings(study, model)
+    readings, steps, measured, _ = chain_readings(study, model.gauges)
     return readings, steps, measured
 
 
-def chain_readings(study: Study, model: Model
-                  ) -> tuple[Any, Steps, NDArray[np.float64], ChainApplied | None]:
-    """:func:`measured_readings` with the measurement chain's record (None when not used)."""
-    gauges = model.gauges
+def chain_readings(study: Study, gauges: pd.DataFrame
+                   ) -> tuple[Any, Steps, NDArray[np.float64], ChainApplied | None]:
+    """:func:`measured_readings` with the measurement chain's record (None when not used);
+    ``gauges`` is the gauge map (``check`` calls it before any gauge is located)."""
     with progress.step("reading the test data"):
         readings, steps, _ = read_test_data(study, gauges)
     names = gauges["gauge"].tolist()
@@ -221,7 +221,7 @@ def correlate_study(study: Study, model: Model | None = None) -> Correlation:
     _require_loads(study)
     model = model or prepare(study)
     names = model.gauges["gauge"].tolist()
-    readings, steps, measured, chain = chain_readings(study, model)
+    readings, steps, measured, chain = chain_readings(study, model.gauges)
     _require_pairs(study, steps, measured)
     progress.pause("readings")
     m = model_readings(study, model, steps)

@@ -183,3 +183,12 @@ def test_dead_channel_is_judged_as_read_not_after_the_thermal_correction(tmp_pat
     table = pd.read_csv(tmp_path / "run" / "gauges.csv")
     corrected = table.loc[table["gauge"] == "S01", "measured_ue"]
     assert np.ptp(corrected) > 5.0    # the corrected readings alone would not look dead
+
+
+def test_check_reports_the_chain_problems_before_a_run(tmp_path, gauges, capsys):
+    study, _, _ = chain_study(tmp_path, gauges)
+    g = pd.read_csv(tmp_path / "gauges.csv", dtype=str, keep_default_na=False)
+    g.loc[1, "lot"] = "L9"
+    g.to_csv(tmp_path / "gauges.csv", index=False)
+    assert main(["check", str(study)]) == 2
+    assert "gauge 'S01': lot 'L9' is not defined" in capsys.readouterr().err
