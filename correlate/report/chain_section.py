@@ -24,7 +24,7 @@ def chain_rows(corrections: Any) -> list[dict[str, str]]:
     Returns
     -------
     list of dict
-        ``gauge``, the factors and terms as text (a dash where not applied), and the note.
+        ``gauge``, the factors and terms as text (a dash where not applied).
     """
     if corrections is None:
         return []
@@ -45,11 +45,23 @@ def chain_rows(corrections: Any) -> list[dict[str, str]]:
             "nonlinearity": shown(r.nonlinearity_ue, ".2f"),
             "thermal": shown(r.thermal_ue, ".2f"),
             "gf_t": shown(r.gf_temperature_factor, ".5f"),
-            "temperature": shown(r.temperature_C, ".1f"), "lot": str(r.lot or DASH),
+            "temperature": shown(r.temperature_C, ".1f"),
             "raw": shown(r.raw_ue, ".1f"), "measured": shown(r.measured_ue, ".1f"),
-            "change": shown(r.change_ue, "+.2f"), "height": shown(height, "+.2f"),
-            "note": str(r.note)})
+            "change": shown(r.change_ue, "+.2f"), "height": shown(height, "+.2f")})
     return rows
 
 
-__all__ = ["chain_rows"]
+def chain_notes(corrections: Any) -> list[dict[str, str]]:
+    """Step 1 of the chain in words and the gauge lot, each distinct note once with the channels
+    it applies to."""
+    if corrections is None:
+        return []
+    groups: dict[str, list[str]] = {}
+    for gauge, note, lot in zip(corrections["gauge"], corrections["note"], corrections["lot"],
+                                strict=True):
+        text = f"{note}; gauge lot {lot}" if lot else str(note)
+        groups.setdefault(text, []).append(str(gauge))
+    return [{"note": note, "gauges": ", ".join(gauges)} for note, gauges in groups.items()]
+
+
+__all__ = ["chain_notes", "chain_rows"]

@@ -31,6 +31,8 @@ def test_report_names_each_corrected_channel_and_its_thermal_output(tmp_path):
     shown = f"{(thermal_output(t) - thermal_output(TEMPS[0])) * 2.0 / GF:.2f}"
     assert shown == f"{corrections.loc['S00', 'thermal_ue']:.2f}"
     assert f'<td class="num">{shown}</td>' in section
+    # the shunt channel's note, listed once with the channel it applies to
+    assert '<span class="id">S02</span>: ' in section
     assert "lead-wire factor not applied" in section
 
 
