@@ -27,7 +27,7 @@ from correlate.readers.records import ChainSettings
 
 Float = NDArray[np.float64]
 
-_CELSIUS = frozenset({"degc", "°c", "ºc", "c", "celsius", "degreesc", "degc."})
+_CELSIUS = frozenset({"degc", "°c", "ºc", "c", "celsius", "degreesc"})  # units-row spellings
 _GF_AGREEMENT = 1e-3   # relative: a lot's gauge factor and the map's must agree to 0.1 %
 _TERMS = 5             # thermal-output coefficients a0 .. a4
 
