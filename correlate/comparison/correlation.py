@@ -44,6 +44,7 @@ from correlate.measurement.channels import (
     apply_chain,
     chain_used,
     corrections_table,
+    range_flags,
 )
 from correlate.measurement.corrections import channel_scale
 from correlate.measurement.tare import tare_readings
@@ -227,7 +228,8 @@ def correlate_study(study: Study, model: Model | None = None) -> Correlation:
     m = model_readings(study, model, steps)
     progress.pause("model")
     flags = health_flags(measured, names, steps, model.gauges, study, readings.flags,
-                         raw=None if chain is None else chain.raw_ue)
+                         raw=None if chain is None else chain.raw_ue,
+                         chain_rows=None if chain is None else range_flags(chain, steps))
     excl = dispose_health(flags, study, names, steps)
     reversed_ = flag_reversed(measured, m.predicted, names, steps, excl, flags, study)
     excl.text[:] = np.where(excl.text == "", "flagged", excl.text)

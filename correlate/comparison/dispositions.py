@@ -61,14 +61,15 @@ def reverse_signs(gauges: pd.DataFrame, study: Study) -> NDArray[np.float64]:
 
 
 def health_flags(measured: NDArray, names: list[str], steps: Steps, gauges: pd.DataFrame,
-                 study: Study, sentinel_rows: pd.DataFrame, raw: NDArray | None = None
-                 ) -> pd.DataFrame:
+                 study: Study, sentinel_rows: pd.DataFrame, raw: NDArray | None = None,
+                 chain_rows: pd.DataFrame | None = None) -> pd.DataFrame:
     """Model-free channel-health flags, sentinel values first, with an empty disposition.
 
     With ``raw`` (the readings as read, tared, when the measurement chain corrected them) a dead
     or railed channel is judged on what the instrument read: an open channel reads flat whatever
     the thermal-output correction adds, and the range is the instrument's. The other flags are
-    judged on the corrected readings (a thermal drift removed is no drift).
+    judged on the corrected readings (a thermal drift removed is no drift). ``chain_rows``:
+    readings the measurement chain left out (a temperature outside its lot's range).
     """
     direction = load_direction(steps.loads, steps.sequence, tol=study.zero_tol)
 
@@ -97,6 +98,8 @@ def health_flags(measured: NDArray, names: list[str], steps: Steps, gauges: pd.D
                               "reason": "open or overranged channel value "
                                         + sent["value"].astype(str)})
         flags = pd.concat([extra, flags], ignore_index=True)  # a sentinel says more than "missing"
+    if chain_rows is not None and len(chain_rows):  # says more than "missing" too
+        flags = pd.concat([chain_rows, flags], ignore_index=True)
     flags["disposition"] = ""
     for col in RECORD_COLUMNS:
         flags[col] = np.nan if col == "value_after" else ""

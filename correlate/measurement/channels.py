@@ -59,6 +59,11 @@ class ChainApplied:
         Per gauge, '' where none.
     notes : tuple of str
         Step 1 in words (which of the lead-wire factor and the shunt gain applied).
+    outside_range : ndarray of bool (s, g)
+        Readings left out because the gauge temperature is outside its lot's range (or missing);
+        a tare row outside it leaves its whole sequence out. Never extrapolated.
+    range_C : ndarray (g, 2)
+        Each lot's [low, high]; NaN without a lot. [degC]
     """
 
     gauges: tuple[str, ...]
@@ -75,6 +80,8 @@ class ChainApplied:
     lot: tuple[str, ...]
     temperature_column: tuple[str, ...]
     notes: tuple[str, ...]
+    outside_range: NDArray[np.bool_]
+    range_C: Float
 
 
 def chain_used(gauges: pd.DataFrame, chain: ChainSettings) -> bool:
@@ -121,8 +128,9 @@ def apply_chain(raw: Float, signs: Float, gauges: pd.DataFrame, chain: ChainSett
     ------
     GaugeError
         Every problem at once: a lot that is not defined, a lot without a thermocouple column,
-        disagreeing gauge factors, non-linearity without a gauge factor, a temperature outside
-        a lot's range or missing where a reading needs it.
+        disagreeing gauge factors, non-linearity without a gauge factor. A temperature outside
+        a lot's range (or missing beside a reading) is not an error: that reading is left out
+        and listed in ``outside_range`` (:func:`range_flags`).
     ReadingsFormatError
         A thermocouple column that is not in degrees C.
     StudyError
@@ -144,16 +152,21 @@ def apply_chain(raw: Float, signs: Float, gauges: pd.DataFrame, chain: ChainSett
     temps = np.column_stack([table[c].to_numpy(dtype=float) if c else np.full(len(table), np.nan)
                              for c in columns]) if n else np.zeros((len(table), 0))
     params = _parameters(gauges, chain, names, lots)
-    _check_temperatures(names, raw, temps, thermal, params["thermal_range_C"], steps, source)
+    span = params["thermal_range_C"]
+    outside = _outside_range(raw, temps, thermal, span, steps)
     signed = raw * signs[None, :]
     corrected, nl, th, gft = (np.full(raw.shape, np.nan) for _ in range(4))
     multiplier = notes = None
+    middle = np.where(thermal, np.mean(np.where(thermal[:, None], span, 0.0), axis=1), np.nan)
     for seq in np.unique(steps.sequence):
         rows = np.flatnonzero(steps.sequence == seq)
         tare = rows[steps.tare[rows]]
         t0 = temps[tare[0]] if len(tare) else np.full(n, np.nan)
-        # beside a missing reading the temperature changes nothing: the tare's stands in
-        unread = np.isnan(raw[rows]) & ~steps.tare[rows, None] & thermal[None, :]
+        if len(tare):  # a tare outside the range leaves the whole sequence out (below)
+            t0 = np.where(outside[tare[0]], middle, t0)
+        # beside a missing or left-out reading the temperature changes nothing: the tare's
+        # stands in, so nothing is extrapolated
+        unread = (np.isnan(raw[rows]) & ~steps.tare[rows, None] | outside[rows]) & thermal[None, :]
         t = np.where(unread, t0[None, :], temps[rows])
         result = correct_channels(signed[rows], gauges=names, temperature=t,
                                   temperature_tare=t0, **params)
@@ -162,6 +175,8 @@ def apply_chain(raw: Float, signs: Float, gauges: pd.DataFrame, chain: ChainSett
         nl[rows] = result.nonlinearity_ue - (result.nonlinearity_ue[steps.tare[rows]][0]
                                              if len(tare) else 0.0)
         multiplier, notes = result.multiplier, result.notes
+    corrected[outside] = np.nan
+    th[outside] = np.nan
     if multiplier is None:  # no rows: the readings reader refuses that before this point
         multiplier, notes = np.ones(n), ("no factor applied",) * n
     return ChainApplied(
@@ -170,7 +185,8 @@ def apply_chain(raw: Float, signs: Float, gauges: pd.DataFrame, chain: ChainSett
         lead_factor=params["lead_factor"], shunt_gain=params["shunt_gain"],
         multiplier=multiplier * signs, nonlinearity_ue=nl, thermal_ue=th,
         gf_temperature_factor=gft, temperature_C=np.where(thermal[None, :], temps, np.nan),
-        lot=tuple(lots), temperature_column=tuple(columns), notes=tuple(notes))
+        lot=tuple(lots), temperature_column=tuple(columns), notes=tuple(notes),
+        outside_range=outside, range_C=np.where(thermal[:, None], span, np.nan))
 
 
 def corrections_table(chain: ChainApplied, reference: int,
@@ -311,24 +327,44 @@ def _parameters(gauges: pd.DataFrame, chain: ChainSettings, names: list[str],
     }
 
 
-def _check_temperatures(names: list[str], raw: Float, temps: Float, thermal: NDArray[np.bool_],
-                        span: Float, steps: TaredSteps, source: str) -> None:
-    """Refuse a temperature outside its lot's range, or missing beside a reading (never guessed)."""
-    problems = []
-    for j in np.flatnonzero(thermal):
-        needed = np.isfinite(raw[:, j]) | steps.tare
-        bad = needed & out_of_range(temps[:, j], span[j])
-        if bad.any():
-            k = int(np.flatnonzero(bad)[0])
-            value = "missing" if np.isnan(temps[k, j]) else f"{temps[k, j]:g} degC"
-            problems.append(
-                f"gauge '{names[j]}': temperature {value} at step {steps.step[k]} (sequence "
-                f"{steps.sequence[k]}; {int(bad.sum())} row(s) in all) of {source} is outside its "
-                f"lot's range {span[j].tolist()} degC; the thermal output is not extrapolated: "
-                "check the thermocouple column or the lot's range_C")
-    if problems:
-        raise GaugeError(*problems)
+def _outside_range(raw: Float, temps: Float, thermal: NDArray[np.bool_], span: Float,
+                   steps: TaredSteps) -> NDArray[np.bool_]:
+    """Readings (s, g) whose gauge temperature is outside its lot's range or missing, beside a
+    reading or at a tare row; a tare row outside marks its whole sequence."""
+    needed = (np.isfinite(raw) | steps.tare[:, None]) & thermal[None, :]
+    bad = needed & out_of_range(temps, np.where(np.isnan(span), [-np.inf, np.inf], span))
+    for seq in np.unique(steps.sequence):
+        rows = steps.sequence == seq
+        tare = np.flatnonzero(rows & steps.tare)
+        if len(tare):
+            bad[np.ix_(rows, bad[tare[0]])] = True
+    return bad & thermal[None, :]
 
 
-__all__ = ["ChainApplied", "apply_chain", "chain_used", "corrections_table",
+def range_flags(chain: ChainApplied, steps: TaredSteps) -> pd.DataFrame:
+    """One health-flag row per reading left out for its temperature (``temperature-range``).
+
+    Columns as the channel-health flags: ``gauge``, ``step``, ``sequence``, ``flag``, ``value``
+    (the temperature, NaN when missing), ``threshold``, ``scope``, ``drops`` ("step") and
+    ``reason``.
+    """
+    k, j = np.nonzero(chain.outside_range)
+    rows = []
+    for a, b in zip(k, j, strict=True):
+        t = chain.temperature_C[a, b]
+        low, high = chain.range_C[b]
+        what = "missing" if np.isnan(t) else f"{t:g} degC"
+        tare = " at the tare row, so the whole sequence is left out" if steps.tare[a] else ""
+        rows.append({"gauge": chain.gauges[b], "step": int(steps.step[a]),
+                     "sequence": int(steps.sequence[a]), "flag": "temperature-range",
+                     "value": t, "threshold": np.nan, "scope": "step", "drops": "step",
+                     "reason": f"gauge temperature {what}{tare} is outside lot "
+                               f"'{chain.lot[b]}' range [{low:g}, {high:g}] degC; the thermal "
+                               "output is not extrapolated and the reading is left out"})
+    columns = ["gauge", "step", "sequence", "flag", "value", "threshold", "scope", "drops",
+               "reason"]
+    return pd.DataFrame(rows, columns=columns).astype({"step": "int64", "sequence": "int64"})
+
+
+__all__ = ["ChainApplied", "apply_chain", "chain_used", "corrections_table", "range_flags",
            "temperature_columns"]

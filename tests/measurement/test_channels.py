@@ -158,13 +158,34 @@ def test_temperature_column_not_in_celsius_is_refused(tmp_path, gauges, capsys, 
     assert "column temp_C" in err and hint in err and "degC" in err
 
 
-def test_temperature_outside_the_lot_range_is_refused_not_extrapolated(tmp_path, gauges, capsys):
-    study, _, _ = chain_study(tmp_path, gauges)
+def test_temperature_outside_the_lot_range_is_flagged_not_extrapolated(tmp_path, gauges):
+    # the last step (95 degC) lies beyond a range ending at 90 degC: that reading is left out
+    # with a flag naming the temperature and the range; the other steps are corrected as before
+    study, truth, _ = chain_study(tmp_path, gauges)
     study.write_text(study.read_text(encoding="utf-8").replace("[-50.0, 150.0]", "[-50.0, 90.0]"),
                      encoding="utf-8")
-    assert main(["run", str(study), "--out", str(tmp_path / "run"), "--no-report"]) == 2
-    err = capsys.readouterr().err
-    assert f"temperature 95 degC at step {len(BLOCK_LOADS) - 1}" in err and "not extrapolated" in err
+    table, _, _ = run_study(study, tmp_path / "run")
+    flags = pd.read_csv(tmp_path / "run" / "flags.csv")
+    hot = flags[flags["flag"] == "temperature-range"]
+    last = len(BLOCK_LOADS) - 1
+    assert sorted(hot["gauge"]) == sorted(gauges["gauge"]) and set(hot["step"]) == {last}
+    assert hot["reason"].str.contains("95 degC is outside lot 'L1' range \\[-50, 90\\]").all()
+    names = list(gauges["gauge"])
+    measured = table.pivot(index="step", columns="gauge", values="measured_ue")[names]
+    assert measured.loc[last].isna().all()
+    expected = truth.set_index("step")[names] - truth.set_index("step")[names].iloc[0]
+    # 0.01 ue as in the round trip: the steps inside the range are untouched by the flag
+    assert np.allclose(measured.iloc[:last], expected.iloc[:last], rtol=0, atol=0.01)
+
+
+def test_tare_temperature_outside_the_range_leaves_the_sequence_out(tmp_path, gauges, capsys):
+    study, _, _ = chain_study(tmp_path, gauges)
+    study.write_text(study.read_text(encoding="utf-8").replace("[-50.0, 150.0]", "[25.0, 150.0]"),
+                     encoding="utf-8")
+    # the tare row is at 23 degC: no tare temperature inside the range, so no reading can be
+    # corrected; every loaded step is left out and the run has nothing to compare
+    assert main(["--quiet", "run", str(study), "--out", str(tmp_path / "run"), "--no-report"]) == 2
+    assert "no gauge has a reading at a loaded step" in capsys.readouterr().err
 
 
 def test_dead_channel_is_judged_as_read_not_after_the_thermal_correction(tmp_path, gauges):
