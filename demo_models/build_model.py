@@ -604,7 +604,12 @@ GAUGES = [
 # One gauge carries its own placement tolerances (a bore installation is less precise).
 GAUGE_TOLERANCES = {"G09": (0.5, 3.0)}  # (position_tol [mm], angle_tol [deg])
 GAUGE_COLUMNS = ("gauge", "x", "y", "z", "dir_x", "dir_y", "dir_z", "length", "kt", "rosette",
-                 "face", "position_tol", "angle_tol")
+                 "face", "position_tol", "angle_tol", "gauge_ohm", "lead_ohm", "wiring",
+                 "daq_gauge_factor", "lot")
+# The invented measurement chain of every channel (make_test_log.py uses the same values):
+# 350 ohm grids on 3-wire leads of 1.2 ohm each, read at gauge factor 2.00, one gauge lot.
+CHAIN_COLUMNS = {"gauge_ohm": "350", "lead_ohm": "1.2", "wiring": "3-wire",
+                 "daq_gauge_factor": "2.00", "lot": "DEMO-LOT-A"}
 SURFACE_TOL = 0.01  # a gauge centre must lie this close to the mesh surface [mm]
 
 
@@ -694,7 +699,7 @@ def gauge_rows() -> list[dict[str, object]]:
                      "z": f"{centre[2]:.4f}", "dir_x": f"{d[0]:.6f}", "dir_y": f"{d[1]:.6f}",
                      "dir_z": f"{d[2]:.6f}", "length": f"{length:g}", "kt": f"{kt:g}",
                      "rosette": rosette, "face": "", "position_tol": pos_tol,
-                     "angle_tol": ang_tol})
+                     "angle_tol": ang_tol, **CHAIN_COLUMNS})
     return rows
 
 

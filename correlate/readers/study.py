@@ -15,19 +15,20 @@ from typing import Any
 
 from correlate.core.errors import StudyError
 from correlate.core.units import LENGTH_UNITS
+from correlate.readers.chain_study import LOT_KEYS, THERMAL_KEYS, parse_case_thermal, parse_chain
 from correlate.readers.records import Case, Criteria, Load, Material, Override, Study
 
 # The keys each table accepts. Free-text tables ([test], [model] description keys) accept any key.
 SCHEMA: dict[str, set[str]] = {
     "": {"title", "model", "case", "material", "gauges", "test", "readings", "load", "criteria",
-         "override", "health", "report", "document"},
+         "override", "health", "report", "document", "gauge_lot", "thermal"},
     "model": {"file", "length_unit", "stress_unit", "plane", "revision", "description", "solver",
               "element", "mesh_size", "materials", "thickness", "kind"},
     "case": {"name", "strain", "displacement", "stress", "components", "shear", "time_index", "file",
-             "average", "axes", "check_stress", "match"},
+             "average", "axes", "check_stress", "match", "thermal"},
     "material": {"E", "nu", "blocks", "name"},
     "gauges": {"file", "position_tol", "angle_tol", "snap_tol", "calibration_poisson", "grid_points",
-               "band"},
+               "band", "nonlinearity"},
     "readings": {"file", "zero", "zero_tol", "sentinels", "kt_corrected", "order"},
     "load": {"column", "case", "reference"},
     "criteria": {"relative", "absolute_ue", "slope", "pass_fraction", "min_healthy_fraction"},
@@ -37,6 +38,8 @@ SCHEMA: dict[str, set[str]] = {
     "report": {"steps", "views", "title"},
     "document": {"number", "revision", "prepared", "checked", "approved", "prepared_date",
                  "checked_date", "approved_date"},
+    "gauge_lot": LOT_KEYS,
+    "thermal": THERMAL_KEYS,
 }
 FREE_TEXT = {"test"}
 ABSOLUTE_UE_MAX = 10_000.0   # microstrain: a pass floor above 1 % strain is no floor
@@ -179,9 +182,10 @@ def _read_case(raw: dict[str, Any], i: int, base: Path, name: str, problems: lis
         if key in raw and not (isinstance(raw[key], str) and raw[key]):
             problems.append(f"{name}: {where} {key} = {raw[key]!r}; expected an array name")
     file = _path(base, raw["file"], where, name, problems) if "file" in raw else None
+    thermal = parse_case_thermal(raw, where, name, kind, problems)
     return Case(name=case_name, kind=kind, array=array, components=components, shear=shear,
                 time_index=time_index, file=file, average=average, axes=raw.get("axes"),
-                check_stress=raw.get("check_stress"), match=raw.get("match"))
+                check_stress=raw.get("check_stress"), match=raw.get("match"), thermal=thermal)
 
 
 def _check_tables(raw: dict[str, Any], name: str, problems: list[str]) -> None:
@@ -474,6 +478,7 @@ def parse_study(text: str, path: Path) -> Study:
     criteria = _criteria(raw, name, problems)
     sentinels, health = _sentinels_and_health(raw, name, problems)
     overrides = _overrides(raw, name, problems)
+    chain = parse_chain(raw, name, problems)
     if problems:
         raise StudyError(*problems)
     info = {k: v for k, v in model.items() if k not in ("file", "length_unit", "stress_unit", "plane")}
@@ -483,7 +488,7 @@ def parse_study(text: str, path: Path) -> Study:
         cases=tuple(cases), materials=tuple(materials), **gauges, test=dict(_table(raw, "test")),
         **readings, sentinels=tuple(sentinels) if sentinels is not None else None,
         loads=tuple(loads), criteria=criteria, criteria_given="criteria" in raw, overrides=tuple(overrides), health=dict(health),
-        report=dict(_table(raw, "report")), raw=raw)
+        report=dict(_table(raw, "report")), raw=raw, chain=chain)
 
 
 def read_study(path: str | Path) -> Study:

@@ -29,6 +29,7 @@ from correlate.comparison.rosettes import rosette_angles
 from correlate.comparison.verdict import CRITERIA_SOURCE
 from correlate.core.names import CAUTION
 from correlate.measurement.health import load_direction
+from correlate.report.chain_section import chain_notes, chain_rows
 from correlate.report.scene import Rendering, render_views
 from correlate.report.vtk_files import write_vtk
 
@@ -441,6 +442,10 @@ def _context(corr: Correlation, ref: int) -> dict[str, Any]:
         "material_rows": tables.material_rows(corr),
         "health_rows": tables.health_rows(corr),
         "map_rows": tables.gauge_map_rows(corr),
+        "chain_used": corr.corrections is not None,
+        "chain_rows": chain_rows(corr.corrections),
+        "chain_notes": chain_notes(corr.corrections),
+        "chain_height": corr.corrections is not None and "height_ue" in corr.corrections,
         "length_unit": str(study.length_unit),
         "snap_tol": num(study.snap_tol, "g"),
         "stats": tables.statistics(summary),
