@@ -26,6 +26,8 @@ def write_outputs(corr: Correlation, out: Path, *, force: bool, report: bool = T
         write_csv(corr.rosettes, tmp / "rosettes.csv")
         write_csv(corr.per_gauge, tmp / "gauge_stats.csv")
         write_csv(corr.flags, tmp / "flags.csv")
+        if corr.validation is not None:
+            write_csv(corr.validation.table, tmp / "uncertainty.csv")
         write_json(corr.summary, tmp / "summary.json")
         progress.pause("write")
         if report:

@@ -16,6 +16,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
+from correlate.comparison.budget import GAUGE_COLUMNS, ValidationBudget, validation_budget
 from correlate.comparison.criteria import Statuses, reference_step, status_table
 from correlate.comparison.dispositions import (
     Exclusions,
@@ -42,6 +43,7 @@ from correlate.measurement.corrections import channel_scale
 from correlate.measurement.tare import tare_readings
 from correlate.model_readings.model import Model, case_rows, prepare
 from correlate.model_readings.table import band_limits
+from correlate.model_readings.variants import open_variant, variant_study
 from correlate.readers.study import Study
 
 
@@ -68,6 +70,7 @@ class Correlation:
     summary: dict[str, Any]
     readings_info: dict[str, Any] = field(default_factory=dict)
     rows_by_case: dict[str, dict[str, NDArray]] = field(default_factory=dict)
+    validation: ValidationBudget | None = None   # None: the study has no [uncertainty]
 
     @property
     def reference(self) -> int:
@@ -89,6 +92,7 @@ class ModelForTest:
     contributions: NDArray[np.float64]   # (s, g, C) per case
     not_modelled: NDArray[np.bool_]      # (s,) rows a series case does not reach
     rows_by_case: dict[str, dict[str, NDArray]]
+    transverse: NDArray[np.float64] | None = None  # (s, g) strain across the grid
 
 
 def measured_readings(study: Study, model: Model) -> tuple[Any, Steps, NDArray[np.float64]]:
@@ -119,10 +123,11 @@ def model_readings(study: Study, model: Model, steps: Steps) -> ModelForTest:
     n_rows = len(op.row_kind)
     R = np.stack([rows_by_case[c][key] if c in rows_by_case else np.zeros(n_rows)
                   for c in case_names], axis=1)                               # (rows, C)
-    R_axial = np.stack([rows_by_case[c]["axial"] if c in rows_by_case else np.zeros(n_rows)
-                        for c in case_names], axis=1)
+    R_axial, R_trans = (np.stack([rows_by_case[c][k] if c in rows_by_case else np.zeros(n_rows)
+                                  for c in case_names], axis=1) for k in ("axial", "transverse"))
     combined = R @ steps.factors.T * MICROSTRAIN                              # (rows, s)
     combined_axial = R_axial @ steps.factors.T * MICROSTRAIN
+    combined_trans = R_trans @ steps.factors.T * MICROSTRAIN
     nominal = op.row_kind == 0
     contributions = steps.factors[:, None, :] * R[nominal][None, :, :] * MICROSTRAIN
     not_modelled = np.zeros(len(steps.step), dtype=bool)
@@ -131,15 +136,17 @@ def model_readings(study: Study, model: Model, steps: Steps) -> ModelForTest:
         per_state = [case_rows(model, case, k) for k in pairing.fe_index]
         add, modelled = pairing.apply(np.stack([r[key] for r in per_state], axis=1))
         add_axial, _ = pairing.apply(np.stack([r["axial"] for r in per_state], axis=1))
+        add_trans, _ = pairing.apply(np.stack([r["transverse"] for r in per_state], axis=1))
         add, add_axial = add * MICROSTRAIN, add_axial * MICROSTRAIN
         combined += np.nan_to_num(add)
         combined_axial += np.nan_to_num(add_axial)
+        combined_trans += np.nan_to_num(add_trans * MICROSTRAIN)
         contributions[:, :, case_names.index(case.name)] = np.nan_to_num(add[nominal]).T
         not_modelled |= ~modelled
     low, high = band_limits(op, combined)
     return ModelForTest(predicted=combined[nominal].T, axial=combined_axial[nominal].T, low=low,
                         high=high, contributions=contributions, not_modelled=not_modelled,
-                        rows_by_case=rows_by_case)
+                        rows_by_case=rows_by_case, transverse=combined_trans[nominal].T)
 
 
 def _require_loads(study: Study) -> None:
@@ -194,14 +201,41 @@ def correlate_study(study: Study, model: Model | None = None) -> Correlation:
                                         model.operator)
     summary = summarise(study, model, readings, steps, names, result, per_gauge, flags, diag,
                         ref, st, reversed_)
+    budget = _budget(study, model, steps, names, measured, m, st, ref, summary)
     return Correlation(study=study, model=model, steps=steps, gauges=names, measured=measured,
                        predicted=m.predicted, predicted_axial=m.axial, band_low=m.low.T,
                        band_high=m.high.T, contributions=m.contributions, status=st, flags=flags,
-                       gauge_table=gauge_table(names, steps, measured, m, st),
+                       gauge_table=gauge_table(names, steps, measured, m, st, budget),
                        per_gauge=per_gauge, rosettes=ros, diagnoses=diag, summary=summary,
-                       rows_by_case=m.rows_by_case,
+                       rows_by_case=m.rows_by_case, validation=budget,
                        readings_info={"ignored": list(readings.ignored),
                                       "load_units": readings.load_units})
+
+
+def _budget(study: Study, model: Model, steps: Steps, names: list[str], measured: NDArray,
+            m: ModelForTest, st: Statuses, ref: int, summary: dict[str, Any]
+            ) -> ValidationBudget | None:
+    """The validation budget (None without [uncertainty]); it adds ``validation`` to the summary.
+
+    Each coarser mesh or input variant is opened, evaluated at the test's steps with the same
+    gauge map, and dropped before the next is opened.
+    """
+    if study.uncertainty is None:
+        return None
+
+    def predict(file: Any) -> NDArray[np.float64]:
+        other = open_variant(study, file, model.gauges)
+        return model_readings(variant_study(study, file), other, steps).predicted
+
+    with progress.step("validation budget (other meshes and input variants included)"):
+        budget = validation_budget(
+            study, names, steps, measured, m.predicted,
+            (model.gauges["kt"].to_numpy(dtype=float), m.axial, m.transverse),
+            (m.low, m.high), st, ref,
+            statistical_se=float(summary["fit"].get("se_slope_origin", np.nan)), predict=predict)
+    if budget is not None:
+        summary["validation"] = budget.summary
+    return budget
 
 
 def _compare(study: Study, model: Model, steps: Steps, names: list[str], measured: NDArray,
@@ -230,14 +264,14 @@ def _compare(study: Study, model: Model, steps: Steps, names: list[str], measure
 
 
 def gauge_table(names: list[str], steps: Steps, measured: NDArray, m: ModelForTest,
-                st: Statuses) -> pd.DataFrame:
-    """The rows of ``gauges.csv``: one per gauge and step."""
+                st: Statuses, budget: ValidationBudget | None = None) -> pd.DataFrame:
+    """The rows of ``gauges.csv``: one per gauge and step (the budget's columns when given)."""
     s, g = measured.shape
     low, high = m.low, m.high
     in_band = (measured >= low.T - 1e-9) & (measured <= high.T + 1e-9)
     status = st.status
     flag = np.where(np.isin(status, ["pass", "fail", "tare", "zero-load"]), "", status)
-    return pd.DataFrame({
+    table = pd.DataFrame({
         "gauge": np.tile(names, s),
         "step": np.repeat(steps.step, g),
         "sequence": np.repeat(steps.sequence, g),
@@ -254,6 +288,9 @@ def gauge_table(names: list[str], steps: Steps, measured: NDArray, m: ModelForTe
         "unconservative": st.unconservative.ravel(),
         "flag": flag.ravel(),
     })
+    if budget is not None:
+        table[list(GAUGE_COLUMNS)] = budget.columns[list(GAUGE_COLUMNS)].to_numpy()
+    return table
 
 
 __all__ = ["Correlation", "ModelForTest", "correlate_study", "gauge_table", "measured_readings",

@@ -5,8 +5,8 @@ Microstrain to 0.001, lengths to 1e-6 of the model's unit, other floats to six s
 
 from __future__ import annotations
 
-import json
 import datetime
+import json
 import math
 from pathlib import Path
 from typing import Any
