@@ -168,16 +168,21 @@ def _column(term: str) -> str:
 
 
 def reference_table(names: list[str], steps: Steps, ref: int, S: NDArray, D: NDArray,
-                    terms: dict[str, NDArray], v: Validation, allowed: NDArray,
-                    evaluated: NDArray, gc: GridConvergence | None) -> pd.DataFrame:
-    """uncertainty.csv: one row per gauge at the reference step, every term and its share."""
+                    groups: tuple[NDArray, NDArray, NDArray], terms: dict[str, NDArray],
+                    v: Validation, allowed: NDArray, evaluated: NDArray,
+                    gc: GridConvergence | None) -> pd.DataFrame:
+    """uncertainty.csv: one row per gauge at the reference step, every term and its share.
+
+    ``groups`` holds u_D, u_input and u_num (g, s); ``terms`` every single term (g, s).
+    """
     var = v.u_val[:, ref] ** 2
     state = np.where(evaluated, v.state[:, ref], "not evaluated")
     out = pd.DataFrame({
         "gauge": names, "step": int(steps.step[ref]), "sequence": int(steps.sequence[ref]),
         "predicted_ue": S[:, ref], "measured_ue": D[:, ref],
         "comparison_error_ue": np.where(evaluated, v.error[:, ref], np.nan),
-        "u_val_ue": v.u_val[:, ref], "coverage": v.k, "expanded_ue": v.k * v.u_val[:, ref],
+        "u_d_ue": groups[0][:, ref], "u_input_ue": groups[1][:, ref],
+        "u_num_ue": groups[2][:, ref], "u_val_ue": v.u_val[:, ref], "coverage": v.k, "expanded_ue": v.k * v.u_val[:, ref],
         "lower_ue": v.lower[:, ref], "upper_ue": v.upper[:, ref], "allowed_ue": allowed[:, ref],
         "state": state,
         "model_error_ue": np.where(evaluated, v.sign[:, ref] * v.model_error[:, ref], np.nan),
@@ -284,8 +289,8 @@ def validation_budget(study: Study, names: list[str], steps: Steps, measured: ND
     terms = {"numerical": u_num,
              **{f"input.{k}": t for k, t in inp.terms.items()},
              **{f"measurement.{k}": t for k, t in meas.terms.items()}}
-    table = reference_table(names, steps, ref, S, D, terms, v, st.allowed.T, evaluated[:, ref],
-                            gc)
+    table = reference_table(names, steps, ref, S, D, (meas.combined, inp.combined, u_num), terms,
+                            v, st.allowed.T, evaluated[:, ref], gc)
     ratio = ratio_interval(measured[st.evaluated], predicted[st.evaluated],
                            statistical_se=statistical_se if np.isfinite(statistical_se) else 0.0,
                            systematic=systematic_parts(u, inputs, S, evaluated), k=u.coverage)
