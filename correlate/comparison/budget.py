@@ -63,6 +63,11 @@ class ValidationBudget:
     summary: dict[str, Any]        # summary.json "validation"
     result: Validation             # per gauge and step, (g, s)
     convergence: GridConvergence | None
+    measurement: Budget            # u_D and its terms, (g, s)
+    model_input: Budget            # u_input and its terms, (g, s)
+    inputs: dict[str, ModelInput]  # the model inputs as used (variants' predictions included)
+    u_num: NDArray[np.float64]     # (g, s)
+    rosettes: pd.DataFrame | None = None   # u_e1_ue, u_e2_ue per rosettes.csv row, once made
 
 
 def repeat_spread(measured: NDArray, steps: Steps) -> tuple[NDArray, NDArray]:
@@ -304,7 +309,8 @@ def validation_budget(study: Study, names: list[str], steps: Steps, measured: ND
     })
     return ValidationBudget(columns=columns, table=table,
                             summary=validation_summary(study, table, ratio, gc), result=v,
-                            convergence=gc)
+                            convergence=gc, measurement=meas, model_input=inp, inputs=inputs,
+                            u_num=u_num)
 
 
 __all__ = ["GAUGE_COLUMNS", "ValidationBudget", "repeat_spread", "validation_budget"]

@@ -9,7 +9,7 @@ result is a :class:`Correlation` that the outputs and the report read.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -34,6 +34,7 @@ from correlate.comparison.evidence import (
 )
 from correlate.comparison.fits import fit_statistics
 from correlate.comparison.pairing import Steps, pair_series, read_test_data
+from correlate.comparison.rosette_budget import rosette_uncertainty, with_uncertainty
 from correlate.comparison.rosettes import rosette_table
 from correlate.comparison.verdict import summarise
 from correlate.core import progress
@@ -202,6 +203,8 @@ def correlate_study(study: Study, model: Model | None = None) -> Correlation:
     summary = summarise(study, model, readings, steps, names, result, per_gauge, flags, diag,
                         ref, st, reversed_)
     budget = _budget(study, model, steps, names, measured, m, st, ref, summary)
+    if budget is not None and budget.rosettes is not None:
+        ros = with_uncertainty(ros, budget.rosettes)
     return Correlation(study=study, model=model, steps=steps, gauges=names, measured=measured,
                        predicted=m.predicted, predicted_axial=m.axial, band_low=m.low.T,
                        band_high=m.high.T, contributions=m.contributions, status=st, flags=flags,
@@ -233,9 +236,13 @@ def _budget(study: Study, model: Model, steps: Steps, names: list[str], measured
             (model.gauges["kt"].to_numpy(dtype=float), m.axial, m.transverse),
             (m.low, m.high), st, ref,
             statistical_se=float(summary["fit"].get("se_slope_origin", np.nan)), predict=predict)
-    if budget is not None:
-        summary["validation"] = budget.summary
-    return budget
+        if budget is None:
+            return None
+        rosettes = rosette_uncertainty(study, model, model.gauges, steps, measured, m.axial,
+                                       st.evaluated, budget.measurement, budget.inputs,
+                                       m.predicted, budget.u_num, study.uncertainty.load)
+    summary["validation"] = budget.summary
+    return replace(budget, rosettes=rosettes)
 
 
 def _compare(study: Study, model: Model, steps: Steps, names: list[str], measured: NDArray,
