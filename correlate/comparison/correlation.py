@@ -43,8 +43,8 @@ from correlate.core.units import MICROSTRAIN
 from correlate.measurement.corrections import channel_scale
 from correlate.measurement.tare import tare_readings
 from correlate.model_readings.model import Model, case_rows, prepare
+from correlate.model_readings.other_models import open_variant, variant_study
 from correlate.model_readings.table import band_limits
-from correlate.model_readings.variants import open_variant, variant_study
 from correlate.readers.study import Study
 
 
