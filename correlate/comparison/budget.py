@@ -232,24 +232,24 @@ def _inputs_as_read(study: Study) -> dict[str, Any]:
     return out
 
 
-def validation_summary(study: Study, table: pd.DataFrame, ratio: RatioInterval,
-                       gc: GridConvergence | None) -> dict[str, Any]:
+def validation_summary(study: Study, table: pd.DataFrame, ratio: RatioInterval | None,
+                       gc: GridConvergence | None, k: float) -> dict[str, Any]:
     """summary.json ``validation``: counts per state, the ratio with both parts, the inputs."""
     counts = {s: int((table["state"] == s).sum()) for s in STATES}
     out: dict[str, Any] = {
-        "coverage": ratio.k,
+        "coverage": k,
         "states": counts,
         "not_evaluated": int((table["state"] == "not evaluated").sum()),
         "reference_step": {"step": int(table["step"].iloc[0]),
                            "sequence": int(table["sequence"].iloc[0])},
         "dominant": table.loc[table["state"] != "not evaluated", "dominant"]
         .value_counts().to_dict(),
-        "ratio": {"ratio": ratio.ratio, "n": ratio.n, "u_statistical": ratio.u_statistical,
-                  "u_systematic": ratio.u_systematic,
-                  "systematic_terms": ratio.systematic_terms, "u_combined": ratio.u_combined,
-                  "lower": ratio.lower, "upper": ratio.upper,
-                  "note": "systematic terms (gauge-factor lot, load cell, model inputs) act on "
-                          "every gauge at once and do not shrink with the number of gauges"},
+        "ratio": None if ratio is None else {
+            "ratio": ratio.ratio, "n": ratio.n, "u_statistical": ratio.u_statistical,
+            "u_systematic": ratio.u_systematic, "systematic_terms": ratio.systematic_terms,
+            "u_combined": ratio.u_combined, "lower": ratio.lower, "upper": ratio.upper,
+            "note": "systematic terms (gauge-factor lot, load cell, model inputs) act on every "
+                    "gauge at once and do not shrink with the number of gauges"},
         "framework": "ASME V&V 20-2009: E = S - D, u_val = sqrt(u_num^2 + u_input^2 + u_D^2), "
                      "model error in E -/+ k u_val; terms combined as in JCGM 100:2008",
         "note": "the criteria verdict stands as given; the validation states are a statement "
@@ -296,9 +296,12 @@ def validation_budget(study: Study, names: list[str], steps: Steps, measured: ND
              **{f"measurement.{k}": t for k, t in meas.terms.items()}}
     table = reference_table(names, steps, ref, S, D, (meas.combined, inp.combined, u_num), terms,
                             v, st.allowed.T, evaluated[:, ref], gc)
-    ratio = ratio_interval(measured[st.evaluated], predicted[st.evaluated],
-                           statistical_se=statistical_se if np.isfinite(statistical_se) else 0.0,
-                           systematic=systematic_parts(u, inputs, S, evaluated), k=u.coverage)
+    ratio = None   # no healthy pair with a non-zero prediction: no ratio (the fit says so too)
+    if np.any(predicted[st.evaluated] != 0):
+        ratio = ratio_interval(measured[st.evaluated], predicted[st.evaluated],
+                               statistical_se=statistical_se if np.isfinite(statistical_se)
+                               else 0.0, systematic=systematic_parts(u, inputs, S, evaluated),
+                               k=u.coverage)
     have = np.isfinite(D)
     columns = pd.DataFrame({
         "u_d_ue": np.where(have, meas.combined, np.nan).T.ravel(),
@@ -308,7 +311,8 @@ def validation_budget(study: Study, names: list[str], steps: Steps, measured: ND
         "comparison_error_ue": np.where(have, E, np.nan).T.ravel(),
     })
     return ValidationBudget(columns=columns, table=table,
-                            summary=validation_summary(study, table, ratio, gc), result=v,
+                            summary=validation_summary(study, table, ratio, gc, u.coverage),
+                            result=v,
                             convergence=gc, measurement=meas, model_input=inp, inputs=inputs,
                             u_num=u_num)
 

@@ -76,6 +76,14 @@ def plot_validation(table: pd.DataFrame, path: Path, *, k: float, ref_label: str
     return figures._save(fig, path)
 
 
+def _ratio(ratio: dict[str, Any]) -> dict[str, Any]:
+    parts = ", ".join(f"{k} {v:.4f}" for k, v in ratio["systematic_terms"].items())
+    return {"ratio": num(ratio["ratio"], ".4f"), "stat": num(ratio["u_statistical"], ".4f"),
+            "sys": num(ratio["u_systematic"], ".4f"), "parts": parts or "none",
+            "combined": num(ratio["u_combined"], ".4f"), "low": num(ratio["lower"], ".3f"),
+            "high": num(ratio["upper"], ".3f"), "n": ratio["n"]}
+
+
 def _sentences(table: pd.DataFrame) -> list[dict[str, Any]]:
     out = []
     for state, meaning in MEANING.items():
@@ -121,7 +129,6 @@ def validation_context(corr: Correlation, folder: Path, ref_label: str,
     picture = plot_validation(evaluated, folder / "validation.png", k=result.k,
                               ref_label=ref_label)
     ratio = s["ratio"]
-    parts = ", ".join(f"{k} {v:.4f}" for k, v in ratio["systematic_terms"].items())
     return {
         "figure": as_uri(picture),
         "k": f"{result.k:g}",
@@ -130,10 +137,7 @@ def validation_context(corr: Correlation, folder: Path, ref_label: str,
         "sentences": _sentences(evaluated),
         "rows": _rows(evaluated),
         "numerical": "gci_ue" in table,
-        "ratio": {"ratio": num(ratio["ratio"], ".4f"), "stat": num(ratio["u_statistical"], ".4f"),
-                  "sys": num(ratio["u_systematic"], ".4f"), "parts": parts or "none",
-                  "combined": num(ratio["u_combined"], ".4f"), "low": num(ratio["lower"], ".3f"),
-                  "high": num(ratio["upper"], ".3f"), "n": ratio["n"]},
+        "ratio": _ratio(ratio) if ratio is not None else None,
     }
 
 
