@@ -25,7 +25,7 @@ from numpy.typing import NDArray
 
 from correlate.comparison.pairing import Steps
 from correlate.comparison.propagation import propagate_function
-from correlate.comparison.rosettes import rosette_angles, rosette_groups
+from correlate.comparison.rosettes import rosette_grids
 from correlate.comparison.uncertainty import Budget, ModelInput
 from correlate.mechanics.rosette import principal, reduce_grids
 from correlate.readers.study import Study
@@ -62,10 +62,7 @@ def rosette_uncertainty(study: Study, model: Any, gauges: pd.DataFrame, steps: S
     writes: active steps, and on the measured side only where every grid is evaluated.
     """
     parts = []
-    for rid, angles in rosette_angles(model, gauges).items():
-        idx = rosette_groups(gauges)[rid]
-        kt = None if study.kt_corrected else gauges["kt"].to_numpy(dtype=float)[idx]
-        nu0 = gauges["nu0"].fillna(study.calibration_poisson).to_numpy(dtype=float)[idx]
+    for rid, angles, idx, kt, nu0 in rosette_grids(study, model, gauges):
         active = np.flatnonzero(steps.active)
         rows = active[evaluated[np.ix_(active, idx)].all(axis=1)]
         if len(rows):
