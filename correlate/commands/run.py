@@ -42,6 +42,19 @@ def verdict_line(verdict: dict[str, Any]) -> str:
     return verdict["result"]
 
 
+def validation_line(val: dict[str, Any]) -> str:
+    """The validation statement beside the verdict, in one line (see uncertainty.csv)."""
+    n = val["states"]
+    line = (f"validation (ASME V&V 20, k = {val['coverage']:g}) at the reference step: "
+            f"{n['model error']} model error, {n['uncertainty dominated']} uncertainty "
+            f"dominated, {n['consistent']} consistent")
+    r = val.get("ratio")
+    if r:
+        line += (f"; ratio {r['ratio']:.3f}, {r['lower']:.3f} to {r['upper']:.3f} with the "
+                 "systematic terms")
+    return line
+
+
 def print_summary(corr: Correlation) -> None:
     s = corr.summary
     v, fit = s["verdict"], s["fit"]
@@ -66,6 +79,8 @@ def print_summary(corr: Correlation) -> None:
           f"unconservative, {v['flagged']} flagged, of {v['gauges']}")
     if v["worst"]:
         print(f"worst at the reference step: {', '.join(v['worst'])}")
+    if s.get("validation"):
+        print(validation_line(s["validation"]))
     for f in s["flags"]:
         if f["step"] in (-1, None):
             print(f"flag {f['gauge']}: {f['flag']} - {f['reason']}"

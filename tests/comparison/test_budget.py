@@ -225,3 +225,16 @@ def test_an_input_variant_gives_its_sensitivity_by_difference(tmp_path):
     # from linear elasticity under a given load.
     expect = S * (1 - 1 / 1.05) / 0.05 * 0.02
     np.testing.assert_allclose(rows["u_input_ue"], expect, rtol=0, atol=2e-3)  # 3 decimals
+
+
+def test_the_terminal_summary_gives_the_validation_line_beside_the_verdict(tmp_path, capsys):
+    study = _study(tmp_path, UNCERTAINTY)
+    assert main(["--quiet", "run", str(study), "--out", str(tmp_path / "out"), "--no-report"]) == 0
+    lines = capsys.readouterr().out.splitlines()
+    summary = json.loads((tmp_path / "out" / "summary.json").read_text())
+    n = summary["validation"]["states"]
+    line = [x for x in lines if x.startswith("validation (ASME V&V 20, k = 2)")]
+    assert len(line) == 1
+    assert (f"{n['model error']} model error, {n['uncertainty dominated']} uncertainty "
+            f"dominated, {n['consistent']} consistent") in line[0]
+    assert lines[0].startswith("Synthetic block: ")     # the verdict line stays first
