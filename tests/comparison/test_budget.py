@@ -238,3 +238,15 @@ def test_the_terminal_summary_gives_the_validation_line_beside_the_verdict(tmp_p
     assert (f"{n['model error']} model error, {n['uncertainty dominated']} uncertainty "
             f"dominated, {n['consistent']} consistent") in line[0]
     assert lines[0].startswith("Synthetic block: ")     # the verdict line stays first
+
+
+def test_placement_adds_the_band_as_a_rectangular_distribution(tmp_path):
+    study = _study(tmp_path, "[uncertainty]\ndaq_ue = 1.0\nplacement = true\n")
+    _run(study, tmp_path / "out")
+    rows = pd.read_csv(tmp_path / "out" / "gauges.csv")
+    width = rows["band_high_ue"] - rows["band_low_ue"]
+    assert (width > 0.1).any()   # the block's fields vary over the placement zone
+    # JCGM 100:2008 4.3.7: a rectangular distribution of half-width a has u = a / sqrt(3), with
+    # a = (high - low) / 2 from the band written beside it; then GUM eq. 10 with daq_ue.
+    expect = np.hypot(width / (2 * np.sqrt(3)), 1.0)
+    np.testing.assert_allclose(rows["u_d_ue"], expect, rtol=0, atol=2e-3)  # 3 decimals
