@@ -20,6 +20,7 @@ from numpy.typing import ArrayLike, NDArray
 
 from correlate.core.errors import GaugeError
 from correlate.measurement._validate import names_for
+from correlate.mechanics.gauge import BRIDGE_ARM_SIGNS
 
 __all__ = [
     "bridge_output",
@@ -32,7 +33,7 @@ __all__ = [
 
 Float = NDArray[np.float64]
 
-_ARM_SIGNS = (1.0, -1.0, 1.0, -1.0)
+_ARM_SIGNS = BRIDGE_ARM_SIGNS
 _LEADS_IN_GAUGE_ARM = {"2-wire": 2.0, "3-wire": 1.0}
 _UE = 1e-6  # m/m per microstrain
 
