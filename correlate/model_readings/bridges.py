@@ -32,15 +32,7 @@ from scipy import sparse
 from correlate.core.errors import GaugeError
 from correlate.mechanics.gauge import BRIDGE_ARM_SIGNS as ARM_SIGNS
 from correlate.model_readings.operator import GaugeOperator
-
-
-@dataclass(frozen=True)
-class Bridge:
-    """One bridge channel: its id, the gauge in each arm (None: completion resistor), factor."""
-
-    name: str
-    arms: tuple[str | None, str | None, str | None, str | None]
-    factor: float = 1.0
+from correlate.readers.bridge_map import Bridge
 
 
 @dataclass(frozen=True)
@@ -141,4 +133,4 @@ def bridge_rows(combination: BridgeRows, rows: dict[str, NDArray[np.float64]]
             if isinstance(value, np.ndarray) and value.dtype.kind == "f" and len(value) == n}
 
 
-__all__ = ["ARM_SIGNS", "Bridge", "BridgeRows", "bridge_rows", "combine_bridges"]
+__all__ = ["ARM_SIGNS", "BridgeRows", "bridge_rows", "combine_bridges"]

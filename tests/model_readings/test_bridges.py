@@ -25,10 +25,11 @@ from builders import gauge_frame, solid_mesh
 
 from correlate.core.errors import GaugeError
 from correlate.mechanics.gauge import indicated_strain
-from correlate.model_readings.bridges import Bridge, bridge_rows, combine_bridges
+from correlate.model_readings.bridges import bridge_rows, combine_bridges
 from correlate.model_readings.evaluate import evaluate_rows
 from correlate.model_readings.operator import build_operator
 from correlate.model_readings.table import _sensitivities, band_limits
+from correlate.readers.bridge_map import Bridge
 from correlate.readers.model import Field
 
 L, NU, X0 = 10.0, 0.3, 4.0
