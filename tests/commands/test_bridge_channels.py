@@ -14,6 +14,7 @@ import pytest
 from builders import write_block_study
 
 from correlate.commands.cli import main
+from correlate.measurement.bridge import bridge_output
 
 ARMS = [dict(gauge="PA", x=2.0, y=1.5, z=2.0, dir_x=1, dir_y=0, dir_z=0, length=0.3, kt=0.0),
         dict(gauge="PT", x=2.0, y=1.5, z=2.0, dir_x=0, dir_y=1, dir_z=0, length=0.3, kt=0.0),
@@ -72,3 +73,17 @@ def test_check_reports_a_bridge_table_naming_no_bridge(tmp_path, capsys):
     assert main(["--quiet", "check", str(study)]) == 2
     err = capsys.readouterr().err
     assert "[[bridge]] 'HX' names no bridge" in err
+
+
+def test_round_trip_arms_through_the_test_side_relation_give_the_bridge(tmp_path):
+    # Round trip: the arms' predicted readings put through the test side's bridge relation
+    # (measurement.bridge.bridge_output, (e1 - e2 + e3 - e4)/factor, Hoffmann 1989) give the
+    # model side's bridge reading for every case; factor 2 here. Round-off tolerance 1e-9 ue.
+    bridged = [dict(a, bridge="PB" if a["gauge"] != "Q1" else "",
+                    arm={"PA": 1, "PT": 2}.get(a["gauge"], "")) for a in ARMS]
+    _predict(tmp_path / "rt", bridged, '[[bridge]]\nname = "PB"\nfactor = 2\n')
+    table = pd.read_csv(tmp_path / "rt" / "out" / "model_readings.csv").set_index(["case", "gauge"])
+    for case in ("pull", "side"):
+        arms = [table.loc[(case, g), "predicted_ue"] for g in ("PA", "PT")]
+        assert float(bridge_output(arms, factor=2.0)) == pytest.approx(
+            table.loc[(case, "PB"), "predicted_ue"], abs=1e-9)
