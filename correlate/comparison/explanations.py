@@ -227,14 +227,12 @@ def _offset_in_disc(ev: GaugeEvidence, criterion: Criterion, mask: NDArray[np.bo
     x = best(X[np.hypot(X[:, 0], X[:, 1]) <= radius * (1 + 1e-12)])
     if x is None:
         return None, None
-    # a 1250th of the radius is far below what the analyst can act on
-    for _ in range(3):
+    for _ in range(3):   # a 1250th of the radius is far below what the analyst can act on
         a = np.linspace(-h, h, 11)
         near = clip(x + np.stack(np.meshgrid(a, a, indexing="ij"), axis=-1).reshape(-1, 2))
         found = best(near)
         x = x if found is None else found
         h /= 5.0
-    x = clip(x)
     # Jacobian of the readings with respect to the offset, by central differences.
     e = 1e-3 * radius
     P = _evaluate(ev, x + np.array([[e, 0], [-e, 0], [0, e], [0, -e]]), np.zeros(4))[:, mask]
