@@ -97,7 +97,8 @@ def prepare(study: Study) -> Model:
         gauges = read_gauges(study.gauges_file)
     settle_family(study, sources, gauges)
     model = locate(study, sources, gauges)
-    model.conventions = convention_warnings(model)
+    with progress.step("checking the model's conventions"):
+        model.conventions = convention_warnings(model)
     for line in model.conventions:
         warnings.warn(line, CorrelateWarning, stacklevel=2)
     return model
