@@ -14,6 +14,7 @@ from __future__ import annotations
 import copy
 import os
 import xml.etree.ElementTree as ET
+from collections.abc import Callable
 from pathlib import Path
 
 import h5py
@@ -24,9 +25,14 @@ LAYOUTS = ("per-step", "all-steps", "chunked")
 
 
 def write_series(folder: Path, points: np.ndarray, cells: list[tuple[str, np.ndarray]],
-                 name: str, steps: np.ndarray, times: np.ndarray, layout: str,
-                 chunk_rows: int = 4096, chunk_steps: int = 8) -> Path:
-    """Write ``steps`` (S, nodes, components) of point array ``name`` as ``folder/series.xdmf``."""
+                 name: str, steps: np.ndarray | Callable[[int], np.ndarray], times: np.ndarray,
+                 layout: str, chunk_rows: int = 4096, chunk_steps: int = 8) -> Path:
+    """Write the steps of point array ``name`` as ``folder/series.xdmf`` in ``layout``.
+
+    ``steps`` is an array (S, nodes, components) or a function of the step index giving one
+    step (nodes, components), so that a long series is never held in memory at once.
+    """
+    step = steps if callable(steps) else steps.__getitem__
     folder.mkdir(parents=True, exist_ok=True)
     cwd = os.getcwd()
     os.chdir(folder)   # meshio writes the .h5 into the current folder (meshio issue 1442)
@@ -34,21 +40,26 @@ def write_series(folder: Path, points: np.ndarray, cells: list[tuple[str, np.nda
         with meshio.xdmf.TimeSeriesWriter("series.xdmf") as w:
             w.write_points_cells(points, cells)
             if layout == "per-step":
-                for t, values in zip(times, steps, strict=True):
-                    w.write_data(float(t), point_data={name: values})
+                for k, t in enumerate(times):
+                    w.write_data(float(t), point_data={name: step(k)})
                 return folder / "series.xdmf"
-            w.write_data(float(times[0]), point_data={name: steps[0]})
+            w.write_data(float(times[0]), point_data={name: step(0)})
     finally:
         os.chdir(cwd)
     if layout not in LAYOUTS:
         raise ValueError(f"layout {layout!r}; one of {LAYOUTS}")
+    first = step(0)
+    shape = (len(times),) + first.shape
     options = {}
     if layout == "chunked":
-        options = {"chunks": (min(chunk_steps, len(steps)), min(chunk_rows, steps.shape[1]))
-                   + steps.shape[2:], "compression": "gzip", "compression_opts": 4}
+        options = {"chunks": (min(chunk_steps, shape[0]), min(chunk_rows, shape[1])) + shape[2:],
+                   "compression": "gzip", "compression_opts": 4}
     with h5py.File(folder / "steps.h5", "w") as f:
-        f.create_dataset(name, data=steps, **options)
-    _hyperslab_steps(folder / "series.xdmf", name, steps.shape, times)
+        dset = f.create_dataset(name, shape=shape, dtype=first.dtype, **options)
+        block = options.get("chunks", (1,))[0]      # whole chunks per write: each compressed once
+        for k0 in range(0, shape[0], block):
+            dset[k0:k0 + block] = np.stack([step(k) for k in range(k0, min(k0 + block, shape[0]))])
+    _hyperslab_steps(folder / "series.xdmf", name, shape, times)
     return folder / "series.xdmf"
 
 
