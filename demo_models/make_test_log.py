@@ -3,8 +3,13 @@
 The "truth" is the shipped FE model with a modulus 0.95 times the analysis value, so every true strain
 is the model's divided by 0.95 and the expected measured/predicted ratio is 1/0.95 = 1.053. On top of
 the truth come the faults real tests have: noise, zero offsets, a seating preload in the tare row,
-slight hysteresis on unloading, and five invented channel faults (see FAULTS). Nothing here describes
-a real test.
+slight hysteresis on unloading, and five invented channel faults (see FAULTS). The channels are
+3-wire quarter bridges with invented lead resistances, read at an instrument gauge factor of 2.00
+from gauges of an invented lot (gauge factor 2.05, thermal-output polynomial LOT) while the bracket
+warms by 6 degC in each run (TEMPERATURE_C): the raw readings are made from the true strains by the
+measurement chain run forward (correlate.measurement.chain.raw_from_true), so the study's
+[[gauge_lot]], [thermal] and gauge-map wiring columns recover them. Nothing here describes a real
+test.
 
 Run:  python demo_models/make_test_log.py      (writes correlate/data/demo/readings.csv)
 """
@@ -20,6 +25,7 @@ import pandas as pd
 
 from correlate.api import predict_readings
 from correlate.core.errors import CorrelateWarning
+from correlate.measurement.chain import lead_wire_factor, raw_from_true
 
 DEMO = Path(__file__).resolve().parent.parent / "correlate" / "data" / "demo"
 SEED = 20261201
@@ -43,6 +49,11 @@ FAULTS = {
 }
 OFFSET_MM = (3.0, 0.0)         # (along grid, across grid) of the offset gauge
 DRIFT_UE_PER_STEP = 9.0
+# The invented gauge lot (study.toml's [[gauge_lot]] says the same; the leads, wiring and the
+# instrument's gauge factor are read from gauges.csv, written by build_model.py):
+LOT = {"gauge_factor": 2.05, "gauge_factor_tc": 1.0, "reference_C": 24.0, "range_C": (-30.0, 120.0),
+       "thermal_output": (40.0, -1.0, -0.02, 4.0e-5)}  # ue against degC, at GF 2.00
+TEMPERATURE_C = ((21.0, 27.0), (30.0, 36.0))  # per run: the bracket warms in the hall (invented)
 
 
 def model_readings(gauges: pd.DataFrame) -> pd.DataFrame:
@@ -100,17 +111,42 @@ def make_log() -> pd.DataFrame:
     data += rng.uniform(-OFFSET_UE, OFFSET_UE, len(names))                     # zero offsets
     data += rng.normal(0.0, NOISE_UE, data.shape)
     col = {g: k for k, g in enumerate(names)}
+    data[:, col[FAULTS["drift"]]] += DRIFT_UE_PER_STEP * np.arange(len(profile))
+    temperature = np.round(np.concatenate([np.linspace(*span, len(PROFILE))
+                                           for span in TEMPERATURE_C]), 2)
+    data = as_read(data, temperature, seq, gauges)
     data[:, col[FAULTS["reversed"]]] *= -1.0
     data[:, col[FAULTS["dead"]]] = -12.0 + rng.normal(0.0, 0.3, len(profile))
-    data[:, col[FAULTS["drift"]]] += DRIFT_UE_PER_STEP * np.arange(len(profile))
     log = pd.DataFrame(np.round(data, 1), columns=names)
-    log.insert(0, "temp_C", np.round(21.0 + 0.02 * np.arange(len(profile)), 2))
+    log.insert(0, "temp_C", temperature)
     log.insert(0, "F_side_kN", profile[:, 1])
     log.insert(0, "F_pull_kN", profile[:, 0])
     log.insert(0, "time_s", 30 * np.arange(len(profile)))
     log.insert(0, "sequence", seq)
     log.insert(0, "step", np.arange(1, len(profile) + 1))
     return log
+
+
+def as_read(strain: np.ndarray, temperature: np.ndarray, seq: np.ndarray,
+            gauges: pd.DataFrame) -> np.ndarray:
+    """What the invented 3-wire quarter bridges show for grid strains, per run (tared on its first
+    row, at that row's temperature)."""
+    out = np.empty_like(strain)
+    names = list(gauges["gauge"])
+    daq = gauges["daq_gauge_factor"].to_numpy(dtype=float)
+    leads = lead_wire_factor(gauges["gauge_ohm"].to_numpy(dtype=float),
+                             gauges["lead_ohm"].to_numpy(dtype=float), list(gauges["wiring"]))
+    for s in np.unique(seq):
+        rows = seq == s
+        t0 = temperature[rows][0]
+        out[rows] = raw_from_true(
+            strain[rows], gauges=names, gf_ratio=daq / LOT["gauge_factor"],
+            lead_factor=leads, nonlinear=True, gauge_factor=LOT["gauge_factor"],
+            daq_gauge_factor=daq,
+            temperature=temperature[rows], temperature_tare=t0,
+            thermal_coefficients=LOT["thermal_output"], thermal_range_C=LOT["range_C"],
+            gf_tc=LOT["gauge_factor_tc"], reference_C=LOT["reference_C"])
+    return out
 
 
 def write_log(log: pd.DataFrame, path: Path) -> None:

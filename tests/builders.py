@@ -229,3 +229,71 @@ def flat_panel(z0: float = 5.0) -> tuple[np.ndarray, np.ndarray]:
     quads = np.array([[nid[i, j], nid[i + 1, j], nid[i + 1, j + 1], nid[i, j + 1]]
                       for i in range(6) for j in range(4)])
     return pts, quads
+
+
+# ---------------------------------------------------------------------------------------------
+# Added for the measurement-chain tests (issue 14): the block study with leads, a gauge lot and a
+# thermocouple column, and raw readings made by the Wheatstone circuit (two voltage dividers;
+# Hoffmann, An Introduction to Measurements using Strain Gages, HBM 1989) with the thermal output
+# since the tare as a resistance change 2.00 x (TO(T) - TO(T_tare)) and GF(T) = GF (1 + tc/100
+# (T - 24)/100) (Vishay Micro-Measurements TN-504, from memory). Every value is invented.
+
+CHAIN_RG = 350.0                      # ohm, gauge and completion resistors
+CHAIN_GF, CHAIN_GF_DAQ, CHAIN_TC = 2.11, 2.00, 1.2  # lot's gauge factor, acquisition setting, % per 100 degC
+CHAIN_TO = (-28.0, 2.2, -0.055, 3.0e-4, -5.0e-7)  # invented thermal output a0..a4 [ue / degC^j]
+CHAIN_TEMPS = (23.0, 35.0, 50.0, 80.0, 95.0)      # degC per step of BLOCK_LOADS (a heated test)
+CHAIN_PRESTRAIN = (420.0, -260.0, 150.0)          # ue in each grid at the tare (bonding, preload)
+CHAIN_LEADS = {"S00": ("3-wire", 4.0), "S01": ("2-wire", 2.5), "S02": ("3-wire", 6.0)}
+CHAIN_STUDY = ('[[gauge_lot]]\nname = "L1"\nthermal_output = [-28.0, 2.2, -0.055, 3.0e-4, -5.0e-7]\n'
+         'gauge_factor = 2.11\ngauge_factor_tc = 1.2\nrange_C = [-50.0, 150.0]\n'
+         '[thermal]\ncolumn = "temp_C"\n')
+
+
+def chain_thermal_output(t):
+    return sum(a * np.asarray(t, dtype=float) ** j for j, a in enumerate(CHAIN_TO))
+
+
+def chain_indicated(true_ue, t, wiring, rl):
+    """What a constant-voltage quarter bridge shows at CHAIN_GF_DAQ, from the circuit.
+
+    Arm 1 is the gauge with its lead(s), arm 2 the completion resistor with the second lead of a
+    3-wire circuit (TT-612, from memory), arms 3 and 4 the instrument's half bridge. A 2-wire
+    circuit is taken balanced (completion arm equal to the gauge arm at zero strain, as the
+    bridge balance leaves it; common practice), where CHAIN_RG/(CHAIN_RG + 2 RL) is exact.
+    """
+    x = CHAIN_GF * (1 + CHAIN_TC / 100 * (np.asarray(t) - 24.0) / 100) * true_ue * 1e-6 \
+        + 2.0 * (chain_thermal_output(t) - chain_thermal_output(CHAIN_TEMPS[0])) * 1e-6    # dR/R of the grid
+    leads_in_gauge_arm = 2.0 if wiring == "2-wire" else 1.0
+    r1 = CHAIN_RG * (1 + x) + leads_in_gauge_arm * rl
+    r2 = CHAIN_RG + leads_in_gauge_arm * rl
+    ratio = r1 / (r1 + r2) - CHAIN_RG / (CHAIN_RG + CHAIN_RG)
+    return 4.0 * ratio / CHAIN_GF_DAQ * 1e6
+
+
+def chain_study(folder, gauges, *, shunt=False, wiring_rows=CHAIN_LEADS):
+    """The block study with the chain's columns and tables, and readings made by the circuit."""
+    g = gauges.copy()
+    g["gauge_ohm"] = CHAIN_RG
+    g["wiring"] = [wiring_rows[n][0] for n in g["gauge"]]
+    g["lead_ohm"] = [wiring_rows[n][1] for n in g["gauge"]]
+    g["daq_gauge_factor"] = CHAIN_GF_DAQ
+    g["lot"] = "L1"
+    if shunt:
+        # the shunt across the gauge, at the gauge end of the 3-wire leads, sees CHAIN_RG/(CHAIN_RG + RL)
+        # (TN-514, from memory): a measured over expected response of exactly that
+        g["shunt_gain"] = [CHAIN_RG / (CHAIN_RG + CHAIN_LEADS[n][1]) if n == "S02" else "" for n in g["gauge"]]
+    truth = block_readings(gauges)                        # the model's readings: the truth
+    names = list(gauges["gauge"])
+    raw = pd.DataFrame({"step": truth["step"], "P_kN": truth["P_kN"], "S_kN": truth["S_kN"],
+                        "temp_C": CHAIN_TEMPS})
+    for j, n in enumerate(names):
+        wiring, rl = CHAIN_LEADS[n]
+        raw[n] = chain_indicated(truth[n].to_numpy() + CHAIN_PRESTRAIN[j], np.array(CHAIN_TEMPS), wiring, rl)
+    study = write_small_study(folder, gauges=g, extra_toml=CHAIN_STUDY)
+    study.write_text(study.read_text(encoding="utf-8").replace(
+        "[gauges]\n", '[gauges]\nnonlinearity = "quarter-bridge"\n'), encoding="utf-8")
+    with open(folder / "readings.csv", "w", encoding="utf-8", newline="\n") as fh:
+        fh.write(",".join(raw.columns) + "\n" + ",".join(["", "kN", "kN", "degC"]
+                                                         + ["ue"] * len(names)) + "\n")
+        raw.to_csv(fh, index=False, header=False, lineterminator="\n", float_format="%.12g")
+    return study, truth, raw

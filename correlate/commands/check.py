@@ -12,7 +12,8 @@ from typing import Any
 
 import pandas as pd
 
-from correlate.comparison.pairing import gauge_channels, load_columns, read_test_data
+from correlate.comparison.correlation import chain_readings
+from correlate.comparison.pairing import gauge_channels, load_columns
 from correlate.core.errors import CorrelateError, StudyError
 from correlate.model_readings.conventions import convention_warnings
 from correlate.model_readings.model import (
@@ -70,7 +71,7 @@ def check_study(study: Study) -> tuple[Model, pd.DataFrame, list[str]]:
                 for fe_index, _ in case_steps(model, case)[:1]:
                     _attempt(problems, case_rows, model, case, fe_index)
         if study.readings_file is not None and gauges is not None:
-            _attempt(problems, read_test_data, study, gauges)
+            _attempt(problems, chain_readings, study, gauges)  # the chain's inputs too
         elif study.readings_file is not None and (channels := _raw_channels(study.gauges_file)):
             _attempt(problems, lambda: read_readings(study.readings_file, gauges=channels,
                                                      loads=load_columns(study),

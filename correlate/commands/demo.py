@@ -18,7 +18,8 @@ from correlate.comparison.correlation import correlate_study
 from correlate.core.folders import check_target, output_path, staged_folder
 from correlate.readers.study import read_study
 
-DEMO_FILES = ("study.toml", "gauges.csv", "readings.csv", "bracket.vtu", "README.txt")
+DEMO_FILES = ("study.toml", "gauges.csv", "readings.csv", "bracket.vtu", "bracket_coarse.vtu",
+              "README.txt")
 
 
 def demo_folder() -> Path:

@@ -9,13 +9,15 @@ result is a :class:`Correlation` that the outputs and the report read.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
+from pathlib import Path
 from typing import Any
 
 import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
+from correlate.comparison.budget import GAUGE_COLUMNS, ValidationBudget, validation_budget
 from correlate.comparison.criteria import Statuses, reference_step, status_table
 from correlate.comparison.dispositions import (
     Exclusions,
@@ -33,16 +35,29 @@ from correlate.comparison.evidence import (
 )
 from correlate.comparison.fits import fit_statistics
 from correlate.comparison.pairing import Steps, pair_series, read_test_data
+from correlate.comparison.rosette_budget import rosette_uncertainty, with_uncertainty
 from correlate.comparison.rosettes import rosette_table
 from correlate.comparison.verdict import summarise
 from correlate.core import progress
 from correlate.core.errors import StudyError
 from correlate.core.units import MICROSTRAIN
+from correlate.measurement.channels import (
+    ChainApplied,
+    apply_chain,
+    chain_used,
+    corrections_table,
+    range_flags,
+)
 from correlate.measurement.corrections import channel_scale
 from correlate.measurement.tare import tare_readings
 from correlate.model_readings.model import Model, case_rows, prepare
+from correlate.model_readings.other_models import open_variant, variant_study
 from correlate.model_readings.table import band_limits
 from correlate.readers.study import Study
+
+CHAIN_ORDER = ("polarity", "gauge-factor ratio and lead-wire factor (or shunt gain)",
+               "quarter-bridge non-linearity", "thermal output since the tare temperature",
+               "gauge factor at temperature", "tare")
 
 
 @dataclass
@@ -68,6 +83,9 @@ class Correlation:
     summary: dict[str, Any]
     readings_info: dict[str, Any] = field(default_factory=dict)
     rows_by_case: dict[str, dict[str, NDArray]] = field(default_factory=dict)
+    chain: ChainApplied | None = None    # the measurement chain, when the study uses it
+    corrections: pd.DataFrame | None = None  # corrections.csv, when the study uses it
+    validation: ValidationBudget | None = None   # None: the study has no [uncertainty]
 
     @property
     def reference(self) -> int:
@@ -89,6 +107,8 @@ class ModelForTest:
     contributions: NDArray[np.float64]   # (s, g, C) per case
     not_modelled: NDArray[np.bool_]      # (s,) rows a series case does not reach
     rows_by_case: dict[str, dict[str, NDArray]]
+    height: NDArray[np.float64] | None = None  # (s, g) grid-height correction, microstrain
+    transverse: NDArray[np.float64] | None = None  # (s, g) strain across the grid
 
 
 def measured_readings(study: Study, model: Model) -> tuple[Any, Steps, NDArray[np.float64]]:
@@ -96,13 +116,27 @@ def measured_readings(study: Study, model: Model) -> tuple[Any, Steps, NDArray[n
 
     Returns the readings record, the steps and the measured readings (s, g) in microstrain.
     """
-    gauges = model.gauges
+    readings, steps, measured, _ = chain_readings(study, model.gauges)
+    return readings, steps, measured
+
+
+def chain_readings(study: Study, gauges: pd.DataFrame
+                   ) -> tuple[Any, Steps, NDArray[np.float64], ChainApplied | None]:
+    """:func:`measured_readings` with the measurement chain's record (None when not used);
+    ``gauges`` is the gauge map (``check`` calls it before any gauge is located)."""
     with progress.step("reading the test data"):
         readings, steps, _ = read_test_data(study, gauges)
     names = gauges["gauge"].tolist()
-    scale = channel_scale(gauges) * reverse_signs(gauges, study)
+    signs = reverse_signs(gauges, study)
+    if chain_used(gauges, study.chain):
+        signs = signs * gauges["polarity"].fillna(1.0).to_numpy(dtype=float)
+        chain = apply_chain(readings.table[names].to_numpy(dtype=float), signs, gauges,
+                            study.chain, readings.table, steps, units=readings.load_units,
+                            source=Path(readings.path).name)
+        return readings, steps, chain.measured_ue, chain
+    scale = channel_scale(gauges) * signs
     raw = readings.table[names].to_numpy(dtype=float) * scale[None, :]
-    return readings, steps, tare_readings(raw, steps)
+    return readings, steps, tare_readings(raw, steps), None
 
 
 def model_readings(study: Study, model: Model, steps: Steps) -> ModelForTest:
@@ -119,10 +153,11 @@ def model_readings(study: Study, model: Model, steps: Steps) -> ModelForTest:
     n_rows = len(op.row_kind)
     R = np.stack([rows_by_case[c][key] if c in rows_by_case else np.zeros(n_rows)
                   for c in case_names], axis=1)                               # (rows, C)
-    R_axial = np.stack([rows_by_case[c]["axial"] if c in rows_by_case else np.zeros(n_rows)
-                        for c in case_names], axis=1)
+    R_axial, R_trans = (np.stack([rows_by_case[c][k] if c in rows_by_case else np.zeros(n_rows)
+                                  for c in case_names], axis=1) for k in ("axial", "transverse"))
     combined = R @ steps.factors.T * MICROSTRAIN                              # (rows, s)
     combined_axial = R_axial @ steps.factors.T * MICROSTRAIN
+    combined_trans = R_trans @ steps.factors.T * MICROSTRAIN
     nominal = op.row_kind == 0
     contributions = steps.factors[:, None, :] * R[nominal][None, :, :] * MICROSTRAIN
     not_modelled = np.zeros(len(steps.step), dtype=bool)
@@ -131,15 +166,36 @@ def model_readings(study: Study, model: Model, steps: Steps) -> ModelForTest:
         per_state = [case_rows(model, case, k) for k in pairing.fe_index]
         add, modelled = pairing.apply(np.stack([r[key] for r in per_state], axis=1))
         add_axial, _ = pairing.apply(np.stack([r["axial"] for r in per_state], axis=1))
+        add_trans, _ = pairing.apply(np.stack([r["transverse"] for r in per_state], axis=1))
         add, add_axial = add * MICROSTRAIN, add_axial * MICROSTRAIN
         combined += np.nan_to_num(add)
         combined_axial += np.nan_to_num(add_axial)
+        combined_trans += np.nan_to_num(add_trans * MICROSTRAIN)
         contributions[:, :, case_names.index(case.name)] = np.nan_to_num(add[nominal]).T
         not_modelled |= ~modelled
     low, high = band_limits(op, combined)
     return ModelForTest(predicted=combined[nominal].T, axial=combined_axial[nominal].T, low=low,
                         high=high, contributions=contributions, not_modelled=not_modelled,
-                        rows_by_case=rows_by_case)
+                        rows_by_case=rows_by_case, transverse=combined_trans[nominal].T,
+                        height=height_correction(study, model, steps, rows_by_case))
+
+
+def height_correction(study: Study, model: Model, steps: Steps,
+                      rows_by_case: dict[str, dict[str, NDArray]]) -> NDArray[np.float64] | None:
+    """The grid-height correction of the model reading (s, g) in microstrain, superposed like
+    the readings; None without heights. Series cases: NaN (their states pair row by row)."""
+    if not any("height_indicated" in r for r in rows_by_case.values()):
+        return None
+    nominal = model.operator.row_kind == 0
+    n = int(nominal.sum())
+    out = np.zeros((len(steps.step), n))
+    for j, case in enumerate(study.cases):
+        if case.is_series:
+            return np.full((len(steps.step), n), np.nan)
+        rows = rows_by_case[case.name].get("height_indicated")
+        if rows is not None:
+            out += np.outer(steps.factors[:, j], rows[nominal]) * MICROSTRAIN
+    return out
 
 
 def _require_loads(study: Study) -> None:
@@ -174,12 +230,14 @@ def correlate_study(study: Study, model: Model | None = None) -> Correlation:
     _require_loads(study)
     model = model or prepare(study)
     names = model.gauges["gauge"].tolist()
-    readings, steps, measured = measured_readings(study, model)
+    readings, steps, measured, chain = chain_readings(study, model.gauges)
     _require_pairs(study, steps, measured)
     progress.pause("readings")
     m = model_readings(study, model, steps)
     progress.pause("model")
-    flags = health_flags(measured, names, steps, model.gauges, study, readings.flags)
+    flags = health_flags(measured, names, steps, model.gauges, study, readings.flags,
+                         raw=None if chain is None else chain.raw_ue,
+                         chain_rows=None if chain is None else range_flags(chain, steps))
     excl = dispose_health(flags, study, names, steps)
     reversed_ = flag_reversed(measured, m.predicted, names, steps, excl, flags, study)
     excl.text[:] = np.where(excl.text == "", "flagged", excl.text)
@@ -194,14 +252,53 @@ def correlate_study(study: Study, model: Model | None = None) -> Correlation:
                                         model.operator)
     summary = summarise(study, model, readings, steps, names, result, per_gauge, flags, diag,
                         ref, st, reversed_)
+    corrections = None if chain is None else corrections_table(chain, ref, m.height)
+    if corrections is not None:
+        summary["measurement_chain"] = {
+            "order": CHAIN_ORDER, "reference_step": summary["reference_step"],
+            "channels": corrections.to_dict(orient="records")}
+    budget = _budget(study, model, steps, names, measured, m, st, ref, summary)
+    if budget is not None and budget.rosettes is not None:
+        ros = with_uncertainty(ros, budget.rosettes)
     return Correlation(study=study, model=model, steps=steps, gauges=names, measured=measured,
                        predicted=m.predicted, predicted_axial=m.axial, band_low=m.low.T,
                        band_high=m.high.T, contributions=m.contributions, status=st, flags=flags,
-                       gauge_table=gauge_table(names, steps, measured, m, st),
+                       gauge_table=gauge_table(names, steps, measured, m, st, chain, budget),
                        per_gauge=per_gauge, rosettes=ros, diagnoses=diag, summary=summary,
-                       rows_by_case=m.rows_by_case,
+                       rows_by_case=m.rows_by_case, chain=chain, corrections=corrections,
+                       validation=budget,
                        readings_info={"ignored": list(readings.ignored),
                                       "load_units": readings.load_units})
+
+
+def _budget(study: Study, model: Model, steps: Steps, names: list[str], measured: NDArray,
+            m: ModelForTest, st: Statuses, ref: int, summary: dict[str, Any]
+            ) -> ValidationBudget | None:
+    """The validation budget (None without [uncertainty]); it adds ``validation`` to the summary.
+
+    Each coarser mesh or input variant is opened, evaluated at the test's steps with the same
+    gauge map, and dropped before the next is opened.
+    """
+    if study.uncertainty is None:
+        return None
+
+    def predict(file: Any) -> NDArray[np.float64]:
+        other = open_variant(study, file, model.gauges)
+        return model_readings(variant_study(study, file), other, steps).predicted
+
+    with progress.step("validation budget (other meshes and input variants included)"):
+        budget = validation_budget(
+            study, names, steps, measured, m.predicted,
+            (model.gauges["kt"].to_numpy(dtype=float), m.axial, m.transverse),
+            (m.low, m.high), st, ref,
+            statistical_se=float(summary["fit"].get("se_slope_origin", np.nan)), predict=predict)
+        if budget is None:
+            return None
+        rosettes = rosette_uncertainty(study, model, model.gauges, steps, measured, m.axial,
+                                       st.evaluated, budget.measurement, budget.inputs,
+                                       m.predicted, budget.u_num, study.uncertainty.load)
+    summary["validation"] = budget.summary
+    return replace(budget, rosettes=rosettes)
 
 
 def _compare(study: Study, model: Model, steps: Steps, names: list[str], measured: NDArray,
@@ -230,19 +327,22 @@ def _compare(study: Study, model: Model, steps: Steps, names: list[str], measure
 
 
 def gauge_table(names: list[str], steps: Steps, measured: NDArray, m: ModelForTest,
-                st: Statuses) -> pd.DataFrame:
-    """The rows of ``gauges.csv``: one per gauge and step."""
+                st: Statuses, chain: ChainApplied | None = None,
+                budget: ValidationBudget | None = None) -> pd.DataFrame:
+    """The rows of ``gauges.csv``: one per gauge and step (``raw_ue`` beside ``measured_ue``
+    when the measurement chain is used; the budget's columns when given)."""
     s, g = measured.shape
     low, high = m.low, m.high
     in_band = (measured >= low.T - 1e-9) & (measured <= high.T + 1e-9)
     status = st.status
     flag = np.where(np.isin(status, ["pass", "fail", "tare", "zero-load"]), "", status)
-    return pd.DataFrame({
+    table = pd.DataFrame({
         "gauge": np.tile(names, s),
         "step": np.repeat(steps.step, g),
         "sequence": np.repeat(steps.sequence, g),
         "predicted_ue": m.predicted.ravel(),
         "measured_ue": measured.ravel(),
+        **({} if chain is None else {"raw_ue": chain.raw_ue.ravel()}),
         "difference_ue": st.difference.ravel(),
         "ratio": st.ratio.ravel(),
         "relative": st.relative.ravel(),
@@ -254,7 +354,17 @@ def gauge_table(names: list[str], steps: Steps, measured: NDArray, m: ModelForTe
         "unconservative": st.unconservative.ravel(),
         "flag": flag.ravel(),
     })
+    if budget is not None:
+        table[list(GAUGE_COLUMNS)] = budget.columns[list(GAUGE_COLUMNS)].to_numpy()
+    return table
 
 
-__all__ = ["Correlation", "ModelForTest", "correlate_study", "gauge_table", "measured_readings",
-           "model_readings"]
+__all__ = [
+    "Correlation",
+    "ModelForTest",
+    "chain_readings",
+    "correlate_study",
+    "gauge_table",
+    "measured_readings",
+    "model_readings",
+]

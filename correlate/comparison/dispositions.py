@@ -61,13 +61,34 @@ def reverse_signs(gauges: pd.DataFrame, study: Study) -> NDArray[np.float64]:
 
 
 def health_flags(measured: NDArray, names: list[str], steps: Steps, gauges: pd.DataFrame,
-                 study: Study, sentinel_rows: pd.DataFrame) -> pd.DataFrame:
-    """Model-free channel-health flags, sentinel values first, with an empty disposition."""
+                 study: Study, sentinel_rows: pd.DataFrame, raw: NDArray | None = None,
+                 chain_rows: pd.DataFrame | None = None) -> pd.DataFrame:
+    """Model-free channel-health flags, sentinel values first, with an empty disposition.
+
+    With ``raw`` (the readings as read, tared, when the measurement chain corrected them) a dead
+    or railed channel is judged on what the instrument read: an open channel reads flat whatever
+    the thermal-output correction adds, and the range is the instrument's. The other flags are
+    judged on the corrected readings (a thermal drift removed is no drift). ``chain_rows``:
+    readings the measurement chain left out (a temperature outside its lot's range).
+    """
     direction = load_direction(steps.loads, steps.sequence, tol=study.zero_tol)
-    flags = assess_channels(
-        measured, gauges=names, loads=steps.loads, steps=steps.step, sequence=steps.sequence,
-        tare=steps.tare, zero_load=steps.zero_load, direction=direction,
-        range_ue=gauges["range_ue"].to_numpy(dtype=float), thresholds={**study.health})
+
+    def assess(values: NDArray) -> pd.DataFrame:
+        return assess_channels(
+            values, gauges=names, loads=steps.loads, steps=steps.step, sequence=steps.sequence,
+            tare=steps.tare, zero_load=steps.zero_load, direction=direction,
+            range_ue=gauges["range_ue"].to_numpy(dtype=float), thresholds={**study.health})
+
+    flags = assess(measured)
+    if raw is not None:
+        as_read = assess(raw)
+        as_read = as_read[as_read["flag"].isin(["dead", "rail"])]
+        dead = set(as_read.loc[as_read["flag"] == "dead", "gauge"])
+        flags = flags[~flags["flag"].isin(["dead", "rail"]) & ~flags["gauge"].isin(dead)]
+        flags = pd.concat([as_read, flags], ignore_index=True)
+        order = {g: j for j, g in enumerate(names)}
+        flags = flags.sort_values("gauge", key=lambda c: c.map(order), kind="stable",
+                                  ignore_index=True)
     if len(sentinel_rows):
         sent = sentinel_rows[sentinel_rows["gauge"].isin(names)]
         extra = pd.DataFrame({"gauge": sent["gauge"], "step": sent["step"],
@@ -77,6 +98,8 @@ def health_flags(measured: NDArray, names: list[str], steps: Steps, gauges: pd.D
                               "reason": "open or overranged channel value "
                                         + sent["value"].astype(str)})
         flags = pd.concat([extra, flags], ignore_index=True)  # a sentinel says more than "missing"
+    if chain_rows is not None and len(chain_rows):  # says more than "missing" too
+        flags = pd.concat([chain_rows, flags], ignore_index=True)
     flags["disposition"] = ""
     for col in RECORD_COLUMNS:
         flags[col] = np.nan if col == "value_after" else ""

@@ -25,6 +25,7 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from correlate.core.errors import ReadingsFormatError, StudyError
+from correlate.measurement.channels import temperature_columns
 from correlate.measurement.health import load_direction
 from correlate.measurement.tare import TaredSteps, tare_steps
 from correlate.model_readings.model import Model, case_steps
@@ -75,8 +76,10 @@ def read_test_data(study: Study, gauges_df: pd.DataFrame) -> tuple[Any, Steps, t
             raise StudyError(f"{study.path.name}: [[override]] names gauge '{o.gauge}', which is not "
                              "in the gauge map")
     load_cols = load_columns(study)
+    thermocouples = tuple(c for c in temperature_columns(gauges_df, study.chain)
+                          if c not in load_cols)  # read beside the loads, never tared as one
     readings = read_readings(study.readings_file, gauges=gauge_channels(gauges_df),
-                             loads=load_cols, sentinels=study.sentinels)
+                             loads=load_cols + thermocouples, sentinels=study.sentinels)
     readings = in_step_order(readings, newest_first=study.newest_first)
     steps = make_steps(readings.table, load_cols, study.loads, [c.name for c in study.cases],
                        rule=study.zero, zero_tol=study.zero_tol,

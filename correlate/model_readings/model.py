@@ -25,8 +25,14 @@ from correlate.core.errors import (
 from correlate.model_readings.conventions import convention_warnings
 from correlate.model_readings.evaluate import evaluate_rows
 from correlate.model_readings.gradients import nodal_strain, rotation_at_points
+from correlate.model_readings.height import height_strain, raised_rows
 from correlate.model_readings.locator import Locator
 from correlate.model_readings.operator import GaugeOperator, build_operator, gauge_locator
+from correlate.model_readings.thermal_strain import (
+    mechanical_rows,
+    temperature_at_points,
+    warn_unused_temperature,
+)
 from correlate.readers.fields import read_field
 from correlate.readers.gauges import read_gauges
 from correlate.readers.model import Mesh, ModelSource, find_array, open_model
@@ -101,6 +107,7 @@ def prepare(study: Study) -> Model:
         model.conventions = convention_warnings(model)
     for line in model.conventions:
         warnings.warn(line, CorrelateWarning, stacklevel=2)
+    warn_unused_temperature(study.cases, sources, study.model_file)
     return model
 
 
@@ -313,17 +320,36 @@ def case_problems(study: Study, sources: dict[Path, ModelSource], case: Case) ->
 
 def case_rows(model: Model, case: Case, fe_index: int | None,
               operator: GaugeOperator | None = None) -> dict[str, NDArray[np.float64]]:
-    """Operator rows of one case (one FE state), in m/m."""
-    fld = model.case_field(case, fe_index, operator or model.operator)
-    rows = evaluate_rows(operator or model.operator, fld)
-    if operator is not None:
-        return rows
-    if fld.kind == "displacement":
+    """Operator rows of one case (one FE state), in m/m; mechanical for a thermal case."""
+    op = operator or model.operator
+    fld = model.case_field(case, fe_index, op)
+    rows = evaluate_rows(op, fld)
+    if operator is None and fld.kind == "displacement":
         if fld.index is not None:  # the checks average over whole cells: read the whole step
             fld = model.case_field(case, fe_index)
         rows.update(_displacement_checks(model, case, fld))
+    heights = _heights(model, op)
+    if heights is not None:
+        whole = fld if fld.index is None else model.case_field(case, fe_index)
+        delta = height_strain(op, whole, heights, thickness=model.study.model_info.get(
+            "thickness"), warn=operator is None)
+        rows = raised_rows(op, rows, delta)
+    if case.thermal is not None:
+        rows = mechanical_rows(op, rows, temperature_at_points(op, model.source(case), case,
+                                                               fe_index),
+                               case.thermal.alpha, case.thermal.reference_C)
+    if operator is not None:
+        return rows
     rows["location"] = fld.location  # type: ignore[assignment]
     return rows
+
+
+def _heights(model: Model, op: GaugeOperator) -> NDArray[np.float64] | None:
+    """Grid height per gauge of ``op`` (gauge-map column ``height``), None when none is given."""
+    if "height" not in model.gauges:
+        return None
+    h = model.gauges.set_index("gauge")["height"].reindex(op.gauges).to_numpy(dtype=float)
+    return h if np.nan_to_num(h).any() else None
 
 
 def _displacement_checks(model: Model, case: Case, fld: Any) -> dict[str, Any]:

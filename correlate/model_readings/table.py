@@ -84,6 +84,8 @@ def predict_table(model: Model) -> pd.DataFrame:
             "sens_position_ue_per_unit": sens_pos * MICROSTRAIN,
             "sens_angle_ue_per_deg": sens_ang * MICROSTRAIN,
         }
+        if "height_indicated" in rows:  # the grid-height correction, where a height is given
+            state["height_ue"] = rows["height_indicated"][nominal] * MICROSTRAIN
         if "averaged_indicated" in rows:
             state["mesh_check_ue"] = (rows["averaged_indicated"][nominal] - ind[nominal]) * MICROSTRAIN
             state["rotation_rad"] = rows["rotation"]

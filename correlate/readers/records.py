@@ -11,6 +11,16 @@ from typing import Any
 
 
 @dataclass(frozen=True)
+class CaseThermal:
+    """A thermo-mechanical case's ``thermal = {...}``: the temperature array, the gauged
+    material's expansion coefficient [1/degC] and the model's stress-free temperature [degC]."""
+
+    temperature: str
+    alpha: float
+    reference_C: float
+
+
+@dataclass(frozen=True)
 class Case:
     """One FE load case: which array holds it and how to read it."""
 
@@ -25,6 +35,7 @@ class Case:
     axes: str | None = None
     check_stress: str | None = None
     match: dict[str, Any] | None = None
+    thermal: CaseThermal | None = None       # thermo-mechanical: mechanical strain is read
 
     @property
     def is_series(self) -> bool:
@@ -73,6 +84,81 @@ class Override:
 
 
 @dataclass(frozen=True)
+class GaugeLot:
+    """A ``[[gauge_lot]]``: the data sheet of one lot of gauges (thermal output, gauge factor).
+
+    ``thermal_output`` holds a0 .. a4 [microstrain / degC^j] at a gauge factor of 2.00,
+    ``gauge_factor_tc`` is in % per 100 degC (None: not given), temperatures in degC.
+    """
+
+    name: str
+    thermal_output: tuple[float, ...]
+    gauge_factor: float
+    range_C: tuple[float, float]
+    gauge_factor_tc: float | None = None
+    reference_C: float = 24.0
+
+
+@dataclass(frozen=True)
+class ChainSettings:
+    """The study's measurement-chain tables: lots, the thermocouple column, non-linearity."""
+
+    lots: dict[str, GaugeLot] = field(default_factory=dict)
+    thermal_column: str | None = None      # [thermal] column: default thermocouple column
+    nonlinearity: str = ""                 # [gauges] nonlinearity: "quarter-bridge" or ""
+
+    @property
+    def used(self) -> bool:
+        """Whether the study gives any measurement-chain key."""
+        return bool(self.lots or self.thermal_column or self.nonlinearity)
+
+
+@dataclass(frozen=True)
+class UncertainInput:
+    """One uncertain model input of ``[[uncertainty.input]]``: its relative standard uncertainty
+    and how it moves the prediction (``exponent``, or a ``variant`` file raised by ``step``)."""
+
+    name: str
+    relative: float
+    exponent: float | None = None
+    variant: Path | None = None
+    step: float | None = None
+
+
+@dataclass(frozen=True)
+class Uncertainty:
+    """The ``[uncertainty]`` table: standard uncertainties (one standard deviation) of the
+    measurement and of the model's inputs, and the coverage factor k."""
+
+    coverage: float = 2.0
+    gauge_factor: float = 0.0        # relative, on the reading
+    transverse: float = 0.0          # absolute, on Kt
+    daq_ue: float = 0.0              # microstrain
+    daq_relative: float = 0.0        # relative, on the reading
+    load: float = 0.0                # relative, on the applied loads
+    placement: bool = False          # the placement band as a rectangular distribution
+    inputs: tuple[UncertainInput, ...] = ()
+
+
+@dataclass(frozen=True)
+class GridMesh:
+    """One coarser mesh of ``[numerical] meshes``: its file and element size."""
+
+    file: Path
+    h: float
+
+
+@dataclass(frozen=True)
+class Numerical:
+    """The ``[numerical]`` table: the study model's element size and the coarser meshes
+    (coarsest last after reading), for the grid convergence index."""
+
+    h: float
+    meshes: tuple[GridMesh, ...]
+    formal_order: float = 2.0
+
+
+@dataclass(frozen=True)
 class Study:
     """Everything the study file says, validated, with absolute paths."""
 
@@ -106,6 +192,9 @@ class Study:
     health: dict[str, float] = field(default_factory=dict)
     report: dict[str, Any] = field(default_factory=dict)
     raw: dict[str, Any] = field(default_factory=dict)
+    chain: ChainSettings = ChainSettings()
+    uncertainty: Uncertainty | None = None   # None: no [uncertainty] table, no budget
+    numerical: Numerical | None = None       # None: no [numerical] table, u_num = 0
 
     @property
     def material(self) -> Material | None:

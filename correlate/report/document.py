@@ -29,7 +29,9 @@ from correlate.comparison.rosettes import rosette_angles
 from correlate.comparison.verdict import CRITERIA_SOURCE
 from correlate.core.names import CAUTION
 from correlate.measurement.health import load_direction
+from correlate.report.chain_section import chain_notes, chain_rows
 from correlate.report.scene import Rendering, render_views
+from correlate.report.validation import validation_context
 from correlate.report.vtk_files import write_vtk
 
 HERE = Path(__file__).parent
@@ -441,6 +443,10 @@ def _context(corr: Correlation, ref: int) -> dict[str, Any]:
         "material_rows": tables.material_rows(corr),
         "health_rows": tables.health_rows(corr),
         "map_rows": tables.gauge_map_rows(corr),
+        "chain_used": corr.corrections is not None,
+        "chain_rows": chain_rows(corr.corrections),
+        "chain_notes": chain_notes(corr.corrections),
+        "chain_height": corr.corrections is not None and "height_ue" in corr.corrections,
         "length_unit": str(study.length_unit),
         "snap_tol": num(study.snap_tol, "g"),
         "stats": tables.statistics(summary),
@@ -471,7 +477,8 @@ def write_report(corr: Correlation, folder: Path) -> None:
                           "visible": list(v.visible)} for v in rendering.views]
                if rendering else [],
                "not_visible": list(rendering.not_visible) if rendering else [],
-               "render_note": render_note}
+               "render_note": render_note,
+               "validation": validation_context(corr, folder, _step_label(corr, ref), data_uri)}
     env = Environment(loader=FileSystemLoader(str(HERE)), autoescape=True,
                       undefined=StrictUndefined, trim_blocks=True, lstrip_blocks=True)
     html = env.get_template("template.html").render(**context)

@@ -45,7 +45,7 @@ import pytest
 from correlate.commands.cli import main
 from correlate.commands.demo import demo_folder
 
-INPUTS = ("study.toml", "gauges.csv", "readings.csv", "bracket.vtu")
+INPUTS = ("study.toml", "gauges.csv", "readings.csv", "bracket.vtu", "bracket_coarse.vtu")
 # one unit of the written precision: README "microstrain to 0.001"
 UE_ATOL = 1e-3
 
@@ -587,7 +587,8 @@ def _thousands(ctx):
     lines = readings_lines(ctx)
     out = [lines[0].replace(",", ";"), lines[1].replace(",", ";")]
     out += [";".join(_german(c) for c in line.split(",")) for line in lines[2:]]
-    assert any("1.512,2" in line for line in out)  # the file really has thousands dots
+    # the file really has thousands dots (a value of 1,000 or more, written 1.234,5)
+    assert any(re.search(r"\d\.\d{3},\d", line) for line in out)
     write_readings(ctx, out)
     return run_call(ctx)
 
@@ -1036,14 +1037,15 @@ def test_mutation(name, tmp_path, demo, record_property):
 
 
 def test_reference(demo):
-    """The reference run's measured readings are the readings file tared by the first row of
-    each sequence (README: zero = "first"), recomputed here with pandas."""
+    """The reference run's readings as read (``raw_ue``, before the measurement chain's lead-wire
+    and thermal corrections) are the readings file tared by the first row of each sequence
+    (README: zero = "first"), recomputed here with pandas."""
     raw = pd.read_csv(demo.base / "readings.csv", skiprows=[1])
     tare = raw.groupby("sequence").transform("first")
     got = pd.read_csv(demo.run / "gauges.csv")
     gauges = [c for c in raw.columns[6:] if c != "G07"]  # G07 is flagged reversed (sign shown)
     for g in gauges:
-        mine = got[got["gauge"] == g].sort_values("step")["measured_ue"].to_numpy()
+        mine = got[got["gauge"] == g].sort_values("step")["raw_ue"].to_numpy()
         expect = (raw[g] - tare[g]).to_numpy()
         # tolerance: readings have 0.1 ue, outputs 0.001 ue; the difference is exact arithmetic
         np.testing.assert_allclose(mine, expect, rtol=0, atol=UE_ATOL, err_msg=g)

@@ -335,7 +335,8 @@ def test_study_parser_gives_a_study_or_a_correlate_error(text, tmp_path_factory)
 
 _cells = st.one_of(
     st.sampled_from(["", " ", "0", "1", "-1", "0.5", "1e3", "nan", "inf", "-inf", "1,5", "top",
-                     "bottom", "upper", "surface", "embedded", "R", "A", "0.9", "1e400", "x"]),
+                     "bottom", "upper", "surface", "embedded", "R", "A", "0.9", "1e400", "x",
+                     "2-wire", "3-wire", "quarter-bridge"]),
     st.text(max_size=6), st.floats(allow_nan=True, allow_infinity=True).map(str))
 
 
@@ -343,7 +344,10 @@ VALID_ROW = {"gauge": "G", "x": "1.0", "y": "2.0", "z": "2.0", "dir_x": "1", "di
              "dir_z": "0", "length": "0.3", "kt": "0.01", "rosette": "", "face": "", "mount": "",
              "grid": "", "channel": "", "position_tol": "", "angle_tol": "", "nu0": "",
              "normal_x": "", "normal_y": "", "normal_z": "", "gauge_factor": "",
-             "daq_gauge_factor": "", "polarity": "", "range_ue": ""}
+             "daq_gauge_factor": "", "polarity": "", "range_ue": "",
+             # measurement-chain columns (issue 14)
+             "gauge_ohm": "350", "lead_ohm": "", "wiring": "", "shunt_gain": "",
+             "nonlinearity": "", "lot": "", "temperature": "", "height": ""}
 
 
 @st.composite
