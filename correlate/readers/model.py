@@ -137,7 +137,7 @@ class ModelSource:
     times: tuple[float, ...] = ()
     _reader: Any = None
     _cache: dict[int, tuple[dict, dict]] = field(default_factory=dict)
-    _h5: dict[Path, Any] = field(default_factory=dict)
+    _h5: dict[Any, Any] = field(default_factory=dict)   # HDF5 files and datasets (readers.series)
     _blocks: dict[Any, Any] = field(default_factory=dict)   # steps read ahead (readers.series)
     _names: dict[str, tuple[str, ...]] | None = None
 
