@@ -32,7 +32,7 @@ from pathlib import Path
 import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from run import strain_field, tet_block, top_gauges  # noqa: E402
+from run import strain_field, tet_block, top_gauges
 
 SCRATCH_LIMIT = 10e9      # the most this script writes, as the issue allows; checked up front
 

@@ -25,8 +25,8 @@ from pathlib import Path
 import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from run import baseline_probe, strain_field, tet_block, timed_command, top_gauges, validate  # noqa: E402
-from series_files import LAYOUTS, write_series  # noqa: E402  (tests/ is on the path via run)
+from run import baseline_probe, strain_field, tet_block, timed_command, top_gauges, validate
+from series_files import LAYOUTS, write_series
 
 
 def write_study(folder: Path) -> Path:
