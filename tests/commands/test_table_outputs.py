@@ -30,6 +30,21 @@ def test_predict_csv_is_byte_identical_to_the_pandas_path(tmp_path):
         assert (tmp_path / "o" / name).read_bytes() == expect, name
 
 
+def test_run_tables_are_byte_identical_to_the_pandas_path(tmp_path):
+    # reference: the pandas writer (as above), on the correlation computed again in this process
+    from correlate.comparison.correlation import correlate_study
+
+    (tmp_path / "s").mkdir()
+    study = write_small_study(tmp_path / "s")
+    assert main(["--quiet", "run", str(study), "--out", str(tmp_path / "o"), "--no-report"]) == 0
+    corr = correlate_study(read_study(study))
+    written = {"gauges.csv": corr.gauge_table, "rosettes.csv": corr.rosettes,
+               "gauge_stats.csv": corr.per_gauge, "flags.csv": corr.flags}
+    for name, table in written.items():
+        expect = tables.pandas_csv(tables.safe_text(table)).encode("utf-8")
+        assert (tmp_path / "o" / name).read_bytes() == expect, name
+
+
 def test_predict_parquet_holds_the_csv_columns_typed(tmp_path):
     # read back with pyarrow (reference library); the CSV of the same run is the comparison:
     # same columns in the same order, and the very doubles (exact: the CSV's ten-digit text of a
