@@ -2,9 +2,10 @@
 floor, peak memory beside the mesh arrays, each stage's growth from 1,000,000 cells; and a
 cold-cache read of the file.
 
-Disk: the 10M-cell model is written as XDMF/HDF5 (uncompressed: the fastest format meshio reads,
-so the floor is the floor), about 0.5 GB; the script needs (and checks for) 10 GB of scratch at
-most and skips with a message when there is less. Memory: about 4 GB at the peak.
+Disk: the 10M-cell model is written as XDMF/HDF5 by meshio's own writer (gzip-compressed HDF5,
+meshio's default; about 60 MB for this regular block), and the script reserves and checks for
+about 0.7 GB of scratch (at most the 10 GB the issue allows) and skips with a message when there is
+less. Memory: about 5.5 GB at the peak.
 
 Each size runs `correlate --timings predict` ONCE, in a fresh process (the machine is shared:
 the figures of one run, not the best of several). Peak memory is that process's maximum resident
