@@ -346,7 +346,8 @@ def case_rows(model: Model, case: Case, fe_index: int | None,
 
 def _heights(model: Model, op: GaugeOperator) -> NDArray[np.float64] | None:
     """Grid height per gauge of ``op`` (gauge-map column ``height``), None when none is given."""
-    if "height" not in model.gauges:
+    if "height" not in model.gauges or not np.nan_to_num(
+            model.gauges["height"].to_numpy(dtype=float)).any():
         return None
     h = model.gauges.set_index("gauge")["height"].reindex(op.gauges).to_numpy(dtype=float)
     return h if np.nan_to_num(h).any() else None
