@@ -77,6 +77,9 @@ def _parser() -> argparse.ArgumentParser:
     pr.add_argument("study", type=Path)
     pr.add_argument("--out", required=True, help="output folder")
     pr.add_argument("--force", action="store_true", help="replace an existing output folder")
+    pr.add_argument("--table-format", choices=("csv", "parquet"), default="csv",
+                    help="model readings as CSV (default) or as typed Parquet "
+                         "(model_readings.parquet, same columns; for long series)")
 
     r = sub.add_parser("run", parents=[after], help="correlate the test readings with the model")
     r.add_argument("study", type=Path)

@@ -105,6 +105,7 @@ def run(args: argparse.Namespace) -> int:
     with progress.step("correlating (statistics, health, rosettes)"):
         corr = correlate_study(study, model)
     write_outputs(corr, out, force=args.force, report=not args.no_report)
-    print_summary(corr)
+    with progress.step("printing the summary"):
+        print_summary(corr)
     print(f"outputs in {out}" + ("" if args.no_report else f"; report: {out / 'report.html'}"))
     return 0
