@@ -9,6 +9,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+from correlate.readers.fullfield_study import FullFieldSettings
+
 
 @dataclass(frozen=True)
 class CaseThermal:
@@ -195,6 +197,7 @@ class Study:
     chain: ChainSettings = ChainSettings()
     uncertainty: Uncertainty | None = None   # None: no [uncertainty] table, no budget
     numerical: Numerical | None = None       # None: no [numerical] table, u_num = 0
+    fullfield: FullFieldSettings | None = None   # None: no [fullfield] table, no DIC outputs
 
     @property
     def material(self) -> Material | None:

@@ -19,6 +19,7 @@ from correlate.readers._values import number as _number
 from correlate.readers._values import path as _path
 from correlate.readers._values import unknown_keys as _unknown_keys
 from correlate.readers.chain_study import LOT_KEYS, THERMAL_KEYS, parse_case_thermal, parse_chain
+from correlate.readers.fullfield_study import FULLFIELD_KEYS, fullfield_table
 from correlate.readers.records import Case, Criteria, Load, Material, Override, Study
 from correlate.readers.uncertainty_tables import (
     NUMERICAL_KEYS,
@@ -32,7 +33,7 @@ from correlate.readers.uncertainty_tables import (
 SCHEMA: dict[str, set[str]] = {
     "": {"title", "model", "case", "material", "gauges", "test", "readings", "load", "criteria",
          "override", "health", "report", "document", "gauge_lot", "thermal", "uncertainty",
-         "numerical"},
+         "numerical", "fullfield"},
     "model": {"file", "length_unit", "stress_unit", "plane", "revision", "description", "solver",
               "element", "mesh_size", "materials", "thickness", "kind"},
     "case": {"name", "strain", "displacement", "stress", "components", "shear", "time_index", "file",
@@ -53,6 +54,7 @@ SCHEMA: dict[str, set[str]] = {
     "thermal": THERMAL_KEYS,
     "uncertainty": UNCERTAINTY_KEYS,
     "numerical": NUMERICAL_KEYS,
+    "fullfield": FULLFIELD_KEYS,
 }
 FREE_TEXT = {"test"}
 ABSOLUTE_UE_MAX = 10_000.0   # microstrain: a pass floor above 1 % strain is no floor
@@ -435,6 +437,7 @@ def parse_study(text: str, path: Path) -> Study:
     uncertainty = uncertainty_table(raw, base, name, problems, band=gauges["band"])
     variant_problems(uncertainty, cases, name, problems)
     numerical = numerical_table(raw, base, name, problems, cases)
+    fullfield = fullfield_table(raw, base, name, problems)
     if problems:
         raise StudyError(*problems)
     info = {k: v for k, v in model.items() if k not in ("file", "length_unit", "stress_unit", "plane")}
@@ -445,7 +448,8 @@ def parse_study(text: str, path: Path) -> Study:
         **readings, sentinels=tuple(sentinels) if sentinels is not None else None,
         loads=tuple(loads), criteria=criteria, criteria_given="criteria" in raw,
         overrides=tuple(overrides), health=dict(health), report=dict(_table(raw, "report")),
-        raw=raw, chain=chain, uncertainty=uncertainty, numerical=numerical)
+        raw=raw, chain=chain, uncertainty=uncertainty, numerical=numerical,
+        fullfield=fullfield)
 
 
 def read_study(path: str | Path) -> Study:
