@@ -31,6 +31,7 @@ from correlate.readers.fullfield_study import FullFieldSettings
 from correlate.readers.gauges import validate_gauges
 
 EDGE_ANGLE = 30.0   # degrees: a normal turning more than this within `edge` is a part edge
+EDGE_ON_SINE = 0.1  # sine of the angle between the DIC's x axis and a face normal, below: edge-on
 ICP_PASSES = 3      # re-project the cloud onto the faces between ICP runs (closest points move)
 
 
@@ -44,7 +45,7 @@ class Registration:
     rms: float                       # RMS distance of the points to the surface
     p95: float                       # 95th percentile of that distance
     n_points: int                    # distinct points read
-    dropped_snap: int                # beyond snap_tol from the surface
+    dropped_snap: int                # beyond snap_tol from the surface, or on a face seen edge-on
     dropped_edge: int                # within `edge` of the region's or the part's edges
     snap_tol: float
 
@@ -179,14 +180,17 @@ def locate_points(points: NDArray[np.float64], ff: FullFieldSettings, locator: L
     """
     M, lm_rms, method = register(points, ff, locator, landmarks, scale=scale)
     on = locator.project(apply(M, points))
-    snap = on.distance <= ff.snap_tol * scale
+    x_axis = M[:3, :3] @ np.array([1.0, 0.0, 0.0])
+    # a face the camera's x axis runs into (within 5.7 deg of its normal) is seen edge-on: no
+    # DIC measures there, and the tangent axes would be undefined (strain.tangent_axes)
+    edge_on = np.linalg.norm(np.cross(on.normal, x_axis), axis=1) < EDGE_ON_SINE
+    snap = (on.distance <= ff.snap_tol * scale) & ~edge_on
     if not snap.any():
         raise StudyError(f"[fullfield]: none of the {len(points)} DIC points lies within snap_tol "
                          f"{ff.snap_tol:g} {ff.length_unit} of the model surface (closest "
                          f"{on.distance.min() / scale:.3g}); check register, the landmarks and "
                          "length_unit")
     dist = on.distance[snap]
-    x_axis = M[:3, :3] @ np.array([1.0, 0.0, 0.0])
     ex, ey = tangent_axes(on.normal[snap], x_axis)
     keep = np.ones(int(snap.sum()), dtype=bool)
     if ff.edge > 0:

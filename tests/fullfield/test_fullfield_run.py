@@ -193,3 +193,17 @@ def test_other_outputs_do_not_depend_on_fullfield(tmp_path, unfiltered):
     assert not any(name.startswith("fullfield") for name in plain)
     for name in ("gauges.csv", "gauge_stats.csv", "rosettes.csv", "flags.csv"):
         assert (tmp_path / "o" / name).read_bytes() == (unfiltered / name).read_bytes(), name
+
+
+def test_points_off_the_model_exit_2_with_one_line(tmp_path, capsys):
+    study = _study(tmp_path)
+    text = study.read_text().replace(
+        'register = { landmarks = "dic/landmarks.csv", refine = "icp" }',
+        'register = { matrix = [[1, 0, 0, 100], [0, 1, 0, 0], [0, 0, 1, 0], [0, 0, 0, 1]] }')
+    study.write_text(text)   # a transform that puts the points 100 mm beside the block
+    before = {p: p.read_bytes() for p in tmp_path.rglob("*") if p.is_file()}
+    assert main(["run", "--quiet", str(study), "--out", str(tmp_path / "o"), "--no-report"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "none of the" in err[0] and "snap_tol" in err[0]
+    assert not (tmp_path / "o").exists()                       # nothing half-written
+    assert before == {p: p.read_bytes() for p in tmp_path.rglob("*") if p.is_file()}
