@@ -42,7 +42,7 @@ def write_outputs(corr: Correlation, out: Path, *, force: bool, report: bool = T
         progress.pause("write")
         if report:
             with progress.step("writing the report (3D views and figures)"):
-                write_report(corr, tmp)
+                write_report(corr, tmp, fullfield)
 
 
 def verdict_line(verdict: dict[str, Any]) -> str:

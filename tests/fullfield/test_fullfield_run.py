@@ -207,3 +207,20 @@ def test_points_off_the_model_exit_2_with_one_line(tmp_path, capsys):
     assert len(err) == 1 and "none of the" in err[0] and "snap_tol" in err[0]
     assert not (tmp_path / "o").exists()                       # nothing half-written
     assert before == {p: p.read_bytes() for p in tmp_path.rglob("*") if p.is_file()}
+
+
+@pytest.mark.render
+def test_report_has_the_fullfield_section(tmp_path):
+    from PIL import Image
+
+    study = _study(tmp_path, edge=0.2)
+    assert main(["run", "--quiet", str(study), "--out", str(tmp_path / "o")]) == 0
+    html = (tmp_path / "o" / "report.html").read_text(encoding="utf-8")
+    assert "12. Full-field (DIC) comparison" in html
+    with Image.open(tmp_path / "o" / "fullfield_maps.png") as img:
+        assert img.size == (1800, 620)
+        pixels = np.asarray(img.convert("RGB"), dtype=float)
+    assert pixels.std() > 5          # not blank
+    # the point clouds are coloured: more than a grey model and a white background
+    colourful = np.abs(pixels[..., 0] - pixels[..., 2]) > 40
+    assert colourful.mean() > 0.01
