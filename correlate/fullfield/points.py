@@ -147,12 +147,15 @@ def region_distance(plane_xy: NDArray[np.float64]) -> NDArray[np.float64]:
 def near_part_edge(locator: Locator, position: NDArray, normal: NDArray, ex: NDArray,
                    ey: NDArray, edge: float) -> NDArray[np.bool_]:
     """Points within ``edge`` of a part edge: a step of ``edge`` along +-ex or +-ey lands on a
-    face whose normal turns more than :data:`EDGE_ANGLE` (a feature edge, common practice)."""
+    face whose normal turns more than :data:`EDGE_ANGLE` (a feature edge, common practice), or
+    off the part, more than ``edge / 2`` from its surface (beyond a free edge, the closest point
+    is on the edge line itself; on a surface of radius R the step leaves it by only
+    ``edge^2 / (2 R)``)."""
     out = np.zeros(len(position), dtype=bool)
     cos_limit = np.cos(np.radians(EDGE_ANGLE))
     for d in (ex, -ex, ey, -ey):
         on = locator.project(position + edge * d)
-        out |= np.sum(on.normal * normal, axis=1) < cos_limit
+        out |= (np.sum(on.normal * normal, axis=1) < cos_limit) | (on.distance > edge / 2)
     return out
 
 
