@@ -118,7 +118,8 @@ def _levelling(ff: Any, xyz: NDArray, scale: float) -> tuple[Any, float, str]:
 
     size = None if ff.filter_size is None else ff.filter_size * scale
     if size is None:
-        h = float(np.median(cKDTree(xyz).query(xyz, k=2)[0][:, 1])) if len(xyz) > 1 else 1.0
+        tree = cKDTree(xyz)
+        h = float(np.median(tree.query(xyz, k=2)[0][:, 1])) if len(xyz) > 1 else 1.0
         return None, UNFILTERED_BLOCK * h, "none (the model compared point by point)"
     if ff.filter_kind == "gaussian":
         return (gaussian_weights(xyz, sigma=size), GAUSSIAN_BLOCK * size,

@@ -140,7 +140,8 @@ def region_distance(plane_xy: NDArray[np.float64]) -> NDArray[np.float64]:
     boundary = (shift > 0.3 * h) | (found.sum(axis=1) < 3)
     if not boundary.any():
         return np.full(len(plane_xy), np.inf)
-    near, _ = cKDTree(plane_xy[boundary]).query(plane_xy)
+    edge_tree = cKDTree(plane_xy[boundary])
+    near, _ = edge_tree.query(plane_xy)
     return near + 0.5 * h
 
 
