@@ -47,8 +47,5 @@ def run(args: argparse.Namespace) -> int:
         corr = correlate_study(study, model)
         write_outputs(corr, tmp / "run", force=True)
     print_summary(corr)
-    if corr.corrections is not None:
-        print(f"measurement chain: {len(corr.corrections)} channels corrected for lead wires, "
-              "non-linearity and thermal output before the tare (run/corrections.csv)")
     print(f"report: {out / 'run' / 'report.html'}")
     return 0

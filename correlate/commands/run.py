@@ -97,6 +97,9 @@ def print_summary(corr: Correlation) -> None:
                   + (f" [{f['disposition']}]" if f.get("disposition") else ""))
     for d in s["diagnoses"]:
         print(f"diagnosis {d['gauge']}: {d['explanation']} - {d['detail']}")
+    if corr.corrections is not None:
+        print(f"measurement chain: {len(corr.corrections)} channel(s) corrected before the tare, "
+              "every factor and term in corrections.csv")
     print(CAUTION)
 
 

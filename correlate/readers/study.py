@@ -18,6 +18,7 @@ from correlate.readers._values import boolean as _boolean
 from correlate.readers._values import number as _number
 from correlate.readers._values import path as _path
 from correlate.readers._values import unknown_keys as _unknown_keys
+from correlate.readers.bridge_map import BRIDGE_KEYS, parse_bridge_tables
 from correlate.readers.chain_study import LOT_KEYS, THERMAL_KEYS, parse_case_thermal, parse_chain
 from correlate.readers.fullfield_study import FULLFIELD_KEYS, fullfield_table
 from correlate.readers.records import Case, Criteria, Load, Material, Override, Study
@@ -33,7 +34,7 @@ from correlate.readers.uncertainty_tables import (
 SCHEMA: dict[str, set[str]] = {
     "": {"title", "model", "case", "material", "gauges", "test", "readings", "load", "criteria",
          "override", "health", "report", "document", "gauge_lot", "thermal", "uncertainty",
-         "numerical", "fullfield"},
+         "numerical", "bridge", "fullfield"},
     "model": {"file", "length_unit", "stress_unit", "plane", "revision", "description", "solver",
               "element", "mesh_size", "materials", "thickness", "kind"},
     "case": {"name", "strain", "displacement", "stress", "components", "shear", "time_index", "file",
@@ -54,6 +55,7 @@ SCHEMA: dict[str, set[str]] = {
     "thermal": THERMAL_KEYS,
     "uncertainty": UNCERTAINTY_KEYS,
     "numerical": NUMERICAL_KEYS,
+    "bridge": BRIDGE_KEYS,
     "fullfield": FULLFIELD_KEYS,
 }
 FREE_TEXT = {"test"}
@@ -434,6 +436,7 @@ def parse_study(text: str, path: Path) -> Study:
     sentinels, health = _sentinels_and_health(raw, name, problems)
     overrides = _overrides(raw, name, problems)
     chain = parse_chain(raw, name, problems)
+    bridge_tables = parse_bridge_tables(raw, name, problems)
     uncertainty = uncertainty_table(raw, base, name, problems, band=gauges["band"])
     variant_problems(uncertainty, cases, name, problems)
     numerical = numerical_table(raw, base, name, problems, cases)
@@ -449,7 +452,7 @@ def parse_study(text: str, path: Path) -> Study:
         loads=tuple(loads), criteria=criteria, criteria_given="criteria" in raw,
         overrides=tuple(overrides), health=dict(health), report=dict(_table(raw, "report")),
         raw=raw, chain=chain, uncertainty=uncertainty, numerical=numerical,
-        fullfield=fullfield)
+        bridge_tables=bridge_tables, fullfield=fullfield)
 
 
 def read_study(path: str | Path) -> Study:
