@@ -19,7 +19,7 @@ from correlate.core.folders import check_target, output_path, staged_folder
 from correlate.readers.study import read_study
 
 DEMO_FILES = ("study.toml", "gauges.csv", "readings.csv", "bracket.vtu", "bracket_coarse.vtu",
-              "README.txt")
+              "dic_frames.parquet", "dic_landmarks.csv", "README.txt")
 
 
 def demo_folder() -> Path:
