@@ -27,7 +27,7 @@ from correlate.core.names import CAUTION
 from correlate.core.tables import write_csv, write_json
 from correlate.variants.cache import load_result, save_result, study_fingerprint, variant_key
 from correlate.variants.cluster import compute_variants
-from correlate.variants.evaluate import VariantResult, locate_base
+from correlate.variants.evaluate import VariantResult, locate_base, missing_file
 from correlate.variants.results import identify_sweep, variants_table
 from correlate.variants.sweep_file import Sweep, Variant, read_sweep
 
@@ -80,20 +80,29 @@ def _whole(path: Path, write: Callable[[Path], None]) -> None:
 
 
 def collect(sweep: Sweep, out: Path, args: argparse.Namespace) -> tuple[dict, int, int]:
-    """Every variant's result: from the cache, or computed (and cached as each finishes)."""
+    """Every variant's result: from the cache, or computed (and cached as each finishes).
+
+    Returns the results by name, how many variants went to the workers and how many came from
+    the cache; a variant whose file is missing or whose parameters are not numbers is failed
+    here and counted in neither.
+    """
     cache = out / CACHE
     fingerprint = study_fingerprint(sweep.study)
     results: dict[str, VariantResult] = {}
     keys: dict[str, str | None] = {}
     todo: list[Variant] = []
     for v in progress.bar(sweep.variants, desc="hashing the variant files"):
+        problem = v.problem or missing_file(v)
+        if problem:   # recorded as the variant's failure; nothing to compute
+            results[v.name], keys[v.name] = VariantResult(name=v.name, failure=problem), None
+            continue
         keys[v.name] = key = variant_key(v, fingerprint)
         cached = load_result(cache, key, v.name) if key is not None else None
         if cached is not None:
             results[v.name] = cached
         else:
             todo.append(v)
-    n_cached = len(results)
+    n_cached = sum(not r.failure for r in results.values())
 
     def done(variant: Variant, result: VariantResult) -> None:
         key = keys[variant.name]

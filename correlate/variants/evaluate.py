@@ -33,6 +33,7 @@ from correlate.readers.records import Study
 from correlate.variants.sweep_file import Variant
 
 __all__ = ["Located", "VariantResult", "correlate_variant", "locate_base", "mesh_hash",
+           "missing_file",
            "variant_metrics", "variant_study"]
 
 
@@ -97,6 +98,15 @@ def variant_study(study: Study, variant: Variant) -> Study:
     return replace(study, model_file=variant.file, cases=cases)
 
 
+def missing_file(variant: Variant) -> str:
+    """The one-line reason when a file of the variant does not exist, else an empty string."""
+    for path in [variant.file, *variant.case_files.values()]:
+        if not path.is_file():
+            return (f"{path.name}: the variant's model result does not exist ({path}); check "
+                    "the table's file column or solve the variant")
+    return ""
+
+
 def correlate_variant(study: Study, variant: Variant, located: Located) -> VariantResult:
     """Correlate one variant: read its arrays, reuse or make the gauge operator, compare.
 
@@ -104,15 +114,14 @@ def correlate_variant(study: Study, variant: Variant, located: Located) -> Varia
     a different mesh) is returned as ``failure`` with its one-line reason, never raised, so that
     the sweep goes on.
     """
+    if variant.problem:
+        return VariantResult(name=variant.name, failure=variant.problem)
     vstudy = variant_study(study, variant)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", CorrelateWarning)
         try:
-            for path in {vstudy.model_file, *variant.case_files.values()}:
-                if not path.is_file():
-                    return VariantResult(name=variant.name, failure=(
-                        f"{path.name}: the variant's model result does not exist ({path}); "
-                        "check the table's file column or solve the variant"))
+            if missing_file(variant):
+                return VariantResult(name=variant.name, failure=missing_file(variant))
             sources = open_sources(vstudy)
             settle_family(vstudy, sources, located.gauges)
             same = mesh_hash(sources[vstudy.model_file].mesh) == located.mesh_hash

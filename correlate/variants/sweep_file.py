@@ -15,7 +15,9 @@ The sweep file::
     log = ["k_joint"]               # fitted on a log10 scale
 
 Every problem is one line naming the file, and for the table the row (counted as in a
-spreadsheet: the header is row 1) and the column.
+spreadsheet: the header is row 1) and the column. A problem of one row's values (a parameter
+cell that is not a number) is kept on that variant as its ``problem``: the sweep records it as
+that variant's failure and goes on with the others.
 """
 
 from __future__ import annotations
@@ -47,7 +49,8 @@ class Variant:
     row: int                             # spreadsheet row (header = 1)
     file: Path                           # the model result standing for the study's [model] file
     case_files: dict[str, Path]          # per-case files (``file:<case>`` columns)
-    parameters: dict[str, float]
+    parameters: dict[str, float]         # NaN where the table's cell is not a number
+    problem: str = ""                    # why the row cannot be a variant (recorded, not raised)
 
 
 @dataclass(frozen=True)
@@ -169,25 +172,29 @@ def _table(table_file: Path, parameters: tuple[str, ...], study: Study) -> tuple
             raise StudyError(f"{name}: row {row}, column name: variant '{vname}' is also on row "
                              f"{seen[vname]}; names must be unique")
         seen[vname] = row
-        values = {p: _number(rec[p], name, row, p) for p in parameters}
+        values, problems = {}, []
+        for p in parameters:
+            values[p], problem = _number(rec[p], name, row, p)
+            problems += [problem] if problem else []
         files = {c[len(FILE_PREFIX):]: _relative(table_file, rec[c], name, row, c)
                  for c in per_case if rec[c].strip()}
         out.append(Variant(name=vname, row=row, file=_relative(table_file, rec["file"], name, row,
                                                                "file"),
-                           case_files=files, parameters=values))
+                           case_files=files, parameters=values, problem="; ".join(problems)))
     return tuple(out)
 
 
-def _number(text: str, name: str, row: int, column: str) -> float:
+def _number(text: str, name: str, row: int, column: str) -> tuple[float, str]:
+    """The cell's value, or NaN and the one-line reason it is not a finite number."""
     try:
         value = float(text)
     except ValueError:
-        raise StudyError(f"{name}: row {row}, column {column}: '{text}' is not a number; "
-                         "parameter columns hold numbers only") from None
+        return math.nan, (f"{name}: row {row}, column {column}: '{text}' is not a number; "
+                          "parameter columns hold numbers only")
     if not math.isfinite(value):
-        raise StudyError(f"{name}: row {row}, column {column}: {text} is not finite; give the "
-                         "variant's parameter value")
-    return value
+        return math.nan, (f"{name}: row {row}, column {column}: {text} is not finite; give the "
+                          "variant's parameter value")
+    return value, ""
 
 
 def _relative(table_file: Path, text: str, name: str, row: int, column: str) -> Path:
