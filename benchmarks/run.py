@@ -61,7 +61,7 @@ class Clock:
 
 def tet_block(n_cells: int, quadratic: bool):
     """A block of Kuhn tetrahedra with about n_cells cells (6 per hexahedron)."""
-    from conftest import solid_mesh
+    from builders import solid_mesh
 
     side = max(2, round((n_cells / 6 / 2) ** (1 / 3)))
     mesh = solid_mesh("tetra10" if quadratic else "tetra", n=(2 * side, side, side),

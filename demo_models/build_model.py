@@ -9,6 +9,8 @@ into ``correlate/data/demo/``:
   ``S_side`` [MPa, same order];
 - ``bracket_series.xdmf`` + ``bracket_series.h5``: the same fields as a time series, t = 0 pull,
   t = 1 side, named ``U``, ``E``, ``S``;
+- ``bracket_coarse.vtu``: the same part and cases meshed with every element size doubled
+  (``COARSE_FACTOR``), the coarser mesh of the demo's grid-convergence study (``[numerical]``);
 - ``gauges.csv``: candidate gauge map on the model surface;
 - ``demo_models/geometry.json``: dimensions, features, faces and the gauge candidates.
 
@@ -65,6 +67,8 @@ SIZE_FILLET = 2.0
 SIZE_MAX = 7.0
 SIZE_DIST_MIN = 0.5  # fine size held up to this distance from the feature
 SIZE_DIST_MAX = 10.0  # coarse size reached at this distance
+# The coarser mesh of the grid study: every size above times this factor (refinement ratio r = 2).
+COARSE_FACTOR = 2.0
 
 # gmsh stores the tet10 edge nodes as (0-1, 1-2, 2-0, 0-3, 2-3, 1-3); VTK (and meshio) as
 # (0-1, 1-2, 2-0, 0-3, 1-3, 2-3): the last two edge nodes are swapped.
@@ -89,8 +93,9 @@ def _surfaces_in_box(gmsh, box: tuple[float, ...]) -> list[int]:
     return [tag for _, tag in gmsh.model.getEntitiesInBoundingBox(*lo, *hi, dim=2)]
 
 
-def mesh_bracket() -> tuple[NDArray[np.float64], NDArray[np.int64], dict[str, NDArray[np.int64]]]:
-    """Mesh the bracket with quadratic tetrahedra.
+def mesh_bracket(factor: float = 1.0
+                 ) -> tuple[NDArray[np.float64], NDArray[np.int64], dict[str, NDArray[np.int64]]]:
+    """Mesh the bracket with quadratic tetrahedra, every element size times ``factor``.
 
     Returns
     -------
@@ -123,7 +128,7 @@ def mesh_bracket() -> tuple[NDArray[np.float64], NDArray[np.int64], dict[str, ND
             "Mesh.MeshSizeFromPoints": 0,
             "Mesh.MeshSizeFromCurvature": 0,
             "Mesh.MeshSizeExtendFromBoundary": 0,
-            "Mesh.MeshSizeMax": SIZE_MAX,
+            "Mesh.MeshSizeMax": SIZE_MAX * factor,
         }.items():
             gmsh.option.setNumber(name, value)
         gmsh.model.add("bracket")
@@ -170,14 +175,15 @@ def mesh_bracket() -> tuple[NDArray[np.float64], NDArray[np.int64], dict[str, ND
 
         field = gmsh.model.mesh.field
         thresholds = []
-        for tags, size in ((pin_bore + hole_bore, SIZE_HOLE), (fillets, SIZE_FILLET)):
+        for tags, size in ((pin_bore + hole_bore, SIZE_HOLE * factor),
+                           (fillets, SIZE_FILLET * factor)):
             dist = field.add("Distance")
             field.setNumbers(dist, "SurfacesList", tags)
             field.setNumber(dist, "Sampling", 40)
             thr = field.add("Threshold")
             field.setNumber(thr, "InField", dist)
             field.setNumber(thr, "SizeMin", size)
-            field.setNumber(thr, "SizeMax", SIZE_MAX)
+            field.setNumber(thr, "SizeMax", SIZE_MAX * factor)
             field.setNumber(thr, "DistMin", SIZE_DIST_MIN)
             field.setNumber(thr, "DistMax", SIZE_DIST_MAX)
             thresholds.append(thr)
@@ -502,6 +508,30 @@ def _stress(strain: NDArray[np.float64]) -> NDArray[np.float64]:
 # ---------------------------------------------------------------------------------------------
 # Output files
 
+def _point_data(results: dict[str, dict[str, NDArray[np.float64]]]
+                ) -> dict[str, NDArray[np.float32]]:
+    # Single precision keeps the shipped files small: 7 significant digits are 1e-5 microstrain
+    # at these strain levels, far below any gauge resolution.
+    return {f"{field}_{case}": values.astype(np.float32)
+            for field in ("U", "E", "S") for case, fields in results.items()
+            for name, values in fields.items() if name == field}
+
+
+def write_coarse(out_dir: Path) -> dict[str, int]:
+    """Mesh with every size times ``COARSE_FACTOR``, solve both cases, write bracket_coarse.vtu.
+
+    Returns the node and cell counts.
+    """
+    import meshio
+
+    points, tet10, faces = mesh_bracket(COARSE_FACTOR)
+    results = solve_cases(points, tet10, faces)
+    meshio.write(out_dir / "bracket_coarse.vtu",
+                 meshio.Mesh(points, [("tetra10", tet10.astype(np.int32))],
+                             point_data=_point_data(results)), binary=True, compression="zlib")
+    return {"nodes": int(points.shape[0]), "cells": int(tet10.shape[0])}
+
+
 def write_results(out_dir: Path, points: NDArray[np.float64], tet10: NDArray[np.int64],
                   results: dict[str, dict[str, NDArray[np.float64]]]) -> None:
     """Write ``bracket.vtu`` and the time series ``bracket_series.xdmf`` / ``.h5``.
@@ -520,12 +550,8 @@ def write_results(out_dir: Path, points: NDArray[np.float64], tet10: NDArray[np.
     import meshio
 
     out_dir.mkdir(parents=True, exist_ok=True)
-    # Single precision keeps the shipped files small: 7 significant digits are 1e-5 microstrain
-    # at these strain levels, far below any gauge resolution.
     cells = [("tetra10", tet10.astype(np.int32))]
-    point_data = {f"{field}_{case}": values.astype(np.float32)
-                  for field in ("U", "E", "S") for case, fields in results.items()
-                  for name, values in fields.items() if name == field}
+    point_data = _point_data(results)
     meshio.write(out_dir / "bracket.vtu", meshio.Mesh(points, cells, point_data=point_data),
                  binary=True, compression="zlib")
     # meshio's TimeSeriesWriter puts the .h5 in the current directory (meshio issue 1442).
@@ -869,6 +895,7 @@ def build(out_dir: Path = DEFAULT_OUT, geometry_path: Path | None = GEOMETRY_JSO
     points, tet10, faces = mesh_bracket()
     results = solve_cases(points, tet10, faces)
     write_results(out_dir, points, tet10, results)
+    coarse = write_coarse(out_dir)
 
     centres = np.array([g[1] for g in GAUGES], dtype=float)
     distance = distance_to_triangles(centres, boundary_triangles(points, tet10))
@@ -885,6 +912,7 @@ def build(out_dir: Path = DEFAULT_OUT, geometry_path: Path | None = GEOMETRY_JSO
     summary = {
         "gmsh": gmsh.__version__, "scikit-fem": skfem.__version__,
         "nodes": int(points.shape[0]), "cells": int(tet10.shape[0]),
+        "coarse": {**coarse, "factor": COARSE_FACTOR},
         "max_gauge_surface_distance_mm": float(distance.max()),
         "sizes_bytes": {p.name: p.stat().st_size for p in sorted(out_dir.iterdir())
                         if p.name.startswith("bracket")},
@@ -900,12 +928,22 @@ def build(out_dir: Path = DEFAULT_OUT, geometry_path: Path | None = GEOMETRY_JSO
 
 
 def compare_builds(reference_dir: Path, new_dir: Path, *, same_mesher: bool) -> list[str]:
-    """Compare the bracket files of two builds.
+    """Compare the bracket files of two builds (``bracket.vtu`` and ``bracket_coarse.vtu``)."""
+    problems = []
+    for name in ("bracket.vtu", "bracket_coarse.vtu"):
+        problems += [f"{name}: {line}" for line in
+                     compare_files(Path(reference_dir) / name, Path(new_dir) / name,
+                                   same_mesher=same_mesher)]
+    return problems
+
+
+def compare_files(reference: Path, new: Path, *, same_mesher: bool) -> list[str]:
+    """Compare two builds of one bracket file.
 
     Parameters
     ----------
-    reference_dir, new_dir : Path
-        Folders holding ``bracket.vtu``.
+    reference, new : Path
+        The two files.
     same_mesher : bool
         True when both builds used the same gmsh version: then node and cell counts must match
         exactly and every field within ``CHECK_RTOL_SAME_VERSION`` of its largest magnitude
@@ -919,17 +957,16 @@ def compare_builds(reference_dir: Path, new_dir: Path, *, same_mesher: bool) -> 
     """
     import meshio
 
-    ref = meshio.read(Path(reference_dir) / "bracket.vtu")
-    new = meshio.read(Path(new_dir) / "bracket.vtu")
+    ref, built = meshio.read(reference), meshio.read(new)
     problems = []
     if same_mesher:
-        if len(ref.points) != len(new.points) or len(ref.cells[0]) != len(new.cells[0]):
-            return [(f"mesh differs: {len(ref.points)} / {len(new.points)} nodes, "
-                     f"{len(ref.cells[0])} / {len(new.cells[0])} cells")]
-        if not np.array_equal(ref.cells[0].data, new.cells[0].data):
+        if len(ref.points) != len(built.points) or len(ref.cells[0]) != len(built.cells[0]):
+            return [(f"mesh differs: {len(ref.points)} / {len(built.points)} nodes, "
+                     f"{len(ref.cells[0])} / {len(built.cells[0])} cells")]
+        if not np.array_equal(ref.cells[0].data, built.cells[0].data):
             problems.append("connectivity differs")
     for name, values in ref.point_data.items():
-        other = new.point_data[name]
+        other = built.point_data[name]
         scale = np.abs(values).max(axis=0)
         if same_mesher:
             err = (np.abs(other - values) / scale).max()

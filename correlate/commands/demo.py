@@ -18,7 +18,8 @@ from correlate.comparison.correlation import correlate_study
 from correlate.core.folders import check_target, output_path, staged_folder
 from correlate.readers.study import read_study
 
-DEMO_FILES = ("study.toml", "gauges.csv", "readings.csv", "bracket.vtu", "README.txt")
+DEMO_FILES = ("study.toml", "gauges.csv", "readings.csv", "bracket.vtu", "bracket_coarse.vtu",
+              "README.txt")
 
 
 def demo_folder() -> Path:
@@ -46,8 +47,5 @@ def run(args: argparse.Namespace) -> int:
         corr = correlate_study(study, model)
         write_outputs(corr, tmp / "run", force=True)
     print_summary(corr)
-    if corr.corrections is not None:
-        print(f"measurement chain: {len(corr.corrections)} channels corrected for lead wires, "
-              "non-linearity and thermal output before the tare (run/corrections.csv)")
     print(f"report: {out / 'run' / 'report.html'}")
     return 0

@@ -28,6 +28,8 @@ def write_outputs(corr: Correlation, out: Path, *, force: bool, report: bool = T
         write_csv(corr.flags, tmp / "flags.csv")
         if corr.corrections is not None:
             write_csv(corr.corrections, tmp / "corrections.csv")
+        if corr.validation is not None:
+            write_csv(corr.validation.table, tmp / "uncertainty.csv")
         write_json(corr.summary, tmp / "summary.json")
         progress.pause("write")
         if report:
@@ -40,6 +42,19 @@ def verdict_line(verdict: dict[str, Any]) -> str:
     if verdict["state"] == "provisional":
         return f"provisional (the criteria alone: {verdict['result']}; see the reasons)"
     return verdict["result"]
+
+
+def validation_line(val: dict[str, Any]) -> str:
+    """The validation statement beside the verdict, in one line (see uncertainty.csv)."""
+    n = val["states"]
+    line = (f"validation (ASME V&V 20, k = {val['coverage']:g}) at the reference step: "
+            f"{n['model error']} model error, {n['uncertainty dominated']} uncertainty "
+            f"dominated, {n['consistent']} consistent")
+    r = val.get("ratio")
+    if r:
+        line += (f"; ratio {r['ratio']:.3f}, {r['lower']:.3f} to {r['upper']:.3f} with the "
+                 "systematic terms")
+    return line
 
 
 def print_summary(corr: Correlation) -> None:
@@ -66,12 +81,17 @@ def print_summary(corr: Correlation) -> None:
           f"unconservative, {v['flagged']} flagged, of {v['gauges']}")
     if v["worst"]:
         print(f"worst at the reference step: {', '.join(v['worst'])}")
+    if s.get("validation"):
+        print(validation_line(s["validation"]))
     for f in s["flags"]:
         if f["step"] in (-1, None):
             print(f"flag {f['gauge']}: {f['flag']} - {f['reason']}"
                   + (f" [{f['disposition']}]" if f.get("disposition") else ""))
     for d in s["diagnoses"]:
         print(f"diagnosis {d['gauge']}: {d['explanation']} - {d['detail']}")
+    if corr.corrections is not None:
+        print(f"measurement chain: {len(corr.corrections)} channel(s) corrected before the tare, "
+              "every factor and term in corrections.csv")
     print(CAUTION)
 
 

@@ -9,7 +9,7 @@ result is a :class:`Correlation` that the outputs and the report read.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
@@ -17,6 +17,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
+from correlate.comparison.budget import GAUGE_COLUMNS, ValidationBudget, validation_budget
 from correlate.comparison.criteria import Statuses, reference_step, status_table
 from correlate.comparison.dispositions import (
     Exclusions,
@@ -34,6 +35,7 @@ from correlate.comparison.evidence import (
 )
 from correlate.comparison.fits import fit_statistics
 from correlate.comparison.pairing import Steps, pair_series, read_test_data
+from correlate.comparison.rosette_budget import rosette_uncertainty, with_uncertainty
 from correlate.comparison.rosettes import rosette_table
 from correlate.comparison.verdict import summarise
 from correlate.core import progress
@@ -49,6 +51,7 @@ from correlate.measurement.channels import (
 from correlate.measurement.corrections import channel_scale
 from correlate.measurement.tare import tare_readings
 from correlate.model_readings.model import Model, case_rows, prepare
+from correlate.model_readings.other_models import open_variant, variant_study
 from correlate.model_readings.table import band_limits
 from correlate.readers.study import Study
 
@@ -82,6 +85,7 @@ class Correlation:
     rows_by_case: dict[str, dict[str, NDArray]] = field(default_factory=dict)
     chain: ChainApplied | None = None    # the measurement chain, when the study uses it
     corrections: pd.DataFrame | None = None  # corrections.csv, when the study uses it
+    validation: ValidationBudget | None = None   # None: the study has no [uncertainty]
 
     @property
     def reference(self) -> int:
@@ -104,6 +108,7 @@ class ModelForTest:
     not_modelled: NDArray[np.bool_]      # (s,) rows a series case does not reach
     rows_by_case: dict[str, dict[str, NDArray]]
     height: NDArray[np.float64] | None = None  # (s, g) grid-height correction, microstrain
+    transverse: NDArray[np.float64] | None = None  # (s, g) strain across the grid
 
 
 def measured_readings(study: Study, model: Model) -> tuple[Any, Steps, NDArray[np.float64]]:
@@ -148,10 +153,11 @@ def model_readings(study: Study, model: Model, steps: Steps) -> ModelForTest:
     n_rows = len(op.row_kind)
     R = np.stack([rows_by_case[c][key] if c in rows_by_case else np.zeros(n_rows)
                   for c in case_names], axis=1)                               # (rows, C)
-    R_axial = np.stack([rows_by_case[c]["axial"] if c in rows_by_case else np.zeros(n_rows)
-                        for c in case_names], axis=1)
+    R_axial, R_trans = (np.stack([rows_by_case[c][k] if c in rows_by_case else np.zeros(n_rows)
+                                  for c in case_names], axis=1) for k in ("axial", "transverse"))
     combined = R @ steps.factors.T * MICROSTRAIN                              # (rows, s)
     combined_axial = R_axial @ steps.factors.T * MICROSTRAIN
+    combined_trans = R_trans @ steps.factors.T * MICROSTRAIN
     nominal = op.row_kind == 0
     contributions = steps.factors[:, None, :] * R[nominal][None, :, :] * MICROSTRAIN
     not_modelled = np.zeros(len(steps.step), dtype=bool)
@@ -160,15 +166,17 @@ def model_readings(study: Study, model: Model, steps: Steps) -> ModelForTest:
         per_state = [case_rows(model, case, k) for k in pairing.fe_index]
         add, modelled = pairing.apply(np.stack([r[key] for r in per_state], axis=1))
         add_axial, _ = pairing.apply(np.stack([r["axial"] for r in per_state], axis=1))
+        add_trans, _ = pairing.apply(np.stack([r["transverse"] for r in per_state], axis=1))
         add, add_axial = add * MICROSTRAIN, add_axial * MICROSTRAIN
         combined += np.nan_to_num(add)
         combined_axial += np.nan_to_num(add_axial)
+        combined_trans += np.nan_to_num(add_trans * MICROSTRAIN)
         contributions[:, :, case_names.index(case.name)] = np.nan_to_num(add[nominal]).T
         not_modelled |= ~modelled
     low, high = band_limits(op, combined)
     return ModelForTest(predicted=combined[nominal].T, axial=combined_axial[nominal].T, low=low,
                         high=high, contributions=contributions, not_modelled=not_modelled,
-                        rows_by_case=rows_by_case,
+                        rows_by_case=rows_by_case, transverse=combined_trans[nominal].T,
                         height=height_correction(study, model, steps, rows_by_case))
 
 
@@ -249,14 +257,48 @@ def correlate_study(study: Study, model: Model | None = None) -> Correlation:
         summary["measurement_chain"] = {
             "order": CHAIN_ORDER, "reference_step": summary["reference_step"],
             "channels": corrections.to_dict(orient="records")}
+    budget = _budget(study, model, steps, names, measured, m, st, ref, summary)
+    if budget is not None and budget.rosettes is not None:
+        ros = with_uncertainty(ros, budget.rosettes)
     return Correlation(study=study, model=model, steps=steps, gauges=names, measured=measured,
                        predicted=m.predicted, predicted_axial=m.axial, band_low=m.low.T,
                        band_high=m.high.T, contributions=m.contributions, status=st, flags=flags,
-                       gauge_table=gauge_table(names, steps, measured, m, st, chain),
+                       gauge_table=gauge_table(names, steps, measured, m, st, chain, budget),
                        per_gauge=per_gauge, rosettes=ros, diagnoses=diag, summary=summary,
                        rows_by_case=m.rows_by_case, chain=chain, corrections=corrections,
+                       validation=budget,
                        readings_info={"ignored": list(readings.ignored),
                                       "load_units": readings.load_units})
+
+
+def _budget(study: Study, model: Model, steps: Steps, names: list[str], measured: NDArray,
+            m: ModelForTest, st: Statuses, ref: int, summary: dict[str, Any]
+            ) -> ValidationBudget | None:
+    """The validation budget (None without [uncertainty]); it adds ``validation`` to the summary.
+
+    Each coarser mesh or input variant is opened, evaluated at the test's steps with the same
+    gauge map, and dropped before the next is opened.
+    """
+    if study.uncertainty is None:
+        return None
+
+    def predict(file: Any) -> NDArray[np.float64]:
+        other = open_variant(study, file, model.gauges)
+        return model_readings(variant_study(study, file), other, steps).predicted
+
+    with progress.step("validation budget (other meshes and input variants included)"):
+        budget = validation_budget(
+            study, names, steps, measured, m.predicted,
+            (model.gauges["kt"].to_numpy(dtype=float), m.axial, m.transverse),
+            (m.low, m.high), st, ref,
+            statistical_se=float(summary["fit"].get("se_slope_origin", np.nan)), predict=predict)
+        if budget is None:
+            return None
+        rosettes = rosette_uncertainty(study, model, model.gauges, steps, measured, m.axial,
+                                       st.evaluated, budget.measurement, budget.inputs,
+                                       m.predicted, budget.u_num, study.uncertainty.load)
+    summary["validation"] = budget.summary
+    return replace(budget, rosettes=rosettes)
 
 
 def _compare(study: Study, model: Model, steps: Steps, names: list[str], measured: NDArray,
@@ -285,15 +327,16 @@ def _compare(study: Study, model: Model, steps: Steps, names: list[str], measure
 
 
 def gauge_table(names: list[str], steps: Steps, measured: NDArray, m: ModelForTest,
-                st: Statuses, chain: ChainApplied | None = None) -> pd.DataFrame:
+                st: Statuses, chain: ChainApplied | None = None,
+                budget: ValidationBudget | None = None) -> pd.DataFrame:
     """The rows of ``gauges.csv``: one per gauge and step (``raw_ue`` beside ``measured_ue``
-    when the measurement chain is used)."""
+    when the measurement chain is used; the budget's columns when given)."""
     s, g = measured.shape
     low, high = m.low, m.high
     in_band = (measured >= low.T - 1e-9) & (measured <= high.T + 1e-9)
     status = st.status
     flag = np.where(np.isin(status, ["pass", "fail", "tare", "zero-load"]), "", status)
-    return pd.DataFrame({
+    table = pd.DataFrame({
         "gauge": np.tile(names, s),
         "step": np.repeat(steps.step, g),
         "sequence": np.repeat(steps.sequence, g),
@@ -311,6 +354,9 @@ def gauge_table(names: list[str], steps: Steps, measured: NDArray, m: ModelForTe
         "unconservative": st.unconservative.ravel(),
         "flag": flag.ravel(),
     })
+    if budget is not None:
+        table[list(GAUGE_COLUMNS)] = budget.columns[list(GAUGE_COLUMNS)].to_numpy()
+    return table
 
 
 __all__ = [

@@ -43,6 +43,19 @@ def rosette_angles(model, gauges: pd.DataFrame) -> dict[str, NDArray[np.float64]
     return out
 
 
+def rosette_grids(study: Study, model, gauges: pd.DataFrame
+                  ) -> list[tuple[str, NDArray, list[int], NDArray | None, NDArray]]:
+    """Per rosette: id, grid angles, the grids' rows, their Kt (None when the readings are
+    already corrected) and their calibration Poisson's ratio."""
+    out = []
+    for rid, angles in rosette_angles(model, gauges).items():
+        idx = rosette_groups(gauges)[rid]
+        kt = None if study.kt_corrected else gauges["kt"].to_numpy(dtype=float)[idx]
+        nu0 = gauges["nu0"].fillna(study.calibration_poisson).to_numpy(dtype=float)[idx]
+        out.append((rid, angles, idx, kt, nu0))
+    return out
+
+
 def rosette_table(study: Study, model, gauges: pd.DataFrame, steps: Steps,
                   measured: NDArray, predicted_axial: NDArray, evaluated: NDArray) -> pd.DataFrame:
     """Rows of rosettes.csv for every rosette and active step, measured and predicted."""
@@ -50,10 +63,7 @@ def rosette_table(study: Study, model, gauges: pd.DataFrame, steps: Steps,
     E = mat.E * 1e-6 if mat else None      # readings are microstrain: stress = E * ue * 1e-6
     nu = mat.nu if mat else None
     parts = []
-    for rid, angles in rosette_angles(model, gauges).items():
-        idx = rosette_groups(gauges)[rid]
-        kt = None if study.kt_corrected else gauges["kt"].to_numpy(dtype=float)[idx]
-        nu0 = gauges["nu0"].fillna(study.calibration_poisson).to_numpy(dtype=float)[idx]
+    for rid, angles, idx, kt, nu0 in rosette_grids(study, model, gauges):
         active = np.flatnonzero(steps.active)
         for source, data, use_kt in (("measured", measured, kt), ("predicted", predicted_axial,
                                                                    None)):

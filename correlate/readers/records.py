@@ -114,6 +114,51 @@ class ChainSettings:
 
 
 @dataclass(frozen=True)
+class UncertainInput:
+    """One uncertain model input of ``[[uncertainty.input]]``: its relative standard uncertainty
+    and how it moves the prediction (``exponent``, or a ``variant`` file raised by ``step``)."""
+
+    name: str
+    relative: float
+    exponent: float | None = None
+    variant: Path | None = None
+    step: float | None = None
+
+
+@dataclass(frozen=True)
+class Uncertainty:
+    """The ``[uncertainty]`` table: standard uncertainties (one standard deviation) of the
+    measurement and of the model's inputs, and the coverage factor k."""
+
+    coverage: float = 2.0
+    gauge_factor: float = 0.0        # relative, on the reading
+    transverse: float = 0.0          # absolute, on Kt
+    daq_ue: float = 0.0              # microstrain
+    daq_relative: float = 0.0        # relative, on the reading
+    load: float = 0.0                # relative, on the applied loads
+    placement: bool = False          # the placement band as a rectangular distribution
+    inputs: tuple[UncertainInput, ...] = ()
+
+
+@dataclass(frozen=True)
+class GridMesh:
+    """One coarser mesh of ``[numerical] meshes``: its file and element size."""
+
+    file: Path
+    h: float
+
+
+@dataclass(frozen=True)
+class Numerical:
+    """The ``[numerical]`` table: the study model's element size and the coarser meshes
+    (coarsest last after reading), for the grid convergence index."""
+
+    h: float
+    meshes: tuple[GridMesh, ...]
+    formal_order: float = 2.0
+
+
+@dataclass(frozen=True)
 class Study:
     """Everything the study file says, validated, with absolute paths."""
 
@@ -148,6 +193,8 @@ class Study:
     report: dict[str, Any] = field(default_factory=dict)
     raw: dict[str, Any] = field(default_factory=dict)
     chain: ChainSettings = ChainSettings()
+    uncertainty: Uncertainty | None = None   # None: no [uncertainty] table, no budget
+    numerical: Numerical | None = None       # None: no [numerical] table, u_num = 0
 
     @property
     def material(self) -> Material | None:

@@ -8,20 +8,31 @@ The records themselves are in :mod:`correlate.readers.records` (imported here to
 from __future__ import annotations
 
 import difflib
-import math
 import tomllib
 from pathlib import Path
 from typing import Any
 
 from correlate.core.errors import StudyError
 from correlate.core.units import LENGTH_UNITS
+from correlate.readers._values import boolean as _boolean
+from correlate.readers._values import number as _number
+from correlate.readers._values import path as _path
+from correlate.readers._values import unknown_keys as _unknown_keys
 from correlate.readers.chain_study import LOT_KEYS, THERMAL_KEYS, parse_case_thermal, parse_chain
 from correlate.readers.records import Case, Criteria, Load, Material, Override, Study
+from correlate.readers.uncertainty_tables import (
+    NUMERICAL_KEYS,
+    UNCERTAINTY_KEYS,
+    numerical_table,
+    uncertainty_table,
+    variant_problems,
+)
 
 # The keys each table accepts. Free-text tables ([test], [model] description keys) accept any key.
 SCHEMA: dict[str, set[str]] = {
     "": {"title", "model", "case", "material", "gauges", "test", "readings", "load", "criteria",
-         "override", "health", "report", "document", "gauge_lot", "thermal"},
+         "override", "health", "report", "document", "gauge_lot", "thermal", "uncertainty",
+         "numerical"},
     "model": {"file", "length_unit", "stress_unit", "plane", "revision", "description", "solver",
               "element", "mesh_size", "materials", "thickness", "kind"},
     "case": {"name", "strain", "displacement", "stress", "components", "shear", "time_index", "file",
@@ -40,6 +51,8 @@ SCHEMA: dict[str, set[str]] = {
                  "checked_date", "approved_date"},
     "gauge_lot": LOT_KEYS,
     "thermal": THERMAL_KEYS,
+    "uncertainty": UNCERTAINTY_KEYS,
+    "numerical": NUMERICAL_KEYS,
 }
 FREE_TEXT = {"test"}
 ABSOLUTE_UE_MAX = 10_000.0   # microstrain: a pass floor above 1 % strain is no floor
@@ -57,66 +70,6 @@ def _tables(raw: dict[str, Any], key: str) -> list[dict[str, Any]]:
     value = raw.get(key, [])
     items = [value] if isinstance(value, dict) else value if isinstance(value, list) else []
     return [item for item in items if isinstance(item, dict)]
-
-
-def _unknown_keys(where: str, table: dict[str, Any], allowed: set[str], problems: list[str],
-                  name: str) -> None:
-    for key in table:
-        if key not in allowed:
-            near = difflib.get_close_matches(key, sorted(allowed), n=1)
-            hint = f"; did you mean '{near[0]}'?" if near else f"; valid keys: {', '.join(sorted(allowed))}"
-            problems.append(f"{name}: unknown key '{key}' in {where}{hint}")
-
-
-def _number(table: dict[str, Any], key: str, default: float | None, where: str, name: str,
-            problems: list[str], *, positive: bool = False) -> float | None:
-    value = table.get(key, default)
-    if value is None:
-        return None
-    if isinstance(value, bool) or not isinstance(value, int | float):
-        hint = ""
-        if isinstance(value, str):
-            try:
-                float(value)
-                hint = "; write it without quotes"
-            except ValueError:
-                hint = "; give a number"
-        problems.append(f"{name}: {where} {key} = {value!r} is not a number{hint}")
-        return default
-    if not math.isfinite(value):
-        problems.append(f"{name}: {where} {key} = {value} is not a finite number")
-        return default
-    if positive and value <= 0:
-        problems.append(f"{name}: {where} {key} = {value} must be greater than zero")
-        return default
-    return float(value)
-
-
-def _boolean(table: dict[str, Any], key: str, default: bool, where: str, name: str,
-             problems: list[str]) -> bool:
-    """A true/false key, strictly: a string such as "false" is never read as a boolean."""
-    value = table.get(key, default)
-    if isinstance(value, bool):
-        return value
-    problems.append(f"{name}: {where} {key} = {value!r} is not true or false; write {key} = true "
-                    "or false, without quotes")
-    return default
-
-
-def _path(base: Path, value: Any, where: str, name: str, problems: list[str],
-          *, must_exist: bool = True) -> Path | None:
-    if not isinstance(value, str) or not value:
-        problems.append(f"{name}: {where} file is missing; give the path relative to the study file")
-        return None
-    try:
-        path = (base / value).resolve()
-    except (RuntimeError, OSError):  # Python 3.11 raises RuntimeError on a symbolic-link loop
-        problems.append(f"{name}: {where} file '{value}' is a symbolic link that loops back on "
-                        "itself; point it at the real file")
-        return None
-    if must_exist and not path.exists():
-        problems.append(f"{name}: {where} file '{value}' does not exist (looked for {path})")
-    return path
 
 
 def _read_case(raw: dict[str, Any], i: int, base: Path, name: str, problems: list[str]) -> Case | None:
@@ -479,6 +432,9 @@ def parse_study(text: str, path: Path) -> Study:
     sentinels, health = _sentinels_and_health(raw, name, problems)
     overrides = _overrides(raw, name, problems)
     chain = parse_chain(raw, name, problems)
+    uncertainty = uncertainty_table(raw, base, name, problems, band=gauges["band"])
+    variant_problems(uncertainty, cases, name, problems)
+    numerical = numerical_table(raw, base, name, problems, cases)
     if problems:
         raise StudyError(*problems)
     info = {k: v for k, v in model.items() if k not in ("file", "length_unit", "stress_unit", "plane")}
@@ -487,8 +443,9 @@ def parse_study(text: str, path: Path) -> Study:
         length_unit=length_unit, stress_unit=model.get("stress_unit"), plane=plane, model_info=info,
         cases=tuple(cases), materials=tuple(materials), **gauges, test=dict(_table(raw, "test")),
         **readings, sentinels=tuple(sentinels) if sentinels is not None else None,
-        loads=tuple(loads), criteria=criteria, criteria_given="criteria" in raw, overrides=tuple(overrides), health=dict(health),
-        report=dict(_table(raw, "report")), raw=raw, chain=chain)
+        loads=tuple(loads), criteria=criteria, criteria_given="criteria" in raw,
+        overrides=tuple(overrides), health=dict(health), report=dict(_table(raw, "report")),
+        raw=raw, chain=chain, uncertainty=uncertainty, numerical=numerical)
 
 
 def read_study(path: str | Path) -> Study:

@@ -31,6 +31,7 @@ from correlate.core.names import CAUTION
 from correlate.measurement.health import load_direction
 from correlate.report.chain_section import chain_notes, chain_rows
 from correlate.report.scene import Rendering, render_views
+from correlate.report.validation import validation_context
 from correlate.report.vtk_files import write_vtk
 
 HERE = Path(__file__).parent
@@ -476,7 +477,8 @@ def write_report(corr: Correlation, folder: Path) -> None:
                           "visible": list(v.visible)} for v in rendering.views]
                if rendering else [],
                "not_visible": list(rendering.not_visible) if rendering else [],
-               "render_note": render_note}
+               "render_note": render_note,
+               "validation": validation_context(corr, folder, _step_label(corr, ref), data_uri)}
     env = Environment(loader=FileSystemLoader(str(HERE)), autoescape=True,
                       undefined=StrictUndefined, trim_blocks=True, lstrip_blocks=True)
     html = env.get_template("template.html").render(**context)

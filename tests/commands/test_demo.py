@@ -6,7 +6,9 @@ modulus 0.95 times the analysis value (ratio 1/0.95 = 1.0526), and five named ch
 
 from __future__ import annotations
 
+import contextlib
 import importlib.util
+import io
 import json
 from pathlib import Path
 
@@ -25,9 +27,12 @@ FAULTS = LOG.FAULTS
 @pytest.fixture(scope="module")
 def demo(tmp_path_factory):
     out = tmp_path_factory.mktemp("demo") / "work"
-    assert main(["--quiet", "demo", "--out", str(out)]) == 0
+    printed = io.StringIO()
+    with contextlib.redirect_stdout(printed):
+        assert main(["--quiet", "demo", "--out", str(out)]) == 0
     run = out / "run"
     return {"out": out, "run": run, "summary": json.loads((run / "summary.json").read_text()),
+            "printed": printed.getvalue().splitlines(),
             "flags": pd.read_csv(run / "flags.csv"), "gauges": pd.read_csv(run / "gauges.csv")}
 
 
@@ -68,6 +73,19 @@ def test_each_invented_fault_is_found(demo):
 def test_no_other_gauge_is_flagged(demo):
     flagged = set(demo["flags"]["gauge"])
     assert flagged == set(FAULTS.values())
+
+
+def test_terminal_names_the_corrected_channels_before_the_caution(demo):
+    # The demo's quarter bridges are all corrected (3-wire leads, thermal output): the terminal
+    # says how many, as many as corrections.csv has rows, and the caution stays the last word.
+    from correlate.core.names import CAUTION
+
+    lines = demo["printed"]
+    corrections = pd.read_csv(demo["run"] / "corrections.csv")
+    chain = [i for i, ln in enumerate(lines) if ln.startswith("measurement chain:")]
+    assert len(chain) == 1
+    assert f"{len(corrections)} channel(s) corrected" in lines[chain[0]]
+    assert lines.index(CAUTION) == chain[0] + 1
 
 
 def test_existing_demo_folder_needs_force(demo, capsys):
