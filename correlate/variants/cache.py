@@ -61,6 +61,8 @@ def save_result(folder: Path, key: str, result: VariantResult) -> None:
     folder.mkdir(parents=True, exist_ok=True)
     arrays = {"predicted": result.predicted, "evaluated": result.evaluated,
               "measured": result.measured, "steps": result.steps}
+    if result.u_val is not None:
+        arrays["u_val"] = result.u_val
     for case, rows in result.rows.items():
         for kind, values in rows.items():
             arrays[f"rows/{case}/{kind}"] = values
@@ -93,9 +95,11 @@ def load_result(folder: Path, key: str, name: str) -> VariantResult | None:
                     rows.setdefault(case, {})[kind] = z[k]
             predicted, evaluated = z["predicted"], z["evaluated"]
             measured, steps = z["measured"], z["steps"]
+            u_val = z["u_val"] if "u_val" in z.files else None
     except (OSError, ValueError, KeyError, zipfile.BadZipFile, json.JSONDecodeError):
         return None   # a damaged entry is computed again
     return VariantResult(name=name, metrics=meta["metrics"], predicted=predicted,
                          evaluated=evaluated, measured=measured, steps=steps, rows=rows,
+                         u_val=u_val,
                          gauges=tuple(meta["gauges"]), same_mesh=bool(meta["same_mesh"]),
                          warnings=tuple(meta["warnings"]))

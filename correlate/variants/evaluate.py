@@ -23,6 +23,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
+from correlate.comparison.budget import STATES
 from correlate.comparison.correlation import correlate_study
 from correlate.core.errors import CorrelateError, CorrelateWarning
 from correlate.model_readings.locator import Locator
@@ -32,9 +33,9 @@ from correlate.readers.model import Mesh
 from correlate.readers.records import Study
 from correlate.variants.sweep_file import Variant
 
-__all__ = ["Located", "VariantResult", "correlate_variant", "locate_base", "mesh_hash",
+__all__ = ["METRICS", "VALIDATION", "Located", "VariantResult", "correlate_variant", "locate_base", "mesh_hash",
            "missing_file",
-           "variant_metrics", "variant_study"]
+           "variant_metrics", "with_variant_files"]
 
 
 @dataclass(frozen=True)
@@ -54,7 +55,8 @@ class VariantResult:
     ``predicted`` and ``evaluated`` are (steps, gauges) in microstrain, in the base study's
     gauge and step order; ``rows`` the operator rows of each superposed case [m/m];
     ``measured`` the test's readings as the comparison used them (the same for every variant)
-    and ``steps`` their step numbers; ``metrics`` the comparison's figures (:func:`variant_metrics`); ``failure`` the reason when
+    and ``steps`` their step numbers; ``u_val`` the validation uncertainty of each gauge-step
+    when the study has ``[uncertainty]`` (ASME V&V 20, from :mod:`correlate.comparison.budget`); ``metrics`` the comparison's figures (:func:`variant_metrics`); ``failure`` the reason when
     the variant could not be correlated (then the rest is empty).
     """
 
@@ -65,6 +67,7 @@ class VariantResult:
     measured: NDArray[np.float64] = field(default_factory=lambda: np.zeros((0, 0)))
     steps: NDArray[np.int64] = field(default_factory=lambda: np.zeros(0, np.int64))
     gauges: tuple[str, ...] = ()
+    u_val: NDArray[np.float64] | None = None   # (steps, gauges) [microstrain]; no [uncertainty]
     rows: dict[str, dict[str, NDArray[np.float64]]] = field(default_factory=dict)
     same_mesh: bool = False
     warnings: tuple[str, ...] = ()
@@ -92,7 +95,7 @@ def locate_base(study: Study) -> Located:
                    operator=model.operator, locator=model.locator)
 
 
-def variant_study(study: Study, variant: Variant) -> Study:
+def with_variant_files(study: Study, variant: Variant) -> Study:
     """The base study with the variant's result files in place of the model's (and cases')."""
     cases = tuple(replace(c, file=variant.case_files.get(c.name, c.file)) for c in study.cases)
     return replace(study, model_file=variant.file, cases=cases)
@@ -116,7 +119,7 @@ def correlate_variant(study: Study, variant: Variant, located: Located) -> Varia
     """
     if variant.problem:
         return VariantResult(name=variant.name, failure=variant.problem)
-    vstudy = variant_study(study, variant)
+    vstudy = with_variant_files(study, variant)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", CorrelateWarning)
         try:
@@ -144,6 +147,8 @@ def correlate_variant(study: Study, variant: Variant, located: Located) -> Varia
                          measured=np.asarray(corr.measured, dtype=float),
                          steps=np.asarray(corr.steps.step, dtype=np.int64),
                          gauges=tuple(corr.gauges), rows=rows,
+                         u_val=None if corr.validation is None else
+                         np.asarray(corr.validation.result.u_val, dtype=float).T,
                          same_mesh=same, warnings=notes)
 
 
@@ -164,10 +169,18 @@ METRICS = (
 )
 
 
+#: validation states (ASME V&V 20) counted per variant when the study has [uncertainty]
+VALIDATION = tuple((f"validation_{s.replace(' ', '_')}", s) for s in STATES)
+
+
 def variant_metrics(summary: dict[str, Any]) -> dict[str, Any]:
-    """The figures of a run's summary that rank a variant (the keys of :data:`METRICS`)."""
+    """The figures of a run's summary that rank a variant (:data:`METRICS`), and the number of
+    gauges in each validation state at the reference step (:data:`VALIDATION`) when the summary
+    has them."""
     out: dict[str, Any] = {}
     for column, (table, key) in METRICS:
-        value = summary.get(table, {}).get(key)
-        out[column] = value
+        out[column] = summary.get(table, {}).get(key)
+    states = (summary.get("validation") or {}).get("states")
+    if states is not None:
+        out.update({column: states.get(state) for column, state in VALIDATION})
     return out

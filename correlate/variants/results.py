@@ -20,7 +20,7 @@ from numpy.typing import NDArray
 
 from correlate.core.errors import StudyError
 from correlate.core.names import CAUTION
-from correlate.variants.evaluate import METRICS, VariantResult
+from correlate.variants.evaluate import METRICS, VALIDATION, VariantResult
 from correlate.variants.identify import (
     fit_response,
     identify,
@@ -44,31 +44,37 @@ def variants_table(sweep: Sweep, results: dict[str, VariantResult]) -> pd.DataFr
     fraction (:func:`~correlate.variants.identify.rank_variants`); failed ones follow, unranked,
     in table order.
     """
+    validation = [c for c, _ in VALIDATION
+                  if any(c in results[v.name].metrics for v in sweep.variants)]
     rows = []
     for v in sweep.variants:
         r = results[v.name]
         row: dict[str, Any] = {"variant": v.name, "file": str(v.file)}
         row.update(v.parameters)
-        row.update({c: r.metrics.get(c) for c, _ in METRICS})
+        row.update({c: r.metrics.get(c) for c in [*(c for c, _ in METRICS), *validation]})
         row["failure"] = r.failure
         rows.append(row)
     df = pd.DataFrame(rows)
     ok = df["failure"] == ""
-    for c, _ in METRICS:
-        if c != "verdict":
-            df[c] = pd.to_numeric(df[c], errors="coerce")
+    for c in [*(c for c, _ in METRICS if c != "verdict"), *validation]:
+        df[c] = pd.to_numeric(df[c], errors="coerce")
     ranked = rank_variants(df[ok])
     failed = df[~ok].assign(rank=pd.NA)
     out = pd.concat([ranked, failed]) if len(failed) else ranked
     out["rank"] = out["rank"].astype("Int64")
-    cols = ["rank", "variant", *sweep.parameters, *(c for c, _ in METRICS), "failure", "file"]
+    for c in validation:
+        out[c] = out[c].astype("Int64")
+    cols = ["rank", "variant", *sweep.parameters, *(c for c, _ in METRICS), *validation,
+            "failure", "file"]
     return out[cols].reset_index(drop=True)
 
 
 def identify_sweep(sweep: Sweep, results: dict[str, VariantResult], measured: NDArray,
-                   *, u_val: NDArray | None = None, gauges: list[str], steps: NDArray
-                   ) -> dict[str, Any]:
+                   *, gauges: list[str], steps: NDArray) -> dict[str, Any]:
     """Fit the response surface over the variants and identify the parameters.
+
+    The gauge-steps used, and their weights ``1 / u_val^2`` when the study has
+    ``[uncertainty]`` (equal weights without it), are those of the best-ranked variant's run.
 
     Parameters
     ----------
@@ -78,9 +84,6 @@ def identify_sweep(sweep: Sweep, results: dict[str, VariantResult], measured: ND
         By variant name; failed variants are left out.
     measured : ndarray, shape (S, G)
         The test's measured readings in the base study's order. [microstrain]
-    u_val : ndarray, shape (S, G), optional
-        Validation uncertainty of each gauge-step [microstrain]; weights ``1 / u_val^2``
-        (equal weights without it).
     gauges : list of str
         Gauge ids, G of them.
     steps : ndarray, shape (S,)
@@ -108,6 +111,9 @@ def identify_sweep(sweep: Sweep, results: dict[str, VariantResult], measured: ND
     # on the model (a reversed ratio, an installation fault found by the diagnosis) are judged
     # most fairly against the model that agrees best
     use = results[best.name].evaluated & np.isfinite(measured)
+    # weights 1 / u_val^2: the validation uncertainty (ASME V&V 20) of the best variant's run,
+    # whose model-input and numerical terms are those of the model nearest the test
+    u_val = results[best.name].u_val
     if u_val is not None:
         use &= np.isfinite(u_val) & (u_val > 0)
     if not use.any():

@@ -279,3 +279,45 @@ def test_sweep_file_errors_name_the_file_and_key(tmp_path, capsys):
     assert main(["--quiet", "sweep", str(path), "--out", str(tmp_path / "o")]) == 2
     assert "[identify] parameters E are not sweep parameters" in capsys.readouterr().err
     assert not (tmp_path / "o").exists()
+
+
+def test_uncertainty_budget_weights_the_identification_by_u_val(tmp_path, capsys):
+    study = k_study(tmp_path, k_true=1.04, noise=2.0)
+    study.write_text(study.read_text() + "[uncertainty]\ncoverage = 2.0\n"
+                     "gauge_factor = 0.02\ndaq_ue = 2.0\n")
+    write_variants(tmp_path, [(f"k{i}", {"k": k}) for i, k in enumerate(K_VALUES)])
+    path = write_sweep(tmp_path, '[identify]\nparameters = ["k"]\nresponse = "linear"\n')
+    assert main(["--quiet", "sweep", str(path), "--out", str(tmp_path / "o"),
+                 "--workers", "2"]) == 0
+    table = pd.read_csv(tmp_path / "o" / "variants.csv")
+    states = table[["validation_model_error", "validation_uncertainty_dominated",
+                    "validation_consistent"]].sum(axis=1)
+    assert (states == table["healthy"]).all()   # each healthy gauge is in one state
+    ident = json.loads((tmp_path / "o" / "identified.json").read_text())
+    assert ident["weights"].startswith("1/u_val^2")
+    # reference: weighted least squares in closed form. The readings are linear in k,
+    # p(k) = a + k b per gauge-step, so k = sum w b (m - a) / sum w b^2 with w = 1 / u_val^2
+    # (Seber and Wild, Nonlinear Regression, 1989, sec. 2.1), from two serial runs' gauges.csv
+    text = study.read_text()
+    frames = {}
+    for name in ("k1", "k3"):
+        one = tmp_path / f"study_{name}.toml"
+        one.write_text(text.replace('file = "block.vtu"', f'file = "{name}.vtu"'))
+        assert main(["--quiet", "run", str(one), "--out", str(tmp_path / name),
+                     "--no-report"]) in (0, 3)
+        frames[name] = pd.read_csv(tmp_path / name / "gauges.csv")
+    capsys.readouterr()
+    used = frames["k1"]["status"].isin(["pass", "fail"]).to_numpy()
+    p1, p3 = (frames[n]["predicted_ue"].to_numpy()[used] for n in ("k1", "k3"))
+    k1, k3 = K_VALUES[1], K_VALUES[3]
+    b = (p3 - p1) / (k3 - k1)
+    a = p1 - k1 * b
+    m = frames["k1"]["measured_ue"].to_numpy()[used]
+    # u_val holds only the gauge-factor and acquisition terms here, which depend on the measured
+    # readings alone: the same in every variant's run
+    u = frames["k1"]["u_val_ue"].to_numpy()[used]
+    w = 1.0 / u**2
+    k_wls = np.sum(w * b * (m - a)) / np.sum(w * b**2)
+    # tolerance: gauges.csv keeps about 6 significant digits of each reading and u_val
+    assert ident["estimate"]["k"] == pytest.approx(k_wls, rel=1e-4)
+    assert abs(ident["estimate"]["k"] - 1.04) <= 2 * ident["standard_error"]["k"]
