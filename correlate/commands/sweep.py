@@ -25,6 +25,7 @@ from correlate.core.errors import CorrelateError, OutputError
 from correlate.core.folders import check_target, output_path
 from correlate.core.names import CAUTION
 from correlate.core.tables import write_csv, write_json
+from correlate.report.sweep_page import FIGURES, render_sweep_page
 from correlate.variants.cache import load_result, save_result, study_fingerprint, variant_key
 from correlate.variants.cluster import compute_variants
 from correlate.variants.evaluate import VariantResult, locate_base, missing_file
@@ -33,7 +34,7 @@ from correlate.variants.sweep_file import Sweep, Variant, read_sweep
 
 SWEEP_MARKER = ".correlate-sweep"   # holds the sweep file's path: the folder is that sweep's own
 CACHE = "variants"
-OWN = {SWEEP_MARKER, CACHE, "variants.csv", "identified.json", "sweep.html", "sweep_figures"}
+OWN = {SWEEP_MARKER, CACHE, "variants.csv", "identified.json", "sweep.html", FIGURES}
 
 
 def sweep_inputs(sweep: Sweep) -> list[Path]:
@@ -143,9 +144,27 @@ def run(args: argparse.Namespace) -> int:
     if identified is not None:
         _whole(out / "identified.json", lambda p: write_json(identified, p))
         _print_identified(identified)
+    with progress.step("writing sweep.html and its figures"):
+        write_page(out, table, identified, sweep)
     print(CAUTION)
     print(f"outputs in {out}")
     return 0
+
+
+def write_page(out: Path, table: Any, identified: dict[str, Any] | None, sweep: Sweep) -> None:
+    """sweep.html and its figures: drawn in a temporary folder, then put in place whole."""
+    tmp = Path(tempfile.mkdtemp(prefix=".sweep_figures.", dir=out))
+    try:
+        html = render_sweep_page(table, identified, list(sweep.parameters), tmp,
+                                 title=f"Sweep {sweep.path.stem}: {sweep.study.title}")
+        final = out / FIGURES
+        if final.exists():
+            shutil.rmtree(final)
+        os.replace(tmp, final)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+    _whole(out / "sweep.html", lambda p: p.write_text(html, encoding="utf-8"))
 
 
 def _identification(sweep: Sweep, results: dict[str, VariantResult]) -> dict[str, Any] | None:

@@ -321,3 +321,19 @@ def test_uncertainty_budget_weights_the_identification_by_u_val(tmp_path, capsys
     # tolerance: gauges.csv keeps about 6 significant digits of each reading and u_val
     assert ident["estimate"]["k"] == pytest.approx(k_wls, rel=1e-4)
     assert abs(ident["estimate"]["k"] - 1.04) <= 2 * ident["standard_error"]["k"]
+
+
+def test_sweep_page_shows_the_estimate_beside_the_best_variant(local_sweep):
+    from PIL import Image
+
+    out = local_sweep / "out"
+    ident = json.loads((out / "identified.json").read_text())
+    html = (out / "sweep.html").read_text()
+    assert f"{ident['estimate']['k']:.4g}" in html
+    assert f"best variant ({ident['best_variant']['variant']})" in html
+    assert "These results support" in html
+    for name in ("metric", "response", "residuals"):
+        assert f'src="sweep_figures/{name}.png"' in html
+        image = np.asarray(Image.open(out / "sweep_figures" / f"{name}.png").convert("L"))
+        # a drawn figure: at least a few percent of its pixels are ink, not background
+        assert image.shape[0] > 300 and np.mean(image < 200) > 0.01
