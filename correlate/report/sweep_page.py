@@ -25,13 +25,9 @@ FIGURES = "sweep_figures"
 TOP = 30   # variants listed in the page's table (all are in variants.csv)
 
 _HTML = """<!DOCTYPE html>
-<html lang="en">
-<head>
-<meta charset="utf-8">
+<html lang="en"><head><meta charset="utf-8"><title>{{ title }}</title>
 <meta name="viewport" content="width=device-width, initial-scale=1">
-<title>{{ title }}</title>
-<style>
-{{ css | safe }}
+<style>{{ css | safe }}
 img.figure { max-width: 100%; }
 td.failure { color: #8a1c1c; }
 </style>
