@@ -32,7 +32,7 @@ from correlate.variants.evaluate import VariantResult, locate_base, missing_file
 from correlate.variants.results import identify_sweep, variants_table
 from correlate.variants.sweep_file import Sweep, Variant, read_sweep
 
-SWEEP_MARKER = ".correlate-sweep"   # holds the sweep file's path: the folder is that sweep's own
+SWEEP_MARKER = ".correlate-sweep"   # names the sweep file: the folder is that sweep's own
 CACHE = "variants"
 OWN = {SWEEP_MARKER, CACHE, "variants.csv", "identified.json", "sweep.html", FIGURES}
 
@@ -47,7 +47,8 @@ def sweep_inputs(sweep: Sweep) -> list[Path]:
 
 def prepare_folder(out: Path, sweep: Sweep, *, force: bool) -> bool:
     """Make ``out`` ready; return True when it is this sweep's folder and its cache is kept."""
-    own_id = str(sweep.path.resolve())
+    # the sweep file's path from the folder: kept when both move together (the demo's staging)
+    own_id = os.path.relpath(sweep.path.resolve(), Path(os.path.abspath(out)))
     marker = out / SWEEP_MARKER
     inputs = sweep_inputs(sweep)
     if out.is_dir() and not force:
@@ -147,7 +148,7 @@ def run(args: argparse.Namespace) -> int:
     with progress.step("writing sweep.html and its figures"):
         write_page(out, table, identified, sweep)
     print(CAUTION)
-    print(f"outputs in {out}")
+    print(f"outputs in {getattr(args, 'shown_out', out)}")
     return 0
 
 

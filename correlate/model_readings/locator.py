@@ -45,7 +45,7 @@ class Locator:
         self._use(surface)
 
     def __reduce__(self) -> tuple[type, tuple[Mesh, Surface]]:
-        # the VTK locator does not pickle: a copy (a Dask worker's) rebuilds it from the surface
+        # VTK's locator cannot be serialised: a copy (a Dask worker's) rebuilds it
         return (Locator, (self.mesh, self.surface))
 
     def _use(self, surface: Surface) -> None:
