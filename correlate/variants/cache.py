@@ -3,7 +3,8 @@
 Stage: variants. In: a :class:`VariantResult` and its key. Out: ``DIR/variants/<key>.npz``.
 
 The key is a hash of the variant's result files (their bytes) and of the base study's own inputs
-(the study file, gauge map, readings and any other file the study names, and the tool's version),
+(the study file, gauge map, readings and every other file the study names, also inside its
+tables, and the tool's version),
 so an edited variant file or study is computed again and an unchanged one is taken from the
 cache. Each entry is written to a temporary name and renamed, so an interrupted sweep leaves only
 whole entries. Failed variants are not kept: a rerun tries them again.
@@ -35,12 +36,25 @@ def study_fingerprint(study: Study) -> str:
     h = hashlib.blake2b(digest_size=20)
     h.update(__version__.encode())
     model_files = {study.model_file, *(c.file for c in study.cases)}
-    paths = sorted({v for f in dataclasses.fields(study)
-                    if isinstance(v := getattr(study, f.name), Path) and v not in model_files})
+    paths = sorted(p for p in set(_paths(study)) if p not in model_files)
     for path in paths:
         h.update(str(path.name).encode())
         h.update((sha256(path) if path.is_file() else "absent").encode())
     return h.hexdigest()
+
+
+def _paths(value: object) -> list[Path]:
+    """Every path held in a record, its nested records and containers (the files a study names:
+    gauge map, readings, coarser meshes, input variants, correction tables, ...)."""
+    if isinstance(value, Path):
+        return [value]
+    if dataclasses.is_dataclass(value) and not isinstance(value, type):
+        return [p for f in dataclasses.fields(value) for p in _paths(getattr(value, f.name))]
+    if isinstance(value, dict):
+        return [p for v in value.values() for p in _paths(v)]
+    if isinstance(value, list | tuple):
+        return [p for v in value for p in _paths(v)]
+    return []
 
 
 def variant_key(variant: Variant, fingerprint: str) -> str | None:
