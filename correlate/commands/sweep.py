@@ -132,6 +132,9 @@ def run(args: argparse.Namespace) -> int:
     failed = [(v, results[v.name].failure) for v in sweep.variants if results[v.name].failure]
     for v, reason in failed:
         print(f"error: variant '{v.name}' (row {v.row}): {reason}", file=sys.stderr)
+    for line, names in _warnings(sweep, results).items():
+        which = names[0] if len(names) == 1 else f"{len(names)} variants, e.g. {names[0]}"
+        print(f"warning: ({which}) {line}", file=sys.stderr)
     print(f"{len(sweep.variants)} variants: {computed} computed, {cached} from the cache, "
           f"{len(failed)} failed")
     if len(failed) == len(sweep.variants):
@@ -166,6 +169,15 @@ def write_page(out: Path, table: Any, identified: dict[str, Any] | None, sweep: 
         shutil.rmtree(tmp, ignore_errors=True)
         raise
     _whole(out / "sweep.html", lambda p: p.write_text(html, encoding="utf-8"))
+
+
+def _warnings(sweep: Sweep, results: dict[str, VariantResult]) -> dict[str, list[str]]:
+    """Each distinct warning of the variants' comparisons, with the variants that gave it."""
+    out: dict[str, list[str]] = {}
+    for v in sweep.variants:
+        for line in results[v.name].warnings:
+            out.setdefault(line, []).append(v.name)
+    return out
 
 
 def _identification(sweep: Sweep, results: dict[str, VariantResult]) -> dict[str, Any] | None:
