@@ -160,7 +160,8 @@ def write_page(out: Path, table: Any, identified: dict[str, Any] | None, sweep: 
     tmp = Path(tempfile.mkdtemp(prefix=".sweep_figures.", dir=out))
     try:
         html = render_sweep_page(table, identified, list(sweep.parameters), tmp,
-                                 title=f"Sweep {sweep.path.stem}: {sweep.study.title}")
+                                 title=f"{sweep.study.title}: sweep of model variants "
+                                       f"({sweep.path.name})")
         final = out / FIGURES
         if final.exists():
             shutil.rmtree(final)
