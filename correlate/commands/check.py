@@ -25,6 +25,7 @@ from correlate.model_readings.model import (
     open_sources,
     settle_family,
 )
+from correlate.readers.bridge_map import bridges_of
 from correlate.readers.gauges import read_gauges
 from correlate.readers.readings import read_readings
 from correlate.readers.study import Study, read_study
@@ -56,6 +57,10 @@ def check_study(study: Study) -> tuple[Model, pd.DataFrame, list[str]]:
         problems: list[str] = []
         opened, sources = _attempt(problems, open_sources, study)
         _, gauges = _attempt(problems, read_gauges, study.gauges_file)
+        if gauges is not None:  # the bridges' columns and [[bridge]] tables, one line each
+            _attempt(problems, lambda: bridges_of(gauges, study.bridge_tables,
+                                                  source=study.gauges_file.name,
+                                                  study=study.path.name))
         settled = opened and _attempt(problems, settle_family, study, sources, gauges)[0]
         bad_cases = set()
         for case in study.cases if settled else ():

@@ -229,6 +229,11 @@ def correlate_study(study: Study, model: Model | None = None) -> Correlation:
     """Run the correlation of a study; nothing is written."""
     _require_loads(study)
     model = model or prepare(study)
+    if model.bridges:
+        listed = ", ".join(f"'{b.name}'" for b in model.bridges)
+        raise StudyError(f"{study.path.name}: bridge channel(s) {listed} are read, but run does "
+                         "not compare bridge channels yet; use predict for their model readings, "
+                         "or leave the gauge map's bridge column blank to compare each grid")
     names = model.gauges["gauge"].tolist()
     readings, steps, measured, chain = chain_readings(study, model.gauges)
     _require_pairs(study, steps, measured)

@@ -202,33 +202,39 @@ def _best_offset(ev: GaugeEvidence, criterion: Criterion, mask: NDArray[np.bool_
 
 def _offset_in_disc(ev: GaugeEvidence, criterion: Criterion, mask: NDArray[np.bool_],
                     before: float, radius: float) -> tuple[dict[str, Any] | None, Array | None]:
-    """Search the grid centre offset over a disc: 21 x 21 scan, then Nelder-Mead from the best.
+    """Search the grid centre offset over a disc: a 21 x 21 scan, then nested 11 x 11 scans
+    around the best, each a fifth of the spacing before (down to a 1250th of the radius), every
+    scan one evaluation of all its points together.
 
     When the readings depend on one offset component only (one load case in a linear field), the
     fit is a line of offsets; the shortest one is reported and the detail says so. Returns the
     row (None when no offset makes the gauge pass) and the offset found (None when none is).
     """
     m = ev.measured
+
+    def clip(x: Array) -> Array:
+        """Points pulled back onto the disc (rows of offsets)."""
+        norm = np.maximum(np.hypot(x[..., 0], x[..., 1]), 1e-300)
+        return x * np.minimum(1.0, radius / norm)[..., None]
+
+    def best(points: Array) -> Array | None:
+        r = _rms_rows(m, _evaluate(ev, points, np.zeros(len(points))), mask)
+        return points[int(np.nanargmin(r))] if np.any(np.isfinite(r)) else None
+
     h = radius / 10.0
     a = np.linspace(-radius, radius, 21)
     X = np.stack(np.meshgrid(a, a, indexing="ij"), axis=-1).reshape(-1, 2)
-    X = X[np.hypot(X[:, 0], X[:, 1]) <= radius * (1 + 1e-12)]
-
-    def clip(x: Array) -> Array:
-        return x * min(1.0, radius / max(float(np.hypot(*x)), 1e-300))
-
-    def rms(x: Array) -> float:
-        return float(_rms_rows(m, _evaluate(ev, clip(x)[None], np.zeros(1)), mask)[0])
-
-    r = _rms_rows(m, _evaluate(ev, X, np.zeros(len(X))), mask)
-    if not np.any(np.isfinite(r)):
+    x = best(X[np.hypot(X[:, 0], X[:, 1]) <= radius * (1 + 1e-12)])
+    if x is None:
         return None, None
-    x0 = X[np.argmin(r)]
-    res = optimize.minimize(rms, x0, method="Nelder-Mead", options={
-        "initial_simplex": x0 + np.array([[0.0, 0.0], [h / 2, 0.0], [0.0, h / 2]]),
-        # a thousandth of the search radius and 0.01 ue are far below what the analyst can act on
-        "xatol": 1e-3 * radius, "fatol": 1e-2, "maxfev": 80})
-    x = clip(res.x)
+    # a 1250th of the radius is far below what the analyst can act on
+    for _ in range(3):
+        a = np.linspace(-h, h, 11)
+        near = clip(x + np.stack(np.meshgrid(a, a, indexing="ij"), axis=-1).reshape(-1, 2))
+        found = best(near)
+        x = x if found is None else found
+        h /= 5.0
+    x = clip(x)
     # Jacobian of the readings with respect to the offset, by central differences.
     e = 1e-3 * radius
     P = _evaluate(ev, x + np.array([[e, 0], [-e, 0], [0, e], [0, -e]]), np.zeros(4))[:, mask]

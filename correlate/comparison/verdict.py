@@ -39,16 +39,17 @@ def _direction(ratio: Any, st: Statuses, names: list[str]) -> tuple[str, list[st
     beyond = [names[j] for j in np.flatnonzero((st.unconservative & st.evaluated).any(axis=0))]
     if ratio is None or not np.isfinite(ratio):
         return "the overall ratio is not defined", beyond
-    if ratio > 1:
+    if round(float(ratio), 3) == 1.0:   # as printed: 0.9996 is "1.000", not "1.000 < 1"
+        text = (f"the model predicts the overall strain level within 0.05 % (measured/predicted "
+                f"{ratio:.3f}); see the gauges for local differences")
+    elif ratio > 1:
         text = (f"the model under-predicts strain overall (measured/predicted {ratio:.3f} > 1: "
                 "the test strains are larger than the model's), so it is unconservative for "
                 "strain-based margins")
-    elif ratio < 1:
+    else:
         text = (f"the model over-predicts strain overall (measured/predicted {ratio:.3f} < 1: "
                 "the test strains are smaller than the model's), so it is conservative for "
                 "strain-based margins")
-    else:
-        text = "the model predicts the overall strain level exactly (measured/predicted 1.000)"
     return text, beyond
 
 

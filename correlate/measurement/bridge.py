@@ -20,6 +20,8 @@ from numpy.typing import ArrayLike, NDArray
 
 from correlate.core.errors import GaugeError
 from correlate.measurement._validate import names_for
+from correlate.mechanics.gauge import BRIDGE_ARM_SIGNS
+from correlate.readers.bridge_map import validate_bridges
 
 __all__ = [
     "bridge_output",
@@ -32,7 +34,7 @@ __all__ = [
 
 Float = NDArray[np.float64]
 
-_ARM_SIGNS = (1.0, -1.0, 1.0, -1.0)
+_ARM_SIGNS = BRIDGE_ARM_SIGNS
 _LEADS_IN_GAUGE_ARM = {"2-wire": 2.0, "3-wire": 1.0}
 _UE = 1e-6  # m/m per microstrain
 
@@ -136,67 +138,6 @@ def bridge_ratio_exact(r1: ArrayLike, r2: ArrayLike, r3: ArrayLike, r4: ArrayLik
         raise GaugeError(*problems)
     a1, a2, a3, a4 = arms
     return a1 / (a1 + a2) - a4 / (a3 + a4)
-
-
-def validate_bridges(
-    gauge: Sequence[object], bridge: Sequence[object], arm: Sequence[object]
-) -> dict[str, tuple[str | None, str | None, str | None, str | None]]:
-    """Check the ``bridge`` and ``arm`` columns of a gauge map and return each bridge's arms.
-
-    Parameters
-    ----------
-    gauge : sequence of str, length n
-        Gauge ids.
-    bridge : sequence, length n
-        Bridge id per gauge; None, NaN or an empty string for a gauge not in a bridge.
-    arm : sequence, length n
-        Arm number (1 to 4) of each gauge that is in a bridge; ignored for the others.
-
-    Returns
-    -------
-    dict
-        Bridge id -> gauge ids in arms 1 to 4, None for a completion resistor.
-
-    Raises
-    ------
-    GaugeError
-        Every problem found, one line each naming the gauge and bridge: an arm outside 1..4,
-        two grids on one arm, a bridge with a single arm (that is a quarter bridge).
-    """
-    if not len(gauge) == len(bridge) == len(arm):
-        msg = f"gauge map: columns gauge, bridge and arm have {len(gauge)}, {len(bridge)} and {len(arm)} rows; expected the same number"
-        raise GaugeError(msg)
-    problems: list[str] = []
-    members: dict[str, dict[int, list[str]]] = {}
-    for g, b, a in zip(gauge, bridge, arm, strict=True):
-        name = _blank_to_none(b)
-        if name is None:
-            continue
-        number = _arm_number(a)
-        if number is None:
-            problems.append(
-                f"gauge '{g}' in bridge '{name}': arm {a!r} is not 1, 2, 3 or 4; give the arm it is wired into (1 and 3 add, 2 and 4 subtract)"
-            )
-            continue
-        members.setdefault(name, {}).setdefault(number, []).append(str(g))
-    arms_of: dict[str, tuple[str | None, str | None, str | None, str | None]] = {}
-    for name, by_arm in members.items():
-        for number, grids in sorted(by_arm.items()):
-            if len(grids) > 1:
-                listed = ", ".join(f"'{g}'" for g in grids)
-                problems.append(
-                    f"gauges {listed} in bridge '{name}' share arm {number}; expected one grid per arm, check the arm column"
-                )
-        if len(by_arm) == 1:
-            listed = ", ".join(f"'{g}'" for grids in by_arm.values() for g in grids)
-            problems.append(
-                f"gauge {listed} is the only arm of bridge '{name}'; one active arm is a quarter bridge: leave its bridge column blank"
-            )
-        a1, a2, a3, a4 = (by_arm.get(k, [None])[0] for k in (1, 2, 3, 4))
-        arms_of[name] = (a1, a2, a3, a4)
-    if problems:
-        raise GaugeError(*problems)
-    return arms_of
 
 
 def lead_wire_factor(
@@ -345,21 +286,3 @@ def quarter_bridge_indicated_strain(true_ue: ArrayLike, gauge_factor: ArrayLike)
     """
     e = np.asarray(true_ue, dtype=float) * _UE
     return 2.0 * e / (2.0 + np.asarray(gauge_factor, dtype=float) * e) / _UE
-
-
-def _blank_to_none(value: object) -> str | None:
-    if value is None or (isinstance(value, float) and np.isnan(value)):
-        return None
-    text = str(value).strip()
-    return text or None
-
-
-def _arm_number(value: object) -> int | None:
-    """1..4 from an int, an integral float or a numeric string; None otherwise."""
-    if isinstance(value, bool):
-        return None
-    try:
-        number = float(str(value).strip())
-    except ValueError:
-        return None
-    return int(number) if number in (1.0, 2.0, 3.0, 4.0) else None

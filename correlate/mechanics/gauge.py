@@ -15,6 +15,10 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
+# Wheatstone-bridge arm signs: Vo/Vex = (k/4)(e1 - e2 + e3 - e4), arms 1 and 3 add, 2 and 4
+# subtract (Hoffmann 1989, the Wheatstone bridge chapter). Written once for the model and test side.
+BRIDGE_ARM_SIGNS = (1.0, -1.0, 1.0, -1.0)
+
 
 def indicated_strain(axial: ArrayLike, transverse: ArrayLike, kt: ArrayLike,
                      nu0: ArrayLike) -> NDArray[np.float64]:
@@ -44,4 +48,4 @@ def indicated_strain(axial: ArrayLike, transverse: ArrayLike, kt: ArrayLike,
         / (1.0 - np.asarray(nu0, dtype=float) * kt)
 
 
-__all__ = ["indicated_strain"]
+__all__ = ["BRIDGE_ARM_SIGNS", "indicated_strain"]

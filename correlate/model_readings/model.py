@@ -33,6 +33,7 @@ from correlate.model_readings.thermal_strain import (
     temperature_at_points,
     warn_unused_temperature,
 )
+from correlate.readers.bridge_map import Bridge, bridges_of
 from correlate.readers.fields import read_field
 from correlate.readers.gauges import read_gauges
 from correlate.readers.model import Mesh, ModelSource, find_array, open_model
@@ -51,6 +52,7 @@ class Model:
     warnings: list[str] = field(default_factory=list)
     fields: dict[tuple[str, int | None], Any] = field(default_factory=dict)
     conventions: list[str] | None = None   # the convention checks' findings, once made
+    bridges: tuple[Bridge, ...] = ()        # bridge channels of the gauge map and [[bridge]]
 
     def case_field(self, case: Case, fe_index: int | None,
                    operator: GaugeOperator | None = None) -> Any:
@@ -101,8 +103,11 @@ def prepare(study: Study) -> Model:
         sources = open_sources(study)
     with progress.step("reading the gauge map"):
         gauges = read_gauges(study.gauges_file)
+        bridges = bridges_of(gauges, study.bridge_tables, source=study.gauges_file.name,
+                             study=study.path.name)
     settle_family(study, sources, gauges)
     model = locate(study, sources, gauges)
+    model.bridges = bridges
     model.conventions = convention_warnings(model)
     for line in model.conventions:
         warnings.warn(line, CorrelateWarning, stacklevel=2)
@@ -345,7 +350,8 @@ def case_rows(model: Model, case: Case, fe_index: int | None,
 
 def _heights(model: Model, op: GaugeOperator) -> NDArray[np.float64] | None:
     """Grid height per gauge of ``op`` (gauge-map column ``height``), None when none is given."""
-    if "height" not in model.gauges:
+    if "height" not in model.gauges or not np.nan_to_num(
+            model.gauges["height"].to_numpy(dtype=float)).any():
         return None
     h = model.gauges.set_index("gauge")["height"].reindex(op.gauges).to_numpy(dtype=float)
     return h if np.nan_to_num(h).any() else None

@@ -17,6 +17,7 @@ from numpy.typing import NDArray
 from correlate.core import progress
 from correlate.core.errors import CorrelateWarning
 from correlate.core.units import MICROSTRAIN
+from correlate.model_readings.bridges import BridgeRows, bridge_rows, combine_bridges
 from correlate.model_readings.conventions import convention_warnings
 from correlate.model_readings.model import Model, case_rows, case_steps
 from correlate.model_readings.operator import GaugeOperator
@@ -59,36 +60,53 @@ def band_limits(op: GaugeOperator, indicated: NDArray) -> tuple[NDArray, NDArray
     return low, high
 
 
+def _state(layout: GaugeOperator | BridgeRows, rows: dict[str, NDArray]) -> dict[str, NDArray]:
+    """One FE state's columns of every gauge (or bridge channel) of a row layout, microstrain."""
+    ind = rows["indicated"]
+    nominal, point = layout.row_kind == 0, layout.row_kind == 1
+    low, high = band_limits(layout, ind)
+    sens_pos, sens_ang = _sensitivities(layout, ind)
+    state = {
+        "predicted_ue": ind[nominal] * MICROSTRAIN,
+        "axial_ue": rows["axial"][nominal] * MICROSTRAIN,
+        "transverse_ue": rows["transverse"][nominal] * MICROSTRAIN,
+        "point_ue": ind[point] * MICROSTRAIN,
+        "band_low_ue": low * MICROSTRAIN,
+        "band_high_ue": high * MICROSTRAIN,
+        "sens_position_ue_per_unit": sens_pos * MICROSTRAIN,
+        "sens_angle_ue_per_deg": sens_ang * MICROSTRAIN,
+    }
+    if "height_indicated" in rows:  # the grid-height correction, where a height is given
+        state["height_ue"] = rows["height_indicated"][nominal] * MICROSTRAIN
+    if "averaged_indicated" in rows:
+        state["mesh_check_ue"] = (rows["averaged_indicated"][nominal] - ind[nominal]) * MICROSTRAIN
+    return state
+
+
 def predict_table(model: Model) -> pd.DataFrame:
     """Model readings of every gauge and case (the content of model_readings.csv)."""
     op = model.operator
     place = op.placement.table
-    nominal, point = op.row_kind == 0, op.row_kind == 1
     g = len(place)
     states = [(case, k, t) for case in model.study.cases for k, t in case_steps(model, case)]
     count = Counter(case.name for case, _, _ in states)  # FE states per case
     columns: dict[str, dict[str, NDArray]] = {}  # per case: column, filled state by state
     locations: dict[str, list[str]] = {}           # per case: "point" or "cell", state by state
+    combo = combine_bridges(op, list(model.bridges)) if model.bridges else None
+    if combo is not None:  # bridge channels follow the gauges, as rows of their own
+        place = pd.concat([place, pd.DataFrame({"gauge": combo.gauges, "snap_distance": np.nan,
+                                                "element": -1, "cell_type": "bridge"})],
+                          ignore_index=True)
+        g = len(place)
     for case, fe_index, fe_time in progress.bar(states, desc="evaluating the cases"):
         rows = case_rows(model, case, fe_index)
-        ind = rows["indicated"]
-        low, high = band_limits(op, ind)
-        sens_pos, sens_ang = _sensitivities(op, ind)
-        state = {
-            "predicted_ue": ind[nominal] * MICROSTRAIN,
-            "axial_ue": rows["axial"][nominal] * MICROSTRAIN,
-            "transverse_ue": rows["transverse"][nominal] * MICROSTRAIN,
-            "point_ue": ind[point] * MICROSTRAIN,
-            "band_low_ue": low * MICROSTRAIN,
-            "band_high_ue": high * MICROSTRAIN,
-            "sens_position_ue_per_unit": sens_pos * MICROSTRAIN,
-            "sens_angle_ue_per_deg": sens_ang * MICROSTRAIN,
-        }
-        if "height_indicated" in rows:  # the grid-height correction, where a height is given
-            state["height_ue"] = rows["height_indicated"][nominal] * MICROSTRAIN
+        state = _state(op, rows)
         if "averaged_indicated" in rows:
-            state["mesh_check_ue"] = (rows["averaged_indicated"][nominal] - ind[nominal]) * MICROSTRAIN
             state["rotation_rad"] = rows["rotation"]
+        if combo is not None:
+            extra = _state(combo, bridge_rows(combo, rows))
+            state = {k: np.r_[v, extra.get(k, np.full(len(combo.gauges), np.nan))]
+                     for k, v in state.items()}
         if fe_index is not None and case.is_series:
             state["fe_index"] = np.full(len(place), fe_index)
             state["fe_time"] = np.full(len(place), fe_time, dtype=float)

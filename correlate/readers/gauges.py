@@ -14,13 +14,14 @@ import numpy as np
 import pandas as pd
 
 from correlate.core.errors import CorrelateWarning, GaugeError
+from correlate.readers.bridge_map import BRIDGE_COLUMNS
 from correlate.readers.gauge_chain import CHAIN_COLUMNS, CHAIN_NUMERIC, CHAIN_TEXT, chain_problems
 
 REQUIRED = ("gauge", "x", "y", "z", "dir_x", "dir_y", "dir_z")
 NUMERIC_OPTIONAL = ("length", "kt", "position_tol", "angle_tol", "nu0", "normal_x", "normal_y",
                     "normal_z", "gauge_factor", "daq_gauge_factor", "polarity", "range_ue")
 TEXT_OPTIONAL = ("rosette", "face", "mount", "grid", "channel")
-KNOWN = REQUIRED + NUMERIC_OPTIONAL + TEXT_OPTIONAL + CHAIN_COLUMNS
+KNOWN = REQUIRED + NUMERIC_OPTIONAL + TEXT_OPTIONAL + CHAIN_COLUMNS + BRIDGE_COLUMNS
 FACES = ("", "top", "bottom")
 MOUNTS = ("", "surface", "embedded")
 KT_LIMIT = 0.1  # |kt| above this is almost surely a percentage
@@ -145,6 +146,9 @@ def validate_gauges(raw: pd.DataFrame, *, source: str = "gauge map") -> pd.DataF
         for col in CHAIN_TEXT:
             out[col] = raw[col].astype(str).str.strip() if col in raw.columns else ""
         problems += chain_problems(out, source)
+    for col in BRIDGE_COLUMNS:  # only when the file has them: else the map reads as before
+        if col in raw.columns:
+            out[col] = raw[col].astype(str).str.strip()
     out["length"] = out["length"].fillna(0.0)
     out["kt"] = out["kt"].fillna(0.0)
 

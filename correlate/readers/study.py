@@ -18,6 +18,7 @@ from correlate.readers._values import boolean as _boolean
 from correlate.readers._values import number as _number
 from correlate.readers._values import path as _path
 from correlate.readers._values import unknown_keys as _unknown_keys
+from correlate.readers.bridge_map import BRIDGE_KEYS, parse_bridge_tables
 from correlate.readers.chain_study import LOT_KEYS, THERMAL_KEYS, parse_case_thermal, parse_chain
 from correlate.readers.records import Case, Criteria, Load, Material, Override, Study
 from correlate.readers.uncertainty_tables import (
@@ -32,7 +33,7 @@ from correlate.readers.uncertainty_tables import (
 SCHEMA: dict[str, set[str]] = {
     "": {"title", "model", "case", "material", "gauges", "test", "readings", "load", "criteria",
          "override", "health", "report", "document", "gauge_lot", "thermal", "uncertainty",
-         "numerical"},
+         "numerical", "bridge"},
     "model": {"file", "length_unit", "stress_unit", "plane", "revision", "description", "solver",
               "element", "mesh_size", "materials", "thickness", "kind"},
     "case": {"name", "strain", "displacement", "stress", "components", "shear", "time_index", "file",
@@ -53,6 +54,7 @@ SCHEMA: dict[str, set[str]] = {
     "thermal": THERMAL_KEYS,
     "uncertainty": UNCERTAINTY_KEYS,
     "numerical": NUMERICAL_KEYS,
+    "bridge": BRIDGE_KEYS,
 }
 FREE_TEXT = {"test"}
 ABSOLUTE_UE_MAX = 10_000.0   # microstrain: a pass floor above 1 % strain is no floor
@@ -432,6 +434,7 @@ def parse_study(text: str, path: Path) -> Study:
     sentinels, health = _sentinels_and_health(raw, name, problems)
     overrides = _overrides(raw, name, problems)
     chain = parse_chain(raw, name, problems)
+    bridge_tables = parse_bridge_tables(raw, name, problems)
     uncertainty = uncertainty_table(raw, base, name, problems, band=gauges["band"])
     variant_problems(uncertainty, cases, name, problems)
     numerical = numerical_table(raw, base, name, problems, cases)
@@ -445,7 +448,8 @@ def parse_study(text: str, path: Path) -> Study:
         **readings, sentinels=tuple(sentinels) if sentinels is not None else None,
         loads=tuple(loads), criteria=criteria, criteria_given="criteria" in raw,
         overrides=tuple(overrides), health=dict(health), report=dict(_table(raw, "report")),
-        raw=raw, chain=chain, uncertainty=uncertainty, numerical=numerical)
+        raw=raw, chain=chain, uncertainty=uncertainty, numerical=numerical,
+        bridge_tables=bridge_tables)
 
 
 def read_study(path: str | Path) -> Study:

@@ -347,7 +347,8 @@ VALID_ROW = {"gauge": "G", "x": "1.0", "y": "2.0", "z": "2.0", "dir_x": "1", "di
              "daq_gauge_factor": "", "polarity": "", "range_ue": "",
              # measurement-chain columns (issue 14)
              "gauge_ohm": "350", "lead_ohm": "", "wiring": "", "shunt_gain": "",
-             "nonlinearity": "", "lot": "", "temperature": "", "height": ""}
+             "nonlinearity": "", "lot": "", "temperature": "", "height": "",
+             "bridge": "", "arm": ""}  # bridge columns (issue 14 item 1)
 
 
 @st.composite
