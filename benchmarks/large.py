@@ -5,11 +5,11 @@ cold-cache read of the file.
 Disk: the 10M-cell model is written as XDMF/HDF5 by meshio's own writer (gzip-compressed HDF5,
 meshio's default; about 60 MB for this regular block), and the script reserves and checks for
 about 0.7 GB of scratch (at most the 10 GB the issue allows) and skips with a message when there is
-less. Memory: about 5.5 GB at the peak.
+less. Memory: about 1.5 GB at the peak (the generator's mesh, then the command's).
 
 Each size runs `correlate --timings predict` ONCE, in a fresh process (the machine is shared:
 the figures of one run, not the best of several). Peak memory is that process's maximum resident
-size (getrusage of the child). The floor is meshio reading the file (geometry, cells and the
+size (VmHWM of the child's own process image). The floor is meshio reading the file (geometry, cells and the
 strain array) in a fresh process, warm cache, measured just before.
 
 Cold cache: /proc/sys/vm/drop_caches needs root, which this machine does not give; instead the
@@ -22,7 +22,6 @@ from __future__ import annotations
 
 import argparse
 import os
-import resource
 import shutil
 import subprocess
 import sys
@@ -74,17 +73,32 @@ def evict(folder: Path) -> None:
             os.posix_fadvise(h.fileno(), 0, 0, os.POSIX_FADV_DONTNEED)
 
 
+PREDICT = """
+import sys
+from correlate.commands.cli import main
+rc = main(sys.argv[1:])
+# VmHWM of this process image: ru_maxrss survives exec on Linux and would carry the parent's
+# resident size (this script holds the generated mesh when it starts the child)
+hwm = [line.split()[1] for line in open("/proc/self/status") if line.startswith("VmHWM:")]
+sys.stderr.write(f"\\npeak-kB {hwm[0]}\\n")
+sys.exit(rc)
+"""
+
+
 def predict_once(study: Path) -> tuple[float, float, list[tuple[int, str, float]]]:
     """Wall seconds, peak MB and the --timings rows of one fresh `correlate predict`."""
     t = time.perf_counter()
-    out = subprocess.run([sys.executable, "-m", "correlate", "--quiet", "--timings", "predict",
+    out = subprocess.run([sys.executable, "-c", PREDICT, "--quiet", "--timings", "predict",
                           str(study), "--out", str(study.parent / "out")],
                          capture_output=True, text=True)
     wall = time.perf_counter() - t
     if out.returncode != 0:
         raise RuntimeError(out.stderr[-2000:])
-    peak = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024.0
     lines = out.stderr.splitlines()
+    peak = float(lines[-1].split()[1]) / 1024.0
+    lines = lines[:-1]
+    while lines and not lines[-1].strip():
+        lines = lines[:-1]
     rows = [((len(line) - len(line.lstrip())) // 2 - 1, line.rsplit(None, 1)[0].strip(),
              float(line.rsplit(None, 1)[1]))
             for line in lines[lines.index("stage times (seconds):") + 1:]]
