@@ -30,6 +30,8 @@ _HTML = """<!DOCTYPE html>
 <style>{{ css | safe }}
 img.figure { max-width: 100%; }
 td.failure { color: #8a1c1c; }
+table.variants { font-size: 0.75rem; }
+@media print { table.variants { font-size: 6.5pt; } }
 </style>
 </head>
 <body>
@@ -37,6 +39,7 @@ td.failure { color: #8a1c1c; }
 <h1>{{ title }}</h1>
 <p class="subtitle">{{ subtitle }}</p>
 </header>
+<div class="box caution">{{ caution }}</div>
 <section id="identified">
 <h2>1. Parameters identified from the readings</h2>
 {% if ident %}
@@ -69,7 +72,7 @@ the base study's whole comparison run on its model result. {{ n_ok }} of {{ n_al
 were correlated{% if n_all > top %}; the first {{ top }} are listed (all are in variants.csv){% endif %}.</p>
 <img class="figure" src="{{ figures }}/metric.png" alt="RMS difference against each parameter">
 <table class="variants">
-<thead><tr>{% for c in columns %}<th>{{ c }}</th>{% endfor %}</tr></thead>
+<thead><tr>{% for c in columns %}<th>{% for part in c.split('_') %}{{ part }}{% if not loop.last %}_<wbr>{% endif %}{% endfor %}</th>{% endfor %}</tr></thead>
 <tbody>
 {% for r in rows %}<tr>{% for c in columns %}<td{% if c == 'failure' %} class="failure"{% endif %}>{{ r[c] }}</td>{% endfor %}</tr>
 {% endfor %}

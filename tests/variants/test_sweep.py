@@ -332,6 +332,10 @@ def test_sweep_page_shows_the_estimate_beside_the_best_variant(local_sweep):
     assert f"{ident['estimate']['k']:.4g}" in html
     assert f"best variant ({ident['best_variant']['variant']})" in html
     assert "These results support" in html
+    # also outside the footer: the print stylesheet hides the page's footer, and a printed sweep
+    # page must still carry the caution
+    body = html.split("<footer>")[0].split("</header>")[1]
+    assert "These results support" in body
     for name in ("metric", "response", "residuals"):
         assert f'src="sweep_figures/{name}.png"' in html
         image = np.asarray(Image.open(out / "sweep_figures" / f"{name}.png").convert("L"))
