@@ -52,8 +52,10 @@ def prepare_folder(out: Path, sweep: Sweep, *, force: bool) -> bool:
     marker = out / SWEEP_MARKER
     inputs = sweep_inputs(sweep)
     if out.is_dir() and not force:
+        # a folder holding an input, or one the tool did not write, is refused as such first:
+        # "add --force" would be wrong advice there
+        check_target(out, force=True, inputs=inputs, own=OWN)
         if marker.is_file() and marker.read_text(encoding="utf-8").strip() == own_id:
-            check_target(out, force=True, inputs=inputs, own=OWN)
             return True
         raise OutputError(f"output folder '{out}' exists and is not this sweep's folder; add "
                           "--force to replace it or choose another --out")

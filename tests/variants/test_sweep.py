@@ -236,15 +236,39 @@ def test_every_variant_failing_exits_2(tmp_path, capsys):
 
 
 def test_a_folder_of_another_sweep_is_refused_without_force(tmp_path, capsys):
+    # the tool's own folder, but another sweep's (its marker names another sweep file)
+    from correlate.commands.sweep import SWEEP_MARKER
+    from correlate.core.folders import MARKER
+
     k_study(tmp_path)
     (tmp_path / "variants.csv").write_text("name,file,k\na,none.vtu,1\n")
     out = tmp_path / "o"
     out.mkdir()
-    (out / "notes.txt").write_text("mine")
+    (out / MARKER).write_text("")
+    (out / SWEEP_MARKER).write_text("../elsewhere/sweep.toml\n")
     code = main(["--quiet", "sweep", str(write_sweep(tmp_path)), "--out", str(out)])
     assert code == 2
-    assert "is not this sweep's folder" in capsys.readouterr().err
+    assert "is not this sweep's folder; add --force" in capsys.readouterr().err
+    assert (out / SWEEP_MARKER).read_text() == "../elsewhere/sweep.toml\n"
+
+
+def test_a_folder_the_tool_did_not_write_or_holding_an_input_is_refused_as_such(tmp_path, capsys):
+    # "add --force" would be wrong advice for these: --force replaces only the tool's own folders
+    # and never one that holds an input (common practice of the tool's output rules, README)
+    k_study(tmp_path)
+    (tmp_path / "variants.csv").write_text("name,file,k\na,none.vtu,1\n")
+    sweep = write_sweep(tmp_path)
+    out = tmp_path / "o"
+    out.mkdir()
+    (out / "notes.txt").write_text("mine")
+    assert main(["--quiet", "sweep", str(sweep), "--out", str(out)]) == 2
+    err = capsys.readouterr().err
+    assert "was not written by correlate" in err and "--force" not in err.split(";")[0]
     assert (out / "notes.txt").read_text() == "mine"
+    assert main(["--quiet", "sweep", str(sweep), "--out", str(tmp_path)]) == 2
+    err = capsys.readouterr().err
+    assert "holds the input" in err and "add --force" not in err
+    assert sweep.is_file()
 
 
 def test_parameters_that_act_alike_raise_the_identifiability_warning(tmp_path, capsys):
