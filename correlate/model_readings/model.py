@@ -37,6 +37,7 @@ from correlate.readers.bridge_map import Bridge, bridges_of
 from correlate.readers.fields import read_field
 from correlate.readers.gauges import read_gauges
 from correlate.readers.model import Mesh, ModelSource, find_array, open_model
+from correlate.readers.named_arrays import arrays_of_cases
 from correlate.readers.study import Case, Study
 
 
@@ -77,11 +78,16 @@ class Model:
 
 
 def open_sources(study: Study) -> dict[Path, ModelSource]:
-    """Open the model file and any per-case files; they must share one mesh."""
+    """Open the model file and any per-case files; they must share one mesh.
+
+    Each file is read for its geometry and the arrays its cases name (a VTU or static XDMF: the
+    other arrays are listed, not read).
+    """
     sources: dict[Path, ModelSource] = {}
+    named = arrays_of_cases(study.cases, study.model_file)
     for path in [study.model_file] + [c.file for c in study.cases if c.file is not None]:
         if path not in sources:
-            sources[path] = open_model(path)
+            sources[path] = open_model(path, named[path])
     main = sources[study.model_file].mesh
     for path, src in sources.items():
         if len(src.mesh.points) != len(main.points) or src.mesh.n_cells != main.n_cells:

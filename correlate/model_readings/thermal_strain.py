@@ -101,7 +101,7 @@ def warn_unused_temperature(cases: tuple[Case, ...], sources: dict, model_file: 
         src = sources.get(case.file or model_file)
         if src is None or src.times:
             continue  # a time series' arrays are read per step; not looked into here
-        names = [n for n in list(src.point_data) + list(src.cell_data)
+        names = [n for n in src.array_names()
                  if n.strip().casefold() in TEMPERATURE_NAMES]
         if names:
             warnings.warn(f"case '{case.name}': {src.path.name} carries a temperature field "

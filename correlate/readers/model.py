@@ -20,7 +20,7 @@ import os
 import re
 import stat
 import warnings
-from collections.abc import Callable
+from collections.abc import Callable, Collection
 from dataclasses import dataclass, field
 from functools import cached_property
 from pathlib import Path
@@ -31,6 +31,7 @@ from numpy.typing import NDArray
 
 from correlate.core.errors import CorrelateWarning, MissingDependencyError, ModelError
 from correlate.readers import series
+from correlate.readers.named_arrays import Listed, read_named, vtu_structure
 
 SUPPORTED = ("triangle", "triangle6", "quad", "quad8", "quad9", "tetra", "tetra10", "hexahedron",
              "hexahedron20", "hexahedron27", "wedge")
@@ -140,6 +141,13 @@ class ModelSource:
     _h5: dict[Any, Any] = field(default_factory=dict)   # HDF5 files and datasets (readers.series)
     _blocks: dict[Any, Any] = field(default_factory=dict)   # steps read ahead (readers.series)
     _names: dict[str, tuple[str, ...]] | None = None
+    listing: tuple[Listed, ...] | None = None   # every array of a partly read file
+
+    def array_names(self) -> list[str]:
+        """The names of every array the file holds (point data first), read or not."""
+        if self.listing is not None:
+            return [item.name for item in self.listing]
+        return list(self.point_data) + list(self.cell_data)
 
     def arrays(self, time_index: int | None) -> tuple[dict[str, Any], dict[str, Any]]:
         """Point and cell data, of one step for a time series."""
@@ -365,8 +373,12 @@ def _check_file(path: Path) -> None:
                          "give the path of the result file")
 
 
-def open_model(path: str | Path) -> ModelSource:
-    """Open a model result file; a time-series XDMF is read one step at a time."""
+def open_model(path: str | Path, names: Collection[str] | None = None) -> ModelSource:
+    """Open a model result file; a time-series XDMF is read one step at a time.
+
+    Given ``names``, a VTU or static XDMF is read for its geometry and those arrays only
+    (:mod:`correlate.readers.named_arrays`); the others are listed, and read if asked for.
+    """
     path = Path(path)
     _check_file(path)
     if path.stat().st_size == 0:
@@ -378,6 +390,12 @@ def open_model(path: str | Path) -> ModelSource:
             return series
     if suffix in (".exo", ".e", ".ex2", ".exii"):
         return _open_exodus(path)
+    part = None if names is None else read_named(path, names)
+    if part is not None:
+        mesh = _mesh_from(part.points, list(part.cells), path.name)
+        return ModelSource(path=path, mesh=mesh, point_data=part.point_data,
+                           cell_data=part.cell_data, _names=part.component_names,
+                           listing=part.listing)
     m = _meshio_read(path)
     mesh = _mesh_from(m.points, [(c.type, c.data) for c in m.cells], path.name)
     return ModelSource(path=path, mesh=mesh, point_data=dict(m.point_data),
@@ -392,11 +410,27 @@ def from_meshio(mesh: Any, name: str = "mesh") -> ModelSource:
                        cell_data={k: list(v) for k, v in mesh.cell_data.items()})
 
 
-def _available(point_data: dict, cell_data: dict) -> str:
-    names = [f"{k} (point, {np.asarray(v).shape[1] if np.asarray(v).ndim > 1 else 1})"
-             for k, v in point_data.items()]
-    names += [f"{k} (cell)" for k in cell_data]
+def _available(point_data: dict, cell_data: dict, listing: tuple[Listed, ...] | None = None) -> str:
+    if listing is not None:
+        names = [f"{a.name} (point, {a.components})" if a.location == "point"
+                 else f"{a.name} (cell)" for a in listing]
+    else:
+        names = [f"{k} (point, {np.asarray(v).shape[1] if np.asarray(v).ndim > 1 else 1})"
+                 for k, v in point_data.items()]
+        names += [f"{k} (cell)" for k in cell_data]
     return ", ".join(names) if names else "none"
+
+
+def _read_listed(source: ModelSource, name: str) -> None:
+    """Read one more array of a partly read file (one the study's keys did not name)."""
+    if source.listing is None or name in source.point_data or name in source.cell_data \
+            or name not in {a.name for a in source.listing}:
+        return
+    part = read_named(source.path, [name])
+    if part is None:
+        return
+    source.point_data.update(part.point_data)
+    source.cell_data.update(part.cell_data)
 
 
 def find_array(source: ModelSource, name: str, time_index: int | None, *,
@@ -412,6 +446,8 @@ def find_array(source: ModelSource, name: str, time_index: int | None, *,
         got = _hdf5_rows(source, name, time_index, rows)
         if got is not None:
             return got
+    if not source.times:
+        _read_listed(source, name)
     point_data, cell_data = source.arrays(time_index)
     if name in point_data:
         values = np.asarray(point_data[name], dtype=float)
@@ -421,10 +457,11 @@ def find_array(source: ModelSource, name: str, time_index: int | None, *,
         parts = [np.asarray(blocks[i], dtype=float) for i in source.mesh.block_ids]
         values = np.concatenate([p.reshape(len(p), -1) for p in parts])
         return "cell", values
-    near = difflib.get_close_matches(name, list(point_data) + list(cell_data), n=1)
+    near = difflib.get_close_matches(name, source.array_names() if not source.times
+                                     else list(point_data) + list(cell_data), n=1)
     hint = f"; did you mean '{near[0]}'?" if near else ""
     raise ModelError(f"{source.path.name}: case '{case}' names array '{name}', which is not in the "
-                     f"file; arrays found: {_available(point_data, cell_data)}{hint}")
+                     f"file; arrays found: {_available(point_data, cell_data, source.listing)}{hint}")
 
 
 # A component name as a VTU stores it ("XX", "Exy", "eps_zx", "S.YZ"): an optional short prefix
@@ -466,30 +503,4 @@ def _vtu_component_names(path: Path) -> dict[str, tuple[str, ...]]:
             return {}
     finally:
         vtkObject.SetGlobalWarningDisplay(quiet)
-    found: dict[str, tuple[str, ...]] = {}
-    for section in ("PointData", "CellData"):
-        for element in _elements(parser.GetRootElement(), section):
-            for k in range(element.GetNumberOfNestedElements()):
-                da = element.GetNestedElement(k)
-                name = da.GetAttribute("Name")
-                count = da.GetAttribute("NumberOfComponents")
-                if da.GetName() != "DataArray" or name is None or name in found:
-                    continue
-                names = tuple(da.GetAttribute(f"ComponentName{i}") or ""
-                              for i in range(int(count) if count and count.isdigit() else 1))
-                if any(names):
-                    found[name] = names
-    return found
-
-
-def _elements(root: Any, name: str) -> list[Any]:
-    """Every element called ``name`` under ``root`` (depth first)."""
-    out, stack = [], [root]
-    while stack:
-        element = stack.pop()
-        if element is None:
-            continue
-        if element.GetName() == name:
-            out.append(element)
-        stack.extend(element.GetNestedElement(k) for k in range(element.GetNumberOfNestedElements()))
-    return out
+    return vtu_structure(parser)[2]
