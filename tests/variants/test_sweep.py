@@ -365,3 +365,23 @@ def test_sweep_page_shows_the_estimate_beside_the_best_variant(local_sweep):
         image = np.asarray(Image.open(out / "sweep_figures" / f"{name}.png").convert("L"))
         # a drawn figure: at least a few percent of its pixels are ink, not background
         assert image.shape[0] > 300 and np.mean(image < 200) > 0.01
+
+
+def test_an_unreachable_scheduler_gets_one_line_and_exit_2(local_sweep, tmp_path, capsys,
+                                                           monkeypatch):
+    """A free local port nobody listens on: the address named, what to do, nothing written.
+
+    The connection timeout is shortened from the command's 10 s to keep the test cheap.
+    """
+    from correlate.variants import cluster
+
+    monkeypatch.setattr(cluster, "CONNECT_TIMEOUT", "1s")
+    address = f"tcp://127.0.0.1:{_free_port()}"
+    capsys.readouterr()
+    out = tmp_path / "nowhere"
+    code = main(["--quiet", "sweep", str(local_sweep / "sweep.toml"), "--out", str(out),
+                 "--scheduler", address])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert code == 2
+    assert len(err) == 1 and address in err[0] and "dask scheduler" in err[0], err
+    assert not (out / "variants.csv").exists()
