@@ -15,6 +15,9 @@ the same run, side by side:
 4. memory     - the peak resident memory of one worker process (read from /proc while the
                 2-worker sweep runs: the largest of its worker processes).
 
+5. other meshes - with ``--other-meshes N``: N variants each on a slightly different mesh (the
+                gauges located per variant), swept with 1 worker, beside the same-mesh figure.
+
 Run:  python benchmarks/sweep.py --scale 0.1 --variants 16   (about a minute)
 The machine is shared with other developers: figures vary from run to run with their load.
 """
@@ -74,6 +77,28 @@ def build(folder: Path, cells: int, n_variants: int, rng: np.random.Generator) -
     sweep = folder / "sweep.toml"
     sweep.write_text('study = "study.toml"\ntable = "variants.csv"\nparameters = ["k"]\n'
                      '[identify]\nparameters = ["k"]\nresponse = "linear"\n')
+    return sweep
+
+
+def build_other_meshes(folder: Path, cells: int, n_variants: int) -> Path:
+    """Variants each on a slightly different mesh: the block stretched along x by 1 + 1e-4 i.
+
+    The points differ, so each variant's mesh hash differs and its gauges are located anew; the
+    gauges (5 to 195 mm along the 200 mm block) stay on the top face.
+    """
+    import meshio
+
+    mesh = tet_block(cells, quadratic=False)
+    cells_ = [(t, c) for t, c in mesh.blocks]
+    rows = ["name,file,k"]
+    for i, k in enumerate(np.linspace(0.97, 1.07, n_variants)):
+        points = mesh.points * [1.0 + 1e-4 * (i + 1), 1.0, 1.0]
+        meshio.write(folder / f"m{i:03d}.vtu", meshio.Mesh(points, cells_, point_data={
+            "E": strain_field(points) * k}))
+        rows.append(f"m{i:03d},m{i:03d}.vtu,{k:.6g}")
+    (folder / "other_meshes.csv").write_text("\n".join(rows) + "\n")
+    sweep = folder / "other_meshes.toml"
+    sweep.write_text('study = "study.toml"\ntable = "other_meshes.csv"\nparameters = ["k"]\n')
     return sweep
 
 
@@ -154,6 +179,10 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--scale", type=float, default=0.1, help="cells = 300,000 x scale")
     parser.add_argument("--variants", type=int, default=16)
+    parser.add_argument("--other-meshes", type=int, default=0,
+                        help="also sweep this many variants each on a slightly different mesh")
+    parser.add_argument("--no-serial", action="store_true",
+                        help="skip the baseline of one `correlate run` per variant")
     args = parser.parse_args()
     rng = np.random.default_rng(16)
     scratch = Path(tempfile.mkdtemp(prefix="correlate-sweep-bench-"))
@@ -165,7 +194,11 @@ def main() -> None:
         read = floor(scratch, n)
         one = timed_sweep(sweep, scratch / "out1", 1)
         two = timed_sweep(sweep, scratch / "out2", 2)
-        serial = serial_runs(scratch, n)
+        other = None
+        if args.other_meshes:
+            other_sweep = build_other_meshes(scratch, cells, args.other_meshes)
+            other = timed_sweep(other_sweep, scratch / "out3", 1)
+        serial = float("nan") if args.no_serial else serial_runs(scratch, n)
         boot = start_up()
         print(f"sweep benchmark: {cells} cells requested, {n} variants on one mesh, "
               f"{size:.1f} MB per variant file; process start-up {boot:.2f} s")
@@ -187,6 +220,12 @@ def main() -> None:
               "read of its file")
         print(f"peak memory of one worker: {one[2]:.0f} MB (1 worker), {two[2]:.0f} MB (2 workers)")
         print(f"sweep with 2 workers against the baseline: {serial / two[0]:.2f} x faster")
+        if other is not None:
+            m = args.other_meshes
+            print(f"{m} variants each on its own mesh, 1 worker: whole command {other[0]:.2f} s, "
+                  f"correlating the variants {other[1]:.2f} s = {other[1] / m:.3f} s per variant "
+                  f"(gauges located per variant) against {one[1] / n:.3f} s on the same mesh; "
+                  f"peak memory of the worker {other[2]:.0f} MB")
     finally:
         shutil.rmtree(scratch, ignore_errors=True)
 
