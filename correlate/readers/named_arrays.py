@@ -151,9 +151,12 @@ def read_vtu(path: Path, names: Collection[str]) -> PartialRead | None:
     cell_array = grid.GetCells()
     connectivity = vtk_to_numpy(cell_array.GetConnectivityArray())
     offsets = vtk_to_numpy(cell_array.GetOffsetsArray())[1:]   # each cell's end, as VTU stores
-    point_data = _vtk_arrays(grid.GetPointData(), listing, "point", vtk_to_numpy)
-    raw = _vtk_arrays(grid.GetCellData(), listing, "cell", vtk_to_numpy)
-    blocks, cell_data = vtk_cells_from_data(connectivity, offsets, types, raw)
+    try:
+        point_data = _vtk_arrays(grid.GetPointData(), listing, "point", vtk_to_numpy)
+        raw = _vtk_arrays(grid.GetCellData(), listing, "cell", vtk_to_numpy)
+        blocks, cell_data = vtk_cells_from_data(connectivity, offsets, types, raw)
+    except (ValueError, TypeError, IndexError, KeyError):
+        return None     # an array of another size or kind than its header says: read it whole
     return PartialRead(points=vtk_to_numpy(grid.GetPoints().GetData()),
                        cells=tuple((b.type, b.data) for b in blocks), point_data=point_data,
                        cell_data=cell_data, listing=listing, component_names=component_names)

@@ -208,7 +208,7 @@ def test_bad_variants_are_recorded_and_the_sweep_goes_on(tmp_path, capsys):
     inputs = {p.name: p.read_bytes() for p in tmp_path.iterdir() if p.is_file()}
     out = tmp_path / "out"
     code = main(["--quiet", "sweep", str(path), "--out", str(out),
-                 "--workers", "2"])
+                 "--workers", "1"])   # one worker process to start: the test stays cheap
     captured = capsys.readouterr()
     assert code == 0
     df = pd.read_csv(out / "variants.csv", keep_default_na=False).set_index("variant")
@@ -229,7 +229,8 @@ def test_bad_variants_are_recorded_and_the_sweep_goes_on(tmp_path, capsys):
 def test_every_variant_failing_exits_2(tmp_path, capsys):
     k_study(tmp_path)
     (tmp_path / "variants.csv").write_text("name,file,k\na,none.vtu,1\nb,nothing.vtu,2\n")
-    code = main(["--quiet", "sweep", str(write_sweep(tmp_path)), "--out", str(tmp_path / "o")])
+    code = main(["--quiet", "sweep", str(write_sweep(tmp_path)), "--out", str(tmp_path / "o"),
+                 "--workers", "1"])
     err = capsys.readouterr().err
     assert code == 2
     assert "every variant failed" in err and "none.vtu" in err and "nothing.vtu" in err
@@ -282,7 +283,7 @@ def test_parameters_that_act_alike_raise_the_identifiability_warning(tmp_path, c
     path = write_sweep(tmp_path, '[identify]\nparameters = ["k", "c"]\nresponse = "linear"\n',
                        parameters='["k", "c"]')
     assert main(["--quiet", "sweep", str(path), "--out", str(tmp_path / "o"),
-                 "--workers", "2"]) == 0
+                 "--workers", "1"]) == 0
     ident = json.loads((tmp_path / "o" / "identified.json").read_text())
     assert not ident["identifiable"]
     assert ident["condition_number"] > 1e3
@@ -312,7 +313,7 @@ def test_uncertainty_budget_weights_the_identification_by_u_val(tmp_path, capsys
     write_variants(tmp_path, [(f"k{i}", {"k": k}) for i, k in enumerate(K_VALUES)])
     path = write_sweep(tmp_path, '[identify]\nparameters = ["k"]\nresponse = "linear"\n')
     assert main(["--quiet", "sweep", str(path), "--out", str(tmp_path / "o"),
-                 "--workers", "2"]) == 0
+                 "--workers", "1"]) == 0
     table = pd.read_csv(tmp_path / "o" / "variants.csv")
     states = table[["validation_model_error", "validation_uncertainty_dominated",
                     "validation_consistent"]].sum(axis=1)
