@@ -16,7 +16,8 @@ the same run, side by side:
                 2-worker sweep runs: the largest of its worker processes).
 
 5. other meshes - with ``--other-meshes N``: N variants each on a slightly different mesh (the
-                gauges located per variant), swept with 1 worker, beside the same-mesh figure.
+                gauges located per variant), swept with 1 worker, beside the same-mesh figure;
+                and one variant's task called in this process for both kinds (no cluster).
 
 Run:  python benchmarks/sweep.py --scale 0.1 --variants 16   (about a minute)
 The machine is shared with other developers: figures vary from run to run with their load.
@@ -100,6 +101,35 @@ def build_other_meshes(folder: Path, cells: int, n_variants: int) -> Path:
     sweep = folder / "other_meshes.toml"
     sweep.write_text('study = "study.toml"\ntable = "other_meshes.csv"\nparameters = ["k"]\n')
     return sweep
+
+
+def in_process(folder: Path, sweeps: list[str], n: int = 4) -> list[float]:
+    """Median seconds of one variant's task, called in this process (no cluster), per sweep file.
+
+    The same function a worker runs (``correlate_variant``), after the base model's gauges are
+    located once: the same-mesh variants reuse them, the other-mesh ones locate their own.
+    """
+    import warnings
+
+    from correlate.readers.study import read_study
+    from correlate.variants.evaluate import correlate_variant, locate_base
+    from correlate.variants.sweep_file import read_sweep
+
+    study = read_study(folder / "study.toml")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        located = locate_base(study)
+        correlate_variant(study, read_sweep(folder / sweeps[0]).variants[0], located)  # warm-up
+        out = []
+        for name in sweeps:
+            times = []
+            for variant in read_sweep(folder / name).variants[:n]:
+                t = time.perf_counter()
+                result = correlate_variant(study, variant, located)
+                times.append(time.perf_counter() - t)
+                assert not result.failure, result.failure
+            out.append(statistics.median(times))
+    return out
 
 
 def floor(folder: Path, n: int) -> float:
@@ -198,6 +228,12 @@ def main() -> None:
         if args.other_meshes:
             other_sweep = build_other_meshes(scratch, cells, args.other_meshes)
             other = timed_sweep(other_sweep, scratch / "out3", 1)
+            direct = in_process(scratch, ["sweep.toml", "other_meshes.toml"])
+            table = pd.read_csv(scratch / "out3" / "variants.csv", keep_default_na=False)
+            failed = int((table["failure"] != "").sum())
+            if failed:
+                raise RuntimeError(f"{failed} variants on other meshes failed: "
+                                   f"{table['failure'].iloc[0]}")
         serial = float("nan") if args.no_serial else serial_runs(scratch, n)
         boot = start_up()
         print(f"sweep benchmark: {cells} cells requested, {n} variants on one mesh, "
@@ -226,6 +262,8 @@ def main() -> None:
                   f"correlating the variants {other[1]:.2f} s = {other[1] / m:.3f} s per variant "
                   f"(gauges located per variant) against {one[1] / n:.3f} s on the same mesh; "
                   f"peak memory of the worker {other[2]:.0f} MB")
+            print(f"one variant's task in this process (median of 4, no cluster): same mesh "
+                  f"{direct[0]:.3f} s, own mesh {direct[1]:.3f} s (gauges located anew)")
     finally:
         shutil.rmtree(scratch, ignore_errors=True)
 
