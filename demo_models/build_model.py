@@ -11,6 +11,9 @@ into ``correlate/data/demo/``:
   t = 1 side, named ``U``, ``E``, ``S``;
 - ``bracket_coarse.vtu``: the same part and cases meshed with every element size doubled
   (``COARSE_FACTOR``), the coarser mesh of the demo's grid-convergence study (``[numerical]``);
+- ``bracket_clamp_variants.h5``: the strains of a few invented clamp-stiffness variants (the root
+  held by an elastic support instead of a rigid clamp) on bracket.vtu's mesh, for the demo's
+  sweep (``--clamp-variants``);
 - ``gauges.csv``: candidate gauge map on the model surface;
 - ``demo_models/geometry.json``: dimensions, features, faces and the gauge candidates.
 
@@ -19,6 +22,7 @@ or test. Usage::
 
     python demo_models/build_model.py            # rebuild the shipped files
     python demo_models/build_model.py --check    # rebuild into a temporary folder and compare
+    python demo_models/build_model.py --clamp-variants   # the sweep's clamp variants only
 """
 
 from __future__ import annotations
@@ -324,7 +328,8 @@ class _SkfemMesh:
 
 
 def solve_cases(points: NDArray[np.float64], tet10: NDArray[np.int64],
-                faces: dict[str, NDArray[np.int64]]) -> dict[str, dict[str, NDArray[np.float64]]]:
+                faces: dict[str, NDArray[np.int64]], *, root_spring: float | None = None
+                ) -> dict[str, dict[str, NDArray[np.float64]]]:
     """Solve the load cases and return nodal displacement, strain and stress.
 
     Parameters
@@ -335,6 +340,10 @@ def solve_cases(points: NDArray[np.float64], tet10: NDArray[np.int64],
         Connectivity in VTK node order.
     faces : dict of str to ndarray, shape (k, 3)
         Vertex triplets of the root face (clamped) and the pin-hole bore (loaded).
+    root_spring : float, optional
+        Instead of clamping the root face, hold it by a distributed elastic support of this
+        stiffness per unit area in every direction (traction = -k u, a Winkler foundation), the
+        invented clamp stiffness of the demo's sweep. [N/mm^3]
 
     Returns
     -------
@@ -369,7 +378,12 @@ def solve_cases(points: NDArray[np.float64], tet10: NDArray[np.int64],
         return lam * div(u) * div(v) + 2.0 * mu * ddot(sym_grad(u), sym_grad(v))
 
     stiffness = asm(elasticity, basis)
-    clamped = basis.get_dofs(facets=sk.facets_of(faces["root"])).all()
+    if root_spring is None:
+        clamped = basis.get_dofs(facets=sk.facets_of(faces["root"])).all()
+    else:
+        root = FacetBasis(sk.mesh, element, facets=sk.facets_of(faces["root"]), intorder=4)
+        stiffness = stiffness + asm(BilinearForm(lambda u, v, w: root_spring * dot(u, v)), root)
+        clamped = np.zeros(0, dtype=np.int64)
     free = np.setdiff1d(np.arange(basis.N), clamped)
     kff = stiffness[free][:, free].tocsr()
     # A bandwidth-reducing order and no further pivoting order: fastest SuperLU set-up here.
@@ -927,6 +941,50 @@ def build(out_dir: Path = DEFAULT_OUT, geometry_path: Path | None = GEOMETRY_JSO
     return summary
 
 
+# The demo's sweep: the bracket held at its root by an elastic clamp instead of a rigid one, for
+# a few invented clamp stiffnesses (N/mm^3, per unit area of the root face), log-spaced.
+CLAMP_STIFFNESS = (300.0, 1000.0, 3000.0, 10000.0, 30000.0)
+CLAMP_FILE = "bracket_clamp_variants.h5"
+
+
+def build_clamp_variants(out_dir: Path = DEFAULT_OUT) -> dict[str, object]:
+    """Solve the clamp-stiffness variants on the shipped mesh and write ``CLAMP_FILE``.
+
+    The file holds ``clamp_stiffness`` (V,) [N/mm^3] and the nodal strains ``E_pull``,
+    ``E_side`` (V, n, 6) [m/m, Voigt order and engineering shear as in bracket.vtu], float32,
+    compressed; the mesh is bracket.vtu's (the same gmsh run), checked point by point.
+
+    Raises
+    ------
+    RuntimeError
+        The mesh made now differs from bracket.vtu's (another gmsh version): rebuild both.
+    """
+    import h5py
+    import meshio
+
+    start = time.perf_counter()
+    points, tet10, faces = mesh_bracket()
+    shipped = meshio.read(Path(out_dir) / "bracket.vtu")
+    if shipped.points.shape != points.shape or not np.array_equal(shipped.points, points):
+        raise RuntimeError("the mesh differs from bracket.vtu's; rebuild bracket.vtu first")
+    strains = {case: [] for case in CASES}
+    for k in CLAMP_STIFFNESS:
+        results = solve_cases(points, tet10, faces, root_spring=k)
+        for case in CASES:
+            strains[case].append(results[case]["E"])
+    path = Path(out_dir) / CLAMP_FILE
+    with h5py.File(path, "w") as f:
+        f.attrs["note"] = ("invented demo data: the bracket of bracket.vtu with its root held by "
+                           "an elastic clamp of stiffness clamp_stiffness (N/mm^3) per unit area "
+                           "instead of a rigid one; strains at bracket.vtu's nodes")
+        f.create_dataset("clamp_stiffness", data=np.array(CLAMP_STIFFNESS))
+        for case in CASES:
+            f.create_dataset(f"E_{case}", data=np.array(strains[case], dtype=np.float32),
+                             compression="gzip", compression_opts=9, shuffle=True)
+    return {"variants": len(CLAMP_STIFFNESS), "bytes": path.stat().st_size,
+            "seconds": time.perf_counter() - start}
+
+
 def compare_builds(reference_dir: Path, new_dir: Path, *, same_mesher: bool) -> list[str]:
     """Compare the bracket files of two builds (``bracket.vtu`` and ``bracket_coarse.vtu``)."""
     problems = []
@@ -985,7 +1043,14 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--out", type=Path, default=DEFAULT_OUT, help="output folder")
     parser.add_argument("--check", action="store_true",
                         help="rebuild into a temporary folder and compare with --out")
+    parser.add_argument("--clamp-variants", action="store_true",
+                        help=f"solve the clamp-stiffness variants only, into {CLAMP_FILE}")
     args = parser.parse_args(argv)
+    if args.clamp_variants:
+        done = build_clamp_variants(args.out)
+        print(f"{done['variants']} clamp variants, {done['bytes'] / 1e6:.2f} MB, "
+              f"{done['seconds']:.1f} s")
+        return 0
     if args.check:
         import gmsh
 

@@ -1,7 +1,7 @@
 """Command line: argument parsing, dispatch to the command modules, warnings and exit codes.
 
 Each command is a module of this folder with a ``run(args)`` handler (``check``, ``predict``,
-``run``, ``compare``, ``demo``). The handler's module is loaded by name after the arguments are
+``run``, ``compare``, ``demo``, ``sweep``). The handler's module is loaded by name after the arguments are
 parsed, so ``correlate --help`` and a usage error load no numerical library.
 
 Exit codes: 0 done; 2 a problem with the user's input (one line per problem); 3 a gate failed;
@@ -57,6 +57,17 @@ def _tolerance(text: str) -> float:
     return value
 
 
+def _count(text: str) -> int:
+    """A count of 1 or more (worker processes)."""
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"'{text}' is not a whole number") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"{text} must be 1 or more")
+    return value
+
+
 def _parser() -> argparse.ArgumentParser:
     p = _Parser(
         prog="correlate",
@@ -77,6 +88,9 @@ def _parser() -> argparse.ArgumentParser:
     pr.add_argument("study", type=Path)
     pr.add_argument("--out", required=True, help="output folder")
     pr.add_argument("--force", action="store_true", help="replace an existing output folder")
+    pr.add_argument("--table-format", choices=("csv", "parquet"), default="csv",
+                    help="model readings as CSV (default) or as typed Parquet "
+                         "(model_readings.parquet, same columns; for long series)")
 
     r = sub.add_parser("run", parents=[after], help="correlate the test readings with the model")
     r.add_argument("study", type=Path)
@@ -100,6 +114,17 @@ def _parser() -> argparse.ArgumentParser:
                     help="worse if |slope_origin - 1| grows by more than this (default 0.01)")
     cm.add_argument("--rms-tol", type=_tolerance, default=0.05,
                     help="worse if the RMS difference grows by more than this fraction (0.05)")
+    sw = sub.add_parser("sweep", parents=[after],
+                        help="correlate many model variants on Dask, rank them, identify "
+                             "parameters")
+    sw.add_argument("sweep", type=Path, help="sweep file (TOML): base study, variants table")
+    sw.add_argument("--out", required=True, help="output folder (kept between runs: the cache)")
+    sw.add_argument("--force", action="store_true", help="discard the cache and start afresh")
+    where = sw.add_mutually_exclusive_group()
+    where.add_argument("--workers", type=_count, default=None,
+                       help="worker processes of the local cluster (default: the cores)")
+    where.add_argument("--scheduler", default=None,
+                       help="address of an existing Dask scheduler, tcp://host:port")
     return p
 
 

@@ -16,4 +16,6 @@ def study_inputs(study: Study) -> list[Path]:
         files += [i.variant for i in study.uncertainty.inputs]
     if study.numerical is not None:
         files += [m.file for m in study.numerical.meshes]
+    if study.fullfield is not None:
+        files += study.fullfield.inputs
     return [Path(f) for f in files if f is not None]

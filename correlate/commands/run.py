@@ -14,13 +14,19 @@ from correlate.core import progress
 from correlate.core.folders import check_target, output_path, staged_folder
 from correlate.core.names import CAUTION
 from correlate.core.tables import write_csv, write_json
+from correlate.fullfield.comparison import FullFieldResult, correlate_fullfield
+from correlate.fullfield.outputs import write_fullfield
 from correlate.model_readings.model import prepare
 from correlate.readers.study import read_study
 from correlate.report import write_report
 
 
-def write_outputs(corr: Correlation, out: Path, *, force: bool, report: bool = True) -> None:
-    """Write every output into a staged folder and move it into place."""
+def write_outputs(corr: Correlation, out: Path, *, force: bool, report: bool = True,
+                  fullfield: FullFieldResult | None = None) -> None:
+    """Write every output into a staged folder and move it into place (with a ``[fullfield]``
+    table, its outputs too: the comparison is made here when not given)."""
+    if fullfield is None and corr.study.fullfield is not None:
+        fullfield = correlate_fullfield(corr)
     with staged_folder(out, force=force, inputs=study_inputs(corr.study)) as tmp:
         write_csv(corr.gauge_table, tmp / "gauges.csv")
         write_csv(corr.rosettes, tmp / "rosettes.csv")
@@ -31,10 +37,12 @@ def write_outputs(corr: Correlation, out: Path, *, force: bool, report: bool = T
         if corr.validation is not None:
             write_csv(corr.validation.table, tmp / "uncertainty.csv")
         write_json(corr.summary, tmp / "summary.json")
+        if fullfield is not None:
+            write_fullfield(fullfield, tmp, unit=corr.study.length_unit)
         progress.pause("write")
         if report:
             with progress.step("writing the report (3D views and figures)"):
-                write_report(corr, tmp)
+                write_report(corr, tmp, fullfield)
 
 
 def verdict_line(verdict: dict[str, Any]) -> str:
@@ -104,7 +112,12 @@ def run(args: argparse.Namespace) -> int:
     model = prepare(study)
     with progress.step("correlating (statistics, health, rosettes)"):
         corr = correlate_study(study, model)
-    write_outputs(corr, out, force=args.force, report=not args.no_report)
-    print_summary(corr)
+    fullfield = None
+    if study.fullfield is not None:
+        with progress.step("comparing the DIC frames (registration, levelling, statistics)"):
+            fullfield = correlate_fullfield(corr)
+    write_outputs(corr, out, force=args.force, report=not args.no_report, fullfield=fullfield)
+    with progress.step("printing the summary"):
+        print_summary(corr)
     print(f"outputs in {out}" + ("" if args.no_report else f"; report: {out / 'report.html'}"))
     return 0

@@ -22,6 +22,7 @@ from contextlib import contextmanager
 from pathlib import Path
 
 from correlate._version import __version__
+from correlate.core import progress
 from correlate.core.errors import OutputError
 
 MARKER = ".correlate-output"  # in every output folder: --force may replace a folder holding it
@@ -168,13 +169,14 @@ def staged_folder(out: Path, *, force: bool, inputs: Iterable[Path] = (),
             except BaseException:
                 shutil.rmtree(tmp, ignore_errors=True)
                 raise
-            old = None
-            if out.exists():
-                old = out.parent / f".{out.name[:NAME_ROOM]}.old-{os.getpid()}"
-                os.replace(out, old)
-            os.replace(tmp, out)
-            if old is not None:
-                shutil.rmtree(old, ignore_errors=True)
+            with progress.step("moving the outputs into place"):
+                old = None
+                if out.exists():
+                    old = out.parent / f".{out.name[:NAME_ROOM]}.old-{os.getpid()}"
+                    os.replace(out, old)
+                os.replace(tmp, out)
+                if old is not None:
+                    shutil.rmtree(old, ignore_errors=True)
     except OSError as exc:
         if isinstance(exc, OutputError):
             raise

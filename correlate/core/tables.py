@@ -14,15 +14,15 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from correlate.core import progress
-
-FLOAT_DIGITS = 6          # significant decimals for ratios and other dimensionless numbers
-UE_DECIMALS = 3           # microstrain to 0.001
-LENGTH_DECIMALS = 6       # lengths (snap distances, positions) to 1e-6 of the model's unit
-LENGTH_COLUMNS = {"snap_distance", "x", "y", "z"}
-
-
-NOISE = 1e-12   # a value this small beside its column's largest is round-off: written as 0
+from correlate.core import progress, table_text
+from correlate.core.precision import (
+    CSV_FLOAT_FORMAT,
+    FLOAT_DIGITS,
+    LENGTH_COLUMNS,
+    LENGTH_DECIMALS,
+    NOISE,
+    UE_DECIMALS,
+)
 
 
 def round_table(df: pd.DataFrame) -> pd.DataFrame:
@@ -95,10 +95,34 @@ def safe_text(df: pd.DataFrame) -> pd.DataFrame:
 
 
 def write_csv(df: pd.DataFrame, path: Path) -> None:
-    """Write a table as CSV: fixed precision, formula-like text cells escaped (:func:`safe_cell`)."""
+    """Write a table as CSV: fixed precision, formula-like text cells escaped (:func:`safe_cell`).
+
+    The text is made column by column in bulk (:mod:`correlate.core.table_text`), byte for byte
+    what :func:`pandas_csv` writes; a table with a column kind the bulk writer does not handle
+    goes to :func:`pandas_csv` itself.
+    """
     with progress.step(f"writing {Path(path).name}"):
-        safe_text(round_table(df)).to_csv(path, index=False, lineterminator="\n",
-                                          float_format="%.10g")
+        safe = safe_text(df)
+        if not table_text.write_csv(safe, Path(path)):
+            pandas_csv(safe, path)
+
+
+def pandas_csv(df: pd.DataFrame, path: Path | None = None) -> str | None:
+    """The table rounded by :func:`round_table` and written by pandas (the reference writer).
+
+    One Python call per value: slow on long tables, kept for the column kinds the bulk writer
+    leaves alone and as the reference its tests compare against. Text cells are written as they
+    are (apply :func:`safe_text` first). Returns the text when no path is given.
+    """
+    return round_table(df).to_csv(path, index=False, lineterminator="\n",
+                                  float_format=CSV_FLOAT_FORMAT)
+
+
+def write_parquet(df: pd.DataFrame, path: Path) -> None:
+    """Write a table as Parquet: the CSV's columns and rounding, typed; text cells as they are
+    (a Parquet file is not opened by a spreadsheet, so no formula escape)."""
+    with progress.step(f"writing {Path(path).name}"):
+        table_text.write_parquet(df, Path(path))
 
 
 def clean_json(obj: Any, key: str = "") -> Any:

@@ -44,6 +44,10 @@ class Locator:
         self.mesh = mesh
         self._use(surface)
 
+    def __reduce__(self) -> tuple[type, tuple[Mesh, Surface]]:
+        # VTK's locator cannot be serialised: a copy (a Dask worker's) rebuilds it
+        return (Locator, (self.mesh, self.surface))
+
     def _use(self, surface: Surface) -> None:
         # vtkmodules directly: `import vtk` or pyvista would add ~2 s of imports
         from vtkmodules.util.numpy_support import numpy_to_vtk, numpy_to_vtkIdTypeArray

@@ -108,7 +108,8 @@ def prepare(study: Study) -> Model:
     settle_family(study, sources, gauges)
     model = locate(study, sources, gauges)
     model.bridges = bridges
-    model.conventions = convention_warnings(model)
+    with progress.step("checking the model's conventions"):
+        model.conventions = convention_warnings(model)
     for line in model.conventions:
         warnings.warn(line, CorrelateWarning, stacklevel=2)
     warn_unused_temperature(study.cases, sources, study.model_file)

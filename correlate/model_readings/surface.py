@@ -85,27 +85,31 @@ def _cell_centres(mesh: Mesh, cells: NDArray[np.int64]) -> NDArray[np.float64]:
 
 MAX_VOXELS = 2**25   # occupancy grid for the cells near the gauges (bytes: one per voxel)
 PARTIAL_SHARE = 0.5  # a partial surface over more than this share of the cells: take them all
+CELL_BLOCK = 2**18   # cells (or nodes) per block of the passes over the whole mesh
 
 
 def cell_size(mesh: Mesh) -> float:
     """An upper bound of every cell's extent (diagonal of its corners' bounding box, padded).
 
     Float32 keeps the gathers cheap; the 1 % pad covers its rounding and the bulge of curved
-    quadratic edges beyond their corners is covered by the factor 1.5 the callers add.
+    quadratic edges beyond their corners is covered by the factor 1.5 the callers add. The cells
+    are taken in blocks of CELL_BLOCK: a few MB of temporaries at a time, reused, instead of
+    copies of the whole connectivity (a fresh allocation the size of the mesh costs more than the
+    arithmetic on some machines).
     """
-    pts = mesh.points.astype(np.float32)
+    axes = [np.ascontiguousarray(mesh.points[:, axis], dtype=np.float32) for axis in range(3)]
     ext = np.zeros(3)
     for ctype, conn in mesh.blocks:
-        corners = np.ascontiguousarray(conn[:, :elements.ELEMENTS[ctype].n_corners].T)
-        for axis in range(3):
-            x = np.ascontiguousarray(pts[:, axis])
-            lo = x[corners[0]]
-            hi = lo.copy()
-            for k in range(1, len(corners)):
-                xk = x[corners[k]]
-                np.minimum(lo, xk, out=lo)
-                np.maximum(hi, xk, out=hi)
-            if len(lo):
+        nc = elements.ELEMENTS[ctype].n_corners
+        for start in range(0, len(conn), CELL_BLOCK):
+            corners = np.ascontiguousarray(conn[start:start + CELL_BLOCK, :nc].T)
+            for axis, x in enumerate(axes):
+                lo = x[corners[0]]
+                hi = lo.copy()
+                for k in range(1, nc):
+                    xk = x[corners[k]]
+                    np.minimum(lo, xk, out=lo)
+                    np.maximum(hi, xk, out=hi)
                 ext[axis] = max(ext[axis], float((hi - lo).max()))
     return 1.01 * float(np.linalg.norm(ext))
 
@@ -131,8 +135,11 @@ def nodes_near(mesh: Mesh, seeds: NDArray[np.float64], radius: float) -> NDArray
             continue
         ijk = np.clip(seed_ijk + shift, 0, dims - 1)
         occupied[ijk[:, 0], ijk[:, 1], ijk[:, 2]] = True
-    ijk = ((pts - lo) / voxel).astype(np.int64)
-    return occupied[ijk[:, 0], ijk[:, 1], ijk[:, 2]]
+    out = np.empty(len(pts), dtype=bool)
+    for start in range(0, len(pts), CELL_BLOCK):   # in blocks: no mesh-sized temporaries
+        ijk = ((pts[start:start + CELL_BLOCK] - lo) / voxel).astype(np.int64)
+        out[start:start + CELL_BLOCK] = occupied[ijk[:, 0], ijk[:, 1], ijk[:, 2]]
+    return out
 
 
 def cells_with(mesh: Mesh, flagged: NDArray[np.bool_]) -> NDArray[np.int64]:

@@ -30,6 +30,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from correlate.core.errors import CorrelateWarning, MissingDependencyError, ModelError
+from correlate.readers import series
 
 SUPPORTED = ("triangle", "triangle6", "quad", "quad8", "quad9", "tetra", "tetra10", "hexahedron",
              "hexahedron20", "hexahedron27", "wedge")
@@ -136,7 +137,8 @@ class ModelSource:
     times: tuple[float, ...] = ()
     _reader: Any = None
     _cache: dict[int, tuple[dict, dict]] = field(default_factory=dict)
-    _h5: dict[Path, Any] = field(default_factory=dict)
+    _h5: dict[Any, Any] = field(default_factory=dict)   # HDF5 files and datasets (readers.series)
+    _blocks: dict[Any, Any] = field(default_factory=dict)   # steps read ahead (readers.series)
     _names: dict[str, tuple[str, ...]] | None = None
 
     def arrays(self, time_index: int | None) -> tuple[dict[str, Any], dict[str, Any]]:
@@ -153,8 +155,7 @@ class ModelSource:
             raise ModelError(f"{self.path.name}: time_index = {time_index} is out of range; the file "
                              f"holds steps 0 to {len(self.times) - 1}")
         if time_index not in self._cache:
-            _, pd_, cd_ = self._reader.read_data(time_index)
-            self._cache = {time_index: (dict(pd_), dict(cd_))}
+            self._cache = {time_index: series.read_step(self._reader, time_index, self._h5)}
         return self._cache[time_index]
 
 
@@ -162,57 +163,16 @@ def _hdf5_rows(source: ModelSource, name: str, time_index: int,
                rows: dict[str, NDArray[np.int64]]) -> tuple[str, NDArray[np.float64]] | None:
     """Read only the given rows of a time-series array from its HDF5 file (None: not possible).
 
-    The XDMF light data names the dataset; h5py reads the sorted rows, so the cost of a step is
-    proportional to the rows the gauges touch, not to the mesh.
+    The XDMF light data names the dataset (one per step, or a step of one dataset of all steps:
+    :mod:`correlate.readers.series`); the cost of a step is proportional to the rows the gauges
+    touch, not to the mesh.
     """
-    reader = source._reader
-    for c in list(reader.collection[time_index]):
-        if c.tag != "Attribute" or c.get("Name") != name or len(list(c)) != 1:
-            continue
-        item = next(iter(c))
-        if item.attrib.get("Format") != "HDF":
-            return None
-        filename, h5path = item.text.strip().split(":")
-        path = (Path(reader.filename).resolve().parent / filename)
-        files = source._h5
-        if path not in files:
-            import h5py
-
-            files[path] = h5py.File(path, "r")
-        dset = files[path][h5path]
-        location = "point" if c.get("Center") == "Node" else "cell"
-        if location == "cell" and len(source.mesh.block_ids) != 1:
-            return None
-        want = rows[location]
-        data = _read_rows(dset, want) if len(want) else np.zeros((0,) + dset.shape[1:])
-        return location, np.asarray(data, dtype=float).reshape(len(want), -1)
-    return None
-
-
-GAP_BYTES = 1 << 18     # rows closer than this are read through, not skipped (one slice)
-SLICE_BYTES = 1 << 25   # no single slice larger than this (memory)
-
-
-def _read_rows(dset: Any, want: NDArray[np.int64]) -> NDArray:
-    """Rows ``want`` (sorted, unique) of an HDF5 dataset, read as a few contiguous slices.
-
-    h5py's own list indexing selects row by row (about 1 us per row, measured); reading through
-    gaps of less than GAP_BYTES costs less than a new slice, so neighbouring rows are read as one
-    slice and picked in memory. No slice exceeds SLICE_BYTES.
-    """
-    row_bytes = dset.dtype.itemsize * int(np.prod(dset.shape[1:], dtype=np.int64))
-    gap = max(1, GAP_BYTES // row_bytes)
-    longest = max(1, SLICE_BYTES // row_bytes)
-    out = np.empty((len(want),) + dset.shape[1:], dtype=dset.dtype)
-    breaks = np.flatnonzero(np.diff(want) > gap) + 1
-    for start, stop in zip(np.r_[0, breaks], np.r_[breaks, len(want)], strict=True):
-        i = int(start)
-        while i < stop:
-            j = int(min(max(np.searchsorted(want, want[i] + longest), i + 1), stop))
-            lo, hi = int(want[i]), int(want[j - 1]) + 1
-            out[i:j] = dset[lo:hi][want[i:j] - lo]
-            i = j
-    return out
+    slab = series.locate(source._reader, time_index, name, source._h5)
+    if slab is None or (slab.location == "cell" and len(source.mesh.block_ids) != 1):
+        return None
+    want = rows[slab.location]
+    data = series.read_rows(slab, want, source._blocks)
+    return slab.location, np.asarray(data, dtype=float).reshape(len(want), -1)
 
 
 def _mesh_from(points: NDArray, cells: list[tuple[str, NDArray]], source: str) -> Mesh:

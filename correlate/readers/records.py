@@ -9,6 +9,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+from correlate.readers.fullfield_study import FullFieldSettings
+
 
 @dataclass(frozen=True)
 class CaseThermal:
@@ -196,6 +198,7 @@ class Study:
     uncertainty: Uncertainty | None = None   # None: no [uncertainty] table, no budget
     numerical: Numerical | None = None       # None: no [numerical] table, u_num = 0
     bridge_tables: dict[str, tuple[str, float, float]] = field(default_factory=dict)  # [[bridge]]
+    fullfield: FullFieldSettings | None = None   # None: no [fullfield] table, no DIC outputs
 
     @property
     def material(self) -> Material | None:

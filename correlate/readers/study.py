@@ -20,6 +20,7 @@ from correlate.readers._values import path as _path
 from correlate.readers._values import unknown_keys as _unknown_keys
 from correlate.readers.bridge_map import BRIDGE_KEYS, parse_bridge_tables
 from correlate.readers.chain_study import LOT_KEYS, THERMAL_KEYS, parse_case_thermal, parse_chain
+from correlate.readers.fullfield_study import FULLFIELD_KEYS, fullfield_table
 from correlate.readers.records import Case, Criteria, Load, Material, Override, Study
 from correlate.readers.uncertainty_tables import (
     NUMERICAL_KEYS,
@@ -33,7 +34,7 @@ from correlate.readers.uncertainty_tables import (
 SCHEMA: dict[str, set[str]] = {
     "": {"title", "model", "case", "material", "gauges", "test", "readings", "load", "criteria",
          "override", "health", "report", "document", "gauge_lot", "thermal", "uncertainty",
-         "numerical", "bridge"},
+         "numerical", "bridge", "fullfield"},
     "model": {"file", "length_unit", "stress_unit", "plane", "revision", "description", "solver",
               "element", "mesh_size", "materials", "thickness", "kind"},
     "case": {"name", "strain", "displacement", "stress", "components", "shear", "time_index", "file",
@@ -55,6 +56,7 @@ SCHEMA: dict[str, set[str]] = {
     "uncertainty": UNCERTAINTY_KEYS,
     "numerical": NUMERICAL_KEYS,
     "bridge": BRIDGE_KEYS,
+    "fullfield": FULLFIELD_KEYS,
 }
 FREE_TEXT = {"test"}
 ABSOLUTE_UE_MAX = 10_000.0   # microstrain: a pass floor above 1 % strain is no floor
@@ -438,6 +440,7 @@ def parse_study(text: str, path: Path) -> Study:
     uncertainty = uncertainty_table(raw, base, name, problems, band=gauges["band"])
     variant_problems(uncertainty, cases, name, problems)
     numerical = numerical_table(raw, base, name, problems, cases)
+    fullfield = fullfield_table(raw, base, name, problems)
     if problems:
         raise StudyError(*problems)
     info = {k: v for k, v in model.items() if k not in ("file", "length_unit", "stress_unit", "plane")}
@@ -449,7 +452,7 @@ def parse_study(text: str, path: Path) -> Study:
         loads=tuple(loads), criteria=criteria, criteria_given="criteria" in raw,
         overrides=tuple(overrides), health=dict(health), report=dict(_table(raw, "report")),
         raw=raw, chain=chain, uncertainty=uncertainty, numerical=numerical,
-        bridge_tables=bridge_tables)
+        bridge_tables=bridge_tables, fullfield=fullfield)
 
 
 def read_study(path: str | Path) -> Study:

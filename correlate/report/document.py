@@ -28,8 +28,10 @@ from correlate.comparison.correlation import Correlation
 from correlate.comparison.rosettes import rosette_angles
 from correlate.comparison.verdict import CRITERIA_SOURCE
 from correlate.core.names import CAUTION
+from correlate.fullfield.comparison import FullFieldResult
 from correlate.measurement.health import load_direction
 from correlate.report.chain_section import chain_notes, chain_rows
+from correlate.report.fullfield_section import fullfield_context
 from correlate.report.scene import Rendering, render_views
 from correlate.report.validation import validation_context
 from correlate.report.vtk_files import write_vtk
@@ -454,7 +456,8 @@ def _context(corr: Correlation, ref: int) -> dict[str, Any]:
     }
 
 
-def write_report(corr: Correlation, folder: Path) -> None:
+def write_report(corr: Correlation, folder: Path, fullfield: FullFieldResult | None = None
+                 ) -> None:
     """Write report.html, its PNG pictures, gauges.vtp and surface.vtp into ``folder``.
 
     Parameters
@@ -463,6 +466,8 @@ def write_report(corr: Correlation, folder: Path) -> None:
         Everything the run computed (:func:`correlate.comparison.correlation.correlate_study`).
     folder : Path
         An existing folder (the run's staging folder).
+    fullfield : FullFieldResult, optional
+        The full-field comparison, when the study has ``[fullfield]`` (its section 12).
     """
     from jinja2 import Environment, FileSystemLoader, StrictUndefined
 
@@ -478,7 +483,8 @@ def write_report(corr: Correlation, folder: Path) -> None:
                if rendering else [],
                "not_visible": list(rendering.not_visible) if rendering else [],
                "render_note": render_note,
-               "validation": validation_context(corr, folder, _step_label(corr, ref), data_uri)}
+               "validation": validation_context(corr, folder, _step_label(corr, ref), data_uri),
+               "fullfield": fullfield_context(corr, fullfield, folder, data_uri)}
     env = Environment(loader=FileSystemLoader(str(HERE)), autoescape=True,
                       undefined=StrictUndefined, trim_blocks=True, lstrip_blocks=True)
     html = env.get_template("template.html").render(**context)

@@ -45,7 +45,8 @@ import pytest
 from correlate.commands.cli import main
 from correlate.commands.demo import demo_folder
 
-INPUTS = ("study.toml", "gauges.csv", "readings.csv", "bracket.vtu", "bracket_coarse.vtu")
+INPUTS = ("study.toml", "gauges.csv", "readings.csv", "bracket.vtu", "bracket_coarse.vtu",
+          "dic_frames.parquet", "dic_landmarks.csv")
 # one unit of the written precision: README "microstrain to 0.001"
 UE_ATOL = 1e-3
 

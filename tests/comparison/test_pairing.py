@@ -98,7 +98,7 @@ def test_touched_rows_read_in_slices_equal_h5pys_own_selection(tmp_path, monkeyp
     # the same bytes are read.
     import h5py
 
-    from correlate.readers import model as model_io
+    from correlate.readers import series
 
     rng = np.random.default_rng(4)
     data = rng.normal(size=(5000, 6))
@@ -108,6 +108,6 @@ def test_touched_rows_read_in_slices_equal_h5pys_own_selection(tmp_path, monkeyp
     with h5py.File(tmp_path / "d.h5", "r") as f:
         dset = f["E"]
         for gap, largest in ((1 << 18, 1 << 25), (48 * 3, 48 * 50), (1, 48)):
-            monkeypatch.setattr(model_io, "GAP_BYTES", gap)
-            monkeypatch.setattr(model_io, "SLICE_BYTES", largest)
-            np.testing.assert_array_equal(model_io._read_rows(dset, want), dset[want])
+            monkeypatch.setattr(series, "GAP_BYTES", gap)
+            monkeypatch.setattr(series, "SLICE_BYTES", largest)
+            np.testing.assert_array_equal(series.read_rows_of(dset, want), dset[want])

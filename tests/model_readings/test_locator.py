@@ -112,6 +112,27 @@ def test_cell_size_bounds_the_distance_between_any_two_corners():
         assert longest <= cell_size(mesh) <= 1.01 * np.sqrt(3) * longest * 1.0001, ctype
 
 
+def test_passes_in_blocks_give_what_one_pass_gives(monkeypatch):
+    # The whole-mesh passes run in blocks of CELL_BLOCK cells or nodes. With blocks of 7 (a mesh
+    # of 300 cells and 2,000-odd nodes: many blocks, a short last one) the cell-size bound and
+    # the flagged nodes must equal those of one block (exact: max, min and flags do not round),
+    # and the references of the two tests above still hold.
+    from scipy.spatial import cKDTree
+
+    from correlate.model_readings import surface
+
+    mesh = solid_mesh("hexahedron20", n=(10, 6, 5), size=(10.0, 6.0, 5.0), curve=0.1)
+    seeds = np.array([[1.0, 1.0, 5.0], [7.5, 3.3, 2.0]])
+    monkeypatch.setattr(surface, "CELL_BLOCK", 10**9)
+    whole = cell_size(mesh), nodes_near(mesh, seeds, 1.3)
+    monkeypatch.setattr(surface, "CELL_BLOCK", 7)
+    blocked = cell_size(mesh), nodes_near(mesh, seeds, 1.3)
+    assert blocked[0] == whole[0]
+    np.testing.assert_array_equal(blocked[1], whole[1])
+    want = sorted(set().union(*cKDTree(mesh.points).query_ball_point(seeds, 1.3)))
+    assert blocked[1][want].all()
+
+
 def test_partial_shell_surface_gives_the_closest_points_of_a_flat_panel():
     # Reference: the closest point of a flat rectangle [0, 40] x [0, 30] at z = 2 is the point
     # clamped into it (closed form). Shell cells are their own faces; near two gauges only a few

@@ -1,0 +1,195 @@
+"""Benchmark of `correlate sweep`: variants on a shared mesh, one worker against two.
+
+Generates its own cases in a scratch folder (deleted afterwards): a linear tetrahedral block of
+300,000 x scale cells with one strain array, 50 surface gauges and 11 steps of readings, and
+``--variants`` copies of it whose strain is scaled by a parameter k (the same mesh). Measured in
+the same run, side by side:
+
+1. floor      - meshio reading one variant file (geometry and its array), the read every task
+                cannot avoid; the median over the variants' files;
+2. sweep      - `correlate sweep` in a fresh process with 1 and with 2 local workers (cluster
+                start-up included; the per-variant time is the sweep's "correlating the variants"
+                stage divided by the variants);
+3. baseline   - the straightforward way: `correlate run --no-report` on each variant, one after
+                another, each in a fresh process;
+4. memory     - the peak resident memory of one worker process (read from /proc while the
+                2-worker sweep runs: the largest of its worker processes).
+
+Run:  python benchmarks/sweep.py --scale 0.1 --variants 16   (about a minute)
+The machine is shared with other developers: figures vary from run to run with their load.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import shutil
+import statistics
+import subprocess
+import sys
+import tempfile
+import threading
+import time
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from run import start_up, strain_field, tet_block, top_gauges, write_study
+
+CORRELATE = [sys.executable, "-m", "correlate"]
+
+
+def build(folder: Path, cells: int, n_variants: int, rng: np.random.Generator) -> Path:
+    """The base model, its study and readings, the variants and the sweep file."""
+    import meshio
+
+    from correlate.api import predict_readings
+
+    mesh = tet_block(cells, quadratic=False)
+    cells_ = [(t, c) for t, c in mesh.blocks]
+    e = strain_field(mesh.points)
+    base = meshio.Mesh(mesh.points, cells_, point_data={"E": e})
+    meshio.write(folder / "base.vtu", base)
+    gauges = top_gauges(50, rng)
+    gauges.to_csv(folder / "gauges.csv", index=False)
+    table = predict_readings(base, gauges, {"c": {"strain": "E", "components": [
+        "xx", "yy", "zz", "xy", "yz", "xz"]}}, snap_tol=1.0)
+    pred = table.set_index("gauge")["predicted_ue"]
+    load = np.linspace(0.0, 10.0, 11)
+    data = np.outer(load / 10.0, pred.to_numpy()) * 1.02 + rng.normal(0, 2.0, (11, len(pred)))
+    readings = pd.DataFrame(np.round(data, 2), columns=pred.index)
+    readings.insert(0, "F_kN", load)
+    readings.insert(0, "step", np.arange(11))
+    readings.to_csv(folder / "readings.csv", index=False)
+    write_study(folder, "study.toml", "base.vtu", band=False, readings=True)
+    rows = ["name,file,k"]
+    # k within 5 % of the readings (the model x 1.02): every gauge passes, no failure diagnosis
+    for i, k in enumerate(np.linspace(0.97, 1.07, n_variants)):
+        meshio.write(folder / f"v{i:03d}.vtu",
+                     meshio.Mesh(mesh.points, cells_, point_data={"E": e * k}))
+        rows.append(f"v{i:03d},v{i:03d}.vtu,{k:.6g}")
+    (folder / "variants.csv").write_text("\n".join(rows) + "\n")
+    sweep = folder / "sweep.toml"
+    sweep.write_text('study = "study.toml"\ntable = "variants.csv"\nparameters = ["k"]\n'
+                     '[identify]\nparameters = ["k"]\nresponse = "linear"\n')
+    return sweep
+
+
+def floor(folder: Path, n: int) -> float:
+    import meshio
+
+    times = []
+    for i in range(n):
+        t = time.perf_counter()
+        meshio.read(folder / f"v{i:03d}.vtu")
+        times.append(time.perf_counter() - t)
+    return statistics.median(times)
+
+
+def _children_rss(pid: int) -> dict[int, float]:
+    """Peak resident memory [MB] of every descendant process of ``pid`` (from /proc)."""
+    parent, peak = {}, {}
+    for entry in Path("/proc").iterdir():
+        if not entry.name.isdigit():
+            continue
+        try:
+            parent[int(entry.name)] = int((entry / "stat").read_text().rsplit(")", 1)[1].split()[1])
+            hwm = [ln for ln in (entry / "status").read_text().splitlines()
+                   if ln.startswith("VmHWM:")]
+        except (OSError, IndexError, ValueError):
+            continue
+        if hwm:
+            peak[int(entry.name)] = int(hwm[0].split()[1]) / 1024.0
+    out = {}
+    for p in peak:
+        q = parent.get(p)
+        while q is not None and q != pid:
+            q = parent.get(q)
+        if q == pid:
+            out[p] = peak[p]
+    return out
+
+
+def timed_sweep(sweep: Path, out: Path, workers: int) -> tuple[float, float, float]:
+    """Wall time, the 'correlating the variants' stage and the largest worker peak [MB]."""
+    cmd = CORRELATE + ["--quiet", "--timings", "sweep", str(sweep), "--out", str(out),
+                       "--workers", str(workers), "--force"]
+    t = time.perf_counter()
+    proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+    peaks: dict[int, float] = {}
+
+    def watch() -> None:
+        while proc.poll() is None:
+            for p, mb in _children_rss(proc.pid).items():
+                peaks[p] = max(peaks.get(p, 0.0), mb)
+            time.sleep(0.2)
+
+    watcher = threading.Thread(target=watch)
+    watcher.start()
+    _, err = proc.communicate()
+    watcher.join()
+    wall = time.perf_counter() - t
+    if proc.returncode != 0:
+        raise RuntimeError(f"sweep failed: {err[-2000:]}")
+    stage = next(float(line.split()[-1]) for line in err.splitlines()
+                 if line.strip().startswith("correlating the variants"))
+    return wall, stage, max(peaks.values(), default=float("nan"))
+
+
+def serial_runs(folder: Path, n: int) -> float:
+    text = (folder / "study.toml").read_text()
+    t = time.perf_counter()
+    for i in range(n):
+        one = folder / f"study_v{i:03d}.toml"
+        one.write_text(text.replace('file = "base.vtu"', f'file = "v{i:03d}.vtu"'))
+        subprocess.run(CORRELATE + ["--quiet", "run", str(one), "--out", str(folder / f"r{i}"),
+                                    "--no-report", "--force"], check=False,
+                       stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    return time.perf_counter() - t
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--scale", type=float, default=0.1, help="cells = 300,000 x scale")
+    parser.add_argument("--variants", type=int, default=16)
+    args = parser.parse_args()
+    rng = np.random.default_rng(16)
+    scratch = Path(tempfile.mkdtemp(prefix="correlate-sweep-bench-"))
+    try:
+        cells = int(300_000 * args.scale)
+        sweep = build(scratch, cells, args.variants, rng)
+        n = args.variants
+        size = (scratch / "v000.vtu").stat().st_size / 1e6
+        read = floor(scratch, n)
+        one = timed_sweep(sweep, scratch / "out1", 1)
+        two = timed_sweep(sweep, scratch / "out2", 2)
+        serial = serial_runs(scratch, n)
+        boot = start_up()
+        print(f"sweep benchmark: {cells} cells requested, {n} variants on one mesh, "
+              f"{size:.1f} MB per variant file; process start-up {boot:.2f} s")
+        print(f"machine: {os.cpu_count()} cores, shared with other developers (load average "
+              f"{os.getloadavg()[0]:.2f} at the end)")
+        print(f"{'what':58s} {'seconds':>9s}")
+        rows = [
+            ("floor: meshio read of one variant file (median)", read),
+            ("sweep, 1 worker: whole command", one[0]),
+            ("sweep, 1 worker: correlating the variants", one[1]),
+            ("sweep, 2 workers: whole command", two[0]),
+            ("sweep, 2 workers: correlating the variants", two[1]),
+            (f"baseline: {n} x correlate run --no-report, one after another", serial),
+        ]
+        for what, value in rows:
+            print(f"{what:58s} {value:9.2f}")
+        print(f"throughput 2 workers / 1 worker (correlating stage): {one[1] / two[1]:.2f} x")
+        print(f"cost per variant, 1 worker: {one[1] / n:.3f} s = {one[1] / n / read:.2f} x the "
+              "read of its file")
+        print(f"peak memory of one worker: {one[2]:.0f} MB (1 worker), {two[2]:.0f} MB (2 workers)")
+        print(f"sweep with 2 workers against the baseline: {serial / two[0]:.2f} x faster")
+    finally:
+        shutil.rmtree(scratch, ignore_errors=True)
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,269 @@
+"""The full-field comparison of a run: DIC frames against the model at the frames' steps.
+
+Stage: fullfield. In: a :class:`~correlate.comparison.correlation.Correlation` whose study has a
+``[fullfield]`` table. Out: a :class:`FullFieldResult`: the point x frame table
+(``fullfield.parquet``), the statistics per frame and component (``fullfield_stats.csv``), the
+registration and a short summary. Steps, each named: read the frames, register and locate the
+distinct points once (:mod:`correlate.fullfield.points`), express both sides in the tangent axes
+that follow the DIC's x axis, level the model field with the DIC's strain window
+(:mod:`correlate.fullfield.levelling`), and compare (:mod:`correlate.fullfield.statistics`).
+
+Conventions: strains are compared as small strain (Biot strain from the exported
+Green-Lagrange, :func:`~correlate.fullfield.strain.small_from_green_lagrange`), tensor shear,
+written in microstrain; the difference is measured - levelled model; the equivalent strain is the
+von Mises strain of a plane-stress surface with incompressible through-thickness strain (the DIC
+convention, common practice) on both sides.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from numpy.typing import NDArray
+
+from correlate.comparison.correlation import Correlation
+from correlate.comparison.criteria import allowed_difference
+from correlate.comparison.pairing import pair_series
+from correlate.core.errors import ReadingsFormatError
+from correlate.core.units import LENGTH_UNITS, MICROSTRAIN
+from correlate.fullfield.levelling import apply_weights, gaussian_weights, window_weights
+from correlate.fullfield.points import PointModel, Registration, locate_points, region_distance
+from correlate.fullfield.statistics import blocked_slope, field_metrics, hot_spot
+from correlate.fullfield.strain import (
+    equivalent_strain,
+    in_plane_principal,
+    small_from_green_lagrange,
+    tensor_in_axes,
+)
+from correlate.model_readings.evaluate import centre_strain
+from correlate.readers.dic_frames import DicFrames, read_frames, read_landmarks
+
+COMPONENTS = ("exx", "eyy", "exy", "e1", "e2", "eeq")
+GAUSSIAN_BLOCK = 6.0   # blocks of 6 sigma: the full width of a Gaussian strain window
+UNFILTERED_BLOCK = 5.0  # unfiltered: blocks of 5 point spacings (errors still correlate, subsets)
+
+
+@dataclass(frozen=True)
+class FullFieldResult:
+    """What the full-field comparison computed; the outputs and the report read it."""
+
+    points: pd.DataFrame         # one row per kept point: point, x, y, z (model axes)
+    table: pd.DataFrame          # point x frame (fullfield.parquet)
+    stats: pd.DataFrame          # per frame and component (fullfield_stats.csv)
+    registration: Registration
+    summary: dict[str, Any]
+    reference_frame: str
+
+
+def _components(exx: NDArray, eyy: NDArray, exy: NDArray) -> dict[str, NDArray]:
+    e1, e2, _ = in_plane_principal(exx, eyy, exy)
+    return {"exx": exx, "eyy": eyy, "exy": exy, "e1": e1, "e2": e2,
+            "eeq": equivalent_strain(exx, eyy, exy)}
+
+
+def _measured(frames: DicFrames, rows: NDArray, R: NDArray, pm_rows: NDArray, pm: PointModel,
+              measure: str, axes: str) -> tuple[NDArray, NDArray, NDArray]:
+    """The exported strains of ``rows`` as small strain in the points' tangent axes."""
+    t = frames.table
+    E = np.zeros((len(rows), 2, 2))
+    E[:, 0, 0] = t["exx"].to_numpy()[rows]
+    E[:, 1, 1] = t["eyy"].to_numpy()[rows]
+    E[:, 0, 1] = E[:, 1, 0] = t["exy"].to_numpy()[rows]
+    ok = np.isfinite(E).all(axis=(1, 2))
+    if measure == "green-lagrange" and ok.any():
+        E[ok] = small_from_green_lagrange(E[ok])
+    E[~ok] = np.nan
+    if axes == "tangent":
+        return E[:, 0, 0], E[:, 1, 1], E[:, 0, 1]
+    T = np.zeros((len(rows), 3, 3))
+    T[:, :2, :2] = E
+    T = np.einsum("ij,njk,lk->nil", R, T, R)   # camera axes -> model axes
+    return tensor_in_axes(T, pm.ex[pm_rows], pm.ey[pm_rows])
+
+
+def _case_tensors(corr: Correlation, pm: PointModel) -> dict[tuple[str, Any], NDArray]:
+    """The model tensor at every kept point for each FE state a frame's step may need."""
+    out: dict[tuple[str, Any], NDArray] = {}
+    model = corr.model
+    for case in corr.study.cases:
+        states = pair_series(corr.study, model, case, corr.steps).fe_index \
+            if case.is_series else [case.fe_index]
+        for fe in states:
+            fld = model.case_field(case, fe, pm.operator)
+            out[(case.name, fe)] = centre_strain(pm.operator, fld)
+    return out
+
+
+def _step_tensor(corr: Correlation, tensors: dict, row: int) -> NDArray | None:
+    total = None
+    for case, f in zip(corr.study.cases, corr.steps.factors[row], strict=True):
+        if case.is_series:
+            weights = pair_series(corr.study, corr.model, case, corr.steps).weights(row)
+            if weights is None:
+                return None
+        else:
+            weights = {case.fe_index: float(f)}
+        for fe, w in weights.items():
+            part = w * tensors[(case.name, fe)]
+            total = part if total is None else total + part
+    return total
+
+
+def _levelling(ff: Any, xyz: NDArray, scale: float) -> tuple[Any, float, str]:
+    """The levelling weights, the statistics' block size and the rule in words."""
+    from scipy.spatial import cKDTree
+
+    size = None if ff.filter_size is None else ff.filter_size * scale
+    if size is None:
+        tree = cKDTree(xyz)
+        h = float(np.median(tree.query(xyz, k=2)[0][:, 1])) if len(xyz) > 1 else 1.0
+        return None, UNFILTERED_BLOCK * h, "none (the model compared point by point)"
+    if ff.filter_kind == "gaussian":
+        return (gaussian_weights(xyz, sigma=size), GAUSSIAN_BLOCK * size,
+                f"Gaussian of standard deviation {ff.filter_size:g} {ff.length_unit}, truncated "
+                "at 3 standard deviations, normalised over the neighbours present")
+    return (window_weights(xyz, size=size), size,
+            f"mean over a disc of diameter {ff.filter_size:g} {ff.length_unit}")
+
+
+def _frame_row(corr: Correlation, frame: str, step: float) -> int:
+    hit = np.flatnonzero(corr.steps.step == step)
+    if not len(hit):
+        raise ReadingsFormatError(f"[fullfield] frame '{frame}' belongs to step {step:g}, which "
+                                  "the readings do not have; fix the frame's step")
+    return int(hit[0])
+
+
+def _stats(frame: str, step: float, loads: NDArray, names: tuple[str, ...], meas: dict,
+           lev: dict, xyz: NDArray, block: float, corr: Correlation) -> list[dict[str, Any]]:
+    rows = []
+    crit = corr.study.criteria
+    for comp in COMPONENTS:
+        m, p = meas[comp] * MICROSTRAIN, lev[comp] * MICROSTRAIN
+        ok = np.isfinite(m) & np.isfinite(p)
+        row: dict[str, Any] = {"frame": frame, "step": step,
+                               **{f"load_{n}": v for n, v in zip(names, loads, strict=True)},
+                               "component": comp, "points": int(ok.sum())}
+        if ok.sum() >= 2 and np.any(p[ok] != 0):
+            met = field_metrics(m[ok], p[ok], allowed_difference(p[ok], crit.relative,
+                                                                 crit.absolute_ue))
+            row.update({"mean_diff_ue": met.mean, "rms_diff_ue": met.rms,
+                        "p05_diff_ue": met.p05, "p95_diff_ue": met.p95,
+                        "max_abs_diff_ue": met.max_abs, "ccc": met.ccc,
+                        "share_within": met.share_within})
+            try:
+                s = blocked_slope(m[ok], p[ok], xyz[ok], block)
+                row.update({"slope_origin": s.slope, "slope_ci_low": s.ci_low,
+                            "slope_ci_high": s.ci_high, "blocks": s.n_blocks,
+                            "naive_ci_low": s.naive_ci_low, "naive_ci_high": s.naive_ci_high})
+            except ValueError:   # StudyError: fewer than two blocks; the interval is undefined
+                pass
+        rows.append(row)
+    return rows
+
+
+def _hot(frame: str, meas: NDArray, lev: NDArray, xyz: NDArray) -> dict[str, Any]:
+    ok = np.isfinite(meas) & np.isfinite(lev)
+    if not ok.any():
+        return {"frame": frame}
+    hm, hp = hot_spot(xyz[ok], meas[ok]), hot_spot(xyz[ok], lev[ok])
+    return {"frame": frame, "measured_ue": hm.value * MICROSTRAIN,
+            "measured_at": np.asarray(hm.point).tolist(), "model_ue": hp.value * MICROSTRAIN,
+            "model_at": np.asarray(hp.point).tolist(),
+            "distance": float(np.linalg.norm(np.asarray(hm.point) - np.asarray(hp.point)))}
+
+
+def correlate_fullfield(corr: Correlation) -> FullFieldResult:
+    """Compare every DIC frame of the study with the model (see the module docstring)."""
+    ff = corr.study.fullfield
+    assert ff is not None
+    scale = LENGTH_UNITS[ff.length_unit] / LENGTH_UNITS[corr.study.length_unit]
+    frames = read_frames(ff)
+    landmarks = read_landmarks(ff.landmarks) if ff.landmarks is not None else None
+    t = frames.table
+    dic = t[["x", "y", "z"]].to_numpy(dtype=float)
+    distinct, inverse = np.unique(dic, axis=0, return_inverse=True)
+    inverse = inverse.ravel()
+    reg, pm = locate_points(distinct * scale, ff, corr.model.locator, landmarks, scale=scale)
+    slot = np.full(len(distinct), -1)
+    slot[pm.kept] = np.arange(len(pm.kept))
+    tensors = _case_tensors(corr, pm)
+    W, block, rule = _levelling(ff, pm.position, scale)
+    R = reg.matrix[:3, :3]
+    parts, stats, hots = [], [], []
+    rim = 0
+    for frame, step in zip(frames.frames, frames.steps, strict=True):
+        rows = np.flatnonzero((t["frame"] == frame).to_numpy())
+        if ff.edge > 0:   # the region's boundary: of this frame's own points
+            inside = region_distance(dic[rows, :2]) >= ff.edge
+            rim = max(rim, int((~inside).sum()))
+            rows = rows[inside]
+        rows = rows[slot[inverse[rows]] >= 0]
+        k = slot[inverse[rows]]
+        srow = _frame_row(corr, frame, step)
+        T = _step_tensor(corr, tensors, srow)
+        if T is None:
+            continue
+        model = _components(*tensor_in_axes(T, pm.ex, pm.ey))
+        if W is None:
+            level = model
+        else:
+            stack = apply_weights(W, np.column_stack([model[c] for c in ("exx", "eyy", "exy")]))
+            level = _components(stack[:, 0], stack[:, 1], stack[:, 2])
+        meas = _components(*_measured(frames, rows, R, k, pm, ff.measure, ff.axes))
+        lev_k = {c: v[k] for c, v in level.items()}
+        xyz = pm.position[k]
+        stats += _stats(frame, step, corr.steps.loads[srow], corr.steps.load_names, meas, lev_k,
+                        xyz, block, corr)
+        hots.append(_hot(frame, meas["eeq"], lev_k["eeq"], xyz))
+        part = {"frame": frame, "step": step, "point": k}
+        for c in COMPONENTS:
+            part[f"{c}_measured_ue"] = meas[c] * MICROSTRAIN
+            part[f"{c}_model_ue"] = model[c][k] * MICROSTRAIN
+            part[f"{c}_levelled_ue"] = lev_k[c] * MICROSTRAIN
+            part[f"{c}_diff_ue"] = (meas[c] - lev_k[c]) * MICROSTRAIN
+        parts.append(pd.DataFrame(part))
+    if not parts:
+        raise ReadingsFormatError("[fullfield]: no frame belongs to a step the model covers; "
+                                  "check the frames' steps")
+    table = pd.concat(parts, ignore_index=True)
+    points = pd.DataFrame({"point": np.arange(len(pm.kept)), "x": pm.position[:, 0],
+                           "y": pm.position[:, 1], "z": pm.position[:, 2]})
+    table = table.merge(points, on="point", how="left")
+    lead = ["frame", "step", "point", "x", "y", "z"]
+    table = table[lead + [c for c in table.columns if c not in lead]]
+    ref = ff.reference_frame if ff.reference_frame in frames.frames else _reference(table)
+    summary = {"registration": {"method": reg.method, "matrix": reg.matrix.tolist(),
+                                "rotation_deg": reg.rotation_deg,
+                                "landmark_rms": reg.landmark_rms, "rms_distance": reg.rms,
+                                "p95_distance": reg.p95, "points_read": reg.n_points,
+                                "dropped_beyond_snap_tol": reg.dropped_snap,
+                                "dropped_near_part_edges": reg.dropped_edge,
+                                "dropped_near_region_boundary": rim,
+                                "snap_tol": reg.snap_tol, "points_kept": len(pm.kept)},
+               "levelling": rule, "block_size": block, "measure": ff.measure,
+               "reference_frame": ref, "hot_spots": hots,
+               "levelling_effect_ue": _levelling_effect(table)}
+    return FullFieldResult(points=points, table=table, stats=pd.DataFrame(stats),
+                           registration=reg, summary=summary, reference_frame=ref)
+
+
+def _reference(table: pd.DataFrame) -> str:
+    """The frame whose model equivalent strain is largest (the highest load, usually)."""
+    peak = table.groupby("frame", sort=False)["eeq_model_ue"].max()
+    return str(peak.idxmax())
+
+
+def _levelling_effect(table: pd.DataFrame) -> dict[str, float]:
+    """How much levelling changed the model equivalent strain (large: steeper gradients than
+    the DIC resolves)."""
+    d = (table["eeq_levelled_ue"] - table["eeq_model_ue"]).abs().dropna()
+    if d.empty:
+        return {"rms": float("nan"), "max": float("nan")}
+    return {"rms": float(np.sqrt(np.mean(d**2))), "max": float(d.max())}
+
+
+__all__ = ["COMPONENTS", "FullFieldResult", "correlate_fullfield"]

@@ -1,0 +1,219 @@
+"""DIC points on the model: registration, location, edge mask and the model strain there.
+
+Stage: fullfield. In: the DIC points (camera axes, model length unit), the ``[fullfield]``
+settings, the study's opened model (its locator). Out: a :class:`Registration` (the transform and
+its residuals) and a :class:`PointModel`: each kept point's position on the surface, its tangent
+axes (the DIC's x axis projected onto the tangent plane, ``ey = n x ex``) and the gauge operator
+that reads the model tensor there. A point is a gauge of zero length (one sample, no band), so
+location and evaluation are those of the gauges (:mod:`correlate.model_readings.operator`).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+from numpy.typing import NDArray
+
+from correlate.core.errors import StudyError
+from correlate.fullfield.registration import (
+    apply,
+    icp_point_to_plane,
+    rigid_from_landmarks,
+    rotation_angle_deg,
+)
+from correlate.fullfield.strain import tangent_axes
+from correlate.model_readings.locator import Locator
+from correlate.model_readings.operator import GaugeOperator, build_operator
+from correlate.readers.dic_frames import Landmarks
+from correlate.readers.fullfield_study import FullFieldSettings
+from correlate.readers.gauges import validate_gauges
+
+EDGE_ANGLE = 30.0   # degrees: a normal turning more than this within `edge` is a part edge
+EDGE_ON_SINE = 0.1  # sine of the angle between the DIC's x axis and a face normal, below: edge-on
+ICP_PASSES = 3      # re-project the cloud onto the faces between ICP runs (closest points move)
+
+
+@dataclass(frozen=True)
+class Registration:
+    """The DIC-to-model transform and how well the points sit on the surface."""
+
+    method: str                      # how the transform was found, in words
+    matrix: NDArray[np.float64]      # (4, 4): x_model = R x_dic + t
+    landmark_rms: float | None       # RMS landmark residual [model length unit]
+    rms: float                       # RMS distance of the points to the surface
+    p95: float                       # 95th percentile of that distance
+    n_points: int                    # distinct points read
+    dropped_snap: int                # beyond snap_tol from the surface, or on a face seen edge-on
+    dropped_edge: int                # within `edge` of the region's or the part's edges
+    snap_tol: float
+
+    @property
+    def rotation_deg(self) -> float:
+        return rotation_angle_deg(self.matrix[:3, :3])
+
+
+@dataclass(frozen=True)
+class PointModel:
+    """The kept points: index into the distinct points, position, tangent axes, operator."""
+
+    kept: NDArray[np.int64]          # (k,) rows of the distinct points kept
+    position: NDArray[np.float64]    # (k, 3) on the model surface
+    ex: NDArray[np.float64]          # (k, 3)
+    ey: NDArray[np.float64]          # (k, 3)
+    operator: GaugeOperator
+
+
+def _landmark_start(lm: Landmarks, scale: float) -> tuple[NDArray, float]:
+    fit = rigid_from_landmarks(lm.dic * scale, lm.model)
+    return np.asarray(fit.matrix), float(fit.rms_residual)
+
+
+def register(points: NDArray[np.float64], ff: FullFieldSettings, locator: Locator,
+             landmarks: Landmarks | None, *, scale: float) -> tuple[NDArray, float | None, str]:
+    """The transform DIC -> model for ``points`` (camera axes, model unit).
+
+    Landmarks give the least-squares rigid transform (Kabsch / Horn), optionally refined by
+    point-to-plane ICP onto the faces the locator finds closest; ``matrix`` is applied as given
+    (its translation scaled to the model unit); ``model`` is the identity.
+    """
+    if ff.register == "model":
+        return np.eye(4), None, "none: the points are in model axes (register = \"model\")"
+    if ff.register == "matrix":
+        M = np.array(ff.matrix, dtype=float)
+        M[:3, 3] *= scale
+        R = M[:3, :3]
+        if not np.allclose(R.T @ R, np.eye(3), atol=1e-6) or np.linalg.det(R) < 0:
+            raise StudyError("[fullfield] register matrix: its 3x3 part is not a rotation "
+                             "(orthonormal, determinant +1); give a rigid transform")
+        return M, None, "the study's matrix"
+    assert landmarks is not None
+    M, lm_rms = _landmark_start(landmarks, scale)
+    method = (f"least-squares rigid fit to {len(landmarks.names)} landmarks (Kabsch / Horn, "
+              "closed form)")
+    if ff.refine != "icp":
+        return M, lm_rms, method
+    start = M
+    for _ in range(ICP_PASSES):
+        on = locator.project(apply(M, points))
+        near = on.distance <= ff.snap_tol
+        if near.sum() < 6:
+            raise StudyError(f"[fullfield] register: only {int(near.sum())} DIC points lie within "
+                             f"snap_tol {ff.snap_tol:g} of the model after the landmark fit; "
+                             "check the landmarks and length_unit")
+        M = np.asarray(icp_point_to_plane(points[near], on.point[near], on.normal[near], M,
+                                          tol=ff.icp_tol, max_move=ff.icp_max_move).matrix)
+    moved = float(np.max(np.linalg.norm(apply(M, points) - apply(start, points), axis=1)))
+    if moved > ff.icp_max_move:
+        raise StudyError(f"[fullfield] register: ICP moved a point {moved:.3g} from the landmark "
+                         f"solution, more than max_move {ff.icp_max_move:g}; check the landmarks")
+    return M, lm_rms, method + (f", refined by point-to-plane ICP (stop below {ff.icp_tol:g} "
+                                f"per step, at most {ff.icp_max_move:g} from the landmark fit)")
+
+
+def region_distance(plane_xy: NDArray[np.float64]) -> NDArray[np.float64]:
+    """Distance of each point to the boundary of the region the points cover [their unit].
+
+    A point is on the boundary when the centroid of its neighbours within 1.6 point spacings
+    (the median nearest-neighbour distance h: the 8 neighbours of a square grid) lies more than
+    0.3 h from it: 0 inside a regular grid, 0.6 h on a straight edge of one (three of five
+    neighbours lean inward by h), more at corners and around holes. The region's boundary lies
+    half a spacing beyond its boundary points, so the distance is the distance to the nearest
+    boundary point plus h / 2. It does not depend on how the grid is turned.
+    """
+    from scipy.spatial import cKDTree
+
+    if len(plane_xy) < 4:
+        return np.full(len(plane_xy), np.inf)
+    tree = cKDTree(plane_xy)
+    d, _ = tree.query(plane_xy, k=2)
+    h = float(np.median(d[:, 1]))
+    if not h > 0:
+        return np.full(len(plane_xy), np.inf)
+    dist, idx = tree.query(plane_xy, k=9, distance_upper_bound=1.6 * h)
+    found = np.isfinite(dist[:, 1:])
+    safe = np.where(found, idx[:, 1:], 0)
+    offset = np.where(found[..., None], plane_xy[safe] - plane_xy[:, None, :], 0.0)
+    count = np.maximum(found.sum(axis=1), 1)
+    shift = np.linalg.norm(offset.sum(axis=1), axis=1) / count
+    boundary = (shift > 0.3 * h) | (found.sum(axis=1) < 3)
+    if not boundary.any():
+        return np.full(len(plane_xy), np.inf)
+    edge_tree = cKDTree(plane_xy[boundary])
+    near, _ = edge_tree.query(plane_xy)
+    return near + 0.5 * h
+
+
+def near_part_edge(locator: Locator, position: NDArray, normal: NDArray, ex: NDArray,
+                   ey: NDArray, edge: float) -> NDArray[np.bool_]:
+    """Points within ``edge`` of a part edge: a step of ``edge`` along +-ex or +-ey lands on a
+    face whose normal turns more than :data:`EDGE_ANGLE` (a feature edge, common practice), or
+    off the part, more than ``edge / 2`` from its surface (beyond a free edge, the closest point
+    is on the edge line itself; on a surface of radius R the step leaves it by only
+    ``edge^2 / (2 R)``)."""
+    out = np.zeros(len(position), dtype=bool)
+    cos_limit = np.cos(np.radians(EDGE_ANGLE))
+    for d in (ex, -ex, ey, -ey):
+        on = locator.project(position + edge * d)
+        out |= (np.sum(on.normal * normal, axis=1) < cos_limit) | (on.distance > edge / 2)
+    return out
+
+
+def _point_gauges(position: NDArray, direction: NDArray) -> pd.DataFrame:
+    raw = pd.DataFrame({"gauge": [f"P{i}" for i in range(len(position))],
+                        "x": position[:, 0], "y": position[:, 1], "z": position[:, 2],
+                        "dir_x": direction[:, 0], "dir_y": direction[:, 1],
+                        "dir_z": direction[:, 2], "length": 0.0, "kt": 0.0})
+    return validate_gauges(raw, source="DIC points")
+
+
+def locate_points(points: NDArray[np.float64], ff: FullFieldSettings, locator: Locator, landmarks: Landmarks | None, *,
+                  scale: float) -> tuple[Registration, PointModel]:
+    """Register the distinct DIC points, drop those off the surface or near an edge, and build
+    the zero-length gauge operator at the rest (see the module docstring).
+
+    ``points`` are in camera axes and the model's length unit (``scale`` converted them). The
+    region's boundary depends on each frame's own points and is applied per frame
+    (:func:`region_distance`); here the part's edges.
+
+    Raises
+    ------
+    StudyError
+        No point within ``snap_tol`` of the model; registration failures.
+    """
+    M, lm_rms, method = register(points, ff, locator, landmarks, scale=scale)
+    on = locator.project(apply(M, points))
+    x_axis = M[:3, :3] @ np.array([1.0, 0.0, 0.0])
+    # a face the camera's x axis runs into (within 5.7 deg of its normal) is seen edge-on: no
+    # DIC measures there, and the tangent axes would be undefined (strain.tangent_axes)
+    edge_on = np.linalg.norm(np.cross(on.normal, x_axis), axis=1) < EDGE_ON_SINE
+    snap = (on.distance <= ff.snap_tol * scale) & ~edge_on
+    if not snap.any():
+        raise StudyError(f"[fullfield]: none of the {len(points)} DIC points lies within snap_tol "
+                         f"{ff.snap_tol:g} {ff.length_unit} of the model surface (closest "
+                         f"{on.distance.min() / scale:.3g}); check register, the landmarks and "
+                         "length_unit")
+    dist = on.distance[snap]
+    ex, ey = tangent_axes(on.normal[snap], x_axis)
+    keep = np.ones(int(snap.sum()), dtype=bool)
+    if ff.edge > 0:
+        keep &= ~near_part_edge(locator, on.point[snap], on.normal[snap], ex, ey,
+                                ff.edge * scale)
+    if not keep.any():
+        raise StudyError(f"[fullfield] edge = {ff.edge:g}: every point on the model lies within "
+                         "it of an edge; lower edge")
+    kept = np.flatnonzero(snap)[keep]
+    position = on.point[kept]
+    op = build_operator(locator.mesh, _point_gauges(position, ex[keep]), band=False,
+                        grid_points=1, snap_tol=max(ff.snap_tol * scale, 1e-9) * 1.001,
+                        locator=locator)
+    reg = Registration(method=method, matrix=M, landmark_rms=lm_rms,
+                       rms=float(np.sqrt(np.mean(dist**2))), p95=float(np.percentile(dist, 95)),
+                       n_points=len(points), dropped_snap=int((~snap).sum()),
+                       dropped_edge=int((~keep).sum()), snap_tol=ff.snap_tol * scale)
+    return reg, PointModel(kept=kept, position=position, ex=ex[keep], ey=ey[keep], operator=op)
+
+
+__all__ = ["EDGE_ANGLE", "PointModel", "Registration", "locate_points", "near_part_edge",
+           "region_distance", "register"]

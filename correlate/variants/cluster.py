@@ -1,0 +1,99 @@
+"""Running the variants on Dask: a local cluster started for the sweep, or an existing one.
+
+Stage: variants (execution). In: the base study, the variants to compute and the base model's
+located gauges. Out: one :class:`~correlate.variants.evaluate.VariantResult` per variant, handed
+to a callback as each finishes (so the caller can keep it before the next one arrives).
+
+One task per variant (:func:`~correlate.variants.evaluate.correlate_variant`): the worker reads
+the variant's files by path and returns its readings and metrics, a few kB; no mesh or field goes
+through the scheduler. The located gauges are scattered to every worker once and passed to the
+tasks by reference. ``dask.distributed`` is imported here, when a sweep runs, never at package
+import.
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+from collections.abc import Callable, Sequence
+
+from correlate.core import progress
+from correlate.core.errors import CorrelateError
+from correlate.readers.records import Study
+from correlate.variants.evaluate import Located, VariantResult, correlate_variant
+from correlate.variants.sweep_file import Variant
+
+__all__ = ["compute_variants"]
+
+CONNECT_TIMEOUT = "10s"   # an unreachable scheduler is reported after this
+
+
+def compute_variants(
+    study: Study,
+    variants: Sequence[Variant],
+    located: Located,
+    done: Callable[[Variant, VariantResult], None],
+    *,
+    workers: int | None = None,
+    scheduler: str | None = None,
+) -> None:
+    """Correlate every variant on a Dask cluster; call ``done(variant, result)`` as each ends.
+
+    Parameters
+    ----------
+    study : Study
+        The base study.
+    variants : sequence of Variant
+        The variants to compute (those not in the cache).
+    located : Located
+        The base model's located gauges, scattered to the workers once.
+    done : callable
+        Called on the client for each finished variant, in the order they finish.
+    workers : int, optional
+        Worker processes of the local cluster (one thread each). Default: the machine's cores.
+    scheduler : str, optional
+        Address of an existing scheduler (``tcp://host:port``); its workers must see the
+        variant files at the same paths. Then no local cluster is started.
+
+    Raises
+    ------
+    CorrelateError
+        The scheduler cannot be reached.
+    """
+    if not variants:
+        return
+    from dask.distributed import Client, LocalCluster, as_completed
+
+    if scheduler is None:
+        n = workers or os.cpu_count() or 1
+        cluster = LocalCluster(n_workers=min(n, len(variants)), threads_per_worker=1,
+                               processes=True, dashboard_address=None,
+                               silence_logs=logging.ERROR)
+        client = Client(cluster)
+    else:
+        cluster = None
+        try:
+            client = Client(scheduler, timeout=CONNECT_TIMEOUT)
+        except (OSError, TimeoutError) as exc:
+            raise CorrelateError(f"--scheduler {scheduler}: cannot reach the Dask scheduler "
+                                 f"({exc}); start it (dask scheduler) or check the address") \
+                from None
+    try:
+        shared = client.scatter(located, broadcast=True)
+        futures = {client.submit(correlate_variant, study, v, shared, pure=False,
+                                 key=f"correlate-variant-{i}"): v
+                   for i, v in enumerate(variants)}
+        finished = as_completed(futures)
+        for fut in progress.bar(finished, desc="correlating the variants", total=len(futures)):
+            variant = futures[fut]
+            if fut.status == "error":
+                exc = fut.exception()
+                result = VariantResult(name=variant.name, failure=(
+                    f"internal error on the worker: {type(exc).__name__}: {exc}"))
+            else:
+                result = fut.result()
+            done(variant, result)
+    finally:
+        client.close()
+        if cluster is not None:
+            cluster.close()

@@ -1,0 +1,186 @@
+"""One model variant correlated against the base study's test: the task a worker runs.
+
+Stage: variants. In: the base :class:`~correlate.readers.records.Study`, a
+:class:`~correlate.variants.sweep_file.Variant` and the base model's located gauges
+(:class:`Located`, shared by every variant on the same mesh). Out: a :class:`VariantResult`
+holding the variant's model readings (gauges x steps, and the operator rows per case) and the
+metrics of the base study's whole comparison run on them (:func:`correlate_study`, the same
+function ``correlate run`` calls), a few kB; or the one-line reason it failed.
+
+The comparison runs where the variant's arrays are (on the worker): the diagnosis of failing
+gauges reads the field around them, and a run on the readings alone would give a different
+status to a gauge it flags as misinstalled than ``correlate run`` on the same variant.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import warnings
+from dataclasses import dataclass, field, replace
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from numpy.typing import NDArray
+
+from correlate.comparison.budget import STATES
+from correlate.comparison.correlation import correlate_study
+from correlate.core.errors import CorrelateError, CorrelateWarning
+from correlate.model_readings.locator import Locator
+from correlate.model_readings.model import Model, locate, open_sources, prepare, settle_family
+from correlate.model_readings.operator import GaugeOperator
+from correlate.readers.model import Mesh
+from correlate.readers.records import Study
+from correlate.variants.sweep_file import Variant
+
+__all__ = ["METRICS", "VALIDATION", "Located", "VariantResult", "correlate_variant", "locate_base", "mesh_hash",
+           "missing_file",
+           "variant_metrics", "with_variant_files"]
+
+
+@dataclass(frozen=True)
+class Located:
+    """The base model's gauges located once: reused by every variant whose mesh hashes the same."""
+
+    mesh_hash: str
+    gauges: pd.DataFrame
+    operator: GaugeOperator
+    locator: Locator
+
+
+@dataclass(frozen=True)
+class VariantResult:
+    """What a worker returns for one variant (a few kB; no mesh, no field).
+
+    ``predicted`` and ``evaluated`` are (steps, gauges) in microstrain, in the base study's
+    gauge and step order; ``rows`` the operator rows of each superposed case [m/m];
+    ``measured`` the test's readings as the comparison used them (the same for every variant)
+    and ``steps`` their step numbers; ``u_val`` the validation uncertainty of each gauge-step
+    when the study has ``[uncertainty]`` (ASME V&V 20, from :mod:`correlate.comparison.budget`); ``metrics`` the comparison's figures (:func:`variant_metrics`); ``failure`` the reason when
+    the variant could not be correlated (then the rest is empty).
+    """
+
+    name: str
+    metrics: dict[str, Any] = field(default_factory=dict)
+    predicted: NDArray[np.float64] = field(default_factory=lambda: np.zeros((0, 0)))
+    evaluated: NDArray[np.bool_] = field(default_factory=lambda: np.zeros((0, 0), bool))
+    measured: NDArray[np.float64] = field(default_factory=lambda: np.zeros((0, 0)))
+    steps: NDArray[np.int64] = field(default_factory=lambda: np.zeros(0, np.int64))
+    gauges: tuple[str, ...] = ()
+    u_val: NDArray[np.float64] | None = None   # (steps, gauges) [microstrain]; no [uncertainty]
+    rows: dict[str, dict[str, NDArray[np.float64]]] = field(default_factory=dict)
+    same_mesh: bool = False
+    warnings: tuple[str, ...] = ()
+    failure: str = ""
+
+
+def mesh_hash(mesh: Mesh) -> str:
+    """BLAKE2b of the points and every cell block (type and connectivity), as hex.
+
+    Two meshes hash alike only when their points and cells are equal bit for bit, so a variant
+    may reuse the base model's located gauges exactly (same cells, natural coordinates, weights).
+    """
+    h = hashlib.blake2b(digest_size=20)
+    h.update(np.ascontiguousarray(mesh.points, dtype=np.float64).tobytes())
+    for ctype, conn in mesh.blocks:
+        h.update(ctype.encode())
+        h.update(np.ascontiguousarray(conn, dtype=np.int64).tobytes())
+    return h.hexdigest()
+
+
+def locate_base(study: Study) -> Located:
+    """Locate the base study's gauges on its own model (``correlate run``'s preparation)."""
+    model = prepare(study)
+    return Located(mesh_hash=mesh_hash(model.operator.mesh), gauges=model.gauges,
+                   operator=model.operator, locator=model.locator)
+
+
+def with_variant_files(study: Study, variant: Variant) -> Study:
+    """The base study with the variant's result files in place of the model's (and cases')."""
+    cases = tuple(replace(c, file=variant.case_files.get(c.name, c.file)) for c in study.cases)
+    return replace(study, model_file=variant.file, cases=cases)
+
+
+def missing_file(variant: Variant) -> str:
+    """The one-line reason when a file of the variant does not exist, else an empty string."""
+    for path in [variant.file, *variant.case_files.values()]:
+        if not path.is_file():
+            return (f"{path.name}: the variant's model result does not exist ({path}); check "
+                    "the table's file column or solve the variant")
+    return ""
+
+
+def correlate_variant(study: Study, variant: Variant, located: Located) -> VariantResult:
+    """Correlate one variant: read its arrays, reuse or make the gauge operator, compare.
+
+    Any problem with the variant's input (missing or unreadable file, missing array, a gauge off
+    a different mesh) is returned as ``failure`` with its one-line reason, never raised, so that
+    the sweep goes on.
+    """
+    if variant.problem:
+        return VariantResult(name=variant.name, failure=variant.problem)
+    vstudy = with_variant_files(study, variant)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", CorrelateWarning)
+        try:
+            if missing_file(variant):
+                return VariantResult(name=variant.name, failure=missing_file(variant))
+            sources = open_sources(vstudy)
+            settle_family(vstudy, sources, located.gauges)
+            same = mesh_hash(sources[vstudy.model_file].mesh) == located.mesh_hash
+            if same:
+                model = Model(study=vstudy, sources=sources, gauges=located.gauges,
+                              operator=located.operator, locator=located.locator)
+            else:
+                model = locate(vstudy, sources, located.gauges)
+            corr = correlate_study(vstudy, model)
+        except CorrelateError as exc:
+            return VariantResult(name=variant.name, failure="; ".join(exc.problems))
+    rows = {case: {k: np.asarray(v, dtype=float) for k, v in r.items()
+                   if isinstance(v, np.ndarray) and v.dtype.kind == "f"}
+            for case, r in corr.rows_by_case.items()}
+    notes = tuple(dict.fromkeys(str(w.message) for w in caught
+                                if issubclass(w.category, CorrelateWarning)))
+    return VariantResult(name=variant.name, metrics=variant_metrics(corr.summary),
+                         predicted=np.asarray(corr.predicted, dtype=float),
+                         evaluated=np.asarray(corr.status.evaluated, dtype=bool),
+                         measured=np.asarray(corr.measured, dtype=float),
+                         steps=np.asarray(corr.steps.step, dtype=np.int64),
+                         gauges=tuple(corr.gauges), rows=rows,
+                         u_val=None if corr.validation is None else
+                         np.asarray(corr.validation.result.u_val, dtype=float).T,
+                         same_mesh=same, warnings=notes)
+
+
+#: summary.json entries that variants.csv reports, as (column, path in the summary)
+METRICS = (
+    ("rms_ue", ("fit", "rms_ue")),
+    ("max_abs_ue", ("fit", "max_abs_ue")),
+    ("slope_origin", ("fit", "slope_origin")),
+    ("slope", ("fit", "slope")),
+    ("r2", ("fit", "r2")),
+    ("concordance", ("metrics", "concordance")),
+    ("pass_fraction", ("verdict", "pass_fraction")),
+    ("passing", ("verdict", "passing")),
+    ("failing", ("verdict", "failing")),
+    ("flagged", ("verdict", "flagged")),
+    ("healthy", ("verdict", "healthy")),
+    ("verdict", ("verdict", "state")),
+)
+
+
+#: validation states (ASME V&V 20) counted per variant when the study has [uncertainty]
+VALIDATION = tuple((f"validation_{s.replace(' ', '_')}", s) for s in STATES)
+
+
+def variant_metrics(summary: dict[str, Any]) -> dict[str, Any]:
+    """The figures of a run's summary that rank a variant (:data:`METRICS`), and the number of
+    gauges in each validation state at the reference step (:data:`VALIDATION`) when the summary
+    has them."""
+    out: dict[str, Any] = {}
+    for column, (table, key) in METRICS:
+        out[column] = summary.get(table, {}).get(key)
+    states = (summary.get("validation") or {}).get("states")
+    if states is not None:
+        out.update({column: states.get(state) for column, state in VALIDATION})
+    return out

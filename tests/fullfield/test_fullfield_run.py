@@ -1,0 +1,226 @@
+"""`correlate run` with a [fullfield] table, on a synthetic DIC export of the analytic block.
+
+The block of tests/builders.write_block_study carries two linear strain cases given in closed
+form (builders.block_strain); quadratic hexahedra reproduce a linear field exactly. The DIC
+points are a grid on its top face (z = 2 mm) seen by a camera with a known rigid transform; the
+exported strains are the analytic small strains converted to Green-Lagrange, E = B + B^2 / 2
+(B symmetric: the polar decomposition with no rotation, Holzapfel, Nonlinear Solid Mechanics,
+2000, section 2.5), in the camera's x, y axes. So every expected value comes from the closed
+form, not from the tool.
+"""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+from builders import block_readings, block_strain, default_gauges, write_block_study
+from scipy.spatial.transform import Rotation
+
+from correlate.commands.cli import main
+
+ANGLE_DEG = 7.0                              # camera turned about the model's z axis
+TRANSLATION = np.array([1.3, -0.4, 0.25])    # model = R dic + t  [mm]
+ROT = Rotation.from_euler("zx", [ANGLE_DEG, 0.0], degrees=True).as_matrix()
+STEPS = (1, 2, 3)                            # readings steps of the three frames
+
+
+def _grid() -> np.ndarray:
+    x, y = np.meshgrid(np.arange(0.3, 3.71, 0.1), np.arange(0.3, 2.71, 0.1))
+    return np.c_[x.ravel(), y.ravel(), np.full(x.size, 2.0)]
+
+
+def _frame(model_pts: np.ndarray, dic: np.ndarray, step: int, rng: np.random.Generator
+           ) -> pd.DataFrame:
+    """DIC export of one step: camera coordinates and Green-Lagrange strain in camera axes."""
+    loads = np.asarray(block_readings(default_gauges().iloc[[0]])[["P_kN", "S_kN"]])[step]
+    T = loads[0] / 10.0 * block_strain("pull", model_pts) + loads[1] / 2.0 * block_strain(
+        "side", model_pts)
+    ex, ey = ROT[:, 0], ROT[:, 1]                # the camera axes in model coordinates
+    B = np.empty((len(T), 2, 2))
+    B[:, 0, 0] = np.einsum("i,nij,j->n", ex, T, ex)
+    B[:, 1, 1] = np.einsum("i,nij,j->n", ey, T, ey)
+    B[:, 0, 1] = B[:, 1, 0] = np.einsum("i,nij,j->n", ex, T, ey)
+    E = B + 0.5 * B @ B
+    df = pd.DataFrame({"Xc": dic[:, 0], "Yc": dic[:, 1], "Zc": dic[:, 2], "E11": E[:, 0, 0],
+                       "E22": E[:, 1, 1], "E12": E[:, 0, 1]})
+    df.loc[rng.choice(len(df), 20, replace=False), ["E11", "E22", "E12"]] = np.nan  # lost points
+    return df
+
+
+def _study(tmp_path, *, filter_line: str = 'filter = "none"', edge: float = 0.15):
+    rng = np.random.default_rng(17)
+    gauges = default_gauges().iloc[[0, 1, 2]].reset_index(drop=True)
+    study = write_block_study(tmp_path, readings_rows=block_readings(gauges), gauges=gauges,
+                              extra_toml="")
+    dic = tmp_path / "dic"
+    dic.mkdir()
+    pts = _grid()
+    # the points stay fixed across frames (grid-based exports); 2 um position noise, R^T (x - t)
+    cam = (pts - TRANSLATION) @ ROT + rng.normal(0.0, 0.002, pts.shape)
+    for k, step in enumerate(STEPS):
+        df = _frame(pts, cam, step, rng)
+        if k == 1:   # a semicolon / decimal-comma export, as spreadsheets in many locales write
+            df.to_csv(dic / f"frame_{k + 1}.csv", sep=";", decimal=",", index=False)
+        else:
+            df.to_csv(dic / f"frame_{k + 1}.csv", index=False)
+    pd.DataFrame({"frame": [f"frame_{k + 1}" for k in range(3)],
+                  "file": [f"frame_{k + 1}.csv" for k in range(3)], "step": list(STEPS)}
+                 ).to_csv(dic / "frames.csv", index=False)
+    corners = np.array([[0.0, 0.0, 2.0], [4.0, 0.0, 2.0], [4.0, 3.0, 2.0], [0.0, 3.0, 2.0]])
+    lm_dic = (corners - TRANSLATION) @ ROT + rng.normal(0.0, 0.003, corners.shape)
+    pd.DataFrame({"landmark": list("ABCD"), "dic_x": lm_dic[:, 0], "dic_y": lm_dic[:, 1],
+                  "dic_z": lm_dic[:, 2], "model_x": corners[:, 0], "model_y": corners[:, 1],
+                  "model_z": corners[:, 2]}).to_csv(dic / "landmarks.csv", index=False)
+    with study.open("a") as f:
+        f.write('[fullfield]\nfiles = "dic/frame_*.csv"\nframe_step = "dic/frames.csv"\n'
+                'columns = { x = "Xc", y = "Yc", z = "Zc", exx = "E11", eyy = "E22", exy = "E12" }\n'
+                'register = { landmarks = "dic/landmarks.csv", refine = "icp" }\n'
+                f'{filter_line}\nedge = {edge}\n')
+    return study
+
+
+@pytest.fixture(scope="module")
+def unfiltered(tmp_path_factory):
+    tmp = tmp_path_factory.mktemp("ff")
+    study = _study(tmp, edge=0.2)
+    assert main(["run", "--quiet", str(study), "--out", str(tmp / "out"), "--no-report"]) == 0
+    return tmp / "out"
+
+
+def test_registration_recovers_the_camera_transform(unfiltered):
+    reg = json.loads((unfiltered / "fullfield.json").read_text())["registration"]
+    M = np.array(reg["matrix"])
+    # issue 17's acceptance, 0.01 mm and 0.01 degree, for what ICP fixes on this flat face: the
+    # tilt of the face normal and the offset along it (the face pins them through 875 points)
+    tilt = np.degrees(np.arccos(np.clip(M[:3, 2] @ ROT[:, 2], -1, 1)))
+    assert tilt < 0.01
+    assert abs(M[2, 3] - TRANSLATION[2]) < 0.01
+    # in the plane a flat face leaves rotation and shift free (Low 2004: the point-to-plane system
+    # is rank deficient there), so the landmarks fix them: 3 um noise on 4 landmarks about 2.5 mm
+    # from their centroid gives sigma(angle) = 0.003 / sqrt(4 x 2.5^2) rad = 0.034 deg (Kabsch
+    # error propagation, from memory); allow 3 sigma, 0.1 deg, and 0.01 mm in the plane
+    angle = np.degrees(np.arccos(np.clip((np.trace(ROT.T @ M[:3, :3]) - 1) / 2, -1, 1)))
+    assert angle < 0.1
+    assert np.abs(M[:2, 3] - TRANSLATION[:2]).max() < 0.01
+    # the noise is 2 um normal to the face: the RMS distance to the surface is about that
+    assert reg["rms_distance"] == pytest.approx(0.002, rel=0.3)
+
+
+def test_unfiltered_comparison_reproduces_the_analytic_field(unfiltered):
+    table = pd.read_parquet(unfiltered / "fullfield.parquet")
+    assert sorted(table["frame"].unique()) == ["frame_1", "frame_2", "frame_3"]
+    M = np.array(json.loads((unfiltered / "fullfield.json").read_text())["registration"]["matrix"])
+    x = table[["x", "y", "z"]].to_numpy()
+    ex = M[:3, 0] - M[2, 0] * np.array([0.0, 0.0, 1.0])   # the DIC x axis in the top face
+    ex /= np.linalg.norm(ex)
+    ey = np.cross([0.0, 0.0, 1.0], ex)
+    f = {1: (0.25, 0.25), 2: (0.5, 0.5), 3: (1.0, 1.0)}   # case factors of steps 1-3 (builders)
+    T = np.stack([f[s][0] * block_strain("pull", x[i:i + 1])[0]
+                  + f[s][1] * block_strain("side", x[i:i + 1])[0]
+                  for i, s in enumerate(table["step"])])
+    # the model side is the closed form at the registered points in the registered axes:
+    # quadratic hexahedra carry a linear field exactly; the axes come from fullfield.json's
+    # matrix, written to 6 significant digits: axes turned by up to 1e-6 rad, times twice the
+    # largest strain (1700 ue) gives the tolerance 4e-3 ue
+    for comp, (a, b) in {"exx": (ex, ex), "eyy": (ey, ey), "exy": (ex, ey)}.items():
+        expected = np.einsum("ni,nij,nj->n", np.broadcast_to(a, x.shape), T,
+                             np.broadcast_to(b, x.shape)) * 1e6
+        np.testing.assert_allclose(table[f"{comp}_model_ue"], expected, rtol=0, atol=4e-3)
+    # measured - model: the analytic field sampled where the points really are, against the
+    # model where registration put them. Bound: gradient (at most 110 ue/mm, builders) times
+    # the position error (6 um noise at 3 sigma plus 10 um of in-plane registration) = 1.8 ue,
+    # plus the axes turned by the in-plane angle error (<= 0.1 deg = 1.7e-3 rad) times twice the
+    # largest in-plane shear (about 650 ue) = 2.3 ue; 4.5 ue in all
+    for comp in ("exx", "eyy", "exy", "eeq"):
+        assert table[f"{comp}_diff_ue"].abs().max() < 4.5
+    # the lost points are NaN on the measured side only (missing in that frame, used in others)
+    assert table["exx_measured_ue"].isna().sum() > 0
+    assert table["exx_model_ue"].notna().all()
+
+
+def test_statistics_per_frame_give_a_unit_slope(unfiltered):
+    stats = pd.read_csv(unfiltered / "fullfield_stats.csv")
+    eeq = stats[stats["component"] == "eeq"]
+    assert len(eeq) == 3
+    # measured equals model within 4.5 ue of about 1500 ue (see above), and the errors are
+    # mostly random: slope 1 within 1e-3, Lin's concordance (Lin 1989) within 1e-4 of 1
+    np.testing.assert_allclose(eeq["slope_origin"], 1.0, rtol=1e-3, atol=0)
+    np.testing.assert_allclose(eeq["ccc"], 1.0, rtol=1e-4, atol=0)
+    # the blocked interval (blocks of 5 spacings) is wider than the naive one
+    assert ((eeq["slope_ci_high"] - eeq["slope_ci_low"])
+            > (eeq["naive_ci_high"] - eeq["naive_ci_low"])).all()
+    assert (eeq["share_within"] == 1.0).all()
+
+
+def test_edge_mask_drops_the_rim_of_the_grid(unfiltered):
+    reg = json.loads((unfiltered / "fullfield.json").read_text())["registration"]
+    # a 35 x 25 grid at 0.1 mm with edge = 0.2 mm: the two outer rings lie 0.05 and 0.15 from
+    # the region's boundary (half a spacing outside the outer points), the third 0.25
+    n = 35 * 25
+    assert reg["points_read"] == n
+    assert reg["dropped_near_region_boundary"] == n - 31 * 21
+    assert reg["dropped_near_part_edges"] == 0   # the grid keeps 0.3 mm from the face's edges
+
+
+def test_gaussian_levelling_of_a_linear_field_keeps_it_inside(tmp_path):
+    study = _study(tmp_path, filter_line='filter = { size = 0.2, kind = "gaussian" }',
+                   edge=0.7)
+    assert main(["run", "--quiet", str(study), "--out", str(tmp_path / "o"), "--no-report"]) == 0
+    table = pd.read_parquet(tmp_path / "o" / "fullfield.parquet")
+    # edge = 0.7 also drops the points within 0.7 of the face's edges (x < 0.7 and so on), so
+    # the 3-sigma kernel (0.6) is whole only 1.3 from them
+    whole = table["x"].between(1.3, 2.7) & table["y"].between(1.3, 1.7)
+    assert whole.sum() > 100
+    table = table[whole]
+    # a normalised symmetric kernel keeps a linear field where the kernel is whole (here the
+    # points below): the smoothed
+    # value of f = a + b.x is f (closed form, the second-moment term vanishes for linear f)
+    d = (table["exx_levelled_ue"] - table["exx_model_ue"]).abs()
+    # tolerance: 2 um in-plane noise over an effective 4 pi sigma^2 / h^2 = 50 points moves the
+    # kernel's centroid by 0.3 um (one sigma) x 110 ue/mm = 0.03 ue; 0.25 ue is 8 sigma
+    assert d.max() < 0.25
+
+
+def test_other_outputs_do_not_depend_on_fullfield(tmp_path, unfiltered):
+    """The gauge outputs of the same study without [fullfield] are byte-identical."""
+    gauges = default_gauges().iloc[[0, 1, 2]].reset_index(drop=True)
+    study = write_block_study(tmp_path, readings_rows=block_readings(gauges), gauges=gauges)
+    assert main(["run", "--quiet", str(study), "--out", str(tmp_path / "o"), "--no-report"]) == 0
+    plain = {p.name for p in (tmp_path / "o").iterdir()}
+    assert not any(name.startswith("fullfield") for name in plain)
+    for name in ("gauges.csv", "gauge_stats.csv", "rosettes.csv", "flags.csv"):
+        assert (tmp_path / "o" / name).read_bytes() == (unfiltered / name).read_bytes(), name
+
+
+def test_points_off_the_model_exit_2_with_one_line(tmp_path, capsys):
+    study = _study(tmp_path)
+    text = study.read_text().replace(
+        'register = { landmarks = "dic/landmarks.csv", refine = "icp" }',
+        'register = { matrix = [[1, 0, 0, 100], [0, 1, 0, 0], [0, 0, 1, 0], [0, 0, 0, 1]] }')
+    study.write_text(text)   # a transform that puts the points 100 mm beside the block
+    before = {p: p.read_bytes() for p in tmp_path.rglob("*") if p.is_file()}
+    assert main(["run", "--quiet", str(study), "--out", str(tmp_path / "o"), "--no-report"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "none of the" in err[0] and "snap_tol" in err[0]
+    assert not (tmp_path / "o").exists()                       # nothing half-written
+    assert before == {p: p.read_bytes() for p in tmp_path.rglob("*") if p.is_file()}
+
+
+@pytest.mark.render
+def test_report_has_the_fullfield_section(tmp_path):
+    from PIL import Image
+
+    study = _study(tmp_path, edge=0.2)
+    assert main(["run", "--quiet", str(study), "--out", str(tmp_path / "o")]) == 0
+    html = (tmp_path / "o" / "report.html").read_text(encoding="utf-8")
+    assert "12. Full-field (DIC) comparison" in html
+    with Image.open(tmp_path / "o" / "fullfield_maps.png") as img:
+        assert img.size == (1800, 620)
+        pixels = np.asarray(img.convert("RGB"), dtype=float)
+    assert pixels.std() > 5          # not blank
+    # the point clouds are coloured: more than a grey model and a white background
+    colourful = np.abs(pixels[..., 0] - pixels[..., 2]) > 40
+    assert colourful.mean() > 0.01
