@@ -121,6 +121,7 @@ def validate_bridges(
         raise GaugeError(msg)
     problems: list[str] = []
     members: dict[str, dict[int, list[str]]] = {}
+    reported: set[str] = set()  # bridges with a bad arm: no second line for the same bridge
     for g, b, a in zip(gauge, bridge, arm, strict=True):
         name = _blank_to_none(b)
         if name is None:
@@ -130,6 +131,7 @@ def validate_bridges(
             problems.append(
                 f"gauge '{g}' in bridge '{name}': arm {a!r} is not 1, 2, 3 or 4; give the arm it is wired into (1 and 3 add, 2 and 4 subtract)"
             )
+            reported.add(name)
             continue
         members.setdefault(name, {}).setdefault(number, []).append(str(g))
     arms_of: dict[str, tuple[str | None, str | None, str | None, str | None]] = {}
@@ -140,7 +142,8 @@ def validate_bridges(
                 problems.append(
                     f"gauges {listed} in bridge '{name}' share arm {number}; expected one grid per arm, check the arm column"
                 )
-        if len(by_arm) == 1:
+                reported.add(name)
+        if len(by_arm) == 1 and name not in reported:
             listed = ", ".join(f"'{g}'" for grids in by_arm.values() for g in grids)
             problems.append(
                 f"gauge {listed} is the only arm of bridge '{name}'; one active arm is a quarter bridge: leave its bridge column blank"
