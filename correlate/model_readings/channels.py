@@ -120,12 +120,35 @@ def compared_model(model: Model) -> Model:
     arm_weights = [[(i, 1.0)] for i in keep] + [
         [(index[a], BRIDGE_ARM_SIGNS[k] / b.factor) for k, a in enumerate(b.arms) if a is not None]
         for b in bridges]
-    table = pd.concat([gauges.iloc[keep], _bridge_rows(gauges, bridges, first, members)],
-                      ignore_index=True)
+    table = channel_gauges(gauges, bridges, model.study.chain.nonlinearity)
     shared = {f.name: getattr(model, f.name) for f in fields(Model) if f.name != "gauges"
               and f.name != "operator"}
     return ChannelModel(**shared, gauges=table, operator=channel_op, base=model,
                         combination=combination, arm_weights=arm_weights)
+
+
+def channel_gauges(gauges: pd.DataFrame, bridges: list[Bridge] | tuple[Bridge, ...],
+                   nonlinearity: str = "") -> pd.DataFrame:
+    """The gauge table of the compared channels (see the module docstring); needs no model, so
+    ``check`` reads the readings of the channels a test has.
+
+    ``nonlinearity`` is the study-wide setting ([gauges] nonlinearity), which a bridge channel
+    does not take.
+    """
+    if not bridges:
+        return gauges
+    index = {g: i for i, g in enumerate(gauges["gauge"])}
+    in_bridge = {a for b in bridges for a in b.arms if a is not None}
+    keep = [i for i, g in enumerate(gauges["gauge"]) if g not in in_bridge]
+    first = [index[next(a for a in b.arms if a is not None)] for b in bridges]
+    members = [[index[a] for a in b.arms if a is not None] for b in bridges]
+    table = pd.concat([gauges.iloc[keep], _bridge_rows(gauges, list(bridges), first, members)],
+                      ignore_index=True)
+    if "nonlinearity" not in gauges and not nonlinearity:
+        table = table.drop(columns="nonlinearity")  # nothing to switch off
+    elif "nonlinearity" not in gauges:
+        table["nonlinearity"] = table["nonlinearity"].fillna("")  # the study-wide setting
+    return table
 
 
 def open_channels(study: Study, file: Path, model: Model) -> Model:
@@ -173,8 +196,8 @@ def _bridge_rows(gauges: pd.DataFrame, bridges: list[Bridge], first: list[int],
             rows[col] = ""
     if "height" in rows:
         rows["height"] = np.nan
-    if "nonlinearity" in rows:
-        rows["nonlinearity"] = "none"  # a study-wide quarter-bridge setting is not a bridge's
+    # a quarter-bridge non-linearity (per gauge or study-wide) is not a bridge's
+    rows["nonlinearity"] = "none"
     if any(np.isfinite(b.shunt_gain) for b in bridges) or "shunt_gain" in rows:
         rows["shunt_gain"] = [b.shunt_gain for b in bridges]
     rows["arms"] = [arms_text(b) for b in bridges]
@@ -215,4 +238,5 @@ def bridge_evaluator(model: ChannelModel, j: int,
     return evaluate
 
 
-__all__ = ["ChannelModel", "arms_text", "bridge_evaluator", "compared_model", "open_channels"]
+__all__ = ["ChannelModel", "arms_text", "bridge_evaluator", "channel_gauges", "compared_model",
+           "open_channels"]
