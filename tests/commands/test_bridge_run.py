@@ -16,6 +16,8 @@ Forward relations used to make the raw readings (the inverse of what run applies
 
 from __future__ import annotations
 
+import json
+
 import meshio
 import numpy as np
 import pandas as pd
@@ -160,3 +162,68 @@ def test_a_bridge_channel_missing_from_the_readings_is_named(tmp_path, capsys):
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and "CH7" in err[0] and "PB" in err[0], err
     assert not (tmp_path / "out").exists()
+
+
+def test_diagnosis_moves_the_arms_of_a_bridge_together(tmp_path):
+    # Readings of the bending half bridge made at x = 2 + 0.15 for both arms (beam theory, as in
+    # _cantilever): the position search, which moves every arm by the same offset along its own
+    # grid, finds the 0.15 mm move. Tolerance 0.005 mm: the search's own convergence
+    # (rms_after about 0.01 ue on 100 ue); the criteria are tightened to 2 % so that it fails.
+    arms = [_grid("T", 2.0, 1.5, 2.0, (1, 0, 0), bridge="HB", arm=1),
+            _grid("B", 2.0, 1.5, 0.0, (1, 0, 0), bridge="HB", arm=2),
+            _grid("Q", 1.0, 1.5, 2.0, (1, 0, 0), bridge="", arm="")]
+    zeros = np.zeros(len(LOADS))
+    study = write_block_study(tmp_path, gauges=pd.DataFrame(arms),
+                              readings_rows=_readings({"HB": zeros, "Q": zeros}))
+    study.write_text(study.read_text().replace("relative = 0.10", "relative = 0.02"))
+    _cantilever(tmp_path, p_n=70.0)
+    moved = 2 * 70.0 * (4.0 - 2.0 - 0.15) * 1.0 / (70000.0 * 2.0) * 1e6 * FACTORS[:, 0]
+    q = 70.0 * (4.0 - 1.0) * 1.0 / (70000.0 * 2.0) * 1e6 * FACTORS[:, 0]
+    _readings({"HB": moved, "Q": q}).to_csv(tmp_path / "readings.csv", index=False)
+    assert main(["--quiet", "run", str(study), "--out", str(tmp_path / "out"),
+                 "--no-report"]) == 0
+    diagnoses = json.loads((tmp_path / "out" / "summary.json").read_text())["diagnoses"]
+    offset = [d for d in diagnoses if d["gauge"] == "HB" and d["explanation"] == "position offset"]
+    assert len(offset) == 1 and offset[0]["parameter"] == pytest.approx(0.15, abs=0.005)
+
+
+@pytest.mark.render
+def test_report_and_gauges_vtp_show_every_arm(tmp_path):
+    # The views and gauges.vtp draw each arm at its own grid: the arms' points are read back with
+    # VTK's XML reader (pyvista) and compared with the gauge map's coordinates (tolerance 1e-9:
+    # the points are written as given, a grid on the face it lies on).
+    g = pd.DataFrame(POISSON_HALF)
+    true = _true(g)
+    bridge = np.asarray(bridge_output(np.c_[true[:, 0], true[:, 1]], factor=1.0))
+    raw = bridge * (2.10 / 2.00) * -1
+    assert _run(tmp_path, POISSON_HALF, _readings({"PB": raw, "Q1": true[:, 2]}),
+                report=True) == 0
+    import pyvista as pv
+
+    vtp = pv.read(tmp_path / "out" / "gauges.vtp")
+    grids = list(vtp.point_data["grid"])
+    assert grids == ["Q1", "PA", "PT"]  # the single grid, then the bridge by its arms
+    assert list(vtp.point_data["arm"]) == [0, 1, 2]
+    assert list(vtp.point_data["gauge"]) == ["Q1", "PB", "PB"]
+    np.testing.assert_allclose(vtp.points, g.loc[[2, 0, 1], ["x", "y", "z"]].to_numpy(float),
+                               atol=1e-9)
+    # the channel's values on every arm (one reading of the channel)
+    pb = vtp.point_data["measured_ue"][1:]
+    assert pb[0] == pb[1]
+    html = (tmp_path / "out" / "report.html").read_text(encoding="utf-8")
+    assert "PB (bridge, arms 1:PA 2:PT)" in html
+
+
+def test_a_study_without_bridges_writes_the_same_files(tmp_path):
+    # Interface stability (the project's rule): blank bridge and arm columns change no output.
+    plain = [{k: v for k, v in r.items() if k not in ("bridge", "arm")} for r in POISSON_HALF]
+    blank = [dict(r, bridge="", arm="") for r in plain]
+    g = pd.DataFrame(plain)
+    true = _true(g)
+    readings = _readings({"PA": true[:, 0], "PT": true[:, 1], "Q1": true[:, 2]})
+    assert _run(tmp_path / "plain", plain, readings) == 0
+    assert _run(tmp_path / "blank", blank, readings) == 0
+    for name in ("gauges.csv", "gauge_stats.csv", "flags.csv", "rosettes.csv"):
+        assert (tmp_path / "plain" / "out" / name).read_bytes() == \
+            (tmp_path / "blank" / "out" / name).read_bytes(), name
+    assert "arms" not in pd.read_csv(tmp_path / "plain" / "out" / "gauges.csv").columns
