@@ -641,11 +641,20 @@ GAUGES = [
     ("RB-c", (191.0, 7.0, T), (-_C60, _S60, 0), (0, 0, 1), 1.5, 0.010, "RB", "top",
      "0/60/120 rosette, grid at 120 degrees"),
 ]
+# One invented bending half bridge (a bridge channel, not two quarter bridges): two grids on the
+# arm's opposite side faces at mid-thickness, wired as arms 1 and 2 of one channel "HB" (the
+# [[bridge]] table of study.toml sets its factor and shunt gain). Same row layout as GAUGES.
+BRIDGE_ARMS = [
+    ("HB1", (100.0, ARM_HALF_WIDTH, T / 2), (1, 0, 0), (0, 1, 0), 3.0, 0.004, "", "side +y",
+     "bending half bridge HB, arm 1 (in compression under the side load)"),
+    ("HB2", (100.0, -ARM_HALF_WIDTH, T / 2), (1, 0, 0), (0, -1, 0), 3.0, 0.004, "", "side -y",
+     "bending half bridge HB, arm 2, opposite HB1"),
+]
 # One gauge carries its own placement tolerances (a bore installation is less precise).
 GAUGE_TOLERANCES = {"G09": (0.5, 3.0)}  # (position_tol [mm], angle_tol [deg])
 GAUGE_COLUMNS = ("gauge", "x", "y", "z", "dir_x", "dir_y", "dir_z", "length", "kt", "rosette",
                  "face", "position_tol", "angle_tol", "gauge_ohm", "lead_ohm", "wiring",
-                 "daq_gauge_factor", "lot")
+                 "daq_gauge_factor", "lot", "bridge", "arm")
 # The invented measurement chain of every channel (make_test_log.py uses the same values):
 # 350 ohm grids on 3-wire leads of 1.2 ohm each, read at gauge factor 2.00, one gauge lot.
 CHAIN_COLUMNS = {"gauge_ohm": "350", "lead_ohm": "1.2", "wiring": "3-wire",
@@ -739,7 +748,18 @@ def gauge_rows() -> list[dict[str, object]]:
                      "z": f"{centre[2]:.4f}", "dir_x": f"{d[0]:.6f}", "dir_y": f"{d[1]:.6f}",
                      "dir_z": f"{d[2]:.6f}", "length": f"{length:g}", "kt": f"{kt:g}",
                      "rosette": rosette, "face": "", "position_tol": pos_tol,
-                     "angle_tol": ang_tol, **CHAIN_COLUMNS})
+                     "angle_tol": ang_tol, **CHAIN_COLUMNS, "bridge": "", "arm": ""})
+    for k, (gid, centre, direction, _, length, kt, _, _, _) in enumerate(BRIDGE_ARMS):
+        d = np.asarray(direction, dtype=float)
+        d /= np.linalg.norm(d)
+        # a bridge arm: no quarter-bridge leads, wiring or gauge lot (refused on arms)
+        rows.append({"gauge": gid, "x": f"{centre[0]:.4f}", "y": f"{centre[1]:.4f}",
+                     "z": f"{centre[2]:.4f}", "dir_x": f"{d[0]:.6f}", "dir_y": f"{d[1]:.6f}",
+                     "dir_z": f"{d[2]:.6f}", "length": f"{length:g}", "kt": f"{kt:g}",
+                     "rosette": "", "face": "", "position_tol": "", "angle_tol": "",
+                     "gauge_ohm": "350", "lead_ohm": "", "wiring": "",
+                     "daq_gauge_factor": "", "lot": "",  # the channel set to the grids' GF
+                     "bridge": "HB", "arm": str(k + 1)})
     return rows
 
 
@@ -911,10 +931,10 @@ def build(out_dir: Path = DEFAULT_OUT, geometry_path: Path | None = GEOMETRY_JSO
     write_results(out_dir, points, tet10, results)
     coarse = write_coarse(out_dir)
 
-    centres = np.array([g[1] for g in GAUGES], dtype=float)
+    centres = np.array([g[1] for g in GAUGES + BRIDGE_ARMS], dtype=float)
     distance = distance_to_triangles(centres, boundary_triangles(points, tet10))
     if distance.max() > SURFACE_TOL:
-        far = GAUGES[int(distance.argmax())][0]
+        far = (GAUGES + BRIDGE_ARMS)[int(distance.argmax())][0]
         raise RuntimeError(f"gauge {far} is {distance.max():.4f} mm from the mesh surface")
     with open(out_dir / "gauges.csv", "w", newline="") as handle:
         writer = csv.DictWriter(handle, fieldnames=GAUGE_COLUMNS, lineterminator="\n")

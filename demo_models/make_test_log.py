@@ -25,6 +25,7 @@ import pandas as pd
 
 from correlate.api import predict_readings
 from correlate.core.errors import CorrelateWarning
+from correlate.measurement.bridge import bridge_output
 from correlate.measurement.chain import lead_wire_factor, raw_from_true
 
 DEMO = Path(__file__).resolve().parent.parent / "correlate" / "data" / "demo"
@@ -54,6 +55,9 @@ DRIFT_UE_PER_STEP = 9.0
 LOT = {"gauge_factor": 2.05, "gauge_factor_tc": 1.0, "reference_C": 24.0, "range_C": (-30.0, 120.0),
        "thermal_output": (40.0, -1.0, -0.02, 4.0e-5)}  # ue against degC, at GF 2.00
 TEMPERATURE_C = ((21.0, 27.0), (30.0, 36.0))  # per run: the bracket warms in the hall (invented)
+# The invented bending half bridge on the arm (gauges.csv HB1, HB2; study.toml's [[bridge]] says
+# the same): read at factor 2 as the surface bending strain; its shunt calibration read 0.4 % low.
+BRIDGE = {"name": "HB", "factor": 2.0, "shunt_gain": 0.996}
 
 
 def model_readings(gauges: pd.DataFrame) -> pd.DataFrame:
@@ -97,9 +101,13 @@ def _turned_90(row: pd.Series) -> np.ndarray:
 
 def make_log() -> pd.DataFrame:
     rng = np.random.default_rng(SEED)
-    gauges = pd.read_csv(DEMO / "gauges.csv", dtype={"gauge": str, "rosette": str, "face": str})
+    every = pd.read_csv(DEMO / "gauges.csv", dtype={"gauge": str, "rosette": str, "face": str,
+                                                    "bridge": str, "lot": str, "wiring": str})
+    arm = every["bridge"].fillna("") != ""
+    gauges = every[~arm].reset_index(drop=True)   # the quarter-bridge channels
     names = list(gauges["gauge"])
-    truth_cases = model_readings(faulted_gauge_map(gauges)).loc[names] / STIFFNESS
+    all_cases = model_readings(faulted_gauge_map(every)) / STIFFNESS
+    truth_cases = all_cases.loc[names]
     profile = np.array(PROFILE * SEQUENCES)
     seq = np.repeat(np.arange(1, SEQUENCES + 1), len(PROFILE))
     f = np.c_[profile[:, 0] / REFERENCE["pull"], profile[:, 1] / REFERENCE["side"]]
@@ -118,6 +126,7 @@ def make_log() -> pd.DataFrame:
     data[:, col[FAULTS["reversed"]]] *= -1.0
     data[:, col[FAULTS["dead"]]] = -12.0 + rng.normal(0.0, 0.3, len(profile))
     log = pd.DataFrame(np.round(data, 1), columns=names)
+    log[BRIDGE["name"]] = np.round(bridge_channel(f, all_cases, every[arm]), 1)
     log.insert(0, "temp_C", temperature)
     log.insert(0, "F_side_kN", profile[:, 1])
     log.insert(0, "F_pull_kN", profile[:, 0])
@@ -125,6 +134,21 @@ def make_log() -> pd.DataFrame:
     log.insert(0, "sequence", seq)
     log.insert(0, "step", np.arange(1, len(profile) + 1))
     return log
+
+
+def bridge_channel(f: np.ndarray, cases: pd.DataFrame, arms: pd.DataFrame) -> np.ndarray:
+    """What the invented bending half bridge's channel shows: (e1 - e2) / factor of its arms'
+    true strains (the Wheatstone bridge relation, correlate.measurement.bridge.bridge_output;
+    the preload of the tare row included), times the channel's shunt gain (the channel was set
+    to the grids' gauge factor, so no gauge-factor ratio), plus a zero offset and noise; a
+    random stream of its own (seed + 1), so the quarter-bridge channels are as before."""
+    rng = np.random.default_rng(SEED + 1)
+    arm_of = dict(zip(arms["arm"].astype(int), arms["gauge"], strict=True))
+    e = np.stack([f @ cases.loc[arm_of[k], ["pull", "side"]].to_numpy(dtype=float)
+                  if k in arm_of else np.full(len(f), np.nan) for k in (1, 2, 3, 4)], axis=1)
+    channel = bridge_output(e, factor=BRIDGE["factor"])
+    offset = rng.uniform(-OFFSET_UE, OFFSET_UE)
+    return channel * BRIDGE["shunt_gain"] + offset + rng.normal(0.0, NOISE_UE, len(f))
 
 
 def as_read(strain: np.ndarray, temperature: np.ndarray, seq: np.ndarray,

@@ -15,6 +15,7 @@ import pandas as pd
 from correlate.comparison.correlation import chain_readings
 from correlate.comparison.pairing import gauge_channels, load_columns
 from correlate.core.errors import CorrelateError, StudyError
+from correlate.model_readings.channels import channel_gauges
 from correlate.model_readings.conventions import convention_warnings
 from correlate.model_readings.model import (
     Model,
@@ -57,10 +58,14 @@ def check_study(study: Study) -> tuple[Model, pd.DataFrame, list[str]]:
         problems: list[str] = []
         opened, sources = _attempt(problems, open_sources, study)
         _, gauges = _attempt(problems, read_gauges, study.gauges_file)
+        channels, bridges = gauges, None
         if gauges is not None:  # the bridges' columns and [[bridge]] tables, one line each
-            _attempt(problems, lambda: bridges_of(gauges, study.bridge_tables,
-                                                  source=study.gauges_file.name,
-                                                  study=study.path.name))
+            _, bridges = _attempt(problems, lambda: bridges_of(gauges, study.bridge_tables,
+                                                               source=study.gauges_file.name,
+                                                               study=study.path.name))
+            if bridges:  # the readings hold the channels: a bridge's, not its arms'
+                _, channels = _attempt(problems, channel_gauges, gauges, bridges,
+                                       study.chain.nonlinearity)
         settled = opened and _attempt(problems, settle_family, study, sources, gauges)[0]
         bad_cases = set()
         for case in study.cases if settled else ():
@@ -71,12 +76,14 @@ def check_study(study: Study) -> tuple[Model, pd.DataFrame, list[str]]:
         model = None
         if settled and gauges is not None:
             _, model = _attempt(problems, locate, study, sources, gauges)
+            if model is not None and bridges:
+                model.bridges = bridges  # as prepare() gives them
         for case in study.cases if model is not None else ():
             if case.name not in bad_cases:
                 for fe_index, _ in case_steps(model, case)[:1]:
                     _attempt(problems, case_rows, model, case, fe_index)
-        if study.readings_file is not None and gauges is not None:
-            _attempt(problems, chain_readings, study, gauges)  # the chain's inputs too
+        if study.readings_file is not None and channels is not None:
+            _attempt(problems, chain_readings, study, channels)  # the chain's inputs too
         elif study.readings_file is not None and (channels := _raw_channels(study.gauges_file)):
             _attempt(problems, lambda: read_readings(study.readings_file, gauges=channels,
                                                      loads=load_columns(study),
@@ -141,7 +148,11 @@ def _raw_channels(gauges_file: Path) -> dict[str, str]:
         return {}
     ids = raw["gauge"].str.strip()
     channel = raw["channel"].str.strip() if "channel" in raw else ids
-    return {g: (c or g) for g, c in zip(ids, channel, strict=True) if g}
+    bridge = raw["bridge"].str.strip() if "bridge" in raw else pd.Series("", index=raw.index)
+    # a bridge arm has no readings column of its own: the bridge's id stands for its channel
+    out = {g: (c or g) for g, c, b in zip(ids, channel, bridge, strict=True) if g and not b}
+    out.update({b: b for b in dict.fromkeys(bridge) if b})
+    return out
 
 
 def run(args: argparse.Namespace) -> int:

@@ -50,8 +50,9 @@ from correlate.measurement.channels import (
 )
 from correlate.measurement.corrections import channel_scale
 from correlate.measurement.tare import tare_readings
+from correlate.model_readings.channels import compared_model, open_channels
 from correlate.model_readings.model import Model, case_rows, prepare
-from correlate.model_readings.other_models import open_variant, variant_study
+from correlate.model_readings.other_models import variant_study
 from correlate.model_readings.table import band_limits
 from correlate.readers.study import Study
 
@@ -228,12 +229,7 @@ def _require_pairs(study: Study, steps: Steps, measured: NDArray) -> None:
 def correlate_study(study: Study, model: Model | None = None) -> Correlation:
     """Run the correlation of a study; nothing is written."""
     _require_loads(study)
-    model = model or prepare(study)
-    if model.bridges:
-        listed = ", ".join(f"'{b.name}'" for b in model.bridges)
-        raise StudyError(f"{study.path.name}: bridge channel(s) {listed} are read, but run does "
-                         "not compare bridge channels yet; use predict for their model readings, "
-                         "or leave the gauge map's bridge column blank to compare each grid")
+    model = compared_model(model or prepare(study))
     names = model.gauges["gauge"].tolist()
     readings, steps, measured, chain = chain_readings(study, model.gauges)
     _require_pairs(study, steps, measured)
@@ -251,7 +247,7 @@ def correlate_study(study: Study, model: Model | None = None) -> Correlation:
     progress.pause("health")
     st, result, diag = _compare(study, model, steps, names, measured, m, excl, flags, reversed_)
     ref = reference_step(m.predicted, steps)
-    per_gauge = result.pop("per_gauge_table")
+    per_gauge = with_arms(result.pop("per_gauge_table"), model.gauges)
     ros = rosette_table(study, model, model.gauges, steps, measured, m.axial, st.evaluated)
     result["load_checks"] = load_checks(study, steps, measured, st, m.rows_by_case,
                                         model.operator)
@@ -268,7 +264,8 @@ def correlate_study(study: Study, model: Model | None = None) -> Correlation:
     return Correlation(study=study, model=model, steps=steps, gauges=names, measured=measured,
                        predicted=m.predicted, predicted_axial=m.axial, band_low=m.low.T,
                        band_high=m.high.T, contributions=m.contributions, status=st, flags=flags,
-                       gauge_table=gauge_table(names, steps, measured, m, st, chain, budget),
+                       gauge_table=with_arms(gauge_table(names, steps, measured, m, st, chain,
+                                                         budget), model.gauges),
                        per_gauge=per_gauge, rosettes=ros, diagnoses=diag, summary=summary,
                        rows_by_case=m.rows_by_case, chain=chain, corrections=corrections,
                        validation=budget,
@@ -288,7 +285,7 @@ def _budget(study: Study, model: Model, steps: Steps, names: list[str], measured
         return None
 
     def predict(file: Any) -> NDArray[np.float64]:
-        other = open_variant(study, file, model.gauges)
+        other = open_channels(study, file, model)
         return model_readings(variant_study(study, file), other, steps).predicted
 
     with progress.step("validation budget (other meshes and input variants included)"):
@@ -329,6 +326,15 @@ def _compare(study: Study, model: Model, steps: Steps, names: list[str], measure
         result = fit_statistics(study, steps, names, measured, m.predicted, st,
                                 reversed_ | suspect, ref)
     return st, result, diag
+
+
+def with_arms(table: pd.DataFrame, gauges: pd.DataFrame) -> pd.DataFrame:
+    """``table`` with an ``arms`` column naming each bridge channel's arm grids (``1:G1 2:G2``;
+    blank for a single grid) when the gauge map has bridges; unchanged otherwise."""
+    if "arms" not in gauges or "gauge" not in table:
+        return table
+    arms = dict(zip(gauges["gauge"], gauges["arms"].fillna(""), strict=True))
+    return table.assign(arms=table["gauge"].map(arms).fillna(""))
 
 
 def gauge_table(names: list[str], steps: Steps, measured: NDArray, m: ModelForTest,

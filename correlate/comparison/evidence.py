@@ -28,6 +28,7 @@ from correlate.comparison.rosettes import rosette_angles, rosette_groups
 from correlate.core.errors import CorrelateWarning
 from correlate.core.units import MICROSTRAIN
 from correlate.mechanics.gauge import indicated_strain
+from correlate.model_readings.channels import ChannelModel, bridge_evaluator
 from correlate.model_readings.evaluate import centre_strain
 from correlate.model_readings.model import Model, case_rows
 from correlate.model_readings.operator import build_operator
@@ -46,7 +47,8 @@ def _alternatives(study: Study, model: Model, steps: Steps, rows_by_case: dict, 
     ax = np.array([rows_by_case[c]["axial"][nominal] for c in names])
     tr = np.array([rows_by_case[c]["transverse"][nominal] for c in names])
     f = steps.factors * MICROSTRAIN
-    out = {"rotated_90": f @ indicated_strain(tr, ax, kt, nu0)}
+    bridge = isinstance(model, ChannelModel) and model.is_bridge(j)
+    out = {} if bridge else {"rotated_90": f @ indicated_strain(tr, ax, kt, nu0)}
     out["no_kt"] = f @ (indicated_strain(ax, tr, kt, nu0) if study.kt_corrected else ax)
     other = _other_face(study, model, steps, j)
     if other is not None:
@@ -121,6 +123,14 @@ def _evaluator(study: Study, model: Model, steps: Steps, j: int
     return evaluate
 
 
+def _moved(study: Study, model: Model, steps: Steps, j: int
+           ) -> Callable[[NDArray, NDArray], NDArray]:
+    """:func:`_evaluator` of channel j; a bridge's arms are moved and turned together."""
+    if isinstance(model, ChannelModel) and model.is_bridge(j):
+        return bridge_evaluator(model, j, lambda base, i: _evaluator(study, base, steps, i))
+    return _evaluator(study, model, steps, j)
+
+
 def _neighbours_pass(model: Model, j: int, passing: NDArray, healthy: NDArray) -> bool | None:
     centres = model.operator.placement.centre
     others = np.flatnonzero(healthy & (np.arange(len(passing)) != j))
@@ -155,7 +165,7 @@ def diagnose_failures(study: Study, model: Model, steps: Steps, names: list[str]
             gauge=names[j], measured=m, predicted=predicted[:, j], active=steps.active & ev[:, j],
             alternatives=_alternatives(study, model, steps, rows_by_case, j),
             contributions=contributions[:, j, :],
-            evaluate_at=_evaluator(study, model, steps, j),
+            evaluate_at=_moved(study, model, steps, j),
             position_tol=float(study.position_tol if np.isnan(ptol) else ptol),
             angle_tol=float(study.angle_tol if np.isnan(atol) else atol),
             neighbours_pass=_neighbours_pass(model, j, passing, healthy),

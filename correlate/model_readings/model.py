@@ -76,6 +76,12 @@ class Model:
     def source(self, case: Case) -> ModelSource:
         return self.sources[case.file or self.study.model_file]
 
+    def channel_rows(self, case: Case, fe_index: int | None
+                     ) -> dict[str, NDArray[np.float64]] | None:
+        """A case's rows when the compared channels are not the operator's gauges (a bridge is
+        a combination of its arms: :mod:`correlate.model_readings.channels`); None here."""
+        return None
+
 
 def open_sources(study: Study) -> dict[Path, ModelSource]:
     """Open the model file and any per-case files; they must share one mesh.
@@ -332,6 +338,10 @@ def case_problems(study: Study, sources: dict[Path, ModelSource], case: Case) ->
 def case_rows(model: Model, case: Case, fe_index: int | None,
               operator: GaugeOperator | None = None) -> dict[str, NDArray[np.float64]]:
     """Operator rows of one case (one FE state), in m/m; mechanical for a thermal case."""
+    if operator is None:
+        combined = model.channel_rows(case, fe_index)
+        if combined is not None:
+            return combined
     op = operator or model.operator
     fld = model.case_field(case, fe_index, op)
     rows = evaluate_rows(op, fld)

@@ -23,7 +23,7 @@ import pandas as pd
 from correlate.core.errors import GaugeError, ReadingsFormatError
 
 BRIDGE_COLUMNS = ("bridge", "arm")
-BRIDGE_KEYS = {"name", "channel", "factor"}
+BRIDGE_KEYS = {"name", "channel", "factor", "shunt_gain"}
 
 
 @dataclass(frozen=True)
@@ -35,6 +35,7 @@ class Bridge:
     arms: tuple[str | None, str | None, str | None, str | None]
     factor: float = 1.0
     channel: str = ""
+    shunt_gain: float = math.nan   # [[bridge]] shunt_gain: the channel's shunt calibration
 
     @property
     def column(self) -> str:
@@ -43,15 +44,17 @@ class Bridge:
 
 
 def parse_bridge_tables(raw: dict[str, Any], name: str,
-                        problems: list[str]) -> dict[str, tuple[str, float]]:
-    """Read the study's ``[[bridge]]`` tables: bridge id -> (channel, factor).
+                        problems: list[str]) -> dict[str, tuple[str, float, float]]:
+    """Read the study's ``[[bridge]]`` tables: bridge id -> (channel, factor, shunt_gain).
 
     ``name`` is the bridge id of the gauge map's ``bridge`` column; ``channel`` (default: the
-    id) the readings column; ``factor`` (default 1) divides ``e1 - e2 + e3 - e4``. One problem
-    line per bad table, appended to ``problems``.
+    id) the readings column; ``factor`` (default 1) divides ``e1 - e2 + e3 - e4``;
+    ``shunt_gain`` (default NaN: none) the channel's measured over expected shunt response,
+    which divides the channel's reading. One problem line per bad table, appended to
+    ``problems``.
     """
     items = raw.get("bridge", [])
-    out: dict[str, tuple[str, float]] = {}
+    out: dict[str, tuple[str, float, float]] = {}
     for i, item in enumerate(items if isinstance(items, list) else [items]):
         if not isinstance(item, dict):
             continue  # reported with the study's table shapes
@@ -74,9 +77,17 @@ def parse_bridge_tables(raw: dict[str, Any], name: str,
                             f"number{quoted} (1 for the channel's indication, 2 for a bending "
                             "half bridge read as surface strain)")
             factor = 1.0
+        shunt = item.get("shunt_gain", math.nan)
+        if isinstance(shunt, bool) or not isinstance(shunt, int | float) or \
+                ("shunt_gain" in item and not (math.isfinite(shunt) and shunt > 0)):
+            quoted = "; write it without quotes" if isinstance(shunt, str) else ""
+            problems.append(f"{name}: {where} shunt_gain = {shunt!r} is not a positive "
+                            f"number{quoted} (the measured over the expected shunt-calibration "
+                            "response of the channel, near 1)")
+            shunt = math.nan
         if bid.strip() in out:
             problems.append(f"{name}: {where} is given twice; give each bridge one table")
-        out[bid.strip()] = (channel.strip(), float(factor))
+        out[bid.strip()] = (channel.strip(), float(factor), float(shunt))
     return out
 
 
@@ -110,6 +121,7 @@ def validate_bridges(
         raise GaugeError(msg)
     problems: list[str] = []
     members: dict[str, dict[int, list[str]]] = {}
+    reported: set[str] = set()  # bridges with a bad arm: no second line for the same bridge
     for g, b, a in zip(gauge, bridge, arm, strict=True):
         name = _blank_to_none(b)
         if name is None:
@@ -119,6 +131,7 @@ def validate_bridges(
             problems.append(
                 f"gauge '{g}' in bridge '{name}': arm {a!r} is not 1, 2, 3 or 4; give the arm it is wired into (1 and 3 add, 2 and 4 subtract)"
             )
+            reported.add(name)
             continue
         members.setdefault(name, {}).setdefault(number, []).append(str(g))
     arms_of: dict[str, tuple[str | None, str | None, str | None, str | None]] = {}
@@ -129,7 +142,8 @@ def validate_bridges(
                 problems.append(
                     f"gauges {listed} in bridge '{name}' share arm {number}; expected one grid per arm, check the arm column"
                 )
-        if len(by_arm) == 1:
+                reported.add(name)
+        if len(by_arm) == 1 and name not in reported:
             listed = ", ".join(f"'{g}'" for grids in by_arm.values() for g in grids)
             problems.append(
                 f"gauge {listed} is the only arm of bridge '{name}'; one active arm is a quarter bridge: leave its bridge column blank"
@@ -161,7 +175,7 @@ def _arm_number(value: object) -> int | None:
     return int(number) if number in (1.0, 2.0, 3.0, 4.0) else None
 
 
-def bridges_of(gauges: pd.DataFrame, tables: dict[str, tuple[str, float]], *,
+def bridges_of(gauges: pd.DataFrame, tables: dict[str, tuple[str, float, float]], *,
                source: str = "gauge map", study: str = "study") -> tuple[Bridge, ...]:
     """The bridges of a gauge map with their ``[[bridge]]`` settings, in gauge-map order.
 
@@ -205,29 +219,43 @@ def bridges_of(gauges: pd.DataFrame, tables: dict[str, tuple[str, float]], *,
     problems += _chain_problems(gauges, column, source)
     if problems:
         raise GaugeError(*problems)
-    return tuple(Bridge(name=b, arms=a, factor=tables.get(b, ("", 1.0))[1],
-                        channel=tables.get(b, ("", 1.0))[0]) for b, a in arms.items())
+    none = ("", 1.0, math.nan)
+    return tuple(Bridge(name=b, arms=a, factor=tables.get(b, none)[1],
+                        channel=tables.get(b, none)[0], shunt_gain=tables.get(b, none)[2])
+                 for b, a in arms.items())
 
 
 def _chain_problems(gauges: pd.DataFrame, column: pd.Series, source: str) -> list[str]:
-    """Quarter-bridge corrections given on a bridge arm, one line each.
+    """Quarter-bridge and per-grid corrections given on a bridge arm, one line each.
 
     The lead-wire factors RG/(RG + n RL) and the non-linearity 2 e / (2 - GF e) are relations of
     a quarter bridge (Vishay TT-612, TN-507). In a half or full bridge the leads sit in the
     excitation and sense lines or in both adjacent arms, and a bending or push-pull bridge of
     equal and opposite arms is linear; the channel's desensitisation is taken out by its shunt
-    calibration (Vishay TN-514), which this version does not read for a bridge channel yet.
+    calibration (Vishay TN-514), given for the channel in its ``[[bridge]]`` table. The thermal
+    output of arms from one lot at one temperature cancels in ``e1 - e2 + e3 - e4`` to first
+    order (as many arms add as subtract: the reason for wiring a half or full bridge), so a
+    gauge lot on an arm is refused rather than corrected per grid.
     """
     arm = column.astype(str).str.strip() != ""
     out = []
-    for col, what in (("lead_ohm", "a lead-wire correction"), ("wiring", "a wiring"),
-                      ("shunt_gain", "a shunt gain")):
+    for col, what, fix in (
+            ("lead_ohm", "a lead-wire correction", "leave lead_ohm blank for bridge arms"),
+            ("wiring", "a wiring", "leave wiring blank for bridge arms"),
+            ("shunt_gain", "a shunt gain", "give the channel's shunt gain as shunt_gain in the "
+                                           "bridge's [[bridge]] table and leave the arm's blank"),
+            ("lot", "a gauge lot", "the arms' thermal output cancels in the bridge to first "
+                                   "order: leave lot blank for bridge arms"),
+            ("temperature", "a thermocouple column", "the arms' thermal output cancels in the "
+                                                     "bridge: leave temperature blank for "
+                                                     "bridge arms")):
         if col in gauges:
             values = gauges[col]
             given = values.notna() if values.dtype.kind == "f" else values.astype(str) != ""
+            reason = ("lead-wire corrections apply to quarter bridges only: "
+                      if col in ("lead_ohm", "wiring") else "")
             out += [f"{source}: gauge '{g}' is an arm of a bridge and has {what} ({col}); "
-                    "lead-wire and shunt corrections apply to quarter bridges only: leave "
-                    f"{col} blank for bridge arms" for g in gauges.loc[arm & given, "gauge"]]
+                    f"{reason}{fix}" for g in gauges.loc[arm & given, "gauge"]]
     if "nonlinearity" in gauges:
         quarter = gauges["nonlinearity"].astype(str).str.lower() == "quarter-bridge"
         out += [f"{source}: gauge '{g}' is an arm of a bridge and has nonlinearity "

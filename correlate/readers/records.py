@@ -197,7 +197,7 @@ class Study:
     chain: ChainSettings = ChainSettings()
     uncertainty: Uncertainty | None = None   # None: no [uncertainty] table, no budget
     numerical: Numerical | None = None       # None: no [numerical] table, u_num = 0
-    bridge_tables: dict[str, tuple[str, float]] = field(default_factory=dict)  # [[bridge]]
+    bridge_tables: dict[str, tuple[str, float, float]] = field(default_factory=dict)  # [[bridge]]
     fullfield: FullFieldSettings | None = None   # None: no [fullfield] table, no DIC outputs
 
     @property

@@ -103,6 +103,14 @@ def diagnosis_text(diagnoses: Any) -> dict[str, str]:
     return {g: "; ".join(v) for g, v in out.items()}
 
 
+def arms_of(corr: Correlation) -> list[str]:
+    """Each channel's arm grids (``1:G1 2:G2``; blank for a single grid)."""
+    gauges = corr.model.gauges
+    if "arms" not in gauges:
+        return [""] * len(corr.gauges)
+    return [str(a) if isinstance(a, str) else "" for a in gauges["arms"]]
+
+
 def gauge_rows(corr: Correlation, i: int) -> list[dict[str, str]]:
     """Rows of the per-gauge table at step row ``i``, worst first by |difference|."""
     st = corr.status
@@ -110,11 +118,12 @@ def gauge_rows(corr: Correlation, i: int) -> list[dict[str, str]]:
     order = np.argsort(np.where(np.isfinite(diff) & st.evaluated[i], -np.abs(diff), np.inf),
                        kind="stable")
     diag = diagnosis_text(corr.diagnoses)
+    arms = arms_of(corr)
     rows = []
     for j in order:
         status = str(st.status[i, j])
         rows.append({
-            "gauge": corr.gauges[j],
+            "gauge": corr.gauges[j], "arms": arms[j],
             "predicted": num(corr.predicted[i, j]),
             "measured": num(corr.measured[i, j]),
             "difference": num(diff[j], "+.1f"),

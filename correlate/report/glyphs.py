@@ -15,6 +15,8 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
+from correlate.model_readings.channels import ChannelModel
+
 RADIUS_FRACTION = 0.0045            # bar radius: 0.45 % of the model size (a grid reads as a
 #                                     bar or a dot at the scale of the whole part)
 POINT_MARKER = 4.0                  # a point gauge (no grid length): a bar of 4 radii
@@ -26,8 +28,54 @@ BAR_ASPECT = 0.3                    # bar radius at most this share of the bar's
 
 
 @dataclass(frozen=True)
+class Grids:
+    """The grids the views draw, in channel order: each gauge that is no bridge arm, and every
+    arm of a bridge in arm order. ``channel[k]`` is the compared channel grid k belongs to."""
+
+    channel: NDArray[np.int64]        # (k,)
+    label: tuple[str, ...]            # the gauge, or "bridge arm n: grid"
+    grid: tuple[str, ...]             # the gauge-map row drawn
+    arm: NDArray[np.int64]            # (k,) 1..4 for a bridge arm, 0 otherwise
+    centre: NDArray[np.float64]       # (k, 3)
+    direction: NDArray[np.float64]    # (k, 3)
+    normal: NDArray[np.float64]       # (k, 3)
+    length: NDArray[np.float64]       # (k,) grid length (NaN: a point gauge)
+
+
+def drawn_grids(corr: Any) -> Grids:
+    """Every grid of the gauge map as drawn (a bridge channel by each of its arms, each at its
+    own place on the model: a bending bridge has arms on opposite faces)."""
+    model = corr.model
+    place = model.operator.placement
+    parts = [(j, corr.gauges[j], corr.gauges[j], 0, place, model.gauges, j)
+             for j in range(len(corr.gauges))]
+    if isinstance(model, ChannelModel) and model.base is not None:
+        base = model.base
+        arm = base.gauges.get("arm", None)
+        parts = []
+        for j, weights in enumerate(model.arm_weights):
+            if not model.is_bridge(j):
+                parts.append((j, corr.gauges[j], corr.gauges[j], 0, place, model.gauges, j))
+                continue
+            for i, _ in weights:
+                number = int(float(arm.iloc[i])) if arm is not None else 0
+                grid = base.gauges["gauge"].iloc[i]
+                parts.append((j, f"{corr.gauges[j]} arm {number}: {grid}", grid, number,
+                              base.operator.placement, base.gauges, i))
+    return Grids(channel=np.array([p[0] for p in parts], dtype=np.int64),
+                 label=tuple(p[1] for p in parts), grid=tuple(p[2] for p in parts),
+                 arm=np.array([p[3] for p in parts], dtype=np.int64),
+                 centre=np.array([p[4].centre[p[6]] for p in parts], dtype=float).reshape(-1, 3),
+                 direction=np.array([p[4].direction[p[6]] for p in parts],
+                                    dtype=float).reshape(-1, 3),
+                 normal=np.array([p[4].normal[p[6]] for p in parts], dtype=float).reshape(-1, 3),
+                 length=np.array([float(p[5]["length"].iloc[p[6]]) for p in parts], dtype=float))
+
+
+@dataclass(frozen=True)
 class Glyphs:
-    """Gauge bars in model coordinates (one row per gauge, in gauge order).
+    """Gauge bars in model coordinates (one row per drawn grid, :func:`drawn_grids`' order: a
+    bridge channel by each of its arms, labelled with the bridge, the arm and the grid).
 
     ``anchor`` is the marker point on the bar axis (label, visibility and colour checks);
     ``base`` is the same point on the surface, before the lift along the normal. ``state`` is the
@@ -106,13 +154,13 @@ def gauge_glyphs(corr: Any, surface: Any | None = None) -> Glyphs:
     With ``surface`` (the part's outer surface) each bar is clipped to the face it sits on
     (:func:`face_extent`); without it the bars keep the grid length.
     """
-    place = corr.model.operator.placement
+    grids = drawn_grids(corr)
     pts = corr.model.operator.mesh.points
     size = float(np.linalg.norm(pts.max(axis=0) - pts.min(axis=0))) or 1.0
     ref = corr.reference
-    centre, d, n = place.centre, place.direction, place.normal
+    centre, d, n = grids.centre, grids.direction, grids.normal
     radius = RADIUS_FRACTION * size
-    length = corr.model.gauges["length"].to_numpy(dtype=float)
+    length = grids.length
     length = np.where(np.isfinite(length) & (length > 0), length, POINT_MARKER * radius)
     key = np.round(centre / (1e-6 * size)).astype(np.int64)
     _, inverse, counts = np.unique(key, axis=0, return_inverse=True, return_counts=True)
@@ -135,9 +183,11 @@ def gauge_glyphs(corr: Any, surface: Any | None = None) -> Glyphs:
     disc = np.where(evaluated, corr.measured[ref] - corr.predicted[ref], np.nan)
     finite = np.isfinite(disc)
     limit = float(np.max(np.abs(disc[finite]))) if finite.any() else 0.0
-    return Glyphs(gauges=tuple(corr.gauges), start=start, end=end, anchor=base + lift, base=base,
-                  normal=n, discrepancy=disc, limit=limit if limit > 0 else 1.0, radius=radius,
-                  size=size, state=_states(corr), radii=radii)
+    state = _states(corr)
+    return Glyphs(gauges=grids.label, start=start, end=end, anchor=base + lift, base=base,
+                  normal=n, discrepancy=disc[grids.channel], limit=limit if limit > 0 else 1.0,
+                  radius=radius, size=size, state=tuple(state[j] for j in grids.channel),
+                  radii=radii)
 
 
 def bars(glyphs: Glyphs, select: NDArray[np.bool_], thickness: float = 1.0) -> Any:

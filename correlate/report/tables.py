@@ -171,7 +171,8 @@ def gauge_map_rows(corr: Correlation) -> list[dict[str, str]]:
         pos_tol = g.position_tol if np.isfinite(_float(g.position_tol)) else study.position_tol
         ang_tol = g.angle_tol if np.isfinite(_float(g.angle_tol)) else study.angle_tol
         rows.append({
-            "gauge": str(g.gauge), "xyz": _vector(g.x, g.y, g.z),
+            "gauge": str(g.gauge), "arms": _text(getattr(g, "arms", "")),
+            "xyz": _vector(g.x, g.y, g.z),
             "direction": _vector(g.dir_x, g.dir_y, g.dir_z),
             "length": num(g.length, "g"), "kt": num(g.kt, "g"),
             "rosette": str(g.rosette or ""),
@@ -183,6 +184,11 @@ def gauge_map_rows(corr: Correlation) -> list[dict[str, str]]:
             "allowed": num(allowed[j], ".1f"),
         })
     return rows
+
+
+def _text(value: Any) -> str:
+    """A text cell ('' for a blank or NaN one)."""
+    return value if isinstance(value, str) else ""
 
 
 def _float(value: Any) -> float:

@@ -8,6 +8,7 @@ from typing import Any
 
 import numpy as np
 
+from correlate.report.glyphs import drawn_grids
 from correlate.report.scene import model_surface
 
 STATUS_CODES = {"pass": 0, "fail": 1}
@@ -32,36 +33,43 @@ def gauge_points(corr: Any) -> Any:
     ``ratio``, ``band_low_ue``, ``band_high_ue``, ``status`` (string) and ``status_code`` (int,
     legend in the field data ``status_legend``), ``unconservative``, ``grid_length``, the
     all-step fit of each gauge as ``stats_<column of gauge_stats.csv>``, and the vectors
-    ``grid_direction`` and ``normal``.
+    ``grid_direction`` and ``normal``. A bridge channel is one point per arm, each at its
+    arm's grid with the channel's values; with bridges, the strings ``grid`` (the gauge-map row
+    drawn) and ``label`` and the int ``arm`` (1..4, 0 for a single grid) are added.
     """
     import pyvista as pv
 
-    place = corr.model.operator.placement
+    grids = drawn_grids(corr)
+    j = grids.channel
     ref = corr.reference
     st = corr.status
-    poly = pv.PolyData(np.asarray(place.centre, dtype=float))
-    status = np.asarray(st.status[ref]).astype(str)
+    poly = pv.PolyData(np.asarray(grids.centre, dtype=float))
+    status = np.asarray(st.status[ref]).astype(str)[j]
     data = {
         "predicted_ue": corr.predicted[ref], "measured_ue": corr.measured[ref],
         "difference_ue": st.difference[ref], "ratio": st.ratio[ref],
         "band_low_ue": corr.band_low[ref], "band_high_ue": corr.band_high[ref],
-        "grid_length": corr.model.gauges["length"].to_numpy(dtype=float),
     }
     for name, values in data.items():
-        poly.point_data[name] = np.asarray(values, dtype=float)
+        poly.point_data[name] = np.asarray(values, dtype=float)[j]
+    poly.point_data["grid_length"] = np.asarray(grids.length, dtype=float)
     poly.point_data["status_code"] = np.array([STATUS_CODES.get(s, 2) for s in status],
                                               dtype=np.int32)
-    poly.point_data["unconservative"] = np.asarray(st.unconservative[ref], dtype=np.int32)
+    poly.point_data["unconservative"] = np.asarray(st.unconservative[ref], dtype=np.int32)[j]
     per = corr.per_gauge.set_index("gauge") if len(corr.per_gauge) else None
     if per is not None:
         for col in per.columns:
             values = per[col].reindex(corr.gauges)
-            if np.issubdtype(values.dtype, np.number):
-                poly.point_data[f"stats_{col}"] = values.to_numpy(dtype=float)
-    poly.point_data["grid_direction"] = np.asarray(place.direction, dtype=float)
-    poly.point_data["normal"] = np.asarray(place.normal, dtype=float)
-    poly.GetPointData().AddArray(strings("gauge", corr.gauges))
+            if values.dtype.kind in "iufc":  # numbers (a text column such as arms is left out)
+                poly.point_data[f"stats_{col}"] = values.to_numpy(dtype=float)[j]
+    poly.point_data["grid_direction"] = np.asarray(grids.direction, dtype=float)
+    poly.point_data["normal"] = np.asarray(grids.normal, dtype=float)
+    poly.GetPointData().AddArray(strings("gauge", [corr.gauges[k] for k in j]))
     poly.GetPointData().AddArray(strings("status", status))
+    if (grids.arm > 0).any():
+        poly.GetPointData().AddArray(strings("grid", grids.grid))
+        poly.GetPointData().AddArray(strings("label", grids.label))
+        poly.point_data["arm"] = np.asarray(grids.arm, dtype=np.int32)
     poly.GetFieldData().AddArray(strings("status_legend", STATUS_LEGEND))
     step = corr.steps
     poly.field_data["reference_step"] = np.array([step.step[ref], step.sequence[ref]], dtype=np.int64)

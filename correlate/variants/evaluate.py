@@ -29,6 +29,7 @@ from correlate.core.errors import CorrelateError, CorrelateWarning
 from correlate.model_readings.locator import Locator
 from correlate.model_readings.model import Model, locate, open_sources, prepare, settle_family
 from correlate.model_readings.operator import GaugeOperator
+from correlate.readers.bridge_map import Bridge
 from correlate.readers.model import Mesh
 from correlate.readers.records import Study
 from correlate.variants.sweep_file import Variant
@@ -46,6 +47,7 @@ class Located:
     gauges: pd.DataFrame
     operator: GaugeOperator
     locator: Locator
+    bridges: tuple[Bridge, ...] = ()   # the gauge map's bridge channels (compared as channels)
 
 
 @dataclass(frozen=True)
@@ -92,7 +94,7 @@ def locate_base(study: Study) -> Located:
     """Locate the base study's gauges on its own model (``correlate run``'s preparation)."""
     model = prepare(study)
     return Located(mesh_hash=mesh_hash(model.operator.mesh), gauges=model.gauges,
-                   operator=model.operator, locator=model.locator)
+                   operator=model.operator, locator=model.locator, bridges=model.bridges)
 
 
 def with_variant_files(study: Study, variant: Variant) -> Study:
@@ -136,6 +138,7 @@ def correlate_variant(study: Study, variant: Variant, located: Located) -> Varia
                               operator=located.operator, locator=located.locator)
             else:
                 model = locate(vstudy, sources, located.gauges)
+            model.bridges = located.bridges
             corr = correlate_study(vstudy, model)
         except CorrelateError as exc:
             return VariantResult(name=variant.name, failure="; ".join(exc.problems))

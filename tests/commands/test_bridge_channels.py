@@ -1,4 +1,4 @@
-"""Bridge channels through predict and run (gauge-map bridge and arm, [[bridge]]).
+"""Bridge channels through predict and check (run: tests/commands/test_bridge_run.py) (gauge-map bridge and arm, [[bridge]]).
 
 The block of tests/builders.write_block_study carries case 'pull': e_xx = 1e-3 (1 + 0.1 x),
 e_yy = e_zz = -0.3 e_xx (an analytic field the tests set, not the tool's). A Poisson half bridge
@@ -54,17 +54,6 @@ def test_blank_bridge_columns_give_byte_identical_outputs(tmp_path):
     plain = _predict(tmp_path / "plain", ARMS)
     blank = _predict(tmp_path / "blank", [dict(a, bridge="", arm="") for a in ARMS])
     assert blank == plain
-
-
-def test_run_refuses_bridge_channels_in_one_line(tmp_path, capsys):
-    gauges = [dict(a, bridge="PB" if a["gauge"] != "Q1" else "",
-                   arm={"PA": 1, "PT": 2}.get(a["gauge"], "")) for a in ARMS]
-    study = write_block_study(tmp_path, gauges=pd.DataFrame(gauges), readings_rows=pd.DataFrame(
-        {"P_kN": [0.0, 10.0], "S_kN": [0.0, 0.0], "PB": [0.0, 1560.0], "Q1": [0.0, 1100.0]}))
-    assert main(["--quiet", "run", str(study), "--out", str(tmp_path / "out"), "--no-report"]) == 2
-    err = capsys.readouterr().err.strip().splitlines()
-    assert len(err) == 1 and "bridge channel(s) 'PB'" in err[0] and "predict" in err[0]
-    assert not (tmp_path / "out" / "gauges.csv").exists()
 
 
 def test_check_reports_a_bridge_table_naming_no_bridge(tmp_path, capsys):

@@ -7,6 +7,8 @@ Bad input: one line per problem naming the gauge, bridge or table (the project's
 
 from __future__ import annotations
 
+import math
+
 import pytest
 from builders import default_gauges, write_small_study
 
@@ -24,7 +26,7 @@ def _map(bridge, arm):
 
 def test_bridge_columns_give_arms_in_order_with_the_table_settings():
     gauges = _map(["HB", "HB", "", ""], ["2", "1", "", ""])
-    (b,) = bridges_of(gauges, {"HB": ("CH7", 2.0)})
+    (b,) = bridges_of(gauges, {"HB": ("CH7", 2.0, math.nan)})
     assert b.arms == ("S01", "S00", None, None)  # arm 1 is S01, arm 2 is S00
     assert (b.factor, b.column) == (2.0, "CH7")
     (b,) = bridges_of(gauges, {})
@@ -50,14 +52,14 @@ def test_bad_bridge_columns_name_the_gauge(bridge, arm, expected):
 
 def test_a_bridge_table_naming_no_bridge_is_refused():
     with pytest.raises(GaugeError) as exc:
-        bridges_of(_map(["HB", "HB", "", ""], ["1", "2", "", ""]), {"HX": ("", 1.0)},
+        bridges_of(_map(["HB", "HB", "", ""], ["1", "2", "", ""]), {"HX": ("", 1.0, math.nan)},
                    study="study.toml")
     (line,) = exc.value.problems
     assert line.startswith("study.toml: [[bridge]] 'HX' names no bridge") and "'HB'" in line
 
 
 def test_missing_bridge_channel_in_the_readings_is_refused():
-    (b,) = bridges_of(_map(["HB", "HB", "", ""], ["1", "2", "", ""]), {"HB": ("CH7", 1.0)})
+    (b,) = bridges_of(_map(["HB", "HB", "", ""], ["1", "2", "", ""]), {"HB": ("CH7", 1.0, math.nan)})
     with pytest.raises(ReadingsFormatError) as exc:
         missing_channels([b], ["step", "P_kN", "S02"], "readings.csv")
     (line,) = exc.value.problems
@@ -68,7 +70,9 @@ def test_missing_bridge_channel_in_the_readings_is_refused():
 def test_study_reads_bridge_tables_and_refuses_a_quoted_factor(tmp_path):
     study = read_study(write_small_study(
         tmp_path, extra_toml='[[bridge]]\nname = "HB"\nchannel = "CH7"\nfactor = 2\n'))
-    assert study.bridge_tables == {"HB": ("CH7", 2.0)}
+    (channel, factor, shunt), = study.bridge_tables.values()
+    assert list(study.bridge_tables) == ["HB"] and (channel, factor) == ("CH7", 2.0)
+    assert math.isnan(shunt)  # no shunt_gain given: none applies
     (tmp_path / "plain").mkdir()
     assert read_study(write_small_study(tmp_path / "plain")).bridge_tables == {}
     with pytest.raises(StudyError) as exc:
