@@ -29,7 +29,12 @@ from correlate.comparison.criteria import allowed_difference
 from correlate.comparison.pairing import pair_series
 from correlate.core.errors import ReadingsFormatError
 from correlate.core.units import LENGTH_UNITS, MICROSTRAIN
-from correlate.fullfield.levelling import apply_weights, gaussian_weights, window_weights
+from correlate.fullfield.levelling import (
+    apply_weights,
+    gaussian_weights,
+    grid_filter,
+    window_weights,
+)
 from correlate.fullfield.points import PointModel, Registration, locate_points, region_distance
 from correlate.fullfield.statistics import blocked_slope, field_metrics, hot_spot
 from correlate.fullfield.strain import (
@@ -121,12 +126,17 @@ def _levelling(ff: Any, xyz: NDArray, scale: float) -> tuple[Any, float, str]:
         tree = cKDTree(xyz)
         h = float(np.median(tree.query(xyz, k=2)[0][:, 1])) if len(xyz) > 1 else 1.0
         return None, UNFILTERED_BLOCK * h, "none (the model compared point by point)"
-    if ff.filter_kind == "gaussian":
-        return (gaussian_weights(xyz, sigma=size), GAUSSIAN_BLOCK * size,
+    gaussian = ff.filter_kind == "gaussian"
+    grid = grid_filter(xyz, sigma=size) if gaussian else grid_filter(xyz, size=size)
+    how = ("by normalised convolution on the points' own grid" if grid is not None
+           else "over neighbouring point pairs")
+    if gaussian:
+        W = grid if grid is not None else gaussian_weights(xyz, sigma=size)
+        return (W, GAUSSIAN_BLOCK * size,
                 f"Gaussian of standard deviation {ff.filter_size:g} {ff.length_unit}, truncated "
-                "at 3 standard deviations, normalised over the neighbours present")
-    return (window_weights(xyz, size=size), size,
-            f"mean over a disc of diameter {ff.filter_size:g} {ff.length_unit}")
+                f"at 3 standard deviations, normalised over the neighbours present ({how})")
+    W = grid if grid is not None else window_weights(xyz, size=size)
+    return (W, size, f"mean over a disc of diameter {ff.filter_size:g} {ff.length_unit} ({how})")
 
 
 def _frame_row(corr: Correlation, frame: str, step: float) -> int:

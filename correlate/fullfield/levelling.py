@@ -16,10 +16,19 @@ surface by a relative O((r / R)^2), negligible for filter radii r much smaller t
 filter fills no holes). Filters are normalised row by row, so near an edge the average is over
 the neighbours that exist (a constant field is kept exactly; a gradient is biased there, since
 the weights' centroid moves inward).
+
+Points on a regular grid (what grid-based DIC exports give on a flat region) are levelled by
+normalised convolution on that grid instead (:func:`grid_filter`): the same kernel, the same
+truncation and normalisation, computed by FFT (``scipy.signal.fftconvolve`` of values x mask and
+of the mask), so the cost is proportional to the grid's size and independent of the window. On
+points exactly on the grid it equals the pairwise rule to rounding; the grid is accepted only
+when the points sit within :data:`GRID_TOL` of a spacing from it and within that of one plane,
+which bounds the change of any weight (see :func:`grid_filter`).
 """
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from typing import Literal
 
 import numpy as np
@@ -30,15 +39,30 @@ from scipy.spatial import cKDTree
 from correlate.core.errors import StudyError
 
 __all__ = [
+    "GRID_TOL",
+    "GridFilter",
     "apply_weights",
     "gaussian_level",
     "gaussian_second_moment",
     "gaussian_weights",
+    "grid_filter",
     "mean_level",
     "window_weights",
 ]
 
 Array = NDArray[np.float64]
+GRID_TOL = 2e-3    # largest offset of a point from the grid / plane, in grid spacings
+GRID_FILL = 0.25   # the points must fill at least this share of the grid's bounding box
+
+
+@dataclass(frozen=True)
+class GridFilter:
+    """A levelling filter on the points' own regular grid (see :func:`grid_filter`)."""
+
+    cell: NDArray[np.intp]   # (n,) flat index of each point's grid cell
+    shape: tuple[int, int]   # grid rows, columns
+    kernel: Array            # (2 a + 1, 2 b + 1) weights at the grid offsets
+    spacing: tuple[float, float]
 
 
 def _points(points: ArrayLike) -> Array:
@@ -162,6 +186,8 @@ def apply_weights(weights: sp.sparray | sp.spmatrix, values: ArrayLike) -> Array
         If the values do not have one row per point.
     """
     v = np.asarray(values, dtype=float)
+    if isinstance(weights, GridFilter):
+        return _apply_grid(weights, v)
     n = weights.shape[0]
     if v.ndim not in (1, 2) or v.shape[0] != n:
         raise StudyError(f"levelling values: expected shape ({n},) or ({n}, k) for {n} points, "
@@ -278,3 +304,126 @@ def gaussian_second_moment(sigma: float, radius: float | None = None) -> float:
     S = r * r / (2.0 * s * s)
     kept = -np.expm1(-S)  # 1 - e^-S, the weight inside the disc
     return float(s * s * (1.0 - (1.0 + S) * np.exp(-S)) / kept)
+
+
+def _plane_coordinates(p: Array) -> tuple[Array, Array]:
+    """In-plane coordinates (n, 2) of the best plane of p and the distances from it."""
+    if p.shape[1] == 2:
+        return p, np.zeros(len(p))
+    c = p - p.mean(axis=0)
+    _, _, vt = np.linalg.svd(c[:: max(len(c) // 20000, 1)], full_matrices=False)
+    return c @ vt[:2].T, c @ vt[2]
+
+
+def _lattice(uv: Array) -> tuple[NDArray[np.intp], NDArray[np.intp], float, float] | None:
+    """Integer grid indices and spacings of in-plane points on a regular rectangular grid."""
+    tree = cKDTree(uv)
+    d, j = tree.query(uv, k=2)
+    h = float(np.median(d[:, 1]))
+    if not h > 0:
+        return None
+    step = uv[j[:, 1]] - uv
+    phi = np.arctan2(step[:, 1], step[:, 0])   # the grid's direction, modulo 90 degrees:
+    theta = float(np.angle(np.mean(np.exp(4j * phi)))) / 4   # the mean on a circle of 4 phi
+    c, s = np.cos(theta), np.sin(theta)
+    ab = uv @ np.array([[c, -s], [s, c]])
+    out = []
+    for k in range(2):
+        x = ab[:, k] - ab[:, k].min()
+        gaps = np.diff(np.unique(np.round(x / (GRID_TOL * h)))) * (GRID_TOL * h)
+        gaps = gaps[gaps > 0.5 * h]
+        if not len(gaps):
+            return None
+        hk, x0 = float(np.median(gaps)), 0.0
+        for _ in range(3):   # index by the spacing, refit spacing and origin on every point
+            idx = np.rint((x - x0) / hk).astype(np.intp)
+            hk, x0 = np.polyfit(idx, x, 1)
+        if np.max(np.abs(x - x0 - idx * hk)) > GRID_TOL * hk:
+            return None
+        idx -= idx.min()
+        out += [idx, float(hk)]
+    return out[0], out[2], out[1], out[3]
+
+
+def grid_filter(points: ArrayLike, *, sigma: float | None = None, size: float | None = None
+                ) -> GridFilter | None:
+    """The Gaussian (``sigma``) or disc-mean (``size``) filter on the points' own grid, or None.
+
+    Parameters
+    ----------
+    points : array_like, shape (n, 3) or (n, 2)
+        Point coordinates. [length]
+    sigma : float, optional
+        Gaussian standard deviation, truncated at ``3 sigma`` as :func:`gaussian_weights`. [length]
+    size : float, optional
+        Disc diameter of a window mean as :func:`window_weights` ``shape="disc"``. [length]
+
+    Returns
+    -------
+    GridFilter or None
+        None when the points are not on one regular rectangular grid in one plane (each point
+        within ``GRID_TOL`` of a spacing of its node and of the plane, one point per node, the
+        nodes filling at least ``GRID_FILL`` of the box): use the pairwise weights then.
+
+    Notes
+    -----
+    The grid is found in the points' best plane: its direction from the nearest-neighbour
+    steps, its spacings from the gaps between distinct coordinates, refined by a straight-line
+    fit of coordinate on node index. The kernel is the pairwise weight at each node offset
+    (``exp(-d^2 / (2 sigma^2))`` for ``d <= 3 sigma``, or 1 for ``d <= size / 2``), so on points
+    exactly on the grid the levelled values equal :func:`apply_weights` with the pairwise
+    matrix to rounding. Points off their nodes by up to ``GRID_TOL h`` change a distance by at
+    most ``2.9 GRID_TOL h`` (two points, in plane and out of it), a Gaussian weight by a
+    relative ``3 sigma x 2.9 GRID_TOL h / sigma^2``: below 2 % at ``h = sigma``, and the
+    neighbours counted inside the disc can differ only for node offsets within that of its edge.
+    """
+    p = _points(points)
+    if (sigma is None) == (size is None):
+        raise StudyError("levelling: give either sigma (Gaussian) or size (window mean)")
+    if len(p) < 9:
+        return None
+    uv, off = _plane_coordinates(p)
+    found = _lattice(uv)
+    if found is None:
+        return None
+    ia, ib, ha, hb = found
+    if np.max(np.abs(off)) > GRID_TOL * min(ha, hb):
+        return None
+    shape = (int(ia.max()) + 1, int(ib.max()) + 1)
+    cell = ia * shape[1] + ib
+    if len(np.unique(cell)) != len(p) or len(p) < GRID_FILL * shape[0] * shape[1]:
+        return None
+    if sigma is not None:
+        radius = 3.0 * _positive("sigma", sigma)
+    else:
+        radius = _positive("size", size) / 2.0
+    na, nb = int(radius // ha), int(radius // hb)
+    da, db = np.meshgrid(np.arange(-na, na + 1) * ha, np.arange(-nb, nb + 1) * hb,
+                         indexing="ij")
+    d2 = da * da + db * db
+    inside = d2 <= radius * radius
+    kernel = (np.exp(d2 * (-0.5 / (sigma * sigma))) if sigma is not None
+              else np.ones_like(d2)) * inside
+    return GridFilter(cell=cell, shape=shape, kernel=kernel, spacing=(ha, hb))
+
+
+def _apply_grid(g: GridFilter, v: Array) -> Array:
+    """Normalised convolution on the grid: conv(values x mask) / conv(mask), NaN kept NaN."""
+    from scipy.signal import fftconvolve
+
+    n = len(g.cell)
+    if v.ndim not in (1, 2) or v.shape[0] != n:
+        raise StudyError(f"levelling values: expected shape ({n},) or ({n}, k) for {n} points, "
+                         f"found {v.shape}")
+    col = v.reshape(n, -1)
+    ok = np.isfinite(col)
+    k = col.shape[1]
+    grid = np.zeros((2 * k, g.shape[0] * g.shape[1]))
+    grid[:k, g.cell] = np.where(ok, col, 0.0).T
+    grid[k:, g.cell] = ok.T
+    conv = fftconvolve(grid.reshape(2 * k, *g.shape), g.kernel[None], mode="same", axes=(1, 2))
+    conv = conv.reshape(2 * k, -1)[:, g.cell]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        out = (conv[:k] / conv[k:]).T
+    out[~ok] = np.nan
+    return out.reshape(v.shape)
