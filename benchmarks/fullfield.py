@@ -27,7 +27,7 @@ from scipy.spatial.transform import Rotation
 from correlate.commands.demo import demo_folder
 from correlate.comparison.criteria import allowed_difference
 from correlate.fullfield.levelling import apply_weights, gaussian_weights, grid_filter
-from correlate.fullfield.points import locate_points
+from correlate.fullfield.points import distinct_rows, locate_points
 from correlate.fullfield.statistics import blocked_slope, field_metrics
 from correlate.fullfield.strain import equivalent_strain, tensor_in_axes
 from correlate.model_readings.evaluate import centre_strain
@@ -63,9 +63,11 @@ def main() -> None:
     t_read = time.perf_counter() - t0
     rng = np.random.default_rng(0)
     truth = _grid(a.points)
-    frames_pts = [truth + (rng.normal(0, 0.05, truth.shape) * [1, 1, 0] if a.own_points
-                           else 0.0) for _ in range(a.frames)]
-    cam = [(p - T) @ R for p in frames_pts]
+    if a.own_points:
+        cam = [(truth + rng.normal(0, 0.05, truth.shape) * [1, 1, 0] - T) @ R
+               for _ in range(a.frames)]
+    else:   # one array for every frame: the points are the same (no copies in the input)
+        cam = [(truth - T) @ R] * a.frames
     marks = np.array([[40.0, -20, 12], [130, -20, 12], [130, 20, 12], [40, 20, 12]])
     lm = Landmarks(("a", "b", "c", "d"), (marks - T) @ R, marks)
     ff = FullFieldSettings(files=(), columns={}, register="landmarks", landmarks=None,
@@ -79,7 +81,8 @@ def main() -> None:
 
     t = time.perf_counter()
     allp = np.concatenate(cam)
-    distinct, inverse = np.unique(allp, axis=0, return_inverse=True)
+    distinct, inverse = distinct_rows(allp)   # the frames' table repeats each point per frame
+    t = lap("distinct points", t)
     locator = Locator(src.mesh, build_surface(src.mesh, near=truth, reach=2.0))
     t = lap("surface", t)
     _, pm = locate_points(distinct, ff, locator, lm, scale=1.0)
@@ -94,7 +97,7 @@ def main() -> None:
     slot[pm.kept] = np.arange(len(pm.kept))
     offsets = np.cumsum([0] + [len(c) for c in cam])
     for f in range(a.frames):
-        k = slot[inverse.ravel()[offsets[f]:offsets[f + 1]]]
+        k = slot[inverse[offsets[f]:offsets[f + 1]]]
         k = k[k >= 0]
         scale = (f + 1) / a.frames
         exx, eyy, exy = tensor_in_axes(scale * tensors[k], pm.ex[k], pm.ey[k])

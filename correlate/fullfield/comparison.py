@@ -35,7 +35,13 @@ from correlate.fullfield.levelling import (
     grid_filter,
     window_weights,
 )
-from correlate.fullfield.points import PointModel, Registration, locate_points, region_distance
+from correlate.fullfield.points import (
+    PointModel,
+    Registration,
+    distinct_rows,
+    locate_points,
+    region_distance,
+)
 from correlate.fullfield.statistics import blocked_slope, field_metrics, hot_spot
 from correlate.fullfield.strain import (
     equivalent_strain,
@@ -195,8 +201,7 @@ def correlate_fullfield(corr: Correlation) -> FullFieldResult:
     landmarks = read_landmarks(ff.landmarks) if ff.landmarks is not None else None
     t = frames.table
     dic = t[["x", "y", "z"]].to_numpy(dtype=float)
-    distinct, inverse = np.unique(dic, axis=0, return_inverse=True)
-    inverse = inverse.ravel()
+    distinct, inverse = distinct_rows(dic)
     reg, pm = locate_points(distinct * scale, ff, corr.model.locator, landmarks, scale=scale)
     slot = np.full(len(distinct), -1)
     slot[pm.kept] = np.arange(len(pm.kept))
@@ -205,10 +210,19 @@ def correlate_fullfield(corr: Correlation) -> FullFieldResult:
     R = reg.matrix[:3, :3]
     parts, stats, hots = [], [], []
     rim = 0
+    code, names = pd.factorize(t["frame"].to_numpy())
+    order = np.argsort(code, kind="stable")          # the rows of each frame, once
+    bounds = np.searchsorted(code[order], np.arange(len(names) + 1))
+    where = {str(name): order[bounds[i]:bounds[i + 1]] for i, name in enumerate(names)}
+    last: tuple[NDArray, NDArray] | None = None      # the previous frame's points and mask
     for frame, step in zip(frames.frames, frames.steps, strict=True):
-        rows = np.flatnonzero((t["frame"] == frame).to_numpy())
+        rows = where.get(str(frame), np.zeros(0, dtype=np.intp))
         if ff.edge > 0:   # the region's boundary: of this frame's own points
-            inside = region_distance(dic[rows, :2]) >= ff.edge
+            if last is not None and np.array_equal(last[0], inverse[rows]):
+                inside = last[1]                     # the same points as the frame before
+            else:
+                inside = region_distance(dic[rows, :2]) >= ff.edge
+                last = (inverse[rows], inside)
             rim = max(rim, int((~inside).sum()))
             rows = rows[inside]
         rows = rows[slot[inverse[rows]] >= 0]

@@ -51,7 +51,7 @@ __all__ = [
 ]
 
 Array = NDArray[np.float64]
-GRID_TOL = 2e-3    # largest offset of a point from the grid / plane, in grid spacings
+GRID_TOL = 0.02    # largest offset of a point from its grid node or the plane, in grid spacings
 GRID_FILL = 0.25   # the points must fill at least this share of the grid's bounding box
 
 
@@ -315,34 +315,45 @@ def _plane_coordinates(p: Array) -> tuple[Array, Array]:
     return c @ vt[:2].T, c @ vt[2]
 
 
-def _lattice(uv: Array) -> tuple[NDArray[np.intp], NDArray[np.intp], float, float] | None:
-    """Integer grid indices and spacings of in-plane points on a regular rectangular grid."""
+def _lattice(uv: Array) -> tuple[NDArray[np.intp], NDArray[np.intp], Array, Array] | None:
+    """Integer grid indices and the two lattice vectors of in-plane points on a regular grid."""
     tree = cKDTree(uv)
-    d, j = tree.query(uv, k=2)
-    h = float(np.median(d[:, 1]))
-    if not h > 0:
+    d, j = tree.query(uv, k=5)   # a grid node's four neighbours
+    if not np.all(np.isfinite(d)) or not np.median(d[:, 1]) > 0:
         return None
-    step = uv[j[:, 1]] - uv
-    phi = np.arctan2(step[:, 1], step[:, 0])   # the grid's direction, modulo 90 degrees:
+    step = (uv[j[:, 1:]] - uv[:, None, :]).reshape(-1, 2)
+    near = uv[j[:, 1]] - uv                     # the nearest neighbour: along a grid line
+    phi = np.arctan2(near[:, 1], near[:, 0])    # the grid's direction, modulo 90 degrees:
     theta = float(np.angle(np.mean(np.exp(4j * phi)))) / 4   # the mean on a circle of 4 phi
     c, s = np.cos(theta), np.sin(theta)
-    ab = uv @ np.array([[c, -s], [s, c]])
+    turn = np.array([[c, -s], [s, c]])
+    ab, st = uv @ turn, step @ turn
     out = []
     for k in range(2):
+        along = np.abs(st[:, k]) > 0.95 * np.hypot(st[:, 0], st[:, 1])
+        if not along.any():
+            return None
         x = ab[:, k] - ab[:, k].min()
-        gaps = np.diff(np.unique(np.round(x / (GRID_TOL * h)))) * (GRID_TOL * h)
-        gaps = gaps[gaps > 0.5 * h]
-        if not len(gaps):
+        hk, x0 = float(np.median(np.abs(st[along, k]))), 0.0
+        if not hk > 0:
             return None
-        hk, x0 = float(np.median(gaps)), 0.0
-        for _ in range(3):   # index by the spacing, refit spacing and origin on every point
-            idx = np.rint((x - x0) / hk).astype(np.intp)
-            hk, x0 = np.polyfit(idx, x, 1)
-        if np.max(np.abs(x - x0 - idx * hk)) > GRID_TOL * hk:
-            return None
-        idx -= idx.min()
-        out += [idx, float(hk)]
-    return out[0], out[2], out[1], out[3]
+        for span in (8.0, 64.0, 512.0, np.inf):   # fit spacing and origin over a growing span
+            near = x <= span * hk
+            idx = np.rint((x[near] - x0) / hk)
+            if np.ptp(idx) < 1:
+                continue
+            hk, x0 = (float(v) for v in np.polyfit(idx, x[near], 1))
+        idx = np.rint((x - x0) / hk).astype(np.intp)
+        out.append(idx - idx.min())
+    # one least-squares fit of the lattice, origin + ia va + ib vb, to every point: it takes up
+    # what the direction from the neighbour steps left over, and the test is against it
+    design = np.c_[np.ones(len(uv)), out[0], out[1]]
+    coef = np.linalg.lstsq(design, uv, rcond=None)[0]
+    va, vb = coef[1], coef[2]
+    offset = np.linalg.norm(uv - design @ coef, axis=1)
+    if np.max(offset) > GRID_TOL * min(np.linalg.norm(va), np.linalg.norm(vb)):
+        return None
+    return out[0], out[1], va, vb
 
 
 def grid_filter(points: ArrayLike, *, sigma: float | None = None, size: float | None = None
@@ -386,7 +397,8 @@ def grid_filter(points: ArrayLike, *, sigma: float | None = None, size: float | 
     found = _lattice(uv)
     if found is None:
         return None
-    ia, ib, ha, hb = found
+    ia, ib, va, vb = found
+    ha, hb = float(np.linalg.norm(va)), float(np.linalg.norm(vb))
     if np.max(np.abs(off)) > GRID_TOL * min(ha, hb):
         return None
     shape = (int(ia.max()) + 1, int(ib.max()) + 1)
@@ -397,10 +409,11 @@ def grid_filter(points: ArrayLike, *, sigma: float | None = None, size: float | 
         radius = 3.0 * _positive("sigma", sigma)
     else:
         radius = _positive("size", size) / 2.0
-    na, nb = int(radius // ha), int(radius // hb)
-    da, db = np.meshgrid(np.arange(-na, na + 1) * ha, np.arange(-nb, nb + 1) * hb,
-                         indexing="ij")
-    d2 = da * da + db * db
+    sine = abs(va[0] * vb[1] - va[1] * vb[0]) / (ha * hb)   # the lattice's angle
+    na, nb = int(radius / (ha * sine)) + 1, int(radius / (hb * sine)) + 1
+    a, b = np.meshgrid(np.arange(-na, na + 1), np.arange(-nb, nb + 1), indexing="ij")
+    off2 = a[..., None] * va + b[..., None] * vb
+    d2 = np.sum(off2 * off2, axis=-1)
     inside = d2 <= radius * radius
     kernel = (np.exp(d2 * (-0.5 / (sigma * sigma))) if sigma is not None
               else np.ones_like(d2)) * inside

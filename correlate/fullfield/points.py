@@ -116,6 +116,30 @@ def register(points: NDArray[np.float64], ff: FullFieldSettings, locator: Locato
                                 f"per step, at most {ff.icp_max_move:g} from the landmark fit)")
 
 
+def distinct_rows(xyz: NDArray[np.float64]) -> tuple[NDArray[np.float64], NDArray[np.intp]]:
+    """The distinct rows of ``xyz`` in lexicographic order and each row's index among them.
+
+    The result of ``numpy.unique(xyz, axis=0, return_inverse=True)``, found by hashing each
+    column (``pandas.factorize``, linear in the rows) and sorting only the distinct rows: frames
+    that share their points (grid-based exports) repeat each point once per frame, so the table
+    has frames x points rows and far fewer distinct ones.
+    """
+    n = len(xyz)
+    code = np.zeros(n, dtype=np.int64)
+    for k in range(xyz.shape[1]):
+        c, _ = pd.factorize(xyz[:, k])
+        code, _ = pd.factorize(code * (int(c.max()) + 2) + c)
+    if n == 0:
+        return xyz[:0].copy(), np.zeros(0, dtype=np.intp)
+    # codes are numbered in order of first appearance: the running maximum steps up there
+    first = np.flatnonzero(np.diff(np.maximum.accumulate(code), prepend=-1) > 0)
+    rows = xyz[first]
+    order = np.lexsort(rows.T[::-1])
+    rank = np.empty(len(rows), dtype=np.intp)
+    rank[order] = np.arange(len(rows))
+    return rows[order], rank[code]
+
+
 def region_distance(plane_xy: NDArray[np.float64]) -> NDArray[np.float64]:
     """Distance of each point to the boundary of the region the points cover [their unit].
 
@@ -232,5 +256,5 @@ def locate_points(points: NDArray[np.float64], ff: FullFieldSettings, locator: L
     return reg, PointModel(kept=kept, position=position, ex=ex[keep], ey=ey[keep], operator=op)
 
 
-__all__ = ["EDGE_ANGLE", "PointModel", "Registration", "locate_points", "near_part_edge",
+__all__ = ["EDGE_ANGLE", "PointModel", "Registration", "distinct_rows", "locate_points", "near_part_edge",
            "region_distance", "register"]
