@@ -224,3 +224,42 @@ def test_report_has_the_fullfield_section(tmp_path):
     # the point clouds are coloured: more than a grey model and a white background
     colourful = np.abs(pixels[..., 0] - pixels[..., 2]) > 40
     assert colourful.mean() > 0.01
+
+
+@pytest.mark.parametrize("suffix", ["parquet", "vtp"])
+def test_parquet_and_vtp_frames_give_the_statistics_of_the_csv_frames(unfiltered, suffix):
+    # The same three frames written as Parquet tables and as VTK XML point clouds (the points
+    # the coordinates, the strains point arrays; VTK's own writer through pyvista): the run
+    # must give the CSV run's statistics. rtol 1e-12: float64 throughout (CSV text holds
+    # the shortest repr of each double, so reading it back is exact), the rest is round-off.
+    import shutil
+
+    import pyvista as pv
+
+    src = unfiltered.parent
+    work = src / f"as_{suffix}"
+    if work.exists():
+        shutil.rmtree(work)
+    shutil.copytree(src, work, ignore=shutil.ignore_patterns("out", "as_*"))
+    dic = work / "dic"
+    for k in range(3):
+        path = dic / f"frame_{k + 1}.csv"
+        df = (pd.read_csv(path, sep=";", decimal=",") if k == 1 else pd.read_csv(path))
+        path.unlink()
+        if suffix == "parquet":
+            df.to_parquet(dic / f"frame_{k + 1}.parquet", index=False)
+        else:
+            cloud = pv.PolyData(df[["Xc", "Yc", "Zc"]].to_numpy(dtype=float))
+            for c in ("E11", "E22", "E12"):
+                cloud.point_data[c] = df[c].to_numpy(dtype=float)
+            cloud.save(str(dic / f"frame_{k + 1}.vtp"))
+    frames = pd.read_csv(dic / "frames.csv")
+    frames["file"] = frames["file"].str.replace(".csv", f".{suffix}")
+    frames.to_csv(dic / "frames.csv", index=False)
+    study = next(work.glob("*.toml"))
+    study.write_text(study.read_text().replace('"dic/frame_*.csv"', f'"dic/frame_*.{suffix}"'))
+    assert main(["run", "--quiet", str(study), "--out", str(work / "out"), "--no-report"]) == 0
+    ref = pd.read_csv(unfiltered / "fullfield_stats.csv")
+    got = pd.read_csv(work / "out" / "fullfield_stats.csv")
+    assert list(got.columns) == list(ref.columns) and len(got) == len(ref)
+    pd.testing.assert_frame_equal(got, ref, check_exact=False, rtol=1e-12, atol=1e-9)
