@@ -27,7 +27,7 @@ from scipy.spatial.transform import Rotation
 from correlate.commands.demo import demo_folder
 from correlate.comparison.criteria import allowed_difference
 from correlate.fullfield.levelling import apply_weights, gaussian_weights, grid_filter
-from correlate.fullfield.points import distinct_rows, locate_points
+from correlate.fullfield.points import frame_points, locate_points
 from correlate.fullfield.statistics import blocked_slope, field_metrics
 from correlate.fullfield.strain import equivalent_strain, tensor_in_axes
 from correlate.model_readings.evaluate import centre_strain
@@ -81,7 +81,10 @@ def main() -> None:
 
     t = time.perf_counter()
     allp = np.concatenate(cam)
-    distinct, inverse = distinct_rows(allp)   # the frames' table repeats each point per frame
+    offsets = np.cumsum([0] + [len(c) for c in cam])
+    # the frames' table repeats each point per frame: as correlate.fullfield.comparison does
+    distinct, inverse = frame_points(allp, [np.arange(offsets[f], offsets[f + 1])
+                                            for f in range(a.frames)])
     t = lap("distinct points", t)
     locator = Locator(src.mesh, build_surface(src.mesh, near=truth, reach=2.0))
     t = lap("surface", t)
@@ -95,7 +98,6 @@ def main() -> None:
     t = lap("levelling weights (once)", t)
     slot = np.full(len(distinct), -1)
     slot[pm.kept] = np.arange(len(pm.kept))
-    offsets = np.cumsum([0] + [len(c) for c in cam])
     for f in range(a.frames):
         k = slot[inverse[offsets[f]:offsets[f + 1]]]
         k = k[k >= 0]

@@ -38,7 +38,7 @@ from correlate.fullfield.levelling import (
 from correlate.fullfield.points import (
     PointModel,
     Registration,
-    distinct_rows,
+    frame_points,
     locate_points,
     region_distance,
 )
@@ -201,7 +201,11 @@ def correlate_fullfield(corr: Correlation) -> FullFieldResult:
     landmarks = read_landmarks(ff.landmarks) if ff.landmarks is not None else None
     t = frames.table
     dic = t[["x", "y", "z"]].to_numpy(dtype=float)
-    distinct, inverse = distinct_rows(dic)
+    code, names = pd.factorize(t["frame"].to_numpy())
+    order = np.argsort(code, kind="stable")          # the rows of each frame, once
+    bounds = np.searchsorted(code[order], np.arange(len(names) + 1))
+    where = {str(name): order[bounds[i]:bounds[i + 1]] for i, name in enumerate(names)}
+    distinct, inverse = frame_points(dic, list(where.values()))
     reg, pm = locate_points(distinct * scale, ff, corr.model.locator, landmarks, scale=scale)
     slot = np.full(len(distinct), -1)
     slot[pm.kept] = np.arange(len(pm.kept))
@@ -210,10 +214,6 @@ def correlate_fullfield(corr: Correlation) -> FullFieldResult:
     R = reg.matrix[:3, :3]
     parts, stats, hots = [], [], []
     rim = 0
-    code, names = pd.factorize(t["frame"].to_numpy())
-    order = np.argsort(code, kind="stable")          # the rows of each frame, once
-    bounds = np.searchsorted(code[order], np.arange(len(names) + 1))
-    where = {str(name): order[bounds[i]:bounds[i + 1]] for i, name in enumerate(names)}
     last: tuple[NDArray, NDArray] | None = None      # the previous frame's points and mask
     for frame, step in zip(frames.frames, frames.steps, strict=True):
         rows = where.get(str(frame), np.zeros(0, dtype=np.intp))

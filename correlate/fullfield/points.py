@@ -140,6 +140,23 @@ def distinct_rows(xyz: NDArray[np.float64]) -> tuple[NDArray[np.float64], NDArra
     return rows[order], rank[code]
 
 
+def frame_points(xyz: NDArray[np.float64], frame_rows: list[NDArray[np.intp]]
+                 ) -> tuple[NDArray[np.float64], NDArray[np.intp]]:
+    """:func:`distinct_rows` of ``xyz``, found from the first frame alone when every frame has
+    exactly its points in its order (grid-based exports: points fixed in the reference
+    configuration), else from all rows. ``frame_rows`` lists each frame's rows of ``xyz``."""
+    if frame_rows:
+        first = xyz[frame_rows[0]]
+        if all(len(r) == len(first) and np.array_equal(xyz[r], first) for r in frame_rows[1:]):
+            distinct, once = distinct_rows(first)
+            inverse = np.zeros(len(xyz), dtype=np.intp)
+            for r in frame_rows:
+                inverse[r] = once
+            if sum(len(r) for r in frame_rows) == len(xyz):
+                return distinct, inverse
+    return distinct_rows(xyz)
+
+
 def region_distance(plane_xy: NDArray[np.float64]) -> NDArray[np.float64]:
     """Distance of each point to the boundary of the region the points cover [their unit].
 
@@ -256,5 +273,6 @@ def locate_points(points: NDArray[np.float64], ff: FullFieldSettings, locator: L
     return reg, PointModel(kept=kept, position=position, ex=ex[keep], ey=ey[keep], operator=op)
 
 
-__all__ = ["EDGE_ANGLE", "PointModel", "Registration", "distinct_rows", "locate_points", "near_part_edge",
+__all__ = ["EDGE_ANGLE", "PointModel", "Registration", "distinct_rows", "frame_points",
+           "locate_points", "near_part_edge",
            "region_distance", "register"]

@@ -117,3 +117,19 @@ def test_distinct_rows_are_numpys_unique_rows():
     np.testing.assert_array_equal(got, want)
     np.testing.assert_array_equal(inv, winv.ravel())
     np.testing.assert_array_equal(got[inv], table)
+
+
+def test_frame_points_short_cut_matches_the_general_rule():
+    # frames with the same points (the short cut) and frames with their own points (all rows):
+    # both equal numpy.unique of all rows (the reference)
+    from correlate.fullfield.points import frame_points
+
+    rng = np.random.default_rng(3)
+    pts = np.round(rng.random((500, 3)) * 9, 2)
+    rows = [np.arange(k * 500, (k + 1) * 500) for k in range(4)]
+    for table in (np.concatenate([pts] * 4),
+                  np.concatenate([pts + 0.01 * k for k in range(4)])):
+        got, inv = frame_points(table, rows)
+        want, winv = np.unique(table, axis=0, return_inverse=True)
+        np.testing.assert_array_equal(got, want)
+        np.testing.assert_array_equal(inv, winv.ravel())
