@@ -74,13 +74,18 @@ def main() -> None:
                            refine="icp", filter_size=1.0, snap_tol=0.5)
     times: dict[str, float] = {}
 
+    peaks: dict[str, float] = {}
+
     def lap(name: str, start: float) -> float:
         now = time.perf_counter()
         times[name] = times.get(name, 0.0) + now - start
+        peaks[name] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
         return now
 
+    allp = np.concatenate(cam)   # the frames' table as read: every frame's rows
+    print(f"input read: {allp.nbytes / 2**20:.0f} MB of coordinates; peak memory "
+          f"{resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024:.0f} MB")
     t = time.perf_counter()
-    allp = np.concatenate(cam)
     offsets = np.cumsum([0] + [len(c) for c in cam])
     # the frames' table repeats each point per frame: as correlate.fullfield.comparison does
     distinct, inverse = frame_points(allp, [np.arange(offsets[f], offsets[f + 1])
@@ -131,7 +136,7 @@ def main() -> None:
           f"; {len(distinct)} distinct, {len(pm.kept)} kept; levelling: {path}; "
           f"read {t_read:.2f} s")
     for name, v in times.items():
-        print(f"  {name:34s} {v:7.2f} s")
+        print(f"  {name:34s} {v:7.2f} s   (peak memory so far {peaks[name]:5.0f} MB)")
     print(f"  {'total after reading':34s} {total:7.2f} s; peak memory {peak:.0f} MB")
     print(f"  {'baseline (sample per frame)':34s} {base:7.2f} s")
 

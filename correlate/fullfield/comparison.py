@@ -123,8 +123,10 @@ def _step_tensor(corr: Correlation, tensors: dict, row: int) -> NDArray | None:
     return total
 
 
-def _levelling(ff: Any, xyz: NDArray, scale: float) -> tuple[Any, float, str]:
-    """The levelling weights, the statistics' block size and the rule in words."""
+def _levelling(ff: Any, xyz: NDArray, scale: float, *, build: bool = True
+               ) -> tuple[Any, float, str]:
+    """The levelling weights, the statistics' block size and the rule in words. Without
+    ``build`` (frames with their own points, levelled one by one) no weights are made."""
     from scipy.spatial import cKDTree
 
     size = None if ff.filter_size is None else ff.filter_size * scale
@@ -133,16 +135,26 @@ def _levelling(ff: Any, xyz: NDArray, scale: float) -> tuple[Any, float, str]:
         h = float(np.median(tree.query(xyz, k=2)[0][:, 1])) if len(xyz) > 1 else 1.0
         return None, UNFILTERED_BLOCK * h, "none (the model compared point by point)"
     gaussian = ff.filter_kind == "gaussian"
+    if not build:
+        how = ("each frame over its own points: by normalised convolution where they form a "
+               "grid, else over neighbouring point pairs")
+        return (None, GAUSSIAN_BLOCK * size if gaussian else size,
+                _rule(ff, gaussian, how))
     grid = grid_filter(xyz, sigma=size) if gaussian else grid_filter(xyz, size=size)
     how = ("by normalised convolution on the points' own grid" if grid is not None
            else "over neighbouring point pairs")
     if gaussian:
         W = grid if grid is not None else gaussian_weights(xyz, sigma=size)
-        return (W, GAUSSIAN_BLOCK * size,
-                f"Gaussian of standard deviation {ff.filter_size:g} {ff.length_unit}, truncated "
-                f"at 3 standard deviations, normalised over the neighbours present ({how})")
+        return W, GAUSSIAN_BLOCK * size, _rule(ff, gaussian, how)
     W = grid if grid is not None else window_weights(xyz, size=size)
-    return (W, size, f"mean over a disc of diameter {ff.filter_size:g} {ff.length_unit} ({how})")
+    return W, size, _rule(ff, gaussian, how)
+
+
+def _rule(ff: Any, gaussian: bool, how: str) -> str:
+    if gaussian:
+        return (f"Gaussian of standard deviation {ff.filter_size:g} {ff.length_unit}, truncated "
+                f"at 3 standard deviations, normalised over the neighbours present ({how})")
+    return f"mean over a disc of diameter {ff.filter_size:g} {ff.length_unit} ({how})"
 
 
 def _frame_row(corr: Correlation, frame: str, step: float) -> int:
@@ -210,13 +222,18 @@ def correlate_fullfield(corr: Correlation) -> FullFieldResult:
     slot = np.full(len(distinct), -1)
     slot[pm.kept] = np.arange(len(pm.kept))
     tensors = _case_tensors(corr, pm)
-    W, block, rule = _levelling(ff, pm.position, scale)
+    # frames that share their points are levelled over all kept points with one operator;
+    # frames with their own point sets over their own points (cost per frame ~ its points)
+    shared = len(distinct) <= max(len(r) for r in where.values())
+    W, block, rule = _levelling(ff, pm.position, scale, build=shared)
     R = reg.matrix[:3, :3]
     parts, stats, hots = [], [], []
     rim = 0
     last: tuple[NDArray, NDArray] | None = None      # the previous frame's points and mask
     for frame, step in zip(frames.frames, frames.steps, strict=True):
         rows = where.get(str(frame), np.zeros(0, dtype=np.intp))
+        own = slot[inverse[rows]]
+        own = own[own >= 0]    # the frame's points on the model, its region's rim included
         if ff.edge > 0:   # the region's boundary: of this frame's own points
             if last is not None and np.array_equal(last[0], inverse[rows]):
                 inside = last[1]                     # the same points as the frame before
@@ -232,13 +249,22 @@ def correlate_fullfield(corr: Correlation) -> FullFieldResult:
         if T is None:
             continue
         model = _components(*tensor_in_axes(T, pm.ex, pm.ey))
-        if W is None:
+        # the levelling window sees every kept point, the region's rim too (as with shared
+        # points); the rim is dropped from the comparison only
+        Wf, sel = (W, slice(None)) if shared else (_levelling(ff, pm.position[own], scale)[0],
+                                                   own)
+        if ff.filter_size is None:
             level = model
         else:
-            stack = apply_weights(W, np.column_stack([model[c] for c in ("exx", "eyy", "exy")]))
+            stack = apply_weights(Wf, np.column_stack([model[c][sel] for c in
+                                                        ("exx", "eyy", "exy")]))
             level = _components(stack[:, 0], stack[:, 1], stack[:, 2])
         meas = _components(*_measured(frames, rows, R, k, pm, ff.measure, ff.axes))
-        lev_k = {c: v[k] for c, v in level.items()}
+        if shared or ff.filter_size is None:
+            lev_k = {c: v[k] for c, v in level.items()}
+        else:   # level holds the frame's own points: find each compared point among them
+            at = np.searchsorted(own, k, sorter=np.argsort(own))
+            lev_k = {c: v[np.argsort(own)[at]] for c, v in level.items()}
         xyz = pm.position[k]
         stats += _stats(frame, step, corr.steps.loads[srow], corr.steps.load_names, meas, lev_k,
                         xyz, block, corr)
