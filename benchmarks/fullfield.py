@@ -7,7 +7,8 @@ Model: the demo bracket (about 40,000 tetra10 cells). DIC points: a grid on the 
 in camera axes turned and shifted from the model's. Per frame a strain field (the model's at
 that frame's load, plus noise). Stages timed after reading: registration (landmarks + ICP),
 locating the points once (zero-length gauge operator), and per frame: evaluation, Gaussian
-levelling (on the points' grid when they form one, else pairwise weights; built once),
+levelling (on the points' grid when they form one, else pairwise weights; built once for shared
+points, per frame over the frame's own points with ``--own-points``),
 statistics (blocked slope, metrics). ``--own-points`` gives every
 frame its own point set (jittered), so the points are located per distinct point.
 
@@ -97,9 +98,13 @@ def main() -> None:
     t = lap("register + locate + operator", t)
     tensors = centre_strain(pm.operator, pull)
     t = lap("evaluate (one case, all points)", t)
-    W = grid_filter(pm.position, sigma=1.0)   # the rule of correlate.fullfield.comparison
-    path = "grid convolution" if W is not None else "pairwise weights"
-    W = gaussian_weights(pm.position, sigma=1.0) if W is None else W
+    def weights(xyz: np.ndarray):   # the rule of correlate.fullfield.comparison
+        g = grid_filter(xyz, sigma=1.0)
+        return (g, "grid convolution") if g is not None else (
+            gaussian_weights(xyz, sigma=1.0), "pairwise weights")
+
+    if not a.own_points:   # shared points: one operator; own points: one per frame
+        W, path = weights(pm.position)
     t = lap("levelling weights (once)", t)
     slot = np.full(len(distinct), -1)
     slot[pm.kept] = np.arange(len(pm.kept))
@@ -109,9 +114,9 @@ def main() -> None:
         scale = (f + 1) / a.frames
         exx, eyy, exy = tensor_in_axes(scale * tensors[k], pm.ex[k], pm.ey[k])
         t = lap("per frame: tangent axes", t)
-        lev = apply_weights(W, np.column_stack([exx, eyy, exy]) if len(k) == len(pm.kept)
-                            else np.column_stack(tensor_in_axes(scale * tensors, pm.ex, pm.ey)))
-        lev = lev[k] if len(k) != len(pm.kept) else lev
+        if a.own_points:
+            W, path = weights(pm.position[k])
+        lev = apply_weights(W, np.column_stack([exx, eyy, exy]))
         t = lap("per frame: levelling", t)
         meas = lev[:, 0] * 1e6 + rng.normal(0, 40, len(k))
         p = lev[:, 0] * 1e6
