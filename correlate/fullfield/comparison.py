@@ -224,7 +224,7 @@ def correlate_fullfield(corr: Correlation) -> FullFieldResult:
     tensors = _case_tensors(corr, pm)
     # frames that share their points are levelled over all kept points with one operator;
     # frames with their own point sets over their own points (cost per frame ~ its points)
-    shared = len(distinct) <= max(len(r) for r in where.values())
+    shared = len(distinct) <= max((len(r) for r in where.values()), default=0)
     W, block, rule = _levelling(ff, pm.position, scale, build=shared)
     R = reg.matrix[:3, :3]
     parts, stats, hots = [], [], []
