@@ -104,6 +104,9 @@ def with_variant_files(study: Study, variant: Variant) -> Study:
 def missing_file(variant: Variant) -> str:
     """The one-line reason when a file of the variant does not exist, else an empty string."""
     for path in [variant.file, *variant.case_files.values()]:
+        if path.is_dir():
+            return (f"{path.name}: the variant's model result is a folder ({path}), not a file; "
+                    "give the result file itself in the table's file column")
         if not path.is_file():
             return (f"{path.name}: the variant's model result does not exist ({path}); check "
                     "the table's file column or solve the variant")

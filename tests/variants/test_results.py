@@ -93,3 +93,19 @@ def test_table_ranks_successes_and_lists_failures_last_with_their_reason():
     assert last["variant"] == "v1" and last["failure"] == problems["v1"]
     assert last["rank"] is pd.NA
     assert list(table["rank"].iloc[:-1]) == list(range(1, 9))
+
+
+def test_a_variant_file_that_is_missing_or_a_folder_gets_its_own_reason(tmp_path):
+    # each reason names the file and says what to do (the project's bad-input rule)
+    from correlate.variants.evaluate import missing_file
+
+    folder = tmp_path / "v1"
+    folder.mkdir()
+    made = tmp_path / "v2.vtu"
+    made.write_text("x")
+    as_folder = Variant(name="a", row=2, file=folder, case_files={}, parameters={})
+    absent = Variant(name="b", row=3, file=tmp_path / "none.vtu", case_files={}, parameters={})
+    present = Variant(name="c", row=4, file=made, case_files={}, parameters={})
+    assert "is a folder" in missing_file(as_folder) and "v1" in missing_file(as_folder)
+    assert "does not exist" in missing_file(absent) and "none.vtu" in missing_file(absent)
+    assert missing_file(present) == ""
