@@ -7,7 +7,9 @@ Model: the demo bracket (about 40,000 tetra10 cells). DIC points: a grid on the 
 in camera axes turned and shifted from the model's. Per frame a strain field (the model's at
 that frame's load, plus noise). Stages timed after reading: registration (landmarks + ICP),
 locating the points once (zero-length gauge operator), and per frame: evaluation, Gaussian
-levelling (weights built once), statistics (blocked slope, metrics). ``--own-points`` gives every
+levelling (on the points' grid when they form one, else pairwise weights; built once for shared
+points, per frame over the frame's own points with ``--own-points``),
+statistics (blocked slope, metrics). ``--own-points`` gives every
 frame its own point set (jittered), so the points are located per distinct point.
 
 Baseline: per frame, probe the model with PyVista's ``sample`` at the registered points (no
@@ -25,8 +27,8 @@ from scipy.spatial.transform import Rotation
 
 from correlate.commands.demo import demo_folder
 from correlate.comparison.criteria import allowed_difference
-from correlate.fullfield.levelling import apply_weights, gaussian_weights
-from correlate.fullfield.points import locate_points
+from correlate.fullfield.levelling import apply_weights, gaussian_weights, grid_filter
+from correlate.fullfield.points import frame_points, locate_points
 from correlate.fullfield.statistics import blocked_slope, field_metrics
 from correlate.fullfield.strain import equivalent_strain, tensor_in_axes
 from correlate.model_readings.evaluate import centre_strain
@@ -62,43 +64,59 @@ def main() -> None:
     t_read = time.perf_counter() - t0
     rng = np.random.default_rng(0)
     truth = _grid(a.points)
-    frames_pts = [truth + (rng.normal(0, 0.05, truth.shape) * [1, 1, 0] if a.own_points
-                           else 0.0) for _ in range(a.frames)]
-    cam = [(p - T) @ R for p in frames_pts]
+    if a.own_points:
+        cam = [(truth + rng.normal(0, 0.05, truth.shape) * [1, 1, 0] - T) @ R
+               for _ in range(a.frames)]
+    else:   # one array for every frame: the points are the same (no copies in the input)
+        cam = [(truth - T) @ R] * a.frames
     marks = np.array([[40.0, -20, 12], [130, -20, 12], [130, 20, 12], [40, 20, 12]])
     lm = Landmarks(("a", "b", "c", "d"), (marks - T) @ R, marks)
     ff = FullFieldSettings(files=(), columns={}, register="landmarks", landmarks=None,
                            refine="icp", filter_size=1.0, snap_tol=0.5)
     times: dict[str, float] = {}
 
+    peaks: dict[str, float] = {}
+
     def lap(name: str, start: float) -> float:
         now = time.perf_counter()
         times[name] = times.get(name, 0.0) + now - start
+        peaks[name] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
         return now
 
+    allp = np.concatenate(cam)   # the frames' table as read: every frame's rows
+    print(f"input read: {allp.nbytes / 2**20:.0f} MB of coordinates; peak memory "
+          f"{resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024:.0f} MB")
     t = time.perf_counter()
-    allp = np.concatenate(cam)
-    distinct, inverse = np.unique(allp, axis=0, return_inverse=True)
+    offsets = np.cumsum([0] + [len(c) for c in cam])
+    # the frames' table repeats each point per frame: as correlate.fullfield.comparison does
+    distinct, inverse = frame_points(allp, [np.arange(offsets[f], offsets[f + 1])
+                                            for f in range(a.frames)])
+    t = lap("distinct points", t)
     locator = Locator(src.mesh, build_surface(src.mesh, near=truth, reach=2.0))
     t = lap("surface", t)
     _, pm = locate_points(distinct, ff, locator, lm, scale=1.0)
     t = lap("register + locate + operator", t)
     tensors = centre_strain(pm.operator, pull)
     t = lap("evaluate (one case, all points)", t)
-    W = gaussian_weights(pm.position, sigma=1.0)
+    def weights(xyz: np.ndarray):   # the rule of correlate.fullfield.comparison
+        g = grid_filter(xyz, sigma=1.0)
+        return (g, "grid convolution") if g is not None else (
+            gaussian_weights(xyz, sigma=1.0), "pairwise weights")
+
+    if not a.own_points:   # shared points: one operator; own points: one per frame
+        W, path = weights(pm.position)
     t = lap("levelling weights (once)", t)
     slot = np.full(len(distinct), -1)
     slot[pm.kept] = np.arange(len(pm.kept))
-    offsets = np.cumsum([0] + [len(c) for c in cam])
     for f in range(a.frames):
-        k = slot[inverse.ravel()[offsets[f]:offsets[f + 1]]]
+        k = slot[inverse[offsets[f]:offsets[f + 1]]]
         k = k[k >= 0]
         scale = (f + 1) / a.frames
         exx, eyy, exy = tensor_in_axes(scale * tensors[k], pm.ex[k], pm.ey[k])
         t = lap("per frame: tangent axes", t)
-        lev = apply_weights(W, np.column_stack([exx, eyy, exy]) if len(k) == len(pm.kept)
-                            else np.column_stack(tensor_in_axes(scale * tensors, pm.ex, pm.ey)))
-        lev = lev[k] if len(k) != len(pm.kept) else lev
+        if a.own_points:
+            W, path = weights(pm.position[k])
+        lev = apply_weights(W, np.column_stack([exx, eyy, exy]))
         t = lap("per frame: levelling", t)
         meas = lev[:, 0] * 1e6 + rng.normal(0, 40, len(k))
         p = lev[:, 0] * 1e6
@@ -120,9 +138,10 @@ def main() -> None:
         np.sqrt(np.mean((exx_b - exx_b.mean()) ** 2))
     base = time.perf_counter() - t
     print(f"{a.points} points x {a.frames} frames{' (own points per frame)' if a.own_points else ''}"
-          f"; {len(distinct)} distinct, {len(pm.kept)} kept; read {t_read:.2f} s")
+          f"; {len(distinct)} distinct, {len(pm.kept)} kept; levelling: {path}; "
+          f"read {t_read:.2f} s")
     for name, v in times.items():
-        print(f"  {name:34s} {v:7.2f} s")
+        print(f"  {name:34s} {v:7.2f} s   (peak memory so far {peaks[name]:5.0f} MB)")
     print(f"  {'total after reading':34s} {total:7.2f} s; peak memory {peak:.0f} MB")
     print(f"  {'baseline (sample per frame)':34s} {base:7.2f} s")
 

@@ -61,7 +61,8 @@ def model_strain(points: np.ndarray) -> dict[str, np.ndarray]:
             "side": _tensor(np.asarray(probe["E_side"]))}
 
 
-def main() -> int:
+def build() -> tuple[pd.DataFrame, pd.DataFrame]:
+    """The frames table and the landmarks table, as written (seeded: the same every run)."""
     rng = np.random.default_rng(SEED)
     x, y = np.meshgrid(np.arange(40.0, 130.01, SPACING), np.arange(-19.5, 19.51, SPACING))
     true_pts = np.c_[x.ravel(), y.ravel(), np.full(x.size, TOP)]
@@ -95,14 +96,20 @@ def main() -> int:
         table[col] = table[col].round(4)
     for col in ("exx", "eyy", "exy"):
         table[col] = table[col].round(7)
-    table.to_parquet(DEMO / "dic_frames.parquet", index=False, compression="zstd")
     marks = np.array([[40.0, -20.0, TOP], [130.0, -20.0, TOP], [130.0, 20.0, TOP],
                       [40.0, 20.0, TOP]])   # the arm's top corners, picked in both
     dic = (marks - TRANSLATION) @ ROTATION + rng.normal(0.0, 0.02, marks.shape)
-    pd.DataFrame({"landmark": ["L1", "L2", "L3", "L4"], "dic_x": dic[:, 0].round(3),
-                  "dic_y": dic[:, 1].round(3), "dic_z": dic[:, 2].round(3),
-                  "model_x": marks[:, 0], "model_y": marks[:, 1], "model_z": marks[:, 2]}
-                 ).to_csv(DEMO / "dic_landmarks.csv", index=False)
+    landmarks = pd.DataFrame({"landmark": ["L1", "L2", "L3", "L4"], "dic_x": dic[:, 0].round(3),
+                              "dic_y": dic[:, 1].round(3), "dic_z": dic[:, 2].round(3),
+                              "model_x": marks[:, 0], "model_y": marks[:, 1],
+                              "model_z": marks[:, 2]})
+    return table, landmarks
+
+
+def main() -> int:
+    table, landmarks = build()
+    table.to_parquet(DEMO / "dic_frames.parquet", index=False, compression="zstd")
+    landmarks.to_csv(DEMO / "dic_landmarks.csv", index=False)
     print(f"wrote {len(table)} rows in {len(STEPS)} frames to {DEMO / 'dic_frames.parquet'}")
     return 0
 

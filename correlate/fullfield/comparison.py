@@ -29,8 +29,19 @@ from correlate.comparison.criteria import allowed_difference
 from correlate.comparison.pairing import pair_series
 from correlate.core.errors import ReadingsFormatError
 from correlate.core.units import LENGTH_UNITS, MICROSTRAIN
-from correlate.fullfield.levelling import apply_weights, gaussian_weights, window_weights
-from correlate.fullfield.points import PointModel, Registration, locate_points, region_distance
+from correlate.fullfield.levelling import (
+    apply_weights,
+    gaussian_weights,
+    grid_filter,
+    window_weights,
+)
+from correlate.fullfield.points import (
+    PointModel,
+    Registration,
+    frame_points,
+    locate_points,
+    region_distance,
+)
 from correlate.fullfield.statistics import blocked_slope, field_metrics, hot_spot
 from correlate.fullfield.strain import (
     equivalent_strain,
@@ -112,8 +123,10 @@ def _step_tensor(corr: Correlation, tensors: dict, row: int) -> NDArray | None:
     return total
 
 
-def _levelling(ff: Any, xyz: NDArray, scale: float) -> tuple[Any, float, str]:
-    """The levelling weights, the statistics' block size and the rule in words."""
+def _levelling(ff: Any, xyz: NDArray, scale: float, *, build: bool = True
+               ) -> tuple[Any, float, str]:
+    """The levelling weights, the statistics' block size and the rule in words. Without
+    ``build`` (frames with their own points, levelled one by one) no weights are made."""
     from scipy.spatial import cKDTree
 
     size = None if ff.filter_size is None else ff.filter_size * scale
@@ -121,12 +134,27 @@ def _levelling(ff: Any, xyz: NDArray, scale: float) -> tuple[Any, float, str]:
         tree = cKDTree(xyz)
         h = float(np.median(tree.query(xyz, k=2)[0][:, 1])) if len(xyz) > 1 else 1.0
         return None, UNFILTERED_BLOCK * h, "none (the model compared point by point)"
-    if ff.filter_kind == "gaussian":
-        return (gaussian_weights(xyz, sigma=size), GAUSSIAN_BLOCK * size,
-                f"Gaussian of standard deviation {ff.filter_size:g} {ff.length_unit}, truncated "
-                "at 3 standard deviations, normalised over the neighbours present")
-    return (window_weights(xyz, size=size), size,
-            f"mean over a disc of diameter {ff.filter_size:g} {ff.length_unit}")
+    gaussian = ff.filter_kind == "gaussian"
+    if not build:
+        how = ("each frame over its own points: by normalised convolution where they form a "
+               "grid, else over neighbouring point pairs")
+        return (None, GAUSSIAN_BLOCK * size if gaussian else size,
+                _rule(ff, gaussian, how))
+    grid = grid_filter(xyz, sigma=size) if gaussian else grid_filter(xyz, size=size)
+    how = ("by normalised convolution on the points' own grid" if grid is not None
+           else "over neighbouring point pairs")
+    if gaussian:
+        W = grid if grid is not None else gaussian_weights(xyz, sigma=size)
+        return W, GAUSSIAN_BLOCK * size, _rule(ff, gaussian, how)
+    W = grid if grid is not None else window_weights(xyz, size=size)
+    return W, size, _rule(ff, gaussian, how)
+
+
+def _rule(ff: Any, gaussian: bool, how: str) -> str:
+    if gaussian:
+        return (f"Gaussian of standard deviation {ff.filter_size:g} {ff.length_unit}, truncated "
+                f"at 3 standard deviations, normalised over the neighbours present ({how})")
+    return f"mean over a disc of diameter {ff.filter_size:g} {ff.length_unit} ({how})"
 
 
 def _frame_row(corr: Correlation, frame: str, step: float) -> int:
@@ -185,20 +213,33 @@ def correlate_fullfield(corr: Correlation) -> FullFieldResult:
     landmarks = read_landmarks(ff.landmarks) if ff.landmarks is not None else None
     t = frames.table
     dic = t[["x", "y", "z"]].to_numpy(dtype=float)
-    distinct, inverse = np.unique(dic, axis=0, return_inverse=True)
-    inverse = inverse.ravel()
+    code, names = pd.factorize(t["frame"].to_numpy())
+    order = np.argsort(code, kind="stable")          # the rows of each frame, once
+    bounds = np.searchsorted(code[order], np.arange(len(names) + 1))
+    where = {str(name): order[bounds[i]:bounds[i + 1]] for i, name in enumerate(names)}
+    distinct, inverse = frame_points(dic, list(where.values()))
     reg, pm = locate_points(distinct * scale, ff, corr.model.locator, landmarks, scale=scale)
     slot = np.full(len(distinct), -1)
     slot[pm.kept] = np.arange(len(pm.kept))
     tensors = _case_tensors(corr, pm)
-    W, block, rule = _levelling(ff, pm.position, scale)
+    # frames that share their points are levelled over all kept points with one operator;
+    # frames with their own point sets over their own points (cost per frame ~ its points)
+    shared = len(distinct) <= max((len(r) for r in where.values()), default=0)
+    W, block, rule = _levelling(ff, pm.position, scale, build=shared)
     R = reg.matrix[:3, :3]
     parts, stats, hots = [], [], []
     rim = 0
+    last: tuple[NDArray, NDArray] | None = None      # the previous frame's points and mask
     for frame, step in zip(frames.frames, frames.steps, strict=True):
-        rows = np.flatnonzero((t["frame"] == frame).to_numpy())
+        rows = where.get(str(frame), np.zeros(0, dtype=np.intp))
+        own = slot[inverse[rows]]
+        own = own[own >= 0]    # the frame's points on the model, its region's rim included
         if ff.edge > 0:   # the region's boundary: of this frame's own points
-            inside = region_distance(dic[rows, :2]) >= ff.edge
+            if last is not None and np.array_equal(last[0], inverse[rows]):
+                inside = last[1]                     # the same points as the frame before
+            else:
+                inside = region_distance(dic[rows, :2]) >= ff.edge
+                last = (inverse[rows], inside)
             rim = max(rim, int((~inside).sum()))
             rows = rows[inside]
         rows = rows[slot[inverse[rows]] >= 0]
@@ -208,13 +249,22 @@ def correlate_fullfield(corr: Correlation) -> FullFieldResult:
         if T is None:
             continue
         model = _components(*tensor_in_axes(T, pm.ex, pm.ey))
-        if W is None:
+        # the levelling window sees every kept point, the region's rim too (as with shared
+        # points); the rim is dropped from the comparison only
+        Wf, sel = (W, slice(None)) if shared else (_levelling(ff, pm.position[own], scale)[0],
+                                                   own)
+        if ff.filter_size is None:
             level = model
         else:
-            stack = apply_weights(W, np.column_stack([model[c] for c in ("exx", "eyy", "exy")]))
+            stack = apply_weights(Wf, np.column_stack([model[c][sel] for c in
+                                                        ("exx", "eyy", "exy")]))
             level = _components(stack[:, 0], stack[:, 1], stack[:, 2])
         meas = _components(*_measured(frames, rows, R, k, pm, ff.measure, ff.axes))
-        lev_k = {c: v[k] for c, v in level.items()}
+        if shared or ff.filter_size is None:
+            lev_k = {c: v[k] for c, v in level.items()}
+        else:   # level holds the frame's own points: find each compared point among them
+            at = np.searchsorted(own, k, sorter=np.argsort(own))
+            lev_k = {c: v[np.argsort(own)[at]] for c, v in level.items()}
         xyz = pm.position[k]
         stats += _stats(frame, step, corr.steps.loads[srow], corr.steps.load_names, meas, lev_k,
                         xyz, block, corr)

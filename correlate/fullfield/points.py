@@ -33,6 +33,7 @@ from correlate.readers.gauges import validate_gauges
 EDGE_ANGLE = 30.0   # degrees: a normal turning more than this within `edge` is a part edge
 EDGE_ON_SINE = 0.1  # sine of the angle between the DIC's x axis and a face normal, below: edge-on
 ICP_PASSES = 3      # re-project the cloud onto the faces between ICP runs (closest points move)
+ICP_SAMPLE = 50_000  # ICP pairs at most this many points, taken evenly through the cloud
 
 
 @dataclass(frozen=True)
@@ -95,14 +96,17 @@ def register(points: NDArray[np.float64], ff: FullFieldSettings, locator: Locato
     if ff.refine != "icp":
         return M, lm_rms, method
     start = M
+    # A rigid transform has six unknowns: an even subsample of the cloud fixes it as well as
+    # the whole (the fit's scatter falls as 1 / sqrt(points)), at a fraction of the projections.
+    sample = points[:: max(len(points) // ICP_SAMPLE, 1)]
     for _ in range(ICP_PASSES):
-        on = locator.project(apply(M, points))
+        on = locator.project(apply(M, sample))
         near = on.distance <= ff.snap_tol
         if near.sum() < 6:
             raise StudyError(f"[fullfield] register: only {int(near.sum())} DIC points lie within "
                              f"snap_tol {ff.snap_tol:g} of the model after the landmark fit; "
                              "check the landmarks and length_unit")
-        M = np.asarray(icp_point_to_plane(points[near], on.point[near], on.normal[near], M,
+        M = np.asarray(icp_point_to_plane(sample[near], on.point[near], on.normal[near], M,
                                           tol=ff.icp_tol, max_move=ff.icp_max_move).matrix)
     moved = float(np.max(np.linalg.norm(apply(M, points) - apply(start, points), axis=1)))
     if moved > ff.icp_max_move:
@@ -110,6 +114,47 @@ def register(points: NDArray[np.float64], ff: FullFieldSettings, locator: Locato
                          f"solution, more than max_move {ff.icp_max_move:g}; check the landmarks")
     return M, lm_rms, method + (f", refined by point-to-plane ICP (stop below {ff.icp_tol:g} "
                                 f"per step, at most {ff.icp_max_move:g} from the landmark fit)")
+
+
+def distinct_rows(xyz: NDArray[np.float64]) -> tuple[NDArray[np.float64], NDArray[np.intp]]:
+    """The distinct rows of ``xyz`` in lexicographic order and each row's index among them.
+
+    The result of ``numpy.unique(xyz, axis=0, return_inverse=True)``, found by hashing each
+    column (``pandas.factorize``, linear in the rows) and sorting only the distinct rows: frames
+    that share their points (grid-based exports) repeat each point once per frame, so the table
+    has frames x points rows and far fewer distinct ones.
+    """
+    n = len(xyz)
+    code = np.zeros(n, dtype=np.int64)
+    for k in range(xyz.shape[1]):
+        c, _ = pd.factorize(xyz[:, k])
+        code, _ = pd.factorize(code * (int(c.max()) + 2) + c)
+    if n == 0:
+        return xyz[:0].copy(), np.zeros(0, dtype=np.intp)
+    # codes are numbered in order of first appearance: the running maximum steps up there
+    first = np.flatnonzero(np.diff(np.maximum.accumulate(code), prepend=-1) > 0)
+    rows = xyz[first]
+    order = np.lexsort(rows.T[::-1])
+    rank = np.empty(len(rows), dtype=np.intp)
+    rank[order] = np.arange(len(rows))
+    return rows[order], rank[code]
+
+
+def frame_points(xyz: NDArray[np.float64], frame_rows: list[NDArray[np.intp]]
+                 ) -> tuple[NDArray[np.float64], NDArray[np.intp]]:
+    """:func:`distinct_rows` of ``xyz``, found from the first frame alone when every frame has
+    exactly its points in its order (grid-based exports: points fixed in the reference
+    configuration), else from all rows. ``frame_rows`` lists each frame's rows of ``xyz``."""
+    if frame_rows:
+        first = xyz[frame_rows[0]]
+        if all(len(r) == len(first) and np.array_equal(xyz[r], first) for r in frame_rows[1:]):
+            distinct, once = distinct_rows(first)
+            inverse = np.zeros(len(xyz), dtype=np.intp)
+            for r in frame_rows:
+                inverse[r] = once
+            if sum(len(r) for r in frame_rows) == len(xyz):
+                return distinct, inverse
+    return distinct_rows(xyz)
 
 
 def region_distance(plane_xy: NDArray[np.float64]) -> NDArray[np.float64]:
@@ -161,11 +206,24 @@ def near_part_edge(locator: Locator, position: NDArray, normal: NDArray, ex: NDA
 
 
 def _point_gauges(position: NDArray, direction: NDArray) -> pd.DataFrame:
-    raw = pd.DataFrame({"gauge": [f"P{i}" for i in range(len(position))],
-                        "x": position[:, 0], "y": position[:, 1], "z": position[:, 2],
-                        "dir_x": direction[:, 0], "dir_y": direction[:, 1],
-                        "dir_z": direction[:, 2], "length": 0.0, "kt": 0.0})
-    return validate_gauges(raw, source="DIC points")
+    """The zero-length gauge map of the points. Its first two rows are validated as any gauge
+    map (:func:`~correlate.readers.gauges.validate_gauges`), which fixes the columns and their
+    defaults; the rest are built the same way without the per-row checks, since the points and
+    their unit directions are generated here (a per-row validation costs seconds at 10^6)."""
+    n = len(position)
+    raw = pd.DataFrame({"gauge": ["P0", "P1"][:n], "x": position[:2, 0], "y": position[:2, 1],
+                        "z": position[:2, 2], "dir_x": direction[:2, 0],
+                        "dir_y": direction[:2, 1], "dir_z": direction[:2, 2], "length": 0.0,
+                        "kt": 0.0})
+    head = validate_gauges(raw, source="DIC points")
+    given = {"x": position[:, 0], "y": position[:, 1], "z": position[:, 2],
+             "dir_x": direction[:, 0], "dir_y": direction[:, 1], "dir_z": direction[:, 2],
+             "gauge": np.char.add("P", np.arange(n).astype(str)).astype(object),
+             "row": np.arange(n) + int(head["row"].iloc[0])}
+    cols = {c: (pd.Series(given[c]) if c in given
+                else pd.Series(np.repeat(head[c].to_numpy()[:1], n))).astype(head[c].dtype)
+            for c in head.columns}
+    return pd.DataFrame(cols)
 
 
 def locate_points(points: NDArray[np.float64], ff: FullFieldSettings, locator: Locator, landmarks: Landmarks | None, *,
@@ -215,5 +273,6 @@ def locate_points(points: NDArray[np.float64], ff: FullFieldSettings, locator: L
     return reg, PointModel(kept=kept, position=position, ex=ex[keep], ey=ey[keep], operator=op)
 
 
-__all__ = ["EDGE_ANGLE", "PointModel", "Registration", "locate_points", "near_part_edge",
+__all__ = ["EDGE_ANGLE", "PointModel", "Registration", "distinct_rows", "frame_points",
+           "locate_points", "near_part_edge",
            "region_distance", "register"]

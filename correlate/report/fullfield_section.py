@@ -6,7 +6,8 @@ folder. Out: the context of the ``fullfield.html`` template block (None without 
 and three pictures: ``fullfield_maps.png`` (for the reference frame, the measured and the
 levelled model equivalent strain and their difference, side by side on the model surface, one
 camera; measured and model share one colour scale, the difference has its own, symmetric about
-zero), ``fullfield_histogram.png`` (the differences of every component at the reference frame)
+zero, and each map's title says which: on one scale with the others a difference of a few
+percent of the field would show as one flat colour), ``fullfield_histogram.png`` (the differences of every component at the reference frame)
 and ``fullfield_frames.png`` (slope with its blocked interval and RMS difference against frame).
 It reads results and draws them; it computes no physics.
 """
@@ -61,7 +62,10 @@ def render_maps(corr: Correlation, result: FullFieldResult, path: Path) -> Path:
                          scalar_bar_args={"title": f"{title} [ue]", "vertical": False,
                                           "position_x": 0.15, "position_y": 0.04, "width": 0.7,
                                           "height": 0.08, "fmt": "%.0f" if i < 2 else "%.3g"})
-        plotter.add_text(figures.plain(f"{title}, equivalent strain"), font_size=10)
+        scale = ("one colour scale with the model" if i == 0 else
+                 "one colour scale with the measured" if i == 1 else
+                 "its OWN colour scale, symmetric about 0")
+        plotter.add_text(figures.plain(f"{title}, equivalent strain\n({scale})"), font_size=10)
         plotter.camera.focal_point = centre
         plotter.camera.position = centre + 2.2 * size * normal
         plotter.camera.up = _up(normal)

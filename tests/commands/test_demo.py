@@ -186,6 +186,32 @@ def test_fullfield_finds_the_invented_soft_patch(demo):
     # within 4 mm of its centre the excess is 12 % to 8 % (a 5 mm Gaussian): slope 1.12-1.18
     assert slope(r < 4.0) > 1.12
 
+def test_shipped_dic_files_are_what_the_generator_makes():
+    # demo_models/make_dic_frames.py is the source of the shipped frames and landmarks: seeded,
+    # so a fresh build equals them. Tolerance: one unit of the rounding the generator writes
+    # (strains 1e-7, coordinates 1e-4, landmarks 1e-3), as a platform's last-bit difference in
+    # the PyVista probe or the noise may flip a rounding; every other value is equal.
+    import numpy as np
+
+    spec = importlib.util.spec_from_file_location("make_dic_frames",
+                                                  ROOT / "demo_models" / "make_dic_frames.py")
+    gen = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(gen)
+    table, landmarks = gen.build()
+    shipped = pd.read_parquet(demo_folder() / "dic_frames.parquet")
+    assert list(shipped.columns) == list(table.columns) and len(shipped) == len(table)
+    assert (shipped["frame"] == table["frame"]).all() and (shipped["step"] == table["step"]).all()
+    for col, unit in (("X", 1e-4), ("Y", 1e-4), ("Z", 1e-4), ("exx", 1e-7), ("eyy", 1e-7),
+                      ("exy", 1e-7)):
+        a, b = shipped[col].to_numpy(dtype=float), table[col].to_numpy(dtype=float)
+        np.testing.assert_array_equal(np.isnan(a), np.isnan(b))
+        np.testing.assert_allclose(a, b, rtol=0, atol=unit * 1.01, err_msg=col)
+    marks = pd.read_csv(demo_folder() / "dic_landmarks.csv")
+    assert list(marks["landmark"]) == list(landmarks["landmark"])
+    np.testing.assert_allclose(marks.iloc[:, 1:].to_numpy(dtype=float),
+                               landmarks.iloc[:, 1:].to_numpy(dtype=float), rtol=0, atol=1.01e-3)
+
+
 # -- the demo's sweep of invented clamp-stiffness variants ---------------------------------------
 # The variants differ only in how stiffly the bracket's root is held. The arm is a cantilever
 # loaded at the lug: statically determinate, so its bending moment and axial force away from the

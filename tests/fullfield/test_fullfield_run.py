@@ -50,7 +50,8 @@ def _frame(model_pts: np.ndarray, dic: np.ndarray, step: int, rng: np.random.Gen
     return df
 
 
-def _study(tmp_path, *, filter_line: str = 'filter = "none"', edge: float = 0.15):
+def _study(tmp_path, *, filter_line: str = 'filter = "none"', edge: float = 0.15,
+           own: float = 0.0):
     rng = np.random.default_rng(17)
     gauges = default_gauges().iloc[[0, 1, 2]].reset_index(drop=True)
     study = write_block_study(tmp_path, readings_rows=block_readings(gauges), gauges=gauges,
@@ -61,7 +62,7 @@ def _study(tmp_path, *, filter_line: str = 'filter = "none"', edge: float = 0.15
     # the points stay fixed across frames (grid-based exports); 2 um position noise, R^T (x - t)
     cam = (pts - TRANSLATION) @ ROT + rng.normal(0.0, 0.002, pts.shape)
     for k, step in enumerate(STEPS):
-        df = _frame(pts, cam, step, rng)
+        df = _frame(pts, cam + rng.normal(0.0, own, cam.shape) if own else cam, step, rng)
         if k == 1:   # a semicolon / decimal-comma export, as spreadsheets in many locales write
             df.to_csv(dic / f"frame_{k + 1}.csv", sep=";", decimal=",", index=False)
         else:
@@ -224,3 +225,60 @@ def test_report_has_the_fullfield_section(tmp_path):
     # the point clouds are coloured: more than a grey model and a white background
     colourful = np.abs(pixels[..., 0] - pixels[..., 2]) > 40
     assert colourful.mean() > 0.01
+
+
+@pytest.mark.parametrize("suffix", ["parquet", "vtp"])
+def test_parquet_and_vtp_frames_give_the_statistics_of_the_csv_frames(unfiltered, suffix):
+    # The same three frames written as Parquet tables and as VTK XML point clouds (the points
+    # the coordinates, the strains point arrays; VTK's own writer through pyvista): the run
+    # must give the CSV run's statistics. rtol 1e-12: float64 throughout (CSV text holds
+    # the shortest repr of each double, so reading it back is exact), the rest is round-off.
+    import shutil
+
+    import pyvista as pv
+
+    src = unfiltered.parent
+    work = src / f"as_{suffix}"
+    if work.exists():
+        shutil.rmtree(work)
+    shutil.copytree(src, work, ignore=shutil.ignore_patterns("out", "as_*"))
+    dic = work / "dic"
+    for k in range(3):
+        path = dic / f"frame_{k + 1}.csv"
+        df = (pd.read_csv(path, sep=";", decimal=",") if k == 1 else pd.read_csv(path))
+        path.unlink()
+        if suffix == "parquet":
+            df.to_parquet(dic / f"frame_{k + 1}.parquet", index=False)
+        else:
+            cloud = pv.PolyData(df[["Xc", "Yc", "Zc"]].to_numpy(dtype=float))
+            for c in ("E11", "E22", "E12"):
+                cloud.point_data[c] = df[c].to_numpy(dtype=float)
+            cloud.save(str(dic / f"frame_{k + 1}.vtp"))
+    frames = pd.read_csv(dic / "frames.csv")
+    frames["file"] = frames["file"].str.replace(".csv", f".{suffix}")
+    frames.to_csv(dic / "frames.csv", index=False)
+    study = next(work.glob("*.toml"))
+    study.write_text(study.read_text().replace('"dic/frame_*.csv"', f'"dic/frame_*.{suffix}"'))
+    assert main(["run", "--quiet", str(study), "--out", str(work / "out"), "--no-report"]) == 0
+    ref = pd.read_csv(unfiltered / "fullfield_stats.csv")
+    got = pd.read_csv(work / "out" / "fullfield_stats.csv")
+    assert list(got.columns) == list(ref.columns) and len(got) == len(ref)
+    pd.testing.assert_frame_equal(got, ref, check_exact=False, rtol=1e-12, atol=1e-9)
+
+
+def test_frames_with_their_own_points_are_levelled_each_over_its_own(tmp_path):
+    # Each frame's points jittered by 3 um (their own point sets, as exports that track the
+    # points give): each frame is levelled over its own points, and a linear field is kept
+    # where the kernel is whole (closed form as above; the jitter adds 3 um / sqrt(50) x
+    # 110 ue/mm = 0.05 ue of centroid scatter, so the same 0.25 ue holds)
+    study = _study(tmp_path, filter_line='filter = { size = 0.2, kind = "gaussian" }',
+                   edge=0.7, own=0.003)
+    assert main(["run", "--quiet", str(study), "--out", str(tmp_path / "o"), "--no-report"]) == 0
+    info = json.loads((tmp_path / "o" / "fullfield.json").read_text())
+    assert "each frame over its own points" in info["levelling"]
+    table = pd.read_parquet(tmp_path / "o" / "fullfield.parquet")
+    assert table.groupby("frame")["point"].min().nunique() == 3   # no point shared
+    whole = table["x"].between(1.3, 2.7) & table["y"].between(1.3, 1.7)
+    assert whole.sum() > 100
+    d = (table.loc[whole, "exx_levelled_ue"] - table.loc[whole, "exx_model_ue"]).abs()
+    assert d.max() < 0.25
