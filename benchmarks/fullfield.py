@@ -29,6 +29,7 @@ from correlate.commands.demo import demo_folder
 from correlate.comparison.criteria import allowed_difference
 from correlate.fullfield.levelling import apply_weights, gaussian_weights, grid_filter
 from correlate.fullfield.points import frame_points, locate_points
+from correlate.fullfield.scattered import PairFilter, splat_filter
 from correlate.fullfield.statistics import blocked_slope, field_metrics
 from correlate.fullfield.strain import equivalent_strain, tensor_in_axes
 from correlate.model_readings.evaluate import centre_strain
@@ -56,6 +57,9 @@ def main() -> None:
     ap.add_argument("--points", type=int, default=50_000)
     ap.add_argument("--frames", type=int, default=10)
     ap.add_argument("--own-points", action="store_true")
+    ap.add_argument("--pairs", action="store_true",
+                    help="scattered points: the whole pairwise weight matrix (the rule before "
+                         "the voxel grid), for comparison")
     a = ap.parse_args()
     study = read_study(demo_folder() / "study.toml")
     t0 = time.perf_counter()
@@ -98,10 +102,15 @@ def main() -> None:
     t = lap("register + locate + operator", t)
     tensors = centre_strain(pm.operator, pull)
     t = lap("evaluate (one case, all points)", t)
-    def weights(xyz: np.ndarray):   # the rule of correlate.fullfield.comparison
+    def weights(xyz: np.ndarray):   # the rule of correlate.fullfield.comparison._levelling
         g = grid_filter(xyz, sigma=1.0)
-        return (g, "grid convolution") if g is not None else (
-            gaussian_weights(xyz, sigma=1.0), "pairwise weights")
+        if g is not None:
+            return g, "grid convolution"
+        if a.pairs:
+            return gaussian_weights(xyz, sigma=1.0), "pairwise weights, whole matrix"
+        s = splat_filter(xyz, 1.0)
+        return (s, "voxel grid (splatting)") if s is not None else (
+            PairFilter(xyz, 3.0, 1.0), "pairwise weights by blocks")
 
     if not a.own_points:   # shared points: one operator; own points: one per frame
         W, path = weights(pm.position)

@@ -31,9 +31,7 @@ from correlate.core.errors import ReadingsFormatError
 from correlate.core.units import LENGTH_UNITS, MICROSTRAIN
 from correlate.fullfield.levelling import (
     apply_weights,
-    gaussian_weights,
     grid_filter,
-    window_weights,
 )
 from correlate.fullfield.points import (
     PointModel,
@@ -42,6 +40,7 @@ from correlate.fullfield.points import (
     locate_points,
     region_distance,
 )
+from correlate.fullfield.scattered import PairFilter, splat_filter
 from correlate.fullfield.statistics import blocked_slope, field_metrics, hot_spot
 from correlate.fullfield.strain import (
     equivalent_strain,
@@ -62,11 +61,21 @@ class FullFieldResult:
     """What the full-field comparison computed; the outputs and the report read it."""
 
     points: pd.DataFrame         # one row per kept point: point, x, y, z (model axes)
-    table: pd.DataFrame          # point x frame (fullfield.parquet)
+    frames: tuple[pd.DataFrame, ...]   # each frame's rows of fullfield.parquet, in frame order
     stats: pd.DataFrame          # per frame and component (fullfield_stats.csv)
     registration: Registration
     summary: dict[str, Any]
     reference_frame: str
+
+    @property
+    def table(self) -> pd.DataFrame:
+        """Point x frame, every frame (fullfield.parquet's rows): a copy made on each call."""
+        return pd.concat(self.frames, ignore_index=True)
+
+    def frame(self, name: str) -> pd.DataFrame:
+        """One frame's rows."""
+        return next((t for t in self.frames if str(t["frame"].iloc[0]) == str(name)),
+                    self.frames[0].iloc[:0])
 
 
 def _components(exx: NDArray, eyy: NDArray, exy: NDArray) -> dict[str, NDArray]:
@@ -136,18 +145,21 @@ def _levelling(ff: Any, xyz: NDArray, scale: float, *, build: bool = True
         return None, UNFILTERED_BLOCK * h, "none (the model compared point by point)"
     gaussian = ff.filter_kind == "gaussian"
     if not build:
-        how = ("each frame over its own points: by normalised convolution where they form a "
-               "grid, else over neighbouring point pairs")
+        how = ("each frame over its own points: by normalised convolution on their grid where "
+               "they form one, else " + ("on a voxel grid (trilinear splatting)" if gaussian
+                                         else "over neighbouring point pairs, by blocks"))
         return (None, GAUSSIAN_BLOCK * size if gaussian else size,
                 _rule(ff, gaussian, how))
-    grid = grid_filter(xyz, sigma=size) if gaussian else grid_filter(xyz, size=size)
-    how = ("by normalised convolution on the points' own grid" if grid is not None
-           else "over neighbouring point pairs")
-    if gaussian:
-        W = grid if grid is not None else gaussian_weights(xyz, sigma=size)
-        return W, GAUSSIAN_BLOCK * size, _rule(ff, gaussian, how)
-    W = grid if grid is not None else window_weights(xyz, size=size)
-    return W, size, _rule(ff, gaussian, how)
+    W = grid_filter(xyz, sigma=size) if gaussian else grid_filter(xyz, size=size)
+    how = "by normalised convolution on the points' own grid"
+    if W is None and gaussian:
+        W = splat_filter(xyz, size)
+        how = ("by normalised convolution on a voxel grid of half a standard deviation "
+               "(trilinear splatting; the points form no regular grid)")
+    if W is None:
+        W = PairFilter(xyz, 3.0 * size, size) if gaussian else PairFilter(xyz, size / 2.0)
+        how = "over neighbouring point pairs (applied by blocks)"
+    return W, GAUSSIAN_BLOCK * size if gaussian else size, _rule(ff, gaussian, how)
 
 
 def _rule(ff: Any, gaussian: bool, how: str) -> str:
@@ -227,7 +239,9 @@ def correlate_fullfield(corr: Correlation) -> FullFieldResult:
     shared = len(distinct) <= max((len(r) for r in where.values()), default=0)
     W, block, rule = _levelling(ff, pm.position, scale, build=shared)
     R = reg.matrix[:3, :3]
-    parts, stats, hots = [], [], []
+    parts: list[pd.DataFrame] = []
+    stats, hots = [], []
+    lead = ["frame", "step", "point", "x", "y", "z"]
     rim = 0
     last: tuple[NDArray, NDArray] | None = None      # the previous frame's points and mask
     for frame, step in zip(frames.frames, frames.steps, strict=True):
@@ -269,23 +283,20 @@ def correlate_fullfield(corr: Correlation) -> FullFieldResult:
         stats += _stats(frame, step, corr.steps.loads[srow], corr.steps.load_names, meas, lev_k,
                         xyz, block, corr)
         hots.append(_hot(frame, meas["eeq"], lev_k["eeq"], xyz))
-        part = {"frame": frame, "step": step, "point": k}
+        part = {"frame": frame, "step": step, "point": k, "x": pm.position[k, 0],
+                "y": pm.position[k, 1], "z": pm.position[k, 2]}
         for c in COMPONENTS:
             part[f"{c}_measured_ue"] = meas[c] * MICROSTRAIN
             part[f"{c}_model_ue"] = model[c][k] * MICROSTRAIN
             part[f"{c}_levelled_ue"] = lev_k[c] * MICROSTRAIN
             part[f"{c}_diff_ue"] = (meas[c] - lev_k[c]) * MICROSTRAIN
-        parts.append(pd.DataFrame(part))
+        parts.append(pd.DataFrame(part)[lead + [c for c in part if c not in lead]])
     if not parts:
         raise ReadingsFormatError("[fullfield]: no frame belongs to a step the model covers; "
                                   "check the frames' steps")
-    table = pd.concat(parts, ignore_index=True)
     points = pd.DataFrame({"point": np.arange(len(pm.kept)), "x": pm.position[:, 0],
                            "y": pm.position[:, 1], "z": pm.position[:, 2]})
-    table = table.merge(points, on="point", how="left")
-    lead = ["frame", "step", "point", "x", "y", "z"]
-    table = table[lead + [c for c in table.columns if c not in lead]]
-    ref = ff.reference_frame if ff.reference_frame in frames.frames else _reference(table)
+    ref = ff.reference_frame if ff.reference_frame in frames.frames else _reference(parts)
     summary = {"registration": {"method": reg.method, "matrix": reg.matrix.tolist(),
                                 "rotation_deg": reg.rotation_deg,
                                 "landmark_rms": reg.landmark_rms, "rms_distance": reg.rms,
@@ -296,21 +307,22 @@ def correlate_fullfield(corr: Correlation) -> FullFieldResult:
                                 "snap_tol": reg.snap_tol, "points_kept": len(pm.kept)},
                "levelling": rule, "block_size": block, "measure": ff.measure,
                "reference_frame": ref, "hot_spots": hots,
-               "levelling_effect_ue": _levelling_effect(table)}
-    return FullFieldResult(points=points, table=table, stats=pd.DataFrame(stats),
+               "levelling_effect_ue": _levelling_effect(parts)}
+    return FullFieldResult(points=points, frames=tuple(parts), stats=pd.DataFrame(stats),
                            registration=reg, summary=summary, reference_frame=ref)
 
 
-def _reference(table: pd.DataFrame) -> str:
+def _reference(parts: list[pd.DataFrame]) -> str:
     """The frame whose model equivalent strain is largest (the highest load, usually)."""
-    peak = table.groupby("frame", sort=False)["eeq_model_ue"].max()
+    peak = pd.Series([t["eeq_model_ue"].max() for t in parts],
+                     index=[str(t["frame"].iloc[0]) for t in parts])
     return str(peak.idxmax())
 
 
-def _levelling_effect(table: pd.DataFrame) -> dict[str, float]:
+def _levelling_effect(parts: list[pd.DataFrame]) -> dict[str, float]:
     """How much levelling changed the model equivalent strain (large: steeper gradients than
     the DIC resolves)."""
-    d = (table["eeq_levelled_ue"] - table["eeq_model_ue"]).abs().dropna()
+    d = pd.concat([(t["eeq_levelled_ue"] - t["eeq_model_ue"]).abs().dropna() for t in parts])
     if d.empty:
         return {"rms": float("nan"), "max": float("nan")}
     return {"rms": float(np.sqrt(np.mean(d**2))), "max": float(d.max())}

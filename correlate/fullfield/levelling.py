@@ -188,6 +188,8 @@ def apply_weights(weights: sp.sparray | sp.spmatrix, values: ArrayLike) -> Array
     v = np.asarray(values, dtype=float)
     if isinstance(weights, GridFilter):
         return _apply_grid(weights, v)
+    if callable(getattr(weights, "apply", None)):   # correlate.fullfield.scattered's filters
+        return weights.apply(v)
     n = weights.shape[0]
     if v.ndim not in (1, 2) or v.shape[0] != n:
         raise StudyError(f"levelling values: expected shape ({n},) or ({n}, k) for {n} points, "

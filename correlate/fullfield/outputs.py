@@ -12,6 +12,7 @@ from __future__ import annotations
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 
 from correlate.core import progress
 from correlate.core.tables import write_csv, write_json
@@ -35,8 +36,9 @@ def write_points(result: FullFieldResult, path: Path) -> None:
         verts.InsertNextCell(1)
         verts.InsertCellPoint(i)
     poly.SetVerts(verts)
-    quantities = [c for c in result.table.columns if c.endswith("_ue")]
-    for frame, g in result.table.groupby("frame", sort=False):
+    quantities = [c for c in result.frames[0].columns if c.endswith("_ue")]
+    for g in result.frames:
+        frame = g["frame"].iloc[0]
         idx = g["point"].to_numpy()
         for q in quantities:
             values = np.full(len(xyz), np.nan)
@@ -52,14 +54,25 @@ def write_points(result: FullFieldResult, path: Path) -> None:
         raise OSError(f"could not write {path.name}")
 
 
+def write_table(frames: tuple[pd.DataFrame, ...], path: Path) -> None:
+    """``fullfield.parquet``, one row group per frame: the frames are never joined in memory."""
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    schema = pa.Schema.from_pandas(frames[0], preserve_index=False)
+    with pq.ParquetWriter(path, schema) as writer:
+        for t in frames:
+            writer.write_table(pa.Table.from_pandas(t, schema=schema, preserve_index=False))
+
+
 def write_fullfield(result: FullFieldResult, folder: Path, *, unit: str) -> None:
     """Write the four full-field outputs into ``folder`` (a staged output folder)."""
     with progress.step("writing fullfield.parquet"):
-        result.table.to_parquet(folder / "fullfield.parquet", index=False)
+        write_table(result.frames, folder / "fullfield.parquet")
     write_csv(result.stats, folder / "fullfield_stats.csv")
     write_json({**result.summary, "length_unit": unit}, folder / "fullfield.json")
     with progress.step("writing fullfield.vtp"):
         write_points(result, folder / "fullfield.vtp")
 
 
-__all__ = ["write_fullfield", "write_points"]
+__all__ = ["write_fullfield", "write_points", "write_table"]

@@ -10,11 +10,12 @@ location and evaluation are those of the gauges (:mod:`correlate.model_readings.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, fields
 
 import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
+from scipy import sparse
 
 from correlate.core.errors import StudyError
 from correlate.fullfield.registration import (
@@ -24,11 +25,11 @@ from correlate.fullfield.registration import (
     rotation_angle_deg,
 )
 from correlate.fullfield.strain import tangent_axes
-from correlate.model_readings.locator import Locator
-from correlate.model_readings.operator import GaugeOperator, build_operator
+from correlate.model_readings.locator import Locator, SurfacePoints, parent_coordinates
+from correlate.model_readings.operator import GaugeOperator, Placement
 from correlate.readers.dic_frames import Landmarks
 from correlate.readers.fullfield_study import FullFieldSettings
-from correlate.readers.gauges import validate_gauges
+from correlate.readers.model import Mesh
 
 EDGE_ANGLE = 30.0   # degrees: a normal turning more than this within `edge` is a part edge
 EDGE_ON_SINE = 0.1  # sine of the angle between the DIC's x axis and a face normal, below: edge-on
@@ -205,25 +206,32 @@ def near_part_edge(locator: Locator, position: NDArray, normal: NDArray, ex: NDA
     return out
 
 
-def _point_gauges(position: NDArray, direction: NDArray) -> pd.DataFrame:
-    """The zero-length gauge map of the points. Its first two rows are validated as any gauge
-    map (:func:`~correlate.readers.gauges.validate_gauges`), which fixes the columns and their
-    defaults; the rest are built the same way without the per-row checks, since the points and
-    their unit directions are generated here (a per-row validation costs seconds at 10^6)."""
-    n = len(position)
-    raw = pd.DataFrame({"gauge": ["P0", "P1"][:n], "x": position[:2, 0], "y": position[:2, 1],
-                        "z": position[:2, 2], "dir_x": direction[:2, 0],
-                        "dir_y": direction[:2, 1], "dir_z": direction[:2, 2], "length": 0.0,
-                        "kt": 0.0})
-    head = validate_gauges(raw, source="DIC points")
-    given = {"x": position[:, 0], "y": position[:, 1], "z": position[:, 2],
-             "dir_x": direction[:, 0], "dir_y": direction[:, 1], "dir_z": direction[:, 2],
-             "gauge": np.char.add("P", np.arange(n).astype(str)).astype(object),
-             "row": np.arange(n) + int(head["row"].iloc[0])}
-    cols = {c: (pd.Series(given[c]) if c in given
-                else pd.Series(np.repeat(head[c].to_numpy()[:1], n))).astype(head[c].dtype)
-            for c in head.columns}
-    return pd.DataFrame(cols)
+def point_operator(mesh: Mesh, on: SurfacePoints, ex: NDArray[np.float64],
+                   ey: NDArray[np.float64]) -> GaugeOperator:
+    """The zero-length gauge operator at surface points, built straight from their projection.
+
+    A point is a gauge of zero length with no band: one sample (its cell and natural
+    coordinates), one centre row of weight 1, the grid along ``ex`` and the transverse along
+    ``ey``, so that :func:`~correlate.model_readings.evaluate.centre_strain` reads the model
+    tensor there exactly as for a gauge. Built from the arrays alone, without the gauge map's
+    placement table and per-row sample frames of
+    :func:`~correlate.model_readings.operator.build_operator` (a gigabyte at 500,000 points).
+    """
+    n = len(on.cell)
+    ident = sparse.csr_matrix((np.ones(n), np.arange(n), np.arange(n + 1)), shape=(n, n))
+    names = pd.DataFrame({"gauge": pd.array(np.char.add("P", np.arange(n).astype(str)),
+                                            dtype="string[pyarrow]")})
+    placement = Placement(table=names, normal=on.normal, direction=ex, centre=on.point)
+    return GaugeOperator(mesh=mesh, placement=placement, cell=on.cell.astype(np.int64),
+                         xi=parent_coordinates(mesh, on), direction=ex, transverse=ey,
+                         face=np.full(n, "", dtype="<U1"), weights=ident,
+                         row_gauge=np.arange(n, dtype=np.int64),
+                         row_kind=np.ones(n, dtype=np.int64), row_offset=np.zeros((n, 3)),
+                         kt=np.zeros(n), nu0=np.zeros(n), invalid=np.zeros(n, dtype=bool))
+
+
+def _rows_of(on: SurfacePoints, rows: NDArray[np.intp]) -> SurfacePoints:
+    return SurfacePoints(**{f.name: getattr(on, f.name)[rows] for f in fields(on)})
 
 
 def locate_points(points: NDArray[np.float64], ff: FullFieldSettings, locator: Locator, landmarks: Landmarks | None, *,
@@ -263,9 +271,7 @@ def locate_points(points: NDArray[np.float64], ff: FullFieldSettings, locator: L
                          "it of an edge; lower edge")
     kept = np.flatnonzero(snap)[keep]
     position = on.point[kept]
-    op = build_operator(locator.mesh, _point_gauges(position, ex[keep]), band=False,
-                        grid_points=1, snap_tol=max(ff.snap_tol * scale, 1e-9) * 1.001,
-                        locator=locator)
+    op = point_operator(locator.mesh, _rows_of(on, kept), ex[keep], ey[keep])
     reg = Registration(method=method, matrix=M, landmark_rms=lm_rms,
                        rms=float(np.sqrt(np.mean(dist**2))), p95=float(np.percentile(dist, 95)),
                        n_points=len(points), dropped_snap=int((~snap).sum()),
@@ -274,5 +280,5 @@ def locate_points(points: NDArray[np.float64], ff: FullFieldSettings, locator: L
 
 
 __all__ = ["EDGE_ANGLE", "PointModel", "Registration", "distinct_rows", "frame_points",
-           "locate_points", "near_part_edge",
+           "locate_points", "near_part_edge", "point_operator",
            "region_distance", "register"]

@@ -36,7 +36,7 @@ def render_maps(corr: Correlation, result: FullFieldResult, path: Path) -> Path:
 
     from correlate.report.scene import model_surface
 
-    ref = result.table[result.table["frame"] == result.reference_frame]
+    ref = result.frame(result.reference_frame)
     xyz = ref[["x", "y", "z"]].to_numpy(dtype=float)
     values = {"measured": ref[f"{QUANTITY}_measured_ue"].to_numpy(dtype=float),
               "model, levelled": ref[f"{QUANTITY}_levelled_ue"].to_numpy(dtype=float),
@@ -83,7 +83,7 @@ def _up(normal: np.ndarray) -> tuple[float, float, float]:
 @figures._quiet
 def plot_histogram(result: FullFieldResult, path: Path) -> Path:
     """Histogram of measured - levelled model per in-plane component at the reference frame."""
-    ref = result.table[result.table["frame"] == result.reference_frame]
+    ref = result.frame(result.reference_frame)
     fig = figures._figure(7.5, 4.2)
     ax = fig.add_subplot(1, 1, 1)
     for comp in ("exx", "eyy", "exy", "eeq"):
@@ -157,7 +157,7 @@ def fullfield_context(corr: Correlation, result: FullFieldResult | None, folder:
         note = f"The maps could not be drawn here ({str(exc).splitlines()[0]})."
     return {
         "pictures": pictures, "note": note, "frame": result.reference_frame,
-        "frames": int(result.table["frame"].nunique()), "method": reg["method"],
+        "frames": len(result.frames), "method": reg["method"],
         "rotation": num(reg["rotation_deg"], ".3f"),
         "translation": ", ".join(num(v, ".3f") for v in np.asarray(reg["matrix"])[:3, 3]),
         "landmark_rms": num(reg["landmark_rms"], ".3g"), "rms": num(reg["rms_distance"], ".3g"),

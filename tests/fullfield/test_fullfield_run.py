@@ -15,6 +15,7 @@ import json
 
 import numpy as np
 import pandas as pd
+import pyarrow.parquet as pq
 import pytest
 from builders import block_readings, block_strain, default_gauges, write_block_study
 from scipy.spatial.transform import Rotation
@@ -113,6 +114,11 @@ def test_registration_recovers_the_camera_transform(unfiltered):
 def test_unfiltered_comparison_reproduces_the_analytic_field(unfiltered):
     table = pd.read_parquet(unfiltered / "fullfield.parquet")
     assert sorted(table["frame"].unique()) == ["frame_1", "frame_2", "frame_3"]
+    # written frame by frame (one row group each, never joined in memory: pyarrow's metadata)
+    groups = pq.ParquetFile(unfiltered / "fullfield.parquet")
+    assert groups.metadata.num_row_groups == 3
+    assert [groups.read_row_group(g)["frame"].unique().to_pylist() for g in range(3)] == [
+        [f] for f in table["frame"].unique()]
     M = np.array(json.loads((unfiltered / "fullfield.json").read_text())["registration"]["matrix"])
     x = table[["x", "y", "z"]].to_numpy()
     ex = M[:3, 0] - M[2, 0] * np.array([0.0, 0.0, 1.0])   # the DIC x axis in the top face
