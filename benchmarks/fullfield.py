@@ -7,7 +7,7 @@ Model: the demo bracket (about 40,000 tetra10 cells). DIC points: a grid on the 
 in camera axes turned and shifted from the model's. Per frame a strain field (the model's at
 that frame's load, plus noise). Stages timed after reading: registration (landmarks + ICP),
 locating the points once (zero-length gauge operator), and per frame: evaluation, Gaussian
-levelling (on the points' grid when they form one, else pairwise weights; built once for shared
+levelling (on the points' grid when they form one, else on a voxel grid; built once for shared
 points, per frame over the frame's own points with ``--own-points``),
 statistics (blocked slope, metrics). ``--own-points`` gives every
 frame its own point set (jittered), so the points are located per distinct point.

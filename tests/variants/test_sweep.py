@@ -138,6 +138,12 @@ def test_distributed_run_gives_the_local_clusters_variants_csv(local_sweep, tmp_
             procs.append(subprocess.Popen([dask, "worker", address, "--nthreads", "1",
                                            "--no-dashboard", "--no-nanny"],
                                           stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL))
+        # both workers up before the sweep: on a loaded 2-core machine their start (imports)
+        # can take longer than the 30 s distributed allows a scatter to find workers
+        from dask.distributed import Client
+
+        with Client(address, timeout=120) as probe:
+            probe.wait_for_workers(2, timeout=180)
         out = tmp_path / "dist"
         code = main(["--quiet", "sweep", str(local_sweep / "sweep.toml"), "--out", str(out),
                      "--scheduler", address])
@@ -145,10 +151,16 @@ def test_distributed_run_gives_the_local_clusters_variants_csv(local_sweep, tmp_
         assert (out / "variants.csv").read_text() == \
             (local_sweep / "out" / "variants.csv").read_text()
     finally:
+        # workers first, then the scheduler: a worker stopped together with its scheduler can
+        # spend its whole shutdown retrying the closed connection (seen: > 30 s), so it is
+        # killed after 20 s; the cluster's shutdown is distributed's, not the sweep's
         for p in reversed(procs):
             p.terminate()
-        for p in procs:
-            p.wait(timeout=30)
+            try:
+                p.wait(timeout=20)
+            except subprocess.TimeoutExpired:
+                p.kill()
+                p.wait(timeout=20)
 
 
 def test_rerun_into_the_same_folder_takes_every_variant_from_the_cache(local_sweep, capsys):
