@@ -121,12 +121,17 @@ def measured_readings(study: Study, model: Model) -> tuple[Any, Steps, NDArray[n
     return readings, steps, measured
 
 
-def chain_readings(study: Study, gauges: pd.DataFrame
+def chain_readings(study: Study, gauges: pd.DataFrame, test_data: tuple | None = None
                    ) -> tuple[Any, Steps, NDArray[np.float64], ChainApplied | None]:
     """:func:`measured_readings` with the measurement chain's record (None when not used);
-    ``gauges`` is the gauge map (``check`` calls it before any gauge is located)."""
-    with progress.step("reading the test data"):
-        readings, steps, _ = read_test_data(study, gauges)
+    ``gauges`` is the gauge map (``check`` calls it before any gauge is located);
+    ``test_data`` what :func:`~correlate.comparison.pairing.read_test_data` returned for this
+    study and map, when the caller has it already (a sweep reads the test once)."""
+    if test_data is not None:
+        readings, steps, _ = test_data
+    else:
+        with progress.step("reading the test data"):
+            readings, steps, _ = read_test_data(study, gauges)
     names = gauges["gauge"].tolist()
     signs = reverse_signs(gauges, study)
     if chain_used(gauges, study.chain):
@@ -226,12 +231,16 @@ def _require_pairs(study: Study, steps: Steps, measured: NDArray) -> None:
                          "is blank there); check the gauge columns or the channel names")
 
 
-def correlate_study(study: Study, model: Model | None = None) -> Correlation:
-    """Run the correlation of a study; nothing is written."""
+def correlate_study(study: Study, model: Model | None = None, *,
+                    test_data: tuple | None = None,
+                    hashes: dict[Path, str] | None = None) -> Correlation:
+    """Run the correlation of a study; nothing is written. ``test_data``: the study's test
+    data already read (:func:`chain_readings`), else the readings file is read here;
+    ``hashes``: input files' SHA-256 already computed (the provenance hashes the others)."""
     _require_loads(study)
     model = compared_model(model or prepare(study))
     names = model.gauges["gauge"].tolist()
-    readings, steps, measured, chain = chain_readings(study, model.gauges)
+    readings, steps, measured, chain = chain_readings(study, model.gauges, test_data)
     _require_pairs(study, steps, measured)
     progress.pause("readings")
     m = model_readings(study, model, steps)
@@ -252,7 +261,7 @@ def correlate_study(study: Study, model: Model | None = None) -> Correlation:
     result["load_checks"] = load_checks(study, steps, measured, st, m.rows_by_case,
                                         model.operator)
     summary = summarise(study, model, readings, steps, names, result, per_gauge, flags, diag,
-                        ref, st, reversed_)
+                        ref, st, reversed_, hashes=hashes)
     corrections = None if chain is None else corrections_table(chain, ref, m.height)
     if corrections is not None:
         summary["measurement_chain"] = {

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import datetime as _dt
 import os
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -116,7 +117,8 @@ def judge(study: Study, names: list[str], fit: dict[str, Any], st: Statuses,
 
 def summarise(study: Study, model: Model, readings: Any, steps: Steps, names: list[str],
              result: dict, per_gauge: pd.DataFrame, flags: pd.DataFrame, diag: pd.DataFrame,
-             ref: int, st: Statuses, reversed_: NDArray) -> dict[str, Any]:
+             ref: int, st: Statuses, reversed_: NDArray,
+             hashes: dict[Path, str] | None = None) -> dict[str, Any]:
     ev = st.evaluated
     verdict = judge(study, names, result["fit"], st, flags)
     failing = ((st.status == "fail") & ev).any(axis=0)
@@ -131,7 +133,8 @@ def summarise(study: Study, model: Model, readings: Any, steps: Steps, names: li
     provenance = {
         "tool": "correlate", "version": __version__,
         "generated": _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%dT%H:%M:%SZ"),
-        "inputs": {k: {"path": os.path.relpath(v, study.path.parent), "sha256": sha256(v)}
+        "inputs": {k: {"path": os.path.relpath(v, study.path.parent),
+                       "sha256": (hashes or {}).get(Path(v)) or sha256(v)}
                    for k, v in inputs.items() if v is not None},
         "study_as_read": study.raw,
     }

@@ -6,8 +6,9 @@ to a callback as each finishes (so the caller can keep it before the next one ar
 
 One task per variant (:func:`~correlate.variants.evaluate.correlate_variant`): the worker reads
 the variant's files by path and returns its readings and metrics, a few kB; no mesh or field goes
-through the scheduler. The located gauges are scattered to every worker once and passed to the
-tasks by reference. ``dask.distributed`` is imported here, when a sweep runs, never at package
+through the scheduler. The located gauges (with the test's data) and the base study are
+scattered to every worker once and passed to the tasks by reference; each worker imports what
+the tasks use before the first one (:func:`warm_up`). ``dask.distributed`` is imported here, when a sweep runs, never at package
 import.
 """
 
@@ -16,6 +17,7 @@ from __future__ import annotations
 import logging
 import os
 from collections.abc import Callable, Sequence
+from pathlib import Path
 
 from correlate.core import progress
 from correlate.core.errors import CorrelateError
@@ -23,9 +25,21 @@ from correlate.readers.records import Study
 from correlate.variants.evaluate import Located, VariantResult, correlate_variant
 from correlate.variants.sweep_file import Variant
 
-__all__ = ["compute_variants"]
+__all__ = ["compute_variants", "warm_up"]
 
 CONNECT_TIMEOUT = "10s"   # an unreachable scheduler is reported after this
+
+
+def warm_up() -> None:
+    """Import on a worker what a variant's task uses (readers, VTK, statsmodels), before the
+    first task: the variants' stage then measures the variants, and the first variants on each
+    worker do not carry a second or more of imports."""
+    import statsmodels.regression.linear_model  # noqa: F401
+    import vtkmodules.vtkIOXML  # noqa: F401
+
+    import correlate.comparison.correlation
+    import correlate.readers.named_arrays
+    import correlate.variants.evaluate  # noqa: F401
 
 
 def compute_variants(
@@ -34,6 +48,7 @@ def compute_variants(
     located: Located,
     done: Callable[[Variant, VariantResult], None],
     *,
+    hashes: dict[str, dict[Path, str]] | None = None,
     workers: int | None = None,
     scheduler: str | None = None,
 ) -> None:
@@ -49,6 +64,9 @@ def compute_variants(
         The base model's located gauges, scattered to the workers once.
     done : callable
         Called on the client for each finished variant, in the order they finish.
+    hashes : dict, optional
+        Each variant's files' SHA-256 by variant name (computed for the cache key), put in the
+        variant's provenance instead of hashing the file again on the worker.
     workers : int, optional
         Worker processes of the local cluster (one thread each). Default: the machine's cores.
     scheduler : str, optional
@@ -79,8 +97,12 @@ def compute_variants(
                                  f"({exc}); start it (dask scheduler) or check the address") \
                 from None
     try:
-        shared = client.scatter(located, broadcast=True)
-        futures = {client.submit(correlate_variant, study, v, shared, pure=False,
+        with progress.step("starting the workers"):
+            client.run(warm_up)
+            shared = client.scatter(located, broadcast=True)
+            base = client.scatter(study, broadcast=True)
+        futures = {client.submit(correlate_variant, base, v, shared,
+                                 (hashes or {}).get(v.name), pure=False,
                                  key=f"correlate-variant-{i}"): v
                    for i, v in enumerate(variants)}
         finished = as_completed(futures)

@@ -2,7 +2,7 @@
 
 Stage: variants. In: the base :class:`~correlate.readers.records.Study`, a
 :class:`~correlate.variants.sweep_file.Variant` and the base model's located gauges
-(:class:`Located`, shared by every variant on the same mesh). Out: a :class:`VariantResult`
+(:class:`Located`, shared by every variant on the same mesh, with the test's data read once). Out: a :class:`VariantResult`
 holding the variant's model readings (gauges x steps, and the operator rows per case) and the
 metrics of the base study's whole comparison run on them (:func:`correlate_study`, the same
 function ``correlate run`` calls), a few kB; or the one-line reason it failed.
@@ -14,9 +14,11 @@ status to a gauge it flags as misinstalled than ``correlate run`` on the same va
 
 from __future__ import annotations
 
+import copy
 import hashlib
 import warnings
 from dataclasses import dataclass, field, replace
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -25,7 +27,9 @@ from numpy.typing import NDArray
 
 from correlate.comparison.budget import STATES
 from correlate.comparison.correlation import correlate_study
+from correlate.comparison.pairing import read_test_data
 from correlate.core.errors import CorrelateError, CorrelateWarning
+from correlate.model_readings.channels import compared_model
 from correlate.model_readings.locator import Locator
 from correlate.model_readings.model import Model, locate, open_sources, prepare, settle_family
 from correlate.model_readings.operator import GaugeOperator
@@ -48,6 +52,7 @@ class Located:
     operator: GaugeOperator
     locator: Locator
     bridges: tuple[Bridge, ...] = ()   # the gauge map's bridge channels (compared as channels)
+    test_data: tuple | None = None     # the base study's test data, read once (read_test_data)
 
 
 @dataclass(frozen=True)
@@ -91,10 +96,13 @@ def mesh_hash(mesh: Mesh) -> str:
 
 
 def locate_base(study: Study) -> Located:
-    """Locate the base study's gauges on its own model (``correlate run``'s preparation)."""
+    """Locate the base study's gauges on its own model (``correlate run``'s preparation) and
+    read the test's data once, channel by channel as the comparison reads it (a bridge's arms
+    as its one channel)."""
     model = prepare(study)
     return Located(mesh_hash=mesh_hash(model.operator.mesh), gauges=model.gauges,
-                   operator=model.operator, locator=model.locator, bridges=model.bridges)
+                   operator=model.operator, locator=model.locator, bridges=model.bridges,
+                   test_data=read_test_data(study, compared_model(model).gauges))
 
 
 def with_variant_files(study: Study, variant: Variant) -> Study:
@@ -115,8 +123,12 @@ def missing_file(variant: Variant) -> str:
     return ""
 
 
-def correlate_variant(study: Study, variant: Variant, located: Located) -> VariantResult:
+def correlate_variant(study: Study, variant: Variant, located: Located,
+                      hashes: dict[Path, str] | None = None) -> VariantResult:
     """Correlate one variant: read its arrays, reuse or make the gauge operator, compare.
+
+    ``hashes``: the variant files' SHA-256 as the client computed them for the cache key,
+    taken into the comparison's provenance rather than read again here.
 
     Any problem with the variant's input (missing or unreadable file, missing array, a gauge off
     a different mesh) is returned as ``failure`` with its one-line reason, never raised, so that
@@ -139,7 +151,10 @@ def correlate_variant(study: Study, variant: Variant, located: Located) -> Varia
             else:
                 model = locate(vstudy, sources, located.gauges)
             model.bridges = located.bridges
-            corr = correlate_study(vstudy, model)
+            # the variants share the test: its data read once on the client, copied here so
+            # that no variant's comparison can change what the next one sees
+            corr = correlate_study(vstudy, model, test_data=copy.deepcopy(located.test_data),
+                                   hashes=hashes)
         except CorrelateError as exc:
             return VariantResult(name=variant.name, failure="; ".join(exc.problems))
     rows = {case: {k: np.asarray(v, dtype=float) for k, v in r.items()

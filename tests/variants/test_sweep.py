@@ -398,3 +398,35 @@ def test_an_unreachable_scheduler_gets_one_line_and_exit_2(local_sweep, tmp_path
     assert code == 2
     assert len(err) == 1 and address in err[0] and "dask scheduler" in err[0], err
     assert not (out / "variants.csv").exists()
+
+
+def test_the_worker_reuses_the_clients_hashes_and_the_tests_data(tmp_path, monkeypatch):
+    """A variant's task hashes no variant file the client already hashed for the cache key,
+    does not read the readings file again (the base's test data is passed), and gives the
+    same readings and metrics, bit for bit, as the task given neither."""
+    from correlate.comparison import pairing, verdict
+    from correlate.variants.cache import study_fingerprint, variant_key
+    from correlate.variants.evaluate import correlate_variant, locate_base
+    from correlate.variants.sweep_file import read_sweep
+
+    k_study(tmp_path)
+    write_variants(tmp_path, [("a", {"k": 1.02})])
+    sweep = read_sweep(write_sweep(tmp_path))
+    located = locate_base(sweep.study)
+    variant = sweep.variants[0]
+    plain = correlate_variant(sweep.study, variant, located, None)
+    hashes: dict = {}
+    assert variant_key(variant, study_fingerprint(sweep.study), hashes) is not None
+    assert set(hashes) == {variant.file}
+    hashed, read = [], []
+    real_sha, real_read = verdict.sha256, pairing.read_readings
+    monkeypatch.setattr(verdict, "sha256", lambda p: hashed.append(Path(p)) or real_sha(p))
+    monkeypatch.setattr(pairing, "read_readings", lambda *a, **k: read.append(a) or
+                        real_read(*a, **k))
+    reused = correlate_variant(sweep.study, variant, located, hashes)
+    assert variant.file not in hashed and hashed   # the study's other inputs are still hashed
+    assert read == []
+    assert not reused.failure
+    np.testing.assert_array_equal(reused.predicted, plain.predicted)
+    np.testing.assert_array_equal(reused.measured, plain.measured)
+    assert reused.metrics == plain.metrics
