@@ -171,7 +171,11 @@ def test_fullfield_finds_the_invented_soft_patch(demo):
     import numpy as np
 
     run = demo["run"]
-    assert "12. Full-field (DIC) comparison" in (run / "report.html").read_text(encoding="utf-8")
+    html = (run / "report.html").read_text(encoding="utf-8")
+    assert "12. Full-field (DIC) comparison" in html
+    # the contents list every section the report has (chain, validation and full field here)
+    for anchor in ("measurement-chain", "validation", "fullfield"):
+        assert f'<a href="#{anchor}">' in html and f'id="{anchor}"' in html
     table = pd.read_parquet(run / "fullfield.parquet")
     frame = table[table["frame"] == "F05"].dropna()   # pull only: exx carries the bending
     r = np.hypot(frame["x"] - 112.0, frame["y"] + 9.0)

@@ -223,7 +223,10 @@ def test_report_has_the_fullfield_section(tmp_path):
     study = _study(tmp_path, edge=0.2)
     assert main(["run", "--quiet", str(study), "--out", str(tmp_path / "o")]) == 0
     html = (tmp_path / "o" / "report.html").read_text(encoding="utf-8")
-    assert "12. Full-field (DIC) comparison" in html
+    # numbered after the sections before it (no [uncertainty] here, so no section 11 of its
+    # own) and listed in the contents
+    assert "<h2>11. Full-field (DIC) comparison</h2>" in html
+    assert '<a href="#fullfield">Full-field (DIC) comparison</a>' in html
     with Image.open(tmp_path / "o" / "fullfield_maps.png") as img:
         assert img.size == (1800, 620)
         pixels = np.asarray(img.convert("RGB"), dtype=float)
