@@ -211,7 +211,7 @@ def test_report_and_gauges_vtp_show_every_arm(tmp_path):
     pb = vtp.point_data["measured_ue"][1:]
     assert pb[0] == pb[1]
     html = (tmp_path / "out" / "report.html").read_text(encoding="utf-8")
-    assert "PB (bridge, arms 1:PA 2:PT)" in html
+    assert "PB<span class=\"sub\">bridge, arms 1:PA 2:PT</span>" in html
 
 
 def test_a_study_without_bridges_writes_the_same_files(tmp_path):
