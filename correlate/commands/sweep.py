@@ -94,14 +94,13 @@ def collect(sweep: Sweep, out: Path, args: argparse.Namespace) -> tuple[dict, in
     fingerprint = study_fingerprint(sweep.study)
     results: dict[str, VariantResult] = {}
     keys: dict[str, str | None] = {}
-    hashes: dict[str, dict[Path, str]] = {}
     todo: list[Variant] = []
     for v in progress.bar(sweep.variants, desc="hashing the variant files"):
         problem = v.problem or missing_file(v)
         if problem:   # recorded as the variant's failure; nothing to compute
             results[v.name], keys[v.name] = VariantResult(name=v.name, failure=problem), None
             continue
-        keys[v.name] = key = variant_key(v, fingerprint, hashes.setdefault(v.name, {}))
+        keys[v.name] = key = variant_key(v, fingerprint)
         cached = load_result(cache, key, v.name) if key is not None else None
         if cached is not None:
             results[v.name] = cached
@@ -118,7 +117,7 @@ def collect(sweep: Sweep, out: Path, args: argparse.Namespace) -> tuple[dict, in
     if todo:
         with progress.step("locating the gauges on the base model"):
             located = locate_base(sweep.study)
-        compute_variants(sweep.study, todo, located, done, hashes=hashes, workers=args.workers,
+        compute_variants(sweep.study, todo, located, done, workers=args.workers,
                          scheduler=args.scheduler)
     return results, len(todo), n_cached
 

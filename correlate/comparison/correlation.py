@@ -33,11 +33,11 @@ from correlate.comparison.evidence import (
     load_checks,
     rosette_diagnoses,
 )
-from correlate.comparison.fits import fit_statistics
+from correlate.comparison.fits import core_fits, detail_fits
 from correlate.comparison.pairing import Steps, pair_series, read_test_data
 from correlate.comparison.rosette_budget import rosette_uncertainty, with_uncertainty
 from correlate.comparison.rosettes import rosette_table
-from correlate.comparison.verdict import summarise
+from correlate.comparison.verdict import judge, summarise
 from correlate.core import progress
 from correlate.core.errors import StudyError
 from correlate.core.units import MICROSTRAIN
@@ -231,12 +231,26 @@ def _require_pairs(study: Study, steps: Steps, measured: NDArray) -> None:
                          "is blank there); check the gauge columns or the channel names")
 
 
-def correlate_study(study: Study, model: Model | None = None, *,
-                    test_data: tuple | None = None,
-                    hashes: dict[Path, str] | None = None) -> Correlation:
-    """Run the correlation of a study; nothing is written. ``test_data``: the study's test
-    data already read (:func:`chain_readings`), else the readings file is read here;
-    ``hashes``: input files' SHA-256 already computed (the provenance hashes the others)."""
+@dataclass(frozen=True)
+class _Compared:
+    """A study's test against its model up to the statuses, the pooled fits and the diagnosis:
+    what both a run (:func:`correlate_study`) and a variant's ranking (:func:`rank_study`) need."""
+
+    model: Model
+    names: list[str]
+    readings: Any
+    steps: Steps
+    measured: NDArray[np.float64]
+    chain: ChainApplied | None
+    m: ModelForTest
+    flags: pd.DataFrame
+    reversed_: NDArray[np.bool_]     # the gauges reversed or suspect, out of the pooled fit
+    status: Statuses
+    core: dict[str, Any]             # :func:`core_fits` of the final statuses
+    diagnoses: pd.DataFrame
+
+
+def _compare_test(study: Study, model: Model | None, test_data: tuple | None) -> _Compared:
     _require_loads(study)
     model = compared_model(model or prepare(study))
     names = model.gauges["gauge"].tolist()
@@ -254,15 +268,34 @@ def correlate_study(study: Study, model: Model | None = None, *,
     excl.steps[m.not_modelled] = True
     excl.text[m.not_modelled] = "not-modelled"
     progress.pause("health")
-    st, result, diag = _compare(study, model, steps, names, measured, m, excl, flags, reversed_)
+    st, core, diag, out_of_fit = _compare(study, model, steps, names, measured, m, excl, flags,
+                                          reversed_)
+    return _Compared(model=model, names=names, readings=readings, steps=steps,
+                     measured=measured, chain=chain, m=m, flags=flags, reversed_=out_of_fit,
+                     status=st, core=core, diagnoses=diag)
+
+
+def correlate_study(study: Study, model: Model | None = None, *,
+                    test_data: tuple | None = None,
+                    hashes: dict[Path, str] | None = None) -> Correlation:
+    """Run the correlation of a study; nothing is written. ``test_data``: the study's test
+    data already read (:func:`chain_readings`), else the readings file is read here;
+    ``hashes``: input files' SHA-256 already computed (the provenance hashes the others)."""
+    c = _compare_test(study, model, test_data)
+    model, names, steps, measured, m, st = c.model, c.names, c.steps, c.measured, c.m, c.status
     ref = reference_step(m.predicted, steps)
-    per_gauge = with_arms(result.pop("per_gauge_table"), model.gauges)
+    detail = detail_fits(steps, names, measured, m.predicted, st, c.reversed_, ref)
+    result = {"fit": c.core["fit"], "fit_all": detail["fit_all"],
+              "fit_reference": detail["fit_reference"], "fit_by_step": detail["fit_by_step"],
+              "metrics": {**c.core["metrics"], **detail["metrics"]},
+              "area_metric": detail["area_metric"], "influence": detail["influence"]}
+    per_gauge = with_arms(c.core["per_gauge_table"], model.gauges)
     ros = rosette_table(study, model, model.gauges, steps, measured, m.axial, st.evaluated)
     result["load_checks"] = load_checks(study, steps, measured, st, m.rows_by_case,
                                         model.operator)
-    summary = summarise(study, model, readings, steps, names, result, per_gauge, flags, diag,
-                        ref, st, reversed_, hashes=hashes)
-    corrections = None if chain is None else corrections_table(chain, ref, m.height)
+    summary = summarise(study, model, c.readings, steps, names, result, per_gauge, c.flags,
+                        c.diagnoses, ref, st, c.reversed_, hashes=hashes)
+    corrections = None if c.chain is None else corrections_table(c.chain, ref, m.height)
     if corrections is not None:
         summary["measurement_chain"] = {
             "order": CHAIN_ORDER, "reference_step": summary["reference_step"],
@@ -272,19 +305,56 @@ def correlate_study(study: Study, model: Model | None = None, *,
         ros = with_uncertainty(ros, budget.rosettes)
     return Correlation(study=study, model=model, steps=steps, gauges=names, measured=measured,
                        predicted=m.predicted, predicted_axial=m.axial, band_low=m.low.T,
-                       band_high=m.high.T, contributions=m.contributions, status=st, flags=flags,
-                       gauge_table=with_arms(gauge_table(names, steps, measured, m, st, chain,
+                       band_high=m.high.T, contributions=m.contributions, status=st,
+                       flags=c.flags,
+                       gauge_table=with_arms(gauge_table(names, steps, measured, m, st, c.chain,
                                                          budget), model.gauges),
-                       per_gauge=per_gauge, rosettes=ros, diagnoses=diag, summary=summary,
-                       rows_by_case=m.rows_by_case, chain=chain, corrections=corrections,
-                       validation=budget,
-                       readings_info={"ignored": list(readings.ignored),
-                                      "load_units": readings.load_units})
+                       per_gauge=per_gauge, rosettes=ros, diagnoses=c.diagnoses,
+                       summary=summary, rows_by_case=m.rows_by_case, chain=c.chain,
+                       corrections=corrections, validation=budget,
+                       readings_info={"ignored": list(c.readings.ignored),
+                                      "load_units": c.readings.load_units})
+
+
+@dataclass(frozen=True)
+class Ranking:
+    """What ranks a model variant: the figures :func:`correlate_study` gives for the same model,
+    without the tables, per-step fits and provenance a report needs.
+
+    ``summary`` has the run summary's ``fit``, ``metrics`` (concordance), ``verdict`` and, with
+    ``[uncertainty]``, ``validation`` entries, equal to a run's.
+    """
+
+    steps: Steps
+    gauges: list[str]
+    measured: NDArray[np.float64]        # (s, g) microstrain
+    predicted: NDArray[np.float64]       # (s, g) microstrain
+    status: Statuses
+    summary: dict[str, Any]
+    rows_by_case: dict[str, dict[str, NDArray]]
+    validation: ValidationBudget | None = None
+
+
+def rank_study(study: Study, model: Model | None = None, *,
+               test_data: tuple | None = None) -> Ranking:
+    """The statuses, pooled fit, concordance, verdict and validation states of a study: the
+    same computation as :func:`correlate_study` (health, dispositions, diagnosis and its
+    second pass included), stopping before the figures only a report shows."""
+    c = _compare_test(study, model, test_data)
+    ref = reference_step(c.m.predicted, c.steps)
+    summary: dict[str, Any] = {"fit": c.core["fit"], "metrics": c.core["metrics"],
+                               "verdict": judge(study, c.names, c.core["fit"], c.status,
+                                                c.flags)}
+    budget = _budget(study, c.model, c.steps, c.names, c.measured, c.m, c.status, ref, summary,
+                     rosettes=False)
+    return Ranking(steps=c.steps, gauges=c.names, measured=c.measured, predicted=c.m.predicted,
+                   status=c.status, summary=summary, rows_by_case=c.m.rows_by_case,
+                   validation=budget)
 
 
 def _budget(study: Study, model: Model, steps: Steps, names: list[str], measured: NDArray,
-            m: ModelForTest, st: Statuses, ref: int, summary: dict[str, Any]
-            ) -> ValidationBudget | None:
+            m: ModelForTest, st: Statuses, ref: int, summary: dict[str, Any],
+            rosettes: bool = True) -> ValidationBudget | None:
     """The validation budget (None without [uncertainty]); it adds ``validation`` to the summary.
 
     Each coarser mesh or input variant is opened, evaluated at the test's steps with the same
@@ -305,6 +375,9 @@ def _budget(study: Study, model: Model, steps: Steps, names: list[str], measured
             statistical_se=float(summary["fit"].get("se_slope_origin", np.nan)), predict=predict)
         if budget is None:
             return None
+        if not rosettes:
+            summary["validation"] = budget.summary
+            return budget
         rosettes = rosette_uncertainty(study, model, model.gauges, steps, measured, m.axial,
                                        st.evaluated, budget.measurement, budget.inputs,
                                        m.predicted, budget.u_num, study.uncertainty.load)
@@ -314,16 +387,16 @@ def _budget(study: Study, model: Model, steps: Steps, names: list[str], measured
 
 def _compare(study: Study, model: Model, steps: Steps, names: list[str], measured: NDArray,
              m: ModelForTest, excl: Exclusions, flags: pd.DataFrame, reversed_: NDArray
-             ) -> tuple[Statuses, dict[str, Any], pd.DataFrame]:
-    """Statuses and statistics, the diagnosis of failing gauges, and a second pass when the
-    diagnosis flags installation faults (those gauges leave the fit until disposed of)."""
+             ) -> tuple[Statuses, dict[str, Any], pd.DataFrame, NDArray[np.bool_]]:
+    """Statuses and the pooled fits, the diagnosis of failing gauges, and a second pass when the
+    diagnosis flags installation faults (those gauges leave the fit until disposed of).
+    Returns the statuses, :func:`core_fits`, the diagnoses and the gauges out of the fit."""
     st = status_table(measured, m.predicted, study.criteria, steps, excl.steps, excl.gauges,
                       excl.text)
-    ref = reference_step(m.predicted, steps)
-    result = fit_statistics(study, steps, names, measured, m.predicted, st, reversed_, ref)
+    core = core_fits(steps, names, measured, m.predicted, st)
     with progress.step("diagnosing the failing gauges"):
         diag = diagnose_failures(study, model, steps, names, measured, m.predicted, st,
-                                 m.rows_by_case, m.contributions, result["per_gauge_table"])
+                                 m.rows_by_case, m.contributions, core["per_gauge_table"])
         ros_diag = rosette_diagnoses(study, model, steps, measured, st, m.predicted)
     if len(ros_diag):
         diag = pd.concat([diag, ros_diag[[c for c in diag.columns if c in ros_diag.columns]]],
@@ -332,9 +405,8 @@ def _compare(study: Study, model: Model, steps: Steps, names: list[str], measure
     if suspect.any():
         st = status_table(measured, m.predicted, study.criteria, steps, excl.steps, excl.gauges,
                           excl.text)
-        result = fit_statistics(study, steps, names, measured, m.predicted, st,
-                                reversed_ | suspect, ref)
-    return st, result, diag
+        core = core_fits(steps, names, measured, m.predicted, st)
+    return st, core, diag, reversed_ | suspect
 
 
 def with_arms(table: pd.DataFrame, gauges: pd.DataFrame) -> pd.DataFrame:
@@ -382,9 +454,11 @@ def gauge_table(names: list[str], steps: Steps, measured: NDArray, m: ModelForTe
 __all__ = [
     "Correlation",
     "ModelForTest",
+    "Ranking",
     "chain_readings",
     "correlate_study",
     "gauge_table",
     "measured_readings",
     "model_readings",
+    "rank_study",
 ]

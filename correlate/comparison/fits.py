@@ -21,12 +21,36 @@ from correlate.readers.study import Study
 
 def fit_statistics(study: Study, steps: Steps, names: list[str], measured: NDArray,
                 predicted: NDArray, st: Statuses, reversed_: NDArray, ref: int) -> dict[str, Any]:
-    from correlate.comparison import (
-        statistics as stats,  # statsmodels: imported when statistics are needed
-    )
+    """Every statistic of a run: :func:`core_fits` (what ranks a model) and
+    :func:`detail_fits` (what the report adds), their ``metrics`` merged."""
+    core = core_fits(steps, names, measured, predicted, st)
+    detail = detail_fits(steps, names, measured, predicted, st, reversed_, ref)
+    metrics = {**core.pop("metrics"), **detail.pop("metrics")}
+    out = {**core, **detail, "metrics": metrics}
+    order = ("fit", "fit_all", "fit_reference", "fit_by_step", "metrics", "area_metric",
+             "influence", "per_gauge_table")
+    return {k: out[k] for k in order}
+
+
+def core_fits(steps: Steps, names: list[str], measured: NDArray, predicted: NDArray,
+              st: Statuses) -> dict[str, Any]:
+    """The pooled fit of the evaluated pairs, the per-gauge fits (the diagnosis reads them) and
+    the concordance: the figures that judge and rank a model."""
     ev = st.evaluated
     groups = np.tile(names, (len(steps.step), 1))
-    fit = stats.fit_pairs(measured[ev], predicted[ev], groups[ev])
+    return {"fit": stats.fit_pairs(measured[ev], predicted[ev], groups[ev]),
+            "metrics": {"concordance": stats.concordance(measured[ev], predicted[ev]),
+                        "concordance_source": "Lin (1989), Biometrics 45:255-268"},
+            "per_gauge_table": stats.per_gauge_fits(measured[ev], predicted[ev], groups[ev])}
+
+
+def detail_fits(steps: Steps, names: list[str], measured: NDArray, predicted: NDArray,
+                st: Statuses, reversed_: NDArray, ref: int) -> dict[str, Any]:
+    """The fits a report shows beside the pooled one: with the reversed and suspect gauges, at
+    the reference step and at every active step; Bland-Altman, the area metric and each
+    gauge's influence."""
+    ev = st.evaluated
+    groups = np.tile(names, (len(steps.step), 1))
     ev_all = ev | (steps.active[:, None] & reversed_[None, :] & np.isfinite(measured))
     fit_all = stats.fit_pairs(measured[ev_all], predicted[ev_all], groups[ev_all])
     fit_ref = stats.fit_pairs(measured[ref][ev[ref]], predicted[ref][ev[ref]],
@@ -35,20 +59,15 @@ def fit_statistics(study: Study, steps: Steps, names: list[str], measured: NDArr
     for i in np.flatnonzero(steps.active):
         f = stats.fit_pairs(measured[i][ev[i]], predicted[i][ev[i]], np.asarray(names)[ev[i]])
         by_step.append({"step": int(steps.step[i]), "sequence": int(steps.sequence[i]), **f})
-    per_gauge = stats.per_gauge_fits(measured[ev], predicted[ev], groups[ev])
     m_ref, p_ref = measured[ref][ev[ref]], predicted[ref][ev[ref]]
     metrics = {
-        "concordance": stats.concordance(measured[ev], predicted[ev]),
-        "concordance_source": "Lin (1989), Biometrics 45:255-268",
         "bland_altman_reference": stats.bland_altman(m_ref, p_ref),
         "bland_altman_reference_relative": stats.bland_altman(m_ref, p_ref, relative=True),
         "bland_altman_source": "Bland and Altman (1986), Lancet i:307-310",
     }
-    area = area_metrics(steps, names, measured, predicted, ev)
-    infl = stats.influence_by_gauge(measured[ev], predicted[ev], groups[ev])
-    return {"fit": fit, "fit_all": fit_all, "fit_reference": fit_ref, "fit_by_step": by_step,
-            "metrics": metrics, "area_metric": area, "influence": infl,
-            "per_gauge_table": per_gauge}
+    return {"fit_all": fit_all, "fit_reference": fit_ref, "fit_by_step": by_step,
+            "metrics": metrics, "area_metric": area_metrics(steps, names, measured, predicted, ev),
+            "influence": stats.influence_by_gauge(measured[ev], predicted[ev], groups[ev])}
 
 
 def area_metrics(steps: Steps, names: list[str], measured: NDArray, predicted: NDArray,

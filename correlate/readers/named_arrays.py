@@ -9,8 +9,11 @@ array selections, so their bytes are skipped rather than decoded; the cells are 
 by meshio's own function for VTK cells (``meshio._vtk_common.vtk_cells_from_data``), so the mesh
 is the one a whole read gives. A static XDMF is read by meshio's XDMF reader after the attributes
 not named are taken out of its parsed light data, so their HDF5 datasets are never opened.
-Anything unusual (several pieces, polyhedra, cells meshio skips, a file VTK cannot parse) returns
-None: the caller reads the whole file with meshio, which refuses such files in its own words.
+A VTU of several pieces is read here too, VTK joining the pieces (meshio 5.3's whole read keeps
+only the last piece's cells: meshio issue 1444). Anything else unusual (polyhedra, cells meshio
+skips, a file VTK cannot parse) returns None: the caller reads the whole file with meshio, which
+refuses such files in its own words; a VTU of several pieces that cannot be read here is refused
+(:class:`~correlate.core.errors.ModelError`) rather than read with a piece missing.
 """
 
 from __future__ import annotations
@@ -23,6 +26,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
+from correlate.core.errors import ModelError
 from correlate.readers.records import Case
 
 
@@ -115,7 +119,8 @@ def elements(root: Any, name: str) -> list[Any]:
 
 
 def read_vtu(path: Path, names: Collection[str]) -> PartialRead | None:
-    """Points, cells and the named arrays of a one-piece VTU through VTK (None: read it whole)."""
+    """Points, cells and the named arrays of a VTU through VTK, its pieces joined (None: read it
+    whole; a VTU of several pieces that VTK cannot give is refused, never read whole)."""
     from meshio._vtk_common import vtk_cells_from_data, vtk_to_meshio_type
     from vtkmodules.util.numpy_support import vtk_to_numpy
     from vtkmodules.vtkCommonCore import vtkObject
@@ -131,8 +136,6 @@ def read_vtu(path: Path, names: Collection[str]) -> PartialRead | None:
         if parser is None or parser.GetRootElement() is None:
             return None
         pieces, listing, component_names = vtu_structure(parser)
-        if pieces != 1:
-            return None
         for selection, location in ((reader.GetPointDataArraySelection(), "point"),
                                     (reader.GetCellDataArraySelection(), "cell")):
             selection.DisableAllArrays()
@@ -144,10 +147,10 @@ def read_vtu(path: Path, names: Collection[str]) -> PartialRead | None:
     finally:
         vtkObject.SetGlobalWarningDisplay(quiet)
     if grid is None or grid.GetPoints() is None or grid.GetNumberOfCells() == 0:
-        return None
+        return _whole(path, pieces)
     types = vtk_to_numpy(grid.GetCellTypes()).astype(np.int64)
     if any(int(t) not in vtk_to_meshio_type or t == 42 for t in np.unique(types)):
-        return None
+        return _whole(path, pieces)
     cell_array = grid.GetCells()
     connectivity = vtk_to_numpy(cell_array.GetConnectivityArray())
     offsets = vtk_to_numpy(cell_array.GetOffsetsArray())[1:]   # each cell's end, as VTU stores
@@ -156,10 +159,22 @@ def read_vtu(path: Path, names: Collection[str]) -> PartialRead | None:
         raw = _vtk_arrays(grid.GetCellData(), listing, "cell", vtk_to_numpy)
         blocks, cell_data = vtk_cells_from_data(connectivity, offsets, types, raw)
     except (ValueError, TypeError, IndexError, KeyError):
-        return None     # an array of another size or kind than its header says: read it whole
+        return _whole(path, pieces)   # an array of another size or kind than its header says
     return PartialRead(points=vtk_to_numpy(grid.GetPoints().GetData()),
                        cells=tuple((b.type, b.data) for b in blocks), point_data=point_data,
                        cell_data=cell_data, listing=listing, component_names=component_names)
+
+
+def _whole(path: Path, pieces: int) -> None:
+    """None (read the file whole) for a one-piece VTU; a VTU of several pieces is refused, since
+    the whole read would keep only its last piece's cells (meshio issue 1444)."""
+    if pieces > 1:
+        raise ModelError(f"{path.name}: holds {pieces} pieces with cells VTK's reader does not "
+                         "give here (polyhedra, cells of an unsupported type, or an array of "
+                         "another size than its header says), and the whole-file reader would "
+                         "keep only the last piece; write the model as one piece of supported "
+                         "cells (merge the pieces in the solver's export)")
+    return None
 
 
 def _vtk_arrays(data: Any, listing: tuple[Listed, ...], location: str,

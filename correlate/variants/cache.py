@@ -57,22 +57,16 @@ def _paths(value: object) -> list[Path]:
     return []
 
 
-def variant_key(variant: Variant, fingerprint: str,
-                hashes: dict[Path, str] | None = None) -> str | None:
+def variant_key(variant: Variant, fingerprint: str) -> str | None:
     """The cache key of a variant: its files' SHA-256 and the study fingerprint; None when a
-    file is missing (that variant fails and is not cached). ``hashes``, when given, receives
-    each file's SHA-256 (the worker puts them in the variant's provenance without reading the
-    file a second time)."""
+    file is missing (that variant fails and is not cached)."""
     h = hashlib.blake2b(digest_size=20)
     h.update(fingerprint.encode())
     for label, path in [("", variant.file), *sorted(variant.case_files.items())]:
         if not path.is_file():
             return None
-        digest = sha256(path)
-        if hashes is not None:
-            hashes[path] = digest
         h.update(label.encode())
-        h.update(digest.encode())
+        h.update(sha256(path).encode())
     return h.hexdigest()
 
 

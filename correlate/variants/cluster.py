@@ -17,7 +17,6 @@ from __future__ import annotations
 import logging
 import os
 from collections.abc import Callable, Sequence
-from pathlib import Path
 
 from correlate.core import progress
 from correlate.core.errors import CorrelateError
@@ -31,9 +30,10 @@ CONNECT_TIMEOUT = "10s"   # an unreachable scheduler is reported after this
 
 
 def warm_up() -> None:
-    """Import on a worker what a variant's task uses (readers, VTK, statsmodels), before the
-    first task: the variants' stage then measures the variants, and the first variants on each
-    worker do not carry a second or more of imports."""
+    """Import on a worker what a variant's task uses (readers, meshio, VTK, statsmodels),
+    before the first task: the variants' stage then measures the variants, and the first
+    variants on each worker do not carry a second or more of imports."""
+    import meshio  # noqa: F401  (the mesh record's conversion; 0.05 s to import)
     import statsmodels.regression.linear_model  # noqa: F401
     import vtkmodules.vtkIOXML  # noqa: F401
 
@@ -48,7 +48,6 @@ def compute_variants(
     located: Located,
     done: Callable[[Variant, VariantResult], None],
     *,
-    hashes: dict[str, dict[Path, str]] | None = None,
     workers: int | None = None,
     scheduler: str | None = None,
 ) -> None:
@@ -64,9 +63,6 @@ def compute_variants(
         The base model's located gauges, scattered to the workers once.
     done : callable
         Called on the client for each finished variant, in the order they finish.
-    hashes : dict, optional
-        Each variant's files' SHA-256 by variant name (computed for the cache key), put in the
-        variant's provenance instead of hashing the file again on the worker.
     workers : int, optional
         Worker processes of the local cluster (one thread each). Default: the machine's cores.
     scheduler : str, optional
@@ -80,13 +76,20 @@ def compute_variants(
     """
     if not variants:
         return
+    import dask
     from dask.distributed import Client, LocalCluster, as_completed
 
     if scheduler is None:
         n = workers or os.cpu_count() or 1
-        cluster = LocalCluster(n_workers=min(n, len(variants)), threads_per_worker=1,
-                               processes=True, dashboard_address=None,
-                               silence_logs=logging.ERROR)
+        # Dask's nannies start workers with MALLOC_TRIM_THRESHOLD_=65536, which fixes glibc's
+        # mmap threshold at 128 kB: every array a variant reads is then mapped afresh and
+        # page-faulted, about 25 % of a one-array variant's task (benchmarks/RESULTS.md). One
+        # task at a time per worker reuses the same sizes, so glibc's own threshold is kept.
+        with dask.config.set({"distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_":
+                              None}):
+            cluster = LocalCluster(n_workers=min(n, len(variants)), threads_per_worker=1,
+                                   processes=True, dashboard_address=None,
+                                   silence_logs=logging.ERROR)
         client = Client(cluster)
     else:
         cluster = None
@@ -101,19 +104,18 @@ def compute_variants(
             client.run(warm_up)
             shared = client.scatter(located, broadcast=True)
             base = client.scatter(study, broadcast=True)
-        futures = {client.submit(correlate_variant, base, v, shared,
-                                 (hashes or {}).get(v.name), pure=False,
+        futures = {client.submit(correlate_variant, base, v, shared, pure=False,
                                  key=f"correlate-variant-{i}"): v
                    for i, v in enumerate(variants)}
-        finished = as_completed(futures)
-        for fut in progress.bar(finished, desc="correlating the variants", total=len(futures)):
+        # results fetched as they finish by the client's event loop, not one call per future
+        finished = as_completed(futures, with_results=True, raise_errors=False)
+        for fut, result in progress.bar(finished, desc="correlating the variants",
+                                        total=len(futures)):
             variant = futures[fut]
             if fut.status == "error":
                 exc = fut.exception()
                 result = VariantResult(name=variant.name, failure=(
                     f"internal error on the worker: {type(exc).__name__}: {exc}"))
-            else:
-                result = fut.result()
             done(variant, result)
     finally:
         client.close()

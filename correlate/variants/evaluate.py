@@ -4,8 +4,9 @@ Stage: variants. In: the base :class:`~correlate.readers.records.Study`, a
 :class:`~correlate.variants.sweep_file.Variant` and the base model's located gauges
 (:class:`Located`, shared by every variant on the same mesh, with the test's data read once). Out: a :class:`VariantResult`
 holding the variant's model readings (gauges x steps, and the operator rows per case) and the
-metrics of the base study's whole comparison run on them (:func:`correlate_study`, the same
-function ``correlate run`` calls), a few kB; or the one-line reason it failed.
+metrics of the base study's comparison run on them (:func:`rank_study`: the statuses, health,
+dispositions, diagnosis and fits of ``correlate run``, without the tables and per-step figures
+only a report shows), a few kB; or the one-line reason it failed.
 
 The comparison runs where the variant's arrays are (on the worker): the diagnosis of failing
 gauges reads the field around them, and a run on the readings alone would give a different
@@ -15,10 +16,8 @@ status to a gauge it flags as misinstalled than ``correlate run`` on the same va
 from __future__ import annotations
 
 import copy
-import hashlib
 import warnings
 from dataclasses import dataclass, field, replace
-from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -26,7 +25,7 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from correlate.comparison.budget import STATES
-from correlate.comparison.correlation import correlate_study
+from correlate.comparison.correlation import rank_study
 from correlate.comparison.pairing import read_test_data
 from correlate.core.errors import CorrelateError, CorrelateWarning
 from correlate.model_readings.channels import compared_model
@@ -38,16 +37,15 @@ from correlate.readers.model import Mesh
 from correlate.readers.records import Study
 from correlate.variants.sweep_file import Variant
 
-__all__ = ["METRICS", "VALIDATION", "Located", "VariantResult", "correlate_variant", "locate_base", "mesh_hash",
-           "missing_file",
-           "variant_metrics", "with_variant_files"]
+__all__ = ["METRICS", "VALIDATION", "Located", "VariantResult", "correlate_variant", "locate_base",
+           "missing_file", "same_mesh", "variant_metrics", "with_variant_files"]
 
 
 @dataclass(frozen=True)
 class Located:
-    """The base model's gauges located once: reused by every variant whose mesh hashes the same."""
+    """The base model's gauges located once: reused by every variant on the same mesh
+    (:func:`same_mesh` against ``operator.mesh``)."""
 
-    mesh_hash: str
     gauges: pd.DataFrame
     operator: GaugeOperator
     locator: Locator
@@ -81,18 +79,20 @@ class VariantResult:
     failure: str = ""
 
 
-def mesh_hash(mesh: Mesh) -> str:
-    """BLAKE2b of the points and every cell block (type and connectivity), as hex.
+def same_mesh(mesh: Mesh, base: Mesh) -> bool:
+    """Whether ``mesh`` has the points and cells of ``base``: every point coordinate and every
+    cell block (type and connectivity) equal, compared array by array.
 
-    Two meshes hash alike only when their points and cells are equal bit for bit, so a variant
-    may reuse the base model's located gauges exactly (same cells, natural coordinates, weights).
+    Only then may a variant reuse the base model's located gauges exactly (same cells, natural
+    coordinates, weights). The base mesh is on every worker with the located gauges, so the
+    arrays are compared directly: exact, and about five times cheaper than hashing them.
     """
-    h = hashlib.blake2b(digest_size=20)
-    h.update(np.ascontiguousarray(mesh.points, dtype=np.float64).tobytes())
-    for ctype, conn in mesh.blocks:
-        h.update(ctype.encode())
-        h.update(np.ascontiguousarray(conn, dtype=np.int64).tobytes())
-    return h.hexdigest()
+    if mesh.points.shape != base.points.shape or len(mesh.blocks) != len(base.blocks):
+        return False
+    if not np.array_equal(mesh.points, base.points):
+        return False
+    return all(ta == tb and ca.shape == cb.shape and np.array_equal(ca, cb)
+               for (ta, ca), (tb, cb) in zip(mesh.blocks, base.blocks, strict=True))
 
 
 def locate_base(study: Study) -> Located:
@@ -100,7 +100,7 @@ def locate_base(study: Study) -> Located:
     read the test's data once, channel by channel as the comparison reads it (a bridge's arms
     as its one channel)."""
     model = prepare(study)
-    return Located(mesh_hash=mesh_hash(model.operator.mesh), gauges=model.gauges,
+    return Located(gauges=model.gauges,
                    operator=model.operator, locator=model.locator, bridges=model.bridges,
                    test_data=read_test_data(study, compared_model(model).gauges))
 
@@ -123,12 +123,8 @@ def missing_file(variant: Variant) -> str:
     return ""
 
 
-def correlate_variant(study: Study, variant: Variant, located: Located,
-                      hashes: dict[Path, str] | None = None) -> VariantResult:
+def correlate_variant(study: Study, variant: Variant, located: Located) -> VariantResult:
     """Correlate one variant: read its arrays, reuse or make the gauge operator, compare.
-
-    ``hashes``: the variant files' SHA-256 as the client computed them for the cache key,
-    taken into the comparison's provenance rather than read again here.
 
     Any problem with the variant's input (missing or unreadable file, missing array, a gauge off
     a different mesh) is returned as ``failure`` with its one-line reason, never raised, so that
@@ -144,7 +140,7 @@ def correlate_variant(study: Study, variant: Variant, located: Located,
                 return VariantResult(name=variant.name, failure=missing_file(variant))
             sources = open_sources(vstudy)
             settle_family(vstudy, sources, located.gauges)
-            same = mesh_hash(sources[vstudy.model_file].mesh) == located.mesh_hash
+            same = same_mesh(sources[vstudy.model_file].mesh, located.operator.mesh)
             if same:
                 model = Model(study=vstudy, sources=sources, gauges=located.gauges,
                               operator=located.operator, locator=located.locator)
@@ -153,8 +149,7 @@ def correlate_variant(study: Study, variant: Variant, located: Located,
             model.bridges = located.bridges
             # the variants share the test: its data read once on the client, copied here so
             # that no variant's comparison can change what the next one sees
-            corr = correlate_study(vstudy, model, test_data=copy.deepcopy(located.test_data),
-                                   hashes=hashes)
+            corr = rank_study(vstudy, model, test_data=copy.deepcopy(located.test_data))
         except CorrelateError as exc:
             return VariantResult(name=variant.name, failure="; ".join(exc.problems))
     rows = {case: {k: np.asarray(v, dtype=float) for k, v in r.items()

@@ -8,6 +8,8 @@ offset and noise, with a preload in the tare row and invented faults on named ch
 from __future__ import annotations
 
 import json
+import warnings
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -189,3 +191,39 @@ def test_timings_give_each_stage_once_and_nest_within_their_parent(tmp_path, cap
     children = [t for indent, _, t in rows[parent + 1:] if indent > rows[parent][0]]
     assert children and all(t >= 0 for _, _, t in rows)
     assert sum(children) <= rows[parent][2] + 0.01 * len(children)
+
+
+DEMO_STUDY = Path(__file__).resolve().parents[2] / "correlate" / "data" / "demo" / "study.toml"
+
+
+@pytest.mark.parametrize("which", ["faulty", "demo"])
+def test_a_variants_ranking_gives_the_runs_figures_exactly(which, faulty_run):
+    # rank_study (what a sweep's worker runs) stops before the report's figures; the figures it
+    # gives must be a run's, exactly: the same functions on the same arrays, so compared for
+    # equality (through JSON, where NaN equals NaN), no tolerance. The faulty study has a
+    # reversed, a dead and a drifting gauge and a swapped pair the diagnosis holds out of the
+    # fit (the second pass); the demo has bridges, the measurement chain and [uncertainty].
+    from correlate.comparison.correlation import correlate_study, rank_study
+
+    study = read_study(faulty_run["folder"] / "study.toml" if which == "faulty" else DEMO_STUDY)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        run, ranked = correlate_study(study), rank_study(study)
+
+    def same(a, b):
+        return json.dumps(a, sort_keys=True, default=str) == json.dumps(b, sort_keys=True,
+                                                                          default=str)
+
+    assert same(ranked.summary["fit"], run.summary["fit"])
+    assert ranked.summary["metrics"]["concordance"] == run.summary["metrics"]["concordance"]
+    assert same(ranked.summary["verdict"],
+                {k: v for k, v in run.summary["verdict"].items() if k not in ("worst", "note")})
+    assert same(ranked.summary.get("validation"), run.summary.get("validation"))
+    assert (which == "demo") == ("validation" in ranked.summary)
+    for name in ("status", "evaluated", "difference", "basis"):
+        np.testing.assert_array_equal(getattr(ranked.status, name), getattr(run.status, name))
+    np.testing.assert_array_equal(ranked.predicted, run.predicted)
+    np.testing.assert_array_equal(ranked.measured, run.measured)
+    assert ranked.gauges == run.gauges
+    if which == "faulty":   # the second pass happened: the swapped pair is out of the fit
+        assert {"S07", "S08"} <= set(run.flags.loc[run.flags["flag"] == "installation", "gauge"])

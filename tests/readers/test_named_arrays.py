@@ -172,3 +172,74 @@ def test_predict_is_byte_identical_to_the_whole_read(tmp_path, monkeypatch, caps
     for name in ("model_readings.csv", "placement.csv"):
         ours, theirs = tmp_path / "part" / name, tmp_path / "whole" / name
         assert ours.read_bytes() == theirs.read_bytes(), name
+
+
+def pieces_vtu(path, pieces) -> None:
+    """A VTU of several pieces, written as a parallel solver's rank files are joined: each piece
+    (points, cells as (VTK type, connectivity) pairs, a 6-component point array E and a cell
+    array id) numbered on its own points."""
+    def arr(name, values, kind, comps=1):
+        text = " ".join(repr(float(v)) if kind == "Float64" else str(int(v))
+                        for v in np.ravel(values))
+        named = f' Name="{name}"' if name else ""
+        return (f'<DataArray type="{kind}"{named} NumberOfComponents="{comps}" '
+                f'format="ascii">{text}</DataArray>')
+    body = []
+    for points, cells, e, ids in pieces:
+        conn = [i for _, c in cells for i in c]
+        offsets = np.cumsum([len(c) for _, c in cells])
+        body.append(
+            f'<Piece NumberOfPoints="{len(points)}" NumberOfCells="{len(cells)}">'
+            f'<PointData>{arr("E", e, "Float64", 6)}</PointData>'
+            f'<CellData>{arr("id", ids, "Int64")}</CellData>'
+            f'<Points>{arr("", points, "Float64", 3)}</Points>'
+            f'<Cells>{arr("connectivity", conn, "Int64")}{arr("offsets", offsets, "Int64")}'
+            f'{arr("types", [t for t, _ in cells], "UInt8")}</Cells></Piece>')
+    path.write_text('<?xml version="1.0"?><VTKFile type="UnstructuredGrid" version="1.0" '
+                    'byte_order="LittleEndian" header_type="UInt64"><UnstructuredGrid>'
+                    + "".join(body) + "</UnstructuredGrid></VTKFile>")
+
+
+def test_a_vtu_of_several_pieces_is_read_whole_as_vtk_joins_them(tmp_path):
+    """Every piece's cells are kept (meshio 5.3's own VTU read keeps only the last piece's:
+    meshio issue 1444). Reference: VTK's XML reader (pyvista.read), which joins the pieces;
+    compared exactly (the same bytes decoded)."""
+    import pyvista as pv
+
+    rng = np.random.default_rng(3)
+    tets = np.array([[0, 0, 0], [1, 0, 0], [0, 1, 0], [0, 0, 1], [1, 1, 1.0]])
+    hexa = np.array([[0, 0, 0], [1, 0, 0], [1, 1, 0], [0, 1, 0],
+                     [0, 0, 1], [1, 0, 1], [1, 1, 1], [0, 1, 1.0]]) + [3.0, 0, 0]
+    path = tmp_path / "ranks.vtu"
+    pieces_vtu(path, [(tets, [(10, [0, 1, 2, 3]), (10, [1, 2, 3, 4])], rng.normal(size=(5, 6)),
+                       [7, 8]),
+                      (hexa, [(12, list(range(8)))], rng.normal(size=(8, 6)), [9])])
+    src = open_model(path, names=["E", "id"])
+    grid = pv.read(path)
+    assert np.array_equal(src.mesh.points, np.asarray(grid.points, dtype=float))
+    assert np.array_equal(src.point_data["E"], np.asarray(grid.point_data["E"]))
+    # the cells as VTK numbers them: piece 2's hexahedron on points 5-12
+    got = sorted((t, tuple(c.tolist())) for t, conn in src.mesh.blocks for c in conn)
+    assert got == [("hexahedron", tuple(range(5, 13))), ("tetra", (0, 1, 2, 3)),
+                   ("tetra", (1, 2, 3, 4))]
+    location, ids = find_array(src, "id", None, case="c")
+    assert location == "cell" and sorted(ids.ravel().tolist()) == [7, 8, 9]
+    assert grid.n_cells == 3
+
+
+def test_a_vtu_of_several_pieces_the_tool_cannot_read_is_refused_not_cut(tmp_path):
+    """A piece holding a cell the readers do not give (a voxel) cannot be read here; the
+    whole-file fallback would silently keep the last piece only, so the file is refused."""
+    tet = np.array([[0, 0, 0], [1, 0, 0], [0, 1, 0], [0, 0, 1.0]])
+    vox = np.array([[0, 0, 0], [1, 0, 0], [0, 1, 0], [1, 1, 0],
+                    [0, 0, 1], [1, 0, 1], [0, 1, 1], [1, 1, 1.0]]) + [3.0, 0, 0]
+    path = tmp_path / "ranks.vtu"
+    pieces_vtu(path, [(tet, [(10, [0, 1, 2, 3])], np.zeros((4, 6)), [1]),
+                      (vox, [(11, list(range(8)))], np.zeros((8, 6)), [2])])
+    before = path.read_bytes()
+    with pytest.raises(ModelError) as err:
+        open_model(path, names=["E"])
+    line = str(err.value)
+    assert line.startswith("ranks.vtu: holds 2 pieces") and "\n" not in line
+    assert "one piece" in line
+    assert path.read_bytes() == before

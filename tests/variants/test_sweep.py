@@ -8,6 +8,7 @@ strain-gauge relation are linear) and the truth of an identification is known.
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import socket
 import subprocess
@@ -400,13 +401,14 @@ def test_an_unreachable_scheduler_gets_one_line_and_exit_2(local_sweep, tmp_path
     assert not (out / "variants.csv").exists()
 
 
-def test_the_worker_reuses_the_clients_hashes_and_the_tests_data(tmp_path, monkeypatch):
-    """A variant's task hashes no variant file the client already hashed for the cache key,
-    does not read the readings file again (the base's test data is passed), and gives the
-    same readings and metrics, bit for bit, as the task given neither."""
+def test_the_worker_neither_hashes_files_nor_reads_the_test_again(tmp_path, monkeypatch):
+    """A variant's task hashes no file (the client hashed the variant's for the cache key; the
+    worker writes no provenance) and does not read the readings file again (the base's test
+    data is passed); a variant on the base mesh reuses the located gauges, and its readings and
+    metrics equal, bit for bit, those of the same variant on a copy of the mesh located anew."""
     from correlate.comparison import pairing, verdict
-    from correlate.variants.cache import study_fingerprint, variant_key
-    from correlate.variants.evaluate import correlate_variant, locate_base
+    from correlate.readers import model as model_reader
+    from correlate.variants.evaluate import correlate_variant, locate_base, same_mesh
     from correlate.variants.sweep_file import read_sweep
 
     k_study(tmp_path)
@@ -414,19 +416,30 @@ def test_the_worker_reuses_the_clients_hashes_and_the_tests_data(tmp_path, monke
     sweep = read_sweep(write_sweep(tmp_path))
     located = locate_base(sweep.study)
     variant = sweep.variants[0]
-    plain = correlate_variant(sweep.study, variant, located, None)
-    hashes: dict = {}
-    assert variant_key(variant, study_fingerprint(sweep.study), hashes) is not None
-    assert set(hashes) == {variant.file}
     hashed, read = [], []
     real_sha, real_read = verdict.sha256, pairing.read_readings
     monkeypatch.setattr(verdict, "sha256", lambda p: hashed.append(Path(p)) or real_sha(p))
     monkeypatch.setattr(pairing, "read_readings", lambda *a, **k: read.append(a) or
                         real_read(*a, **k))
-    reused = correlate_variant(sweep.study, variant, located, hashes)
-    assert variant.file not in hashed and hashed   # the study's other inputs are still hashed
-    assert read == []
-    assert not reused.failure
-    np.testing.assert_array_equal(reused.predicted, plain.predicted)
-    np.testing.assert_array_equal(reused.measured, plain.measured)
-    assert reused.metrics == plain.metrics
+    reused = correlate_variant(sweep.study, variant, located)
+    assert hashed == [] and read == []
+    assert not reused.failure and reused.same_mesh
+    # the same mesh with one point moved by 1e-12 mm is another mesh: located anew
+    mesh = model_reader.open_model(variant.file).mesh
+    moved = mesh.points.copy()
+    moved[0, 0] += 1e-12
+    assert same_mesh(mesh, located.operator.mesh)
+    assert not same_mesh(dataclasses.replace(mesh, points=moved), located.operator.mesh)
+    block = meshio.read(variant.file)
+    block.points = block.points[::-1].copy()                 # the same cells, points renumbered
+    block.point_data = {k: v[::-1].copy() for k, v in block.point_data.items()}
+    order = np.arange(len(block.points))[::-1]
+    block.cells = [meshio.CellBlock(c.type, order[c.data]) for c in block.cells]
+    meshio.write(tmp_path / "a.vtu", block)
+    anew = correlate_variant(sweep.study, variant, located)
+    assert not anew.failure and not anew.same_mesh
+    # tolerance: located anew on renumbered points, the interpolation sums the same terms in
+    # another order; 1e-9 relative is far below the 6 significant digits variants.csv keeps
+    np.testing.assert_allclose(anew.predicted, reused.predicted, rtol=1e-9, atol=1e-9)
+    np.testing.assert_array_equal(anew.measured, reused.measured)
+    assert anew.metrics["verdict"] == reused.metrics["verdict"]
