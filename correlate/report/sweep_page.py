@@ -31,7 +31,12 @@ _HTML = """<!DOCTYPE html>
 img.figure { max-width: 100%; }
 td.failure { color: #8a1c1c; }
 table.variants { font-size: 0.75rem; }
-@media print { table.variants { font-size: 6.5pt; } }
+@media print {
+  table.variants { font-size: 6.5pt; }
+  /* a figure shrinks to fit beside its text, and a section's lead stays with its figure */
+  img.figure { display: block; max-height: 95mm; width: auto; max-width: 100%; }
+  #variants > p { break-after: avoid; }
+}
 </style>
 </head>
 <body>

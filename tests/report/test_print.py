@@ -186,3 +186,42 @@ def test_printed_pages_are_numbered_and_never_half_empty(report, paper: str | No
     assert len(pngs) == pages
     shares = [_blank_share(p) for p in pngs]
     assert all(s <= 0.5 for s in shares[:-1]), (name, [round(s, 2) for s in shares])
+
+
+def test_a_1280_pixel_window_needs_no_sideways_scrolling(report) -> None:
+    """At a laptop's 1280 px window no table makes the whole page scroll sideways (the gauge
+    map's long headings wrap; a table still too wide for a narrower window scrolls in its own
+    box). Chromium lays the page out; a script added to a copy of it writes the document's
+    scroll width and client width, read back from the rendered DOM."""
+    tmp, html = report["tmp"], report["html"]
+    probe = html.with_name("report_probe.html")
+    probe.write_text(html.read_text(encoding="utf-8").replace("</body>", (
+        "<script>window.addEventListener('load', () => { const d = document.documentElement;"
+        " const p = document.createElement('pre'); p.id = 'widths';"
+        " p.textContent = d.scrollWidth + ' ' + d.clientWidth; document.body.appendChild(p);"
+        " });</script></body>")), encoding="utf-8")
+    dom = _chromium(tmp, "--window-size=1280,900", "--virtual-time-budget=5000", "--dump-dom",
+                    probe.as_uri())
+    scroll, client = map(int, re.search(r'<pre id="widths">(\d+) (\d+)</pre>', dom).groups())
+    assert 1200 <= client <= 1280
+    assert scroll <= client, f"the page is {scroll - client} px wider than the window"
+    assert '<div class="wide"><table class="gaugemap">' in dom
+
+
+def test_the_printed_sweep_page_keeps_each_section_with_its_figures(report) -> None:
+    """The demo's sweep.html on Letter: the identification's figures shrink to fit under its
+    table (the first page used to be half empty, its figures pushed to the next), and no page
+    but the last is more than half blank (measured as for the report)."""
+    tmp = report["tmp"]
+    html = report["html"].parents[1] / "sweep" / "sweep.html"
+    pdf = tmp / "sweep.pdf"
+    _chromium(tmp, "--no-pdf-header-footer", f"--print-to-pdf={pdf}", html.as_uri())
+    pages = int(re.search(r"^Pages:\s+(\d+)", _poppler("pdfinfo", str(pdf)), re.M).group(1))
+    first = _poppler("pdftotext", "-f", "1", "-l", "1", "-layout", str(pdf), "-")
+    assert "1. Parameters identified" in first and "2. Variants ranked" not in first
+    stem = tmp / "sweep_page"
+    _poppler("pdftoppm", "-r", str(DPI), "-png", str(pdf), str(stem))
+    pngs = sorted(tmp.glob("sweep_page-*.png"), key=lambda p: int(p.stem.rsplit("-", 1)[1]))
+    assert len(pngs) == pages and pages <= 3
+    shares = [_blank_share(p) for p in pngs]
+    assert all(s <= 0.5 for s in shares[:-1]), [round(s, 2) for s in shares]
