@@ -107,7 +107,7 @@ def compared_model(model: Model) -> Model:
     first = [index[next(a for a in b.arms if a is not None)] for b in bridges]
     members = [[index[a] for a in b.arms if a is not None] for b in bridges]
     weights = (combination @ op.weights).tocsr()
-    weights.sort_indices()  # a bridge's centre row: its first arm's centre comes first
+    weights.sort_indices()  # sorted column indices, as the operator's products expect
     channel_op = GaugeOperator(
         mesh=op.mesh, placement=_placement(op.placement, keep, first, members, bridges),
         cell=op.cell, xi=op.xi, direction=op.direction, transverse=op.transverse, face=op.face,
@@ -116,7 +116,8 @@ def compared_model(model: Model) -> Model:
         row_kind=np.r_[op.row_kind[keep_rows], combo.row_kind],
         row_offset=np.vstack([op.row_offset[keep_rows], combo.row_offset]),
         kt=np.r_[op.kt[keep], op.kt[first]], nu0=np.r_[op.nu0[keep], op.nu0[first]],
-        invalid=np.r_[op.invalid[keep], [op.invalid[m].any() for m in members]])
+        invalid=np.r_[op.invalid[keep], [op.invalid[m].any() for m in members]],
+        centre=np.r_[op.centre_points[keep], op.centre_points[first]].astype(np.int64))
     arm_weights = [[(i, 1.0)] for i in keep] + [
         [(index[a], BRIDGE_ARM_SIGNS[k] / b.factor) for k, a in enumerate(b.arms) if a is not None]
         for b in bridges]

@@ -73,6 +73,7 @@ class GaugeOperator:
     kt: NDArray[np.float64]          # (g,)
     nu0: NDArray[np.float64]         # (g,)
     invalid: NDArray[np.bool_]       # (g,) gauges whose grid left the face (non-strict builds)
+    centre: NDArray[np.int64] | None = None  # (g,) centre sample point; None: the centre rows'
     _store: dict = field(default_factory=dict, repr=False, compare=False)
 
     @property
@@ -83,8 +84,18 @@ class GaugeOperator:
 
     @property
     def centre_points(self) -> NDArray[np.int64]:
-        """Sample point of each gauge's centre (its point row), in gauge order."""
-        return self.weights[np.flatnonzero(self.row_kind == 1)].indices
+        """Sample point of each gauge's centre, in gauge order: one per gauge.
+
+        ``centre`` when given (a bridge channel: its first arm's centre, where the gauge map
+        places the bridge; its centre row sums the arms'), else each centre row's one point.
+        """
+        if self.centre is not None:
+            return self.centre
+        rows = self.weights[np.flatnonzero(self.row_kind == 1)]
+        if (np.diff(rows.indptr) != 1).any():
+            raise ValueError("a centre row sums several sample points; give the operator its "
+                             "centre points")   # a bug in the caller, not the user's input
+        return rows.indices
 
     def interpolation(self) -> sparse.csr_matrix:
         """Shape functions at the sample points: a sparse (points x nodes) matrix."""

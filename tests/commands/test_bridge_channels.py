@@ -76,3 +76,25 @@ def test_round_trip_arms_through_the_test_side_relation_give_the_bridge(tmp_path
         arms = [table.loc[(case, g), "predicted_ue"] for g in ("PA", "PT")]
         assert float(bridge_output(arms, factor=2.0)) == pytest.approx(
             table.loc[(case, "PB"), "predicted_ue"], abs=1e-9)
+
+
+def test_each_channel_has_one_centre_point_at_its_first_arm(tmp_path):
+    # Two bridges and a single grid between them: the channel operator (a bridge read as its
+    # one channel) gives one centre sample point per channel, a bridge's at its first arm (where
+    # the gauge map places it). It used to list every arm's centre, so the second bridge took
+    # the first bridge's second arm. The rotation at the gauge centres is read through it.
+    from correlate.model_readings.channels import compared_model
+    from correlate.model_readings.model import prepare
+    from correlate.readers.study import read_study
+
+    arms = [dict(ARMS[1], bridge="PB", arm=2), dict(ARMS[0], bridge="PB", arm=1),
+            dict(ARMS[2], bridge="", arm=""),
+            dict(ARMS[0], gauge="RA", x=3.0, y=0.5, bridge="RB", arm=1),
+            dict(ARMS[1], gauge="RT", x=3.0, y=0.5, bridge="RB", arm=2)]
+    study = write_block_study(tmp_path, gauges=pd.DataFrame(arms), extra_toml=(
+        '[[bridge]]\nname = "PB"\nfactor = 1\n[[bridge]]\nname = "RB"\nfactor = 1\n'))
+    model = prepare(read_study(study))
+    grid = dict(zip(model.operator.gauges, model.operator.centre_points, strict=True))
+    channels = compared_model(model).operator
+    assert channels.gauges == ["Q1", "PB", "RB"]
+    assert list(channels.centre_points) == [grid["Q1"], grid["PA"], grid["RA"]]
