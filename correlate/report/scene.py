@@ -344,7 +344,7 @@ def _render_all(queue: list[tuple[str, NDArray, NDArray]], scene: _Scene, pts: N
         position, focal, up, scale = camera
         name = "iso" if kind == "iso" else str(len(views))
         title = "isometric view" if kind == "iso" else f"view {name}: {direction_name(w)}"
-        title += f" - {int(shown.sum())} of {len(shown)} gauges visible"
+        title += f" - {int(shown.sum())} of {len(shown)} gauge grids visible"  # a bridge: its arms
         file = f"view_{name}.png"
         scene.save(folder / file, title, shown)
         seen |= shown

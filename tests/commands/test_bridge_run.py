@@ -16,6 +16,7 @@ Forward relations used to make the raw readings (the inverse of what run applies
 
 from __future__ import annotations
 
+import re
 import json
 
 import meshio
@@ -212,6 +213,9 @@ def test_report_and_gauges_vtp_show_every_arm(tmp_path):
     assert pb[0] == pb[1]
     html = (tmp_path / "out" / "report.html").read_text(encoding="utf-8")
     assert "PB<span class=\"sub\">bridge, arms 1:PA 2:PT</span>" in html
+    # the views count what they draw: the 3 grids (2 arms and a single gauge), not 2 channels
+    counts = re.findall(r'alt="[^"]* of (\d+) ([a-z ]+) visible"', html)
+    assert counts and all(c == ("3", "gauge grids") for c in counts), counts
 
 
 def test_a_study_without_bridges_writes_the_same_files(tmp_path):
