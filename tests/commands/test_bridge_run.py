@@ -16,8 +16,8 @@ Forward relations used to make the raw readings (the inverse of what run applies
 
 from __future__ import annotations
 
-import re
 import json
+import re
 
 import meshio
 import numpy as np
