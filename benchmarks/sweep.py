@@ -6,7 +6,9 @@ Generates its own cases in a scratch folder (deleted afterwards): a linear tetra
 the same run, side by side:
 
 1. floor      - meshio reading one variant file (geometry and its array), the read every task
-                cannot avoid; the median over the variants' files;
+                cannot avoid; the median over the variants' files; and the tool's partial read,
+                in this process and in a worker process of a local cluster (the task's
+                conditions: this process's heap is warm from building the files);
 2. sweep      - `correlate sweep` in a fresh process with 1 and with 2 local workers (cluster
                 start-up included; the per-variant time is the sweep's "correlating the variants"
                 stage divided by the variants);
@@ -165,6 +167,38 @@ def floor(folder: Path, n: int) -> tuple[float, float]:
     return statistics.median(whole), statistics.median(named)
 
 
+def _read_named_median(folder: str, n: int) -> float:
+    """Median seconds of the tool's partial read over the variant files (run on a worker)."""
+    from correlate.readers.named_arrays import read_named
+
+    times = []
+    for i in range(n):
+        t = time.perf_counter()
+        assert read_named(Path(folder) / f"v{i:03d}.vtu", {"E"}) is not None
+        times.append(time.perf_counter() - t)
+    return statistics.median(times)
+
+
+def worker_floor(folder: Path, n: int) -> float:
+    """The partial read's median in a worker process of a local cluster started as the sweep
+    starts its own (one thread, glibc's malloc threshold left alone): the read in the task's
+    conditions, where the benchmark's own process has a heap already warmed by building."""
+    import logging
+
+    import dask
+    from dask.distributed import Client, LocalCluster
+
+    with dask.config.set({"distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_": None}):
+        cluster = LocalCluster(n_workers=1, threads_per_worker=1, processes=True,
+                               dashboard_address=None, silence_logs=logging.ERROR)
+    client = Client(cluster)
+    try:
+        return float(client.submit(_read_named_median, str(folder), n, pure=False).result())
+    finally:
+        client.close()
+        cluster.close()
+
+
 def _children_rss(pid: int) -> dict[int, float]:
     """Peak resident memory [MB] of every descendant process of ``pid`` (from /proc)."""
     parent, peak = {}, {}
@@ -246,6 +280,7 @@ def main() -> None:
         n = args.variants
         size = (scratch / "v000.vtu").stat().st_size / 1e6
         read, read_named = floor(scratch, n)
+        in_worker = worker_floor(scratch, n)
         one = timed_sweep(sweep, scratch / "out1", 1)
         two = timed_sweep(sweep, scratch / "out2", 2)
         other = None
@@ -268,6 +303,7 @@ def main() -> None:
         rows = [
             ("floor: meshio read of one variant file (median)", read),
             ("floor: geometry + the study's array, partial reader (median)", read_named),
+            ("the same partial read in a worker process of a local cluster", in_worker),
             ("sweep, 1 worker: whole command", one[0]),
             ("sweep, 1 worker: correlating the variants", one[1]),
             ("sweep, 2 workers: whole command", two[0]),
@@ -278,7 +314,8 @@ def main() -> None:
             print(f"{what:58s} {value:9.2f}")
         print(f"throughput 2 workers / 1 worker (correlating stage): {one[1] / two[1]:.2f} x")
         print(f"cost per variant, 1 worker: {one[1] / n:.3f} s = {one[1] / n / read:.2f} x "
-              f"meshio's read of its file, {one[1] / n / read_named:.2f} x the partial read")
+              f"meshio's read of its file, {one[1] / n / read_named:.2f} x the partial read, "
+              f"{one[1] / n / in_worker:.2f} x the partial read in a worker")
         print(f"peak memory of one worker: {one[2]:.0f} MB (1 worker), {two[2]:.0f} MB (2 workers)")
         print(f"sweep with 2 workers against the baseline: {serial / two[0]:.2f} x faster")
         if other is not None:
