@@ -4,6 +4,8 @@ Stage: comparison. In: measured and predicted readings (s, g) and the statuses. 
 (cluster-robust through :mod:`correlate.comparison.statistics`) of the evaluated pairs, of all
 pairs with the reversed and suspect gauges, of the reference step and of every active step; the
 per-gauge fits; concordance, Bland-Altman, the area metric and the influence of each gauge.
+:func:`core_fits` are the figures that judge and rank a model (a sweep's worker stops there);
+:func:`detail_fits` the rest a run's report shows.
 """
 
 from __future__ import annotations
@@ -16,20 +18,6 @@ from numpy.typing import NDArray
 from correlate.comparison import statistics as stats
 from correlate.comparison.criteria import Statuses
 from correlate.comparison.pairing import Steps
-from correlate.readers.study import Study
-
-
-def fit_statistics(study: Study, steps: Steps, names: list[str], measured: NDArray,
-                predicted: NDArray, st: Statuses, reversed_: NDArray, ref: int) -> dict[str, Any]:
-    """Every statistic of a run: :func:`core_fits` (what ranks a model) and
-    :func:`detail_fits` (what the report adds), their ``metrics`` merged."""
-    core = core_fits(steps, names, measured, predicted, st)
-    detail = detail_fits(steps, names, measured, predicted, st, reversed_, ref)
-    metrics = {**core.pop("metrics"), **detail.pop("metrics")}
-    out = {**core, **detail, "metrics": metrics}
-    order = ("fit", "fit_all", "fit_reference", "fit_by_step", "metrics", "area_metric",
-             "influence", "per_gauge_table")
-    return {k: out[k] for k in order}
 
 
 def core_fits(steps: Steps, names: list[str], measured: NDArray, predicted: NDArray,
