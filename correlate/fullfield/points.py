@@ -17,7 +17,7 @@ import pandas as pd
 from numpy.typing import NDArray
 from scipy import sparse
 
-from correlate.core.errors import StudyError
+from correlate.core.errors import ModelError, StudyError
 from correlate.fullfield.registration import (
     apply,
     icp_point_to_plane,
@@ -25,6 +25,7 @@ from correlate.fullfield.registration import (
     rotation_angle_deg,
 )
 from correlate.fullfield.strain import tangent_axes
+from correlate.model_readings.cell_checks import bad_cells
 from correlate.model_readings.locator import Locator, SurfacePoints, parent_coordinates
 from correlate.model_readings.operator import GaugeOperator, Placement
 from correlate.readers.dic_frames import Landmarks
@@ -230,6 +231,23 @@ def point_operator(mesh: Mesh, on: SurfacePoints, ex: NDArray[np.float64],
                          kt=np.zeros(n), nu0=np.zeros(n), invalid=np.zeros(n, dtype=bool))
 
 
+def refuse_bad_cells(op: GaugeOperator, listed: int = 5) -> None:
+    """Refuse points on inverted or collapsed elements, as a gauge on one is refused
+    (:func:`~correlate.model_readings.cell_checks.check_cells`): one line, the number of points
+    and the first elements."""
+    what = bad_cells(op.mesh, op.cell, op.xi)
+    bad = np.flatnonzero(what != "")
+    if not len(bad):
+        return
+    cells, first = np.unique(op.cell[bad], return_index=True)
+    named = ", ".join(f"element {int(c)} {what[bad[i]]}"
+                      for c, i in list(zip(cells, first, strict=True))[:listed])
+    more = f" and {len(cells) - listed} more" if len(cells) > listed else ""
+    raise ModelError(f"[fullfield]: {len(bad)} of the {len(op.cell)} DIC points on the model lie "
+                     f"on elements that are inverted or collapsed ({named}{more}); fix the mesh "
+                     "there before correlating")
+
+
 def _rows_of(on: SurfacePoints, rows: NDArray[np.intp]) -> SurfacePoints:
     return SurfacePoints(**{f.name: getattr(on, f.name)[rows] for f in fields(on)})
 
@@ -272,6 +290,7 @@ def locate_points(points: NDArray[np.float64], ff: FullFieldSettings, locator: L
     kept = np.flatnonzero(snap)[keep]
     position = on.point[kept]
     op = point_operator(locator.mesh, _rows_of(on, kept), ex[keep], ey[keep])
+    refuse_bad_cells(op)
     reg = Registration(method=method, matrix=M, landmark_rms=lm_rms,
                        rms=float(np.sqrt(np.mean(dist**2))), p95=float(np.percentile(dist, 95)),
                        n_points=len(points), dropped_snap=int((~snap).sum()),
@@ -280,5 +299,5 @@ def locate_points(points: NDArray[np.float64], ff: FullFieldSettings, locator: L
 
 
 __all__ = ["EDGE_ANGLE", "PointModel", "Registration", "distinct_rows", "frame_points",
-           "locate_points", "near_part_edge", "point_operator",
+           "locate_points", "near_part_edge", "point_operator", "refuse_bad_cells",
            "region_distance", "register"]

@@ -25,8 +25,9 @@ import pandas as pd
 from numpy.typing import NDArray
 from scipy import sparse
 
-from correlate.core.errors import CorrelateWarning, GaugeError, GaugeOutsideMeshError, ModelError
+from correlate.core.errors import CorrelateWarning, GaugeError, GaugeOutsideMeshError
 from correlate.mechanics import elements, mapping
+from correlate.model_readings.cell_checks import check_cells
 from correlate.model_readings.locator import Locator, locate_inside, parent_coordinates
 from correlate.model_readings.surface import build_surface
 from correlate.readers.model import Mesh
@@ -504,7 +505,7 @@ def _assemble(mesh: Mesh, c: _Centres, s: _Samples, row_gauge: NDArray, row_kind
                           shape=(len(keep_rows), keep_pt.sum()))
     # cells under the gauge itself (nominal and centre rows; band samples are what-ifs)
     own = keep_pt & (row_kind[s.row] != 2)
-    _check_cells(mesh, s.cell[own], s.xi[own], [c.names[g] for g in row_gauge[s.row[own]]])
+    check_cells(mesh, s.cell[own], s.xi[own], [c.names[g] for g in row_gauge[s.row[own]]])
     return GaugeOperator(mesh=mesh, placement=_placement(mesh, c), cell=s.cell[keep_pt],
                          xi=s.xi[keep_pt], direction=p_d[keep_pt], transverse=p_t[keep_pt],
                          face=c.faces[row_gauge[s.row[keep_pt]]], weights=W,
@@ -526,46 +527,6 @@ def _placement(mesh: Mesh, c: _Centres) -> Placement:
         "face": c.faces,
     })
     return Placement(table=table, normal=c.normal, direction=c.direction, centre=c.centre)
-
-
-DEGENERATE = 1e-9  # |det J| below this share of the cell's size (h^dim) is a collapsed cell
-
-
-def _jacobian_det(ctype: str, nodes: NDArray, xi: NDArray) -> NDArray:
-    """det J (3D cells) or the area scale |x_xi x x_eta| (2D cells) at xi."""
-    _, jac = mapping.jacobian(ctype, nodes, xi)
-    if jac.shape[2] == 3:
-        return np.linalg.det(jac)
-    return np.linalg.norm(np.cross(jac[:, :, 0], jac[:, :, 1]), axis=1)
-
-
-def _check_cells(mesh: Mesh, cells: NDArray[np.int64], xi: NDArray[np.float64],
-                 gauges: list[str]) -> None:
-    """Refuse inverted or collapsed elements under a gauge (det J <= 0 or ~0 at a sample point
-    or at the cell centre)."""
-    block, row = mesh.block_rows(cells)
-    problems = {}
-    for b, (ctype, conn_b) in enumerate(mesh.blocks):
-        sel = np.flatnonzero(block == b)
-        if not len(sel):
-            continue
-        el = elements.ELEMENTS[str(ctype)]
-        nodes = mesh.points[conn_b[row[sel]]]
-        scale = np.linalg.norm(np.ptp(nodes, axis=1), axis=1) ** el.dim * DEGENERATE
-        det = _jacobian_det(str(ctype), nodes, xi[sel])
-        uniq, first, back = np.unique(row[sel], return_index=True, return_inverse=True)
-        centre = np.tile(el.reference_nodes.mean(axis=0), (len(uniq), 1))
-        det_c = _jacobian_det(str(ctype), nodes[first], centre)[back.ravel()]
-        collapsed = (np.abs(det) <= scale) | (np.abs(det_c) <= scale)
-        inverted = (el.dim == 3) & ((det < 0) | (det_c < 0)) & ~collapsed
-        for k in np.flatnonzero(collapsed | inverted):
-            i = sel[k]
-            what = "inverted (negative Jacobian)" if inverted[k] else \
-                "degenerate (collapsed: zero Jacobian)"
-            problems.setdefault((gauges[i], int(cells[i])), what)
-    if problems:
-        raise ModelError(*[f"gauge '{g}': element {c} under it is {what}; fix the mesh there "
-                           "before correlating" for (g, c), what in problems.items()])
 
 
 def _rows(ptol: NDArray, atol: NDArray) -> tuple[NDArray, NDArray, NDArray]:

@@ -291,3 +291,29 @@ def test_frames_with_their_own_points_are_levelled_each_over_its_own(tmp_path):
     assert whole.sum() > 100
     d = (table.loc[whole, "exx_levelled_ue"] - table.loc[whole, "exx_model_ue"]).abs()
     assert d.max() < 0.25
+
+
+def test_points_on_an_inverted_element_are_refused_in_one_line(tmp_path, capsys):
+    # The hexahedron20 at x 3-4, y 2-3, top layer, carries no gauge but DIC points. Its top and
+    # bottom faces are swapped in the connectivity (corners 0-3 <-> 4-7, edge nodes 8-11 <->
+    # 12-15): the same cell mirrored, so det J < 0 throughout (an inverted element, as a mesher
+    # error leaves it). The gauges would be refused on it; the DIC points now are too.
+    import meshio
+
+    study = _study(tmp_path)
+    block = meshio.read(tmp_path / "block.vtu")
+    conn = block.cells[0].data.copy()
+    centres = block.points[conn[:, :8]].mean(axis=1)
+    k = int(np.flatnonzero((centres[:, 0] > 3) & (centres[:, 1] > 2) & (centres[:, 2] > 1))[0])
+    order = np.r_[4:8, 0:4, 12:16, 8:12, 16:20]
+    conn[k] = conn[k][order]
+    meshio.write(tmp_path / "block.vtu", meshio.Mesh(block.points, [("hexahedron20", conn)],
+                                                      point_data=block.point_data))
+    before = {p: p.read_bytes() for p in tmp_path.rglob("*") if p.is_file()}
+    assert main(["run", "--quiet", str(study), "--out", str(tmp_path / "o"), "--no-report"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1, err
+    assert "[fullfield]" in err[0] and f"element {k} inverted" in err[0]
+    assert "fix the mesh" in err[0]
+    assert not (tmp_path / "o").exists()                       # nothing half-written
+    assert before == {p: p.read_bytes() for p in tmp_path.rglob("*") if p.is_file()}
