@@ -85,7 +85,8 @@ def same_mesh(mesh: Mesh, base: Mesh) -> bool:
 
     Only then may a variant reuse the base model's located gauges exactly (same cells, natural
     coordinates, weights). The base mesh is on every worker with the located gauges, so the
-    arrays are compared directly: exact, and about five times cheaper than hashing them.
+    arrays are compared directly: exact, and cheaper than hashing them (0.6 against 8 ms at
+    300,000 cells).
     """
     if mesh.points.shape != base.points.shape or len(mesh.blocks) != len(base.blocks):
         return False
