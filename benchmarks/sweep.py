@@ -181,16 +181,13 @@ def _read_named_median(folder: str, n: int) -> float:
 
 def worker_floor(folder: Path, n: int) -> float:
     """The partial read's median in a worker process of a local cluster started as the sweep
-    starts its own (one thread, glibc's malloc threshold left alone): the read in the task's
-    conditions, where the benchmark's own process has a heap already warmed by building."""
-    import logging
+    starts its own (``local_cluster``): the read in the task's conditions, where the
+    benchmark's own process has a heap already warmed by building."""
+    from dask.distributed import Client
 
-    import dask
-    from dask.distributed import Client, LocalCluster
+    from correlate.variants.cluster import local_cluster
 
-    with dask.config.set({"distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_": None}):
-        cluster = LocalCluster(n_workers=1, threads_per_worker=1, processes=True,
-                               dashboard_address=None, silence_logs=logging.ERROR)
+    cluster = local_cluster(1)
     client = Client(cluster)
     try:
         return float(client.submit(_read_named_median, str(folder), n, pure=False).result())

@@ -244,7 +244,7 @@ class _Compared:
     chain: ChainApplied | None
     m: ModelForTest
     flags: pd.DataFrame
-    reversed_: NDArray[np.bool_]     # the gauges reversed or suspect, out of the pooled fit
+    out_of_fit: NDArray[np.bool_]    # the gauges reversed or suspect, out of the pooled fit
     status: Statuses
     core: dict[str, Any]             # :func:`core_fits` of the final statuses
     diagnoses: pd.DataFrame
@@ -271,7 +271,7 @@ def _compare_test(study: Study, model: Model | None, test_data: tuple | None) ->
     st, core, diag, out_of_fit = _compare(study, model, steps, names, measured, m, excl, flags,
                                           reversed_)
     return _Compared(model=model, names=names, readings=readings, steps=steps,
-                     measured=measured, chain=chain, m=m, flags=flags, reversed_=out_of_fit,
+                     measured=measured, chain=chain, m=m, flags=flags, out_of_fit=out_of_fit,
                      status=st, core=core, diagnoses=diag)
 
 
@@ -284,17 +284,15 @@ def correlate_study(study: Study, model: Model | None = None, *,
     c = _compare_test(study, model, test_data)
     model, names, steps, measured, m, st = c.model, c.names, c.steps, c.measured, c.m, c.status
     ref = reference_step(m.predicted, steps)
-    detail = detail_fits(steps, names, measured, m.predicted, st, c.reversed_, ref)
-    result = {"fit": c.core["fit"], "fit_all": detail["fit_all"],
-              "fit_reference": detail["fit_reference"], "fit_by_step": detail["fit_by_step"],
-              "metrics": {**c.core["metrics"], **detail["metrics"]},
-              "area_metric": detail["area_metric"], "influence": detail["influence"]}
+    detail = detail_fits(steps, names, measured, m.predicted, st, c.out_of_fit, ref)
+    result = {**detail, "fit": c.core["fit"],
+              "metrics": {**c.core["metrics"], **detail["metrics"]}}
     per_gauge = with_arms(c.core["per_gauge_table"], model.gauges)
     ros = rosette_table(study, model, model.gauges, steps, measured, m.axial, st.evaluated)
     result["load_checks"] = load_checks(study, steps, measured, st, m.rows_by_case,
                                         model.operator)
     summary = summarise(study, model, c.readings, steps, names, result, per_gauge, c.flags,
-                        c.diagnoses, ref, st, c.reversed_, hashes=hashes)
+                        c.diagnoses, ref, st, c.out_of_fit, hashes=hashes)
     corrections = None if c.chain is None else corrections_table(c.chain, ref, m.height)
     if corrections is not None:
         summary["measurement_chain"] = {

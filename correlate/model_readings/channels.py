@@ -117,7 +117,7 @@ def compared_model(model: Model) -> Model:
         row_offset=np.vstack([op.row_offset[keep_rows], combo.row_offset]),
         kt=np.r_[op.kt[keep], op.kt[first]], nu0=np.r_[op.nu0[keep], op.nu0[first]],
         invalid=np.r_[op.invalid[keep], [op.invalid[m].any() for m in members]],
-        centre=np.r_[op.centre_points[keep], op.centre_points[first]].astype(np.int64))
+        centre_points=np.r_[op.centre_points[keep], op.centre_points[first]])
     arm_weights = [[(i, 1.0)] for i in keep] + [
         [(index[a], BRIDGE_ARM_SIGNS[k] / b.factor) for k, a in enumerate(b.arms) if a is not None]
         for b in bridges]

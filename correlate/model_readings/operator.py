@@ -55,6 +55,7 @@ class GaugeOperator:
     """Sample points and weights: field -> per-row axial and transverse strain.
 
     ``row_gauge[r]``: gauge index of row r; ``row_kind[r]``: 0 nominal, 1 centre point, 2 band.
+    ``centre_points[g]``: the sample at gauge g's centre (a bridge channel's: its first arm's).
     ``weights`` (rows x points) averages sample points into rows. The sparse interpolation
     matrices are made on first use and kept (:meth:`interpolation`, :meth:`gradients`,
     :meth:`touched`); nothing outside this class reads or writes that store.
@@ -74,7 +75,7 @@ class GaugeOperator:
     kt: NDArray[np.float64]          # (g,)
     nu0: NDArray[np.float64]         # (g,)
     invalid: NDArray[np.bool_]       # (g,) gauges whose grid left the face (non-strict builds)
-    centre: NDArray[np.int64] | None = None  # (g,) centre sample point; None: the centre rows'
+    centre_points: NDArray[np.int64]  # (g,) each gauge's centre sample (a bridge: its 1st arm's)
     _store: dict = field(default_factory=dict, repr=False, compare=False)
 
     @property
@@ -82,21 +83,6 @@ class GaugeOperator:
         if "gauges" not in self._store:
             self._store["gauges"] = list(self.placement.table["gauge"])
         return self._store["gauges"]
-
-    @property
-    def centre_points(self) -> NDArray[np.int64]:
-        """Sample point of each gauge's centre, in gauge order: one per gauge.
-
-        ``centre`` when given (a bridge channel: its first arm's centre, where the gauge map
-        places the bridge; its centre row sums the arms'), else each centre row's one point.
-        """
-        if self.centre is not None:
-            return self.centre
-        rows = self.weights[np.flatnonzero(self.row_kind == 1)]
-        if (np.diff(rows.indptr) != 1).any():
-            raise ValueError("a centre row sums several sample points; give the operator its "
-                             "centre points")   # a bug in the caller, not the user's input
-        return rows.indices
 
     def interpolation(self) -> sparse.csr_matrix:
         """Shape functions at the sample points: a sparse (points x nodes) matrix."""
@@ -506,11 +492,13 @@ def _assemble(mesh: Mesh, c: _Centres, s: _Samples, row_gauge: NDArray, row_kind
     # cells under the gauge itself (nominal and centre rows; band samples are what-ifs)
     own = keep_pt & (row_kind[s.row] != 2)
     check_cells(mesh, s.cell[own], s.xi[own], [c.names[g] for g in row_gauge[s.row[own]]])
+    centre_rows = np.flatnonzero(row_kind[keep_rows] == 1)   # one per gauge, of one sample
     return GaugeOperator(mesh=mesh, placement=_placement(mesh, c), cell=s.cell[keep_pt],
                          xi=s.xi[keep_pt], direction=p_d[keep_pt], transverse=p_t[keep_pt],
                          face=c.faces[row_gauge[s.row[keep_pt]]], weights=W,
                          row_gauge=row_gauge[keep_rows], row_kind=row_kind[keep_rows],
-                         row_offset=row_off[keep_rows], kt=kt, nu0=nu0, invalid=s.invalid)
+                         row_offset=row_off[keep_rows], kt=kt, nu0=nu0, invalid=s.invalid,
+                         centre_points=W[centre_rows].indices)
 
 
 def _placement(mesh: Mesh, c: _Centres) -> Placement:

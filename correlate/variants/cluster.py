@@ -17,6 +17,7 @@ from __future__ import annotations
 import logging
 import os
 from collections.abc import Callable, Sequence
+from typing import Any
 
 from correlate.core import progress
 from correlate.core.errors import CorrelateError
@@ -24,7 +25,7 @@ from correlate.readers.records import Study
 from correlate.variants.evaluate import Located, VariantResult, correlate_variant
 from correlate.variants.sweep_file import Variant
 
-__all__ = ["compute_variants", "warm_up"]
+__all__ = ["compute_variants", "local_cluster", "warm_up"]
 
 CONNECT_TIMEOUT = "10s"   # an unreachable scheduler is reported after this
 
@@ -40,6 +41,22 @@ def warm_up() -> None:
     import correlate.comparison.correlation
     import correlate.readers.named_arrays
     import correlate.variants.evaluate  # noqa: F401
+
+
+def local_cluster(workers: int) -> Any:
+    """A ``LocalCluster`` of ``workers`` processes of one thread each, as a sweep starts it.
+
+    Dask's nannies start workers with MALLOC_TRIM_THRESHOLD_=65536, which fixes glibc's mmap
+    threshold at 128 kB: every array a variant reads is then mapped afresh and page-faulted,
+    about 25 % of a one-array variant's task (benchmarks/RESULTS.md). One task at a time per
+    worker reuses the same sizes, so glibc's own threshold is kept.
+    """
+    import dask
+    from dask.distributed import LocalCluster
+
+    with dask.config.set({"distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_": None}):
+        return LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
+                            dashboard_address=None, silence_logs=logging.ERROR)
 
 
 def compute_variants(
@@ -76,20 +93,11 @@ def compute_variants(
     """
     if not variants:
         return
-    import dask
-    from dask.distributed import Client, LocalCluster, as_completed
+    from dask.distributed import Client, as_completed
 
     if scheduler is None:
         n = workers or os.cpu_count() or 1
-        # Dask's nannies start workers with MALLOC_TRIM_THRESHOLD_=65536, which fixes glibc's
-        # mmap threshold at 128 kB: every array a variant reads is then mapped afresh and
-        # page-faulted, about 25 % of a one-array variant's task (benchmarks/RESULTS.md). One
-        # task at a time per worker reuses the same sizes, so glibc's own threshold is kept.
-        with dask.config.set({"distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_":
-                              None}):
-            cluster = LocalCluster(n_workers=min(n, len(variants)), threads_per_worker=1,
-                                   processes=True, dashboard_address=None,
-                                   silence_logs=logging.ERROR)
+        cluster = local_cluster(min(n, len(variants)))
         client = Client(cluster)
     else:
         cluster = None

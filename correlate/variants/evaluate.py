@@ -137,8 +137,8 @@ def correlate_variant(study: Study, variant: Variant, located: Located) -> Varia
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", CorrelateWarning)
         try:
-            if missing_file(variant):
-                return VariantResult(name=variant.name, failure=missing_file(variant))
+            if missing := missing_file(variant):
+                return VariantResult(name=variant.name, failure=missing)
             sources = open_sources(vstudy)
             settle_family(vstudy, sources, located.gauges)
             same = same_mesh(sources[vstudy.model_file].mesh, located.operator.mesh)
