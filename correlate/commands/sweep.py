@@ -130,6 +130,9 @@ def run(args: argparse.Namespace) -> int:
     prepare_folder(out, sweep, force=args.force)
     results, computed, cached = collect(sweep, out, args)
     table = variants_table(sweep, results)
+    shown = Path(getattr(args, "shown_out", out))
+    if shown != out:   # the demo: its inputs stand in a staging folder until it is moved
+        table["file"] = [str(_moved(Path(f), out.parent, shown.parent)) for f in table["file"]]
     _whole(out / "variants.csv", lambda p: write_csv(table, p))
     failed = [(v, results[v.name].failure) for v in sweep.variants if results[v.name].failure]
     for v, reason in failed:
@@ -141,7 +144,7 @@ def run(args: argparse.Namespace) -> int:
           f"{len(failed)} failed")
     if len(failed) == len(sweep.variants):
         print(f"error: {sweep.path.name}: every variant failed (reasons above and in "
-              f"{out / 'variants.csv'}); fix the variant files or the study", file=sys.stderr)
+              f"{shown / 'variants.csv'}); fix the variant files or the study", file=sys.stderr)
         return 2
     best = table.iloc[0]
     print(f"best variant: {best['variant']} (RMS {best['rms_ue']:.3g} ue, pass fraction "
@@ -153,8 +156,13 @@ def run(args: argparse.Namespace) -> int:
     with progress.step("writing sweep.html and its figures"):
         write_page(out, table, identified, sweep)
     print(CAUTION)
-    print(f"outputs in {getattr(args, 'shown_out', out)}")
+    print(f"outputs in {shown}")
     return 0
+
+
+def _moved(path: Path, staged: Path, final: Path) -> Path:
+    """``path`` as it will stand once the folder ``staged`` is moved to ``final``."""
+    return final / path.relative_to(staged) if path.is_relative_to(staged) else path
 
 
 def write_page(out: Path, table: Any, identified: dict[str, Any] | None, sweep: Sweep) -> None:

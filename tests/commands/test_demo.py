@@ -246,6 +246,9 @@ def test_demo_ranks_every_clamp_variant_and_identifies_the_stiffness(demo):
     table = pd.read_csv(out / "sweep" / "variants.csv", keep_default_na=False)
     assert len(table) == 5 and (table["failure"] == "").all()
     assert list(table["rank"]) == [1, 2, 3, 4, 5]
+    # each variant's file as it stands once the demo is in place (not its staging folder)
+    assert all(Path(f).is_file() and Path(f).parent == out / "clamp_variants"
+               for f in table["file"]), list(table["file"])
     ident = json.loads((out / "sweep" / "identified.json").read_text())
     k = ident["estimate"]["clamp_stiffness"]
     assert table["clamp_stiffness"].min() <= k <= table["clamp_stiffness"].max()
