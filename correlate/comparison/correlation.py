@@ -1,9 +1,9 @@
 """The whole correlation of a study, from the readings to the summary; nothing is written.
 
-Stage: comparison (orchestration). The steps, in order: read and tare the test data
-(:func:`measured_readings`), the model readings for the test loads (:func:`model_readings`),
-channel health and dispositions, statuses and statistics, diagnosis of the failing gauges (and the
-installation flags it raises), rosettes and the summary. The maths lives in the stage modules; the
+Stage: comparison (orchestration). The steps, in order: read and tare the test data, with the
+channels' health and dispositions (:func:`measured_side`, which depends on the test only), the
+model readings for the test loads (:func:`model_readings`), statuses and statistics, diagnosis of
+the failing gauges (and the installation flags it raises), rosettes and the summary. The maths lives in the stage modules; the
 result is a :class:`Correlation` that the outputs and the report read.
 """
 
@@ -121,17 +121,12 @@ def measured_readings(study: Study, model: Model) -> tuple[Any, Steps, NDArray[n
     return readings, steps, measured
 
 
-def chain_readings(study: Study, gauges: pd.DataFrame, test_data: tuple | None = None
+def chain_readings(study: Study, gauges: pd.DataFrame
                    ) -> tuple[Any, Steps, NDArray[np.float64], ChainApplied | None]:
     """:func:`measured_readings` with the measurement chain's record (None when not used);
-    ``gauges`` is the gauge map (``check`` calls it before any gauge is located);
-    ``test_data`` what :func:`~correlate.comparison.pairing.read_test_data` returned for this
-    study and map, when the caller has it already (a sweep reads the test once)."""
-    if test_data is not None:
-        readings, steps, _ = test_data
-    else:
-        with progress.step("reading the test data"):
-            readings, steps, _ = read_test_data(study, gauges)
+    ``gauges`` is the gauge map (``check`` calls it before any gauge is located)."""
+    with progress.step("reading the test data"):
+        readings, steps, _ = read_test_data(study, gauges)
     names = gauges["gauge"].tolist()
     signs = reverse_signs(gauges, study)
     if chain_used(gauges, study.chain):
@@ -250,38 +245,62 @@ class _Compared:
     diagnoses: pd.DataFrame
 
 
-def _compare_test(study: Study, model: Model | None, test_data: tuple | None) -> _Compared:
-    _require_loads(study)
-    model = compared_model(model or prepare(study))
-    names = model.gauges["gauge"].tolist()
-    readings, steps, measured, chain = chain_readings(study, model.gauges, test_data)
+@dataclass(frozen=True)
+class MeasuredSide:
+    """The test's half of a comparison, which depends on the test and the gauge map only: the
+    readings as compared (tared, corrected by the measurement chain), their channel-health flags
+    and what the flags and overrides leave out. A sweep makes it once for all its variants
+    (:func:`measured_side`); the comparison adds to ``flags`` and ``excl`` in place, so each
+    variant is given a copy."""
+
+    readings: Any
+    steps: Steps
+    measured: NDArray[np.float64]        # (s, g) microstrain
+    chain: ChainApplied | None
+    flags: pd.DataFrame
+    excl: Exclusions
+
+
+def measured_side(study: Study, gauges: pd.DataFrame) -> MeasuredSide:
+    """Read, tare and correct the test's readings of the gauge map's channels, refuse a test
+    with nothing to compare, and judge the channels' health with the study's dispositions."""
+    names = gauges["gauge"].tolist()
+    readings, steps, measured, chain = chain_readings(study, gauges)
     _require_pairs(study, steps, measured)
     progress.pause("readings")
-    m = model_readings(study, model, steps)
-    progress.pause("model")
-    flags = health_flags(measured, names, steps, model.gauges, study, readings.flags,
+    flags = health_flags(measured, names, steps, gauges, study, readings.flags,
                          raw=None if chain is None else chain.raw_ue,
                          chain_rows=None if chain is None else range_flags(chain, steps))
     excl = dispose_health(flags, study, names, steps)
+    progress.pause("health")
+    return MeasuredSide(readings=readings, steps=steps, measured=measured, chain=chain,
+                        flags=flags, excl=excl)
+
+
+def _compare_test(study: Study, model: Model | None, side: MeasuredSide | None) -> _Compared:
+    _require_loads(study)
+    model = compared_model(model or prepare(study))
+    names = model.gauges["gauge"].tolist()
+    side = side or measured_side(study, model.gauges)
+    steps, measured, flags, excl = side.steps, side.measured, side.flags, side.excl
+    m = model_readings(study, model, steps)
+    progress.pause("model")
     reversed_ = flag_reversed(measured, m.predicted, names, steps, excl, flags, study)
     excl.text[:] = np.where(excl.text == "", "flagged", excl.text)
     excl.steps[m.not_modelled] = True
     excl.text[m.not_modelled] = "not-modelled"
-    progress.pause("health")
     st, core, diag, out_of_fit = _compare(study, model, steps, names, measured, m, excl, flags,
                                           reversed_)
-    return _Compared(model=model, names=names, readings=readings, steps=steps,
-                     measured=measured, chain=chain, m=m, flags=flags, out_of_fit=out_of_fit,
-                     status=st, core=core, diagnoses=diag)
+    return _Compared(model=model, names=names, readings=side.readings, steps=steps,
+                     measured=measured, chain=side.chain, m=m, flags=flags,
+                     out_of_fit=out_of_fit, status=st, core=core, diagnoses=diag)
 
 
 def correlate_study(study: Study, model: Model | None = None, *,
-                    test_data: tuple | None = None,
                     hashes: dict[Path, str] | None = None) -> Correlation:
-    """Run the correlation of a study; nothing is written. ``test_data``: the study's test
-    data already read (:func:`chain_readings`), else the readings file is read here;
-    ``hashes``: input files' SHA-256 already computed (the provenance hashes the others)."""
-    c = _compare_test(study, model, test_data)
+    """Run the correlation of a study; nothing is written. ``hashes``: input files' SHA-256
+    already computed (the provenance hashes the others)."""
+    c = _compare_test(study, model, None)
     model, names, steps, measured, m, st = c.model, c.names, c.steps, c.measured, c.m, c.status
     ref = reference_step(m.predicted, steps)
     detail = detail_fits(steps, names, measured, m.predicted, st, c.out_of_fit, ref)
@@ -334,11 +353,13 @@ class Ranking:
 
 
 def rank_study(study: Study, model: Model | None = None, *,
-               test_data: tuple | None = None) -> Ranking:
+               side: MeasuredSide | None = None) -> Ranking:
     """The statuses, pooled fit, concordance, verdict and validation states of a study: the
     same computation as :func:`correlate_study` (health, dispositions, diagnosis and its
-    second pass included), stopping before the figures only a report shows."""
-    c = _compare_test(study, model, test_data)
+    second pass included), stopping before the figures only a report shows. ``side``: the
+    test's half already made for this study's test and gauge map (:func:`measured_side`; it is
+    changed in place), else made here."""
+    c = _compare_test(study, model, side)
     ref = reference_step(c.m.predicted, c.steps)
     summary: dict[str, Any] = {"fit": c.core["fit"], "metrics": c.core["metrics"],
                                "verdict": judge(study, c.names, c.core["fit"], c.status,

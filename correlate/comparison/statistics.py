@@ -184,26 +184,6 @@ def fit_pairs(measured: ArrayLike, predicted: ArrayLike, groups: ArrayLike, *,
     return out
 
 
-def _line(x: NDArray[np.float64], y: NDArray[np.float64], alpha: float) -> dict[str, float]:
-    """Classical least-squares line y = a + b x with its t interval on b (closed form)."""
-    n = x.size
-    out = {"slope": NAN, "slope_ci_low": NAN, "slope_ci_high": NAN, "intercept": NAN, "r2": NAN}
-    sxx = float(np.sum((x - x.mean()) ** 2)) if n else 0.0
-    if n < 2 or sxx == 0.0:
-        return out
-    sxy = float(np.sum((x - x.mean()) * (y - y.mean())))
-    syy = float(np.sum((y - y.mean()) ** 2))
-    b = sxy / sxx
-    out.update(slope=b, intercept=float(y.mean() - b * x.mean()))
-    if syy > 0.0:
-        out["r2"] = sxy**2 / (sxx * syy)
-    if n >= 3:
-        sse = max(syy - b * sxy, 0.0)  # rounding can make a perfect fit slightly negative
-        half = _t_quantile(1.0 - alpha / 2.0, n - 2) * np.sqrt(sse / (n - 2) / sxx)
-        out.update(slope_ci_low=b - half, slope_ci_high=b + half)
-    return out
-
-
 def per_gauge_fits(measured: ArrayLike, predicted: ArrayLike, groups: ArrayLike, *,
                    level: float = 0.95) -> pd.DataFrame:
     """Fit each gauge's readings over its load steps on their own.
@@ -216,21 +196,43 @@ def per_gauge_fits(measured: ArrayLike, predicted: ArrayLike, groups: ArrayLike,
         One row per gauge in order of first appearance: ``gauge, n, slope, slope_ci_low,
         slope_ci_high, intercept, r2, slope_origin, max_abs_ue, rms_ue``. The slope needs 2 points
         with different predicted readings and its interval 3; otherwise NaN.
+
+    Notes
+    -----
+    The classical least-squares line y = a + b x of each gauge (x predicted, y measured), in
+    closed form from its centred sums, every gauge at once: b = Sxy / Sxx, a = ybar - b xbar,
+    r2 = Sxy^2 / (Sxx Syy), the interval b -/+ t(n-2) sqrt(SSE / (n-2) / Sxx) with
+    SSE = Syy - b Sxy; the line through the origin Sum(xy) / Sum(x^2).
     """
     m, p, g = _pairs(measured, predicted, groups)
-    alpha = _alpha(level)
-    rows = []
-    for name in pd.unique(g):
-        sel = g == name
-        x, y = p[sel], m[sel]
-        sxx0 = float(np.sum(x * x))
-        diff = _differences(y - x)
-        rows.append({"gauge": str(name), "n": int(sel.sum()), **_line(x, y, alpha),
-                     "slope_origin": float(np.sum(x * y)) / sxx0 if sxx0 > 0 else NAN,
-                     "max_abs_ue": diff["max_abs_ue"], "rms_ue": diff["rms_ue"]})
-    cols = ["gauge", "n", "slope", "slope_ci_low", "slope_ci_high", "intercept", "r2",
-            "slope_origin", "max_abs_ue", "rms_ue"]
-    return pd.DataFrame(rows, columns=cols)
+    codes, names = pd.factorize(g)             # gauges in order of first appearance
+    k = len(names)
+    n = np.bincount(codes, minlength=k)
+
+    def total(v: NDArray[np.float64]) -> NDArray[np.float64]:
+        return np.bincount(codes, weights=v, minlength=k)
+
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mx, my = total(p) / n, total(m) / n
+        dx, dy = p - mx[codes], m - my[codes]
+        sxx, sxy, syy = total(dx * dx), total(dx * dy), total(dy * dy)
+        line = (n >= 2) & (sxx > 0.0)
+        b = np.where(line, sxy / sxx, NAN)
+        sse = np.maximum(syy - b * sxy, 0.0)  # rounding can make a perfect fit slightly negative
+        t = np.array([_t_quantile(1.0 - _alpha(level) / 2.0, int(v - 2)) if v >= 3 else NAN
+                      for v in n])
+        half = np.where(line & (n >= 3), t * np.sqrt(sse / (n - 2) / sxx), NAN)
+        sxx0 = total(p * p)
+        d = m - p
+        max_abs = np.zeros(k)
+        np.maximum.at(max_abs, codes, np.abs(d))
+        return pd.DataFrame({
+            "gauge": [str(v) for v in names], "n": n.astype(int), "slope": b,
+            "slope_ci_low": b - half, "slope_ci_high": b + half,
+            "intercept": np.where(line, my - b * mx, NAN),
+            "r2": np.where(line & (syy > 0.0), sxy**2 / (sxx * syy), NAN),
+            "slope_origin": np.where(sxx0 > 0.0, total(p * m) / sxx0, NAN),
+            "max_abs_ue": max_abs, "rms_ue": np.sqrt(total(d * d) / n)})
 
 
 def concordance(measured: ArrayLike, predicted: ArrayLike) -> float:

@@ -25,8 +25,7 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from correlate.comparison.budget import STATES
-from correlate.comparison.correlation import rank_study
-from correlate.comparison.pairing import read_test_data
+from correlate.comparison.correlation import MeasuredSide, measured_side, rank_study
 from correlate.core.errors import CorrelateError, CorrelateWarning
 from correlate.model_readings.channels import compared_model
 from correlate.model_readings.locator import Locator
@@ -50,7 +49,7 @@ class Located:
     operator: GaugeOperator
     locator: Locator
     bridges: tuple[Bridge, ...] = ()   # the gauge map's bridge channels (compared as channels)
-    test_data: tuple | None = None     # the base study's test data, read once (read_test_data)
+    measured: MeasuredSide | None = None   # the test's readings and their health, made once
 
 
 @dataclass(frozen=True)
@@ -97,13 +96,14 @@ def same_mesh(mesh: Mesh, base: Mesh) -> bool:
 
 
 def locate_base(study: Study) -> Located:
-    """Locate the base study's gauges on its own model (``correlate run``'s preparation) and
-    read the test's data once, channel by channel as the comparison reads it (a bridge's arms
-    as its one channel)."""
+    """Locate the base study's gauges on its own model (``correlate run``'s preparation), and
+    read the test's data and judge its channels' health once, channel by channel as the
+    comparison reads them (a bridge's arms as its one channel): they are the same for every
+    variant."""
     model = prepare(study)
     return Located(gauges=model.gauges,
                    operator=model.operator, locator=model.locator, bridges=model.bridges,
-                   test_data=read_test_data(study, compared_model(model).gauges))
+                   measured=measured_side(study, compared_model(model).gauges))
 
 
 def with_variant_files(study: Study, variant: Variant) -> Study:
@@ -148,9 +148,9 @@ def correlate_variant(study: Study, variant: Variant, located: Located) -> Varia
             else:
                 model = locate(vstudy, sources, located.gauges)
             model.bridges = located.bridges
-            # the variants share the test: its data read once on the client, copied here so
+            # the variants share the test: read and judged once on the client, copied here so
             # that no variant's comparison can change what the next one sees
-            corr = rank_study(vstudy, model, test_data=copy.deepcopy(located.test_data))
+            corr = rank_study(vstudy, model, side=copy.deepcopy(located.measured))
         except CorrelateError as exc:
             return VariantResult(name=variant.name, failure="; ".join(exc.problems))
     rows = {case: {k: np.asarray(v, dtype=float) for k, v in r.items()

@@ -227,3 +227,36 @@ def test_a_variants_ranking_gives_the_runs_figures_exactly(which, faulty_run):
     assert ranked.gauges == run.gauges
     if which == "faulty":   # the second pass happened: the swapped pair is out of the fit
         assert {"S07", "S08"} <= set(run.flags.loc[run.flags["flag"] == "installation", "gauge"])
+
+
+def test_a_sweeps_test_side_made_once_serves_every_variant_unchanged(faulty_run):
+    # A sweep reads the test and judges its channels once (measured_side) and gives every
+    # variant a copy: the comparison adds installation flags and exclusions to it in place, so
+    # a shared one would carry the first variant's flags into the next. Two variants on the
+    # base model in a row must each give the run's figures (compared for equality through
+    # JSON, no tolerance: the same functions on the same arrays), and the shared side must
+    # come out as it went in.
+    import copy
+
+    from correlate.comparison.correlation import correlate_study
+    from correlate.variants.evaluate import correlate_variant, locate_base
+    from correlate.variants.sweep_file import Variant
+
+    study = read_study(faulty_run["folder"] / "study.toml")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        run = correlate_study(study)
+        located = locate_base(study)
+        before = copy.deepcopy(located.measured)
+        base = Variant(name="base", row=2, file=study.model_file, case_files={}, parameters={})
+        first, second = (correlate_variant(study, base, located) for _ in range(2))
+    assert not first.failure and not second.failure
+    for result in (first, second):
+        assert result.metrics["rms_ue"] == run.summary["fit"]["rms_ue"]
+        assert result.metrics["flagged"] == run.summary["verdict"]["flagged"]
+        np.testing.assert_array_equal(result.evaluated, run.status.evaluated)
+    assert len(run.flags[run.flags["flag"] == "installation"]) > 0   # the in-place additions
+    pd.testing.assert_frame_equal(located.measured.flags, before.flags)
+    for name in ("steps", "gauges", "text"):
+        np.testing.assert_array_equal(getattr(located.measured.excl, name),
+                                      getattr(before.excl, name))

@@ -89,6 +89,34 @@ def test_named_arrays_are_meshios_and_the_others_are_not_loaded(files, fmt):
     assert len(listed) == 12 and part.array_names() == full.array_names()
 
 
+@pytest.mark.parametrize("ctype,reshaped", [
+    ("tetra", True), ("hexahedron", True), ("tetra10", True), ("hexahedron20", True),
+    ("wedge", False),   # meshio reorders a wedge's nodes from VTK's: its own function is used
+])
+def test_a_mesh_of_one_cell_type_is_meshios(tmp_path, ctype, reshaped, monkeypatch):
+    """A mesh of one cell type is cut into cells by a reshape (no index gather): the blocks and
+    cell data equal meshio's whole read exactly, and meshio's splitting is skipped only there."""
+    mesh = solid_mesh(ctype, n=(3, 2, 2))
+    rng = np.random.default_rng(5)
+    cells = [(t, c) for t, c in mesh.blocks]
+    m = meshio.Mesh(mesh.points, cells, point_data={"E_pull": rng.normal(size=(len(mesh.points), 6))},
+                    cell_data={"extra_c1": [rng.normal(size=(len(c), 6)) for _, c in cells]})
+    meshio.write(tmp_path / "one.vtu", m)
+    import meshio._vtk_common as vc
+    calls = []
+    monkeypatch.setattr(vc, "vtk_cells_from_data",
+                        lambda *a, f=vc.vtk_cells_from_data: calls.append(1) or f(*a))
+    part = named_arrays.read_named(tmp_path / "one.vtu", {"E_pull", "extra_c1"})
+    whole = meshio.read(tmp_path / "one.vtu")
+    assert len(part.cells) == len(whole.cells) == 1
+    (kind, conn), = part.cells
+    assert kind == whole.cells[0].type and conn.dtype == whole.cells[0].data.dtype
+    assert np.array_equal(conn, whole.cells[0].data)
+    assert np.array_equal(part.cell_data["extra_c1"][0], whole.cell_data["extra_c1"][0])
+    assert np.array_equal(part.point_data["E_pull"], whole.point_data["E_pull"])
+    assert bool(calls) is not reshaped
+
+
 def test_the_vtu_read_agrees_with_vtks_own_whole_read(files):
     import pyvista as pv
 
