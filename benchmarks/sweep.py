@@ -16,6 +16,8 @@ the same run, side by side:
                 another, each in a fresh process;
 4. memory     - the peak resident memory of one worker process (read from /proc while the
                 2-worker sweep runs: the largest of its worker processes).
+   plain        - the same task (``correlate_variant``) in 1 and 2 plain processes
+                (``multiprocessing``, no Dask): what the two cores allow without a cluster.
 
 5. other meshes - with ``--other-meshes N``: N variants each on a slightly different mesh (the
                 gauges located per variant), swept with 1 worker, beside the same-mesh figure;
@@ -196,6 +198,47 @@ def worker_floor(folder: Path, n: int) -> float:
         cluster.close()
 
 
+_PLAIN: dict = {}
+
+
+def _plain_init(folder: str) -> None:
+    """A plain process's set-up: the base model's gauges located, the test read, one warm-up."""
+    import warnings
+
+    from correlate.variants.evaluate import correlate_variant, locate_base
+    from correlate.variants.sweep_file import read_sweep
+
+    warnings.simplefilter("ignore")
+    sweep = read_sweep(Path(folder) / "sweep.toml")
+    _PLAIN.update(sweep=sweep, located=locate_base(sweep.study))
+    correlate_variant(sweep.study, sweep.variants[0], _PLAIN["located"])
+
+
+def _plain_task(i: int) -> str:
+    from correlate.variants.evaluate import correlate_variant
+
+    sweep = _PLAIN["sweep"]
+    return correlate_variant(sweep.study, sweep.variants[i], _PLAIN["located"]).failure
+
+
+def plain_processes(folder: Path, n: int) -> tuple[float, float]:
+    """Seconds for the n variants' tasks in 1 and in 2 plain processes (``multiprocessing``, no
+    Dask), after each process's set-up: what the two cores allow without a cluster's traffic."""
+    from multiprocessing import get_context
+
+    out = []
+    for procs in (1, 2):
+        with get_context("spawn").Pool(procs, initializer=_plain_init,
+                                       initargs=(str(folder),)) as pool:
+            pool.map(_plain_task, range(procs))
+            t = time.perf_counter()
+            failures = pool.map(_plain_task, range(n), chunksize=1)
+            out.append(time.perf_counter() - t)
+        if any(failures):
+            raise RuntimeError(f"a variant failed in a plain process: {next(filter(None, failures))}")
+    return out[0], out[1]
+
+
 def _children_rss(pid: int) -> dict[int, float]:
     """Peak resident memory [MB] of every descendant process of ``pid`` (from /proc)."""
     parent, peak = {}, {}
@@ -280,6 +323,7 @@ def main() -> None:
         in_worker = worker_floor(scratch, n)
         one = timed_sweep(sweep, scratch / "out1", 1)
         two = timed_sweep(sweep, scratch / "out2", 2)
+        plain = plain_processes(scratch, n)
         other = None
         if args.other_meshes:
             other_sweep = build_other_meshes(scratch, cells, args.other_meshes)
@@ -310,6 +354,8 @@ def main() -> None:
         for what, value in rows:
             print(f"{what:58s} {value:9.2f}")
         print(f"throughput 2 workers / 1 worker (correlating stage): {one[1] / two[1]:.2f} x")
+        print(f"the same tasks in plain processes (no Dask): {plain[0] / n:.3f} s per variant "
+              f"in 1, {plain[1] / n:.3f} s in 2: throughput {plain[0] / plain[1]:.2f} x")
         print(f"cost per variant, 1 worker: {one[1] / n:.3f} s = {one[1] / n / read:.2f} x "
               f"meshio's read of its file, {one[1] / n / read_named:.2f} x the partial read, "
               f"{one[1] / n / in_worker:.2f} x the partial read in a worker")
