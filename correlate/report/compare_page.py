@@ -47,13 +47,13 @@ tr.improved td, tr.fixed td { background: #eef7f0; }
 </section>
 <section id="runs">
 <h2>2. Runs</h2>
-<table class="runs">
+<div class="wide"><table class="runs">
 <thead><tr><th>run</th><th>folder</th><th>model file</th><th>model revision</th><th>generated</th><th>verdict of the run</th></tr></thead>
 <tbody>
 {% for r in runs %}<tr><td class="id">{{ r.name }}</td><td class="id">{{ r.folder }}</td><td class="id">{{ r.file }}</td><td>{{ r.revision }}</td><td>{{ r.generated }}</td><td>{{ r.state }}</td></tr>
 {% endfor %}
 </tbody>
-</table>
+</table></div>
 </section>
 <section id="overall">
 <h2>3. Overall fit</h2>
@@ -68,13 +68,13 @@ tr.improved td, tr.fixed td { background: #eef7f0; }
 <section id="gauges">
 <h2>4. Gauges</h2>
 <p>RMS of the difference (measured - predicted) over pass/fail rows; |difference| at step {{ step }}, sequence {{ seq }}. Microstrain. "old" is {{ old }}, "new" is {{ new }}.</p>
-<table class="gauges">
+<div class="wide"><table class="gauges">
 <thead><tr>{% for c in columns %}<th{% if loop.index > 4 %} class="num"{% endif %}>{{ c }}</th>{% endfor %}</tr></thead>
 <tbody>
 {% for row in rows %}<tr class="{{ row[1] | replace(' ', '-') }}">{% for v in row %}<td{% if loop.index > 4 %} class="num"{% elif loop.first %} class="id"{% endif %}>{{ v }}</td>{% endfor %}</tr>
 {% endfor %}
 </tbody>
-</table>
+</table></div>
 <div class="box caution">{{ caution }}</div>
 </section>
 <footer>{{ title }}</footer>

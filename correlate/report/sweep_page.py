@@ -76,13 +76,13 @@ Jacobian {{ fmt(ident.condition_number) }}; the response surface's leave-one-out
 the base study's whole comparison run on its model result. {{ n_ok }} of {{ n_all }} variants
 were correlated{% if n_all > top %}; the first {{ top }} are listed (all are in variants.csv){% endif %}.</p>
 <img class="figure" src="{{ figures }}/metric.png" alt="RMS difference against each parameter">
-<table class="variants">
+<div class="wide"><table class="variants">
 <thead><tr>{% for c in columns %}<th>{% for part in c.split('_') %}{{ part }}{% if not loop.last %}_<wbr>{% endif %}{% endfor %}</th>{% endfor %}</tr></thead>
 <tbody>
 {% for r in rows %}<tr>{% for c in columns %}<td{% if c == 'failure' %} class="failure"{% endif %}>{{ r[c] }}</td>{% endfor %}</tr>
 {% endfor %}
 </tbody>
-</table>
+</table></div>
 </section>
 <footer><p class="caution">{{ caution }}</p></footer>
 </body>

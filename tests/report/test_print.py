@@ -188,24 +188,30 @@ def test_printed_pages_are_numbered_and_never_half_empty(report, paper: str | No
     assert all(s <= 0.5 for s in shares[:-1]), (name, [round(s, 2) for s in shares])
 
 
-def test_a_1280_pixel_window_needs_no_sideways_scrolling(report) -> None:
-    """At a laptop's 1280 px window no table makes the whole page scroll sideways (the gauge
-    map's long headings wrap; a table still too wide for a narrower window scrolls in its own
-    box). Chromium lays the page out; a script added to a copy of it writes the document's
-    scroll width and client width, read back from the rendered DOM."""
+@pytest.mark.parametrize("which,width", [("report", 1280), ("report", 800), ("sweep", 800)])
+def test_a_laptop_or_tablet_window_needs_no_sideways_scrolling(report, which, width) -> None:
+    """At a laptop's 1280 px window, or a tablet's 800 px, no table makes the whole page scroll
+    sideways (the gauge map's long headings wrap; a table still too wide for the window scrolls
+    in its own box: the gauge map, the gauges, flags, rosettes, chain and budget tables, and
+    the sweep page's table of variants).
+    Chromium lays the page out; a script added to a copy of it writes the document's scroll
+    width and client width, read back from the rendered DOM."""
     tmp, html = report["tmp"], report["html"]
-    probe = html.with_name("report_probe.html")
+    if which == "sweep":
+        html = html.parents[1] / "sweep" / "sweep.html"
+    probe = html.with_name(f"{which}_probe.html")
     probe.write_text(html.read_text(encoding="utf-8").replace("</body>", (
         "<script>window.addEventListener('load', () => { const d = document.documentElement;"
         " const p = document.createElement('pre'); p.id = 'widths';"
         " p.textContent = d.scrollWidth + ' ' + d.clientWidth; document.body.appendChild(p);"
         " });</script></body>")), encoding="utf-8")
-    dom = _chromium(tmp, "--window-size=1280,900", "--virtual-time-budget=5000", "--dump-dom",
-                    probe.as_uri())
+    dom = _chromium(tmp, f"--window-size={width},900", "--virtual-time-budget=5000",
+                    "--dump-dom", probe.as_uri())
     scroll, client = map(int, re.search(r'<pre id="widths">(\d+) (\d+)</pre>', dom).groups())
-    assert 1200 <= client <= 1280
+    assert width - 80 <= client <= width
     assert scroll <= client, f"the page is {scroll - client} px wider than the window"
-    assert '<div class="wide"><table class="gaugemap">' in dom
+    wide = "gaugemap" if which == "report" else "variants"
+    assert f'<div class="wide"><table class="{wide}">' in dom
 
 
 def test_the_printed_sweep_page_keeps_each_section_with_its_figures(report) -> None:
