@@ -75,9 +75,10 @@ def check_finite(op: GaugeOperator, field: Field, strain: NDArray) -> None:
     bad = ~np.isfinite(strain).all(axis=(1, 2))
     if bad.any():
         rows = np.unique(op.weights[:, np.flatnonzero(bad)].nonzero()[0])
-        gauges = sorted({op.gauges[g] for g in op.row_gauge[rows]})
+        gauges = [op.gauges[g] for g in np.unique(op.row_gauge[rows])]   # in the map's order
+        shown = ", ".join(gauges[:8]) + (f" and {len(gauges) - 8} more" if len(gauges) > 8 else "")
         raise ModelError(f"case '{field.case}': array '{field.array}' has NaN or infinite values at "
-                         f"gauge(s) {', '.join(gauges)}; check the result file there")
+                         f"{len(gauges)} gauge(s): {shown}; check the result file there")
 
 
 def evaluate_rows(op: GaugeOperator, field: Field) -> dict[str, NDArray[np.float64]]:

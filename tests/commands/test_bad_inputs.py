@@ -352,6 +352,10 @@ def _nan_at_gauge(mesh):
     mesh.point_data["E_pull"][top & (mesh.points[:, 0] <= 1.0)] = np.nan
 
 
+def _nan_everywhere(mesh):
+    mesh.point_data["E_pull"][:] = np.nan
+
+
 def _inf_at_gauge(mesh):
     top = mesh.points[:, 2] == 2.0
     mesh.point_data["E_side"][top & (mesh.points[:, 0] <= 1.0), 3] = np.inf
@@ -527,6 +531,8 @@ CATALOGUE: dict[str, Bad] = {
         _components_mismatch, ("array 'E_pull'", "has 6 components", "lists 3")),
     "model-nan-at-gauge": Bad(
         _model_edit(_nan_at_gauge), ("case 'pull'", "array 'E_pull'", "NaN or infinite", "S00")),
+    "model-nan-everywhere": Bad(   # every gauge: counted, the first ones named in map order
+        _model_edit(_nan_everywhere), ("case 'pull'", "NaN or infinite", "gauge(s): S00, S01, ")),
     "model-inf-at-gauge": Bad(
         _model_edit(_inf_at_gauge), ("case 'side'", "array 'E_side'", "NaN or infinite", "S00")),
     "model-shell-opposed-normals": Bad(

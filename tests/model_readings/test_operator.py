@@ -10,7 +10,7 @@ import pandas as pd
 import pytest
 from builders import SOLID_TYPES, gauge_frame, solid_mesh
 
-from correlate.core.errors import GaugeError, GaugeOutsideMeshError
+from correlate.core.errors import GaugeError, GaugeOutsideMeshError, ModelError
 from correlate.model_readings.evaluate import evaluate_rows
 from correlate.model_readings.operator import build_operator
 from correlate.readers.model import Field
@@ -266,3 +266,17 @@ def test_sensitivities_to_position_and_angle_match_the_closed_form():
     a = np.radians(2.0)
     assert row["sens_angle_ue_per_deg"] == pytest.approx(300.0 * np.sin(2 * a) / 2.0, rel=0,
                                                          abs=1e-7)
+
+
+def test_a_field_with_no_finite_value_names_its_gauges_counted_in_map_order(rng):
+    # A field of NaN at every node refuses in one line: how many gauges, the first eight in
+    # the gauge map's order (G0, G1, ..., not the text order G0, G1, G10, G11), then "and N more".
+    mesh = solid_mesh("hexahedron")
+    gauges, _ = top_gauges(rng, mesh, n=12)
+    op = build_operator(mesh, gauges, snap_tol=1.0)
+    with pytest.raises(ModelError) as err:
+        evaluate_rows(op, Field("c", "strain", "point", np.full((len(mesh.points), 3, 3), np.nan),
+                                "strain", "E"))
+    line = str(err.value)
+    assert "array 'E' has NaN or infinite values at 12 gauge(s): " in line
+    assert "G0, G1, G2, G3, G4, G5, G6, G7 and 4 more;" in line
