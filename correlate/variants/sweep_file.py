@@ -22,6 +22,7 @@ that variant's failure and goes on with the others.
 
 from __future__ import annotations
 
+import csv
 import math
 import tomllib
 from dataclasses import dataclass, field
@@ -142,10 +143,21 @@ def _existing(base: Path, value: object, name: str, key: str) -> Path:
 def _table(table_file: Path, parameters: tuple[str, ...], study: Study) -> tuple[Variant, ...]:
     name = table_file.name
     try:
-        df = pd.read_csv(table_file, dtype=str, keep_default_na=False, skipinitialspace=True)
+        with table_file.open(encoding="utf-8-sig") as f:
+            head = f.readline()
+        # a spreadsheet saved with semicolons (and decimal commas) where the comma is the decimal
+        semicolon = head.count(";") > head.count(",")
+        sep = ";" if semicolon else ","
+        header = [c.strip() for c in next(csv.reader([head], delimiter=sep), [])]
+        df = pd.read_csv(table_file, dtype=str, keep_default_na=False, skipinitialspace=True,
+                         sep=sep, encoding="utf-8-sig")
     except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
         raise StudyError(f"{name}: cannot be read as CSV ({str(exc).strip()}); one row per "
                          "variant with columns name, file and the parameters") from None
+    twice = sorted({c for c in header if c and header.count(c) > 1})
+    if twice:   # pandas would rename the second 'k' to 'k.1' and the first would be used
+        raise StudyError(f"{name}: column(s) {', '.join(twice)} appear more than once in the "
+                         "header; keep one column of each name")
     df.columns = [str(c).strip() for c in df.columns]
     cases = {c.name for c in study.cases}
     missing = [c for c in ("name", *parameters) if c not in df.columns]
@@ -174,7 +186,8 @@ def _table(table_file: Path, parameters: tuple[str, ...], study: Study) -> tuple
         seen[vname] = row
         values, problems = {}, []
         for p in parameters:
-            values[p], problem = _number(rec[p], name, row, p)
+            text = rec[p].replace(",", ".") if semicolon else rec[p]
+            values[p], problem = _number(text, name, row, p)
             problems += [problem] if problem else []
         files = {c[len(FILE_PREFIX):]: _relative(table_file, rec[c], name, row, c)
                  for c in per_case if rec[c].strip()}

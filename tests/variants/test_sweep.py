@@ -319,6 +319,33 @@ def test_sweep_file_errors_name_the_file_and_key(tmp_path, capsys):
     assert not (tmp_path / "o").exists()
 
 
+def test_a_parameter_column_given_twice_is_refused(tmp_path, capsys):
+    # pandas renames a repeated header 'k' to 'k.1' and the first column would be used silently
+    k_study(tmp_path)
+    (tmp_path / "variants.csv").write_text("name,file,k,k\na,a.vtu,1,2\n")
+    assert main(["--quiet", "sweep", str(write_sweep(tmp_path)), "--out", str(tmp_path / "o")]) == 2
+    assert capsys.readouterr().err.strip() == (
+        "error: variants.csv: column(s) k appear more than once in the header; keep one column "
+        "of each name")
+    assert not (tmp_path / "o").exists()
+
+
+def test_a_table_saved_with_semicolons_and_decimal_commas_reads_as_the_comma_one(tmp_path):
+    # a spreadsheet in a locale whose decimal mark is the comma saves ';'-separated text, often
+    # with a byte-order mark: the same variants, values and files as the plain CSV
+    from correlate.variants.sweep_file import read_sweep
+
+    k_study(tmp_path)
+    (tmp_path / "variants.csv").write_text("name,file,k\na,a.vtu,1.25\nb,b.vtu,0.5\n")
+    plain = read_sweep(write_sweep(tmp_path)).variants
+    (tmp_path / "variants.csv").write_bytes(
+        "\ufeffname;file;k\na;a.vtu;1,25\nb;b.vtu;0,5\n".encode("utf-8"))
+    local = read_sweep(write_sweep(tmp_path)).variants
+    assert [(v.name, v.file, v.parameters, v.problem) for v in local] == \
+        [(v.name, v.file, v.parameters, v.problem) for v in plain]
+    assert [v.parameters["k"] for v in local] == [1.25, 0.5]
+
+
 def test_uncertainty_budget_weights_the_identification_by_u_val(tmp_path, capsys):
     study = k_study(tmp_path, k_true=1.04, noise=2.0)
     study.write_text(study.read_text() + "[uncertainty]\ncoverage = 2.0\n"
