@@ -23,6 +23,7 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from correlate.core.errors import ReadingsFormatError, StudyError
+from correlate.core.headers import header_of, repeated_columns
 from correlate.readers.fullfield_study import STRAIN_UNITS, FullFieldSettings, natural_key
 
 LANDMARK_COLUMNS = ("landmark", "dic_x", "dic_y", "dic_z", "model_x", "model_y", "model_z")
@@ -54,12 +55,15 @@ def _read_csv(path: Path) -> pd.DataFrame:
         header = f.readline()
     semicolon = header.count(";") > header.count(",")
     try:
-        return pd.read_csv(path, sep=";" if semicolon else ",", decimal="," if semicolon else ".",
-                           skipinitialspace=True, encoding="utf-8-sig")
+        table = pd.read_csv(path, sep=";" if semicolon else ",", decimal="," if semicolon else ".",
+                            skipinitialspace=True, encoding="utf-8-sig")
     except (pd.errors.ParserError, UnicodeDecodeError, ValueError) as exc:
         first = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
         raise ReadingsFormatError(f"{path.name}: not a readable CSV table ({first}); export the "
                                   "DIC frame as CSV with one header row") from None
+    if twice := repeated_columns(header_of(path, ";" if semicolon else ","), path.name):
+        raise ReadingsFormatError(*twice)
+    return table
 
 
 def _read_vtk(path: Path) -> pd.DataFrame:

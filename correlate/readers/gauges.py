@@ -14,6 +14,7 @@ import numpy as np
 import pandas as pd
 
 from correlate.core.errors import CorrelateWarning, GaugeError
+from correlate.core.headers import header_of, repeated_columns
 from correlate.readers.bridge_map import BRIDGE_COLUMNS
 from correlate.readers.gauge_chain import CHAIN_COLUMNS, CHAIN_NUMERIC, CHAIN_TEXT, chain_problems
 
@@ -39,6 +40,8 @@ def read_gauges(path: str | Path) -> pd.DataFrame:
     except (pd.errors.ParserError, UnicodeDecodeError, pd.errors.EmptyDataError) as exc:
         raise GaugeError(f"{path.name}: cannot be read as CSV ({exc}); save the gauge map as "
                          "comma-separated UTF-8 text with a header row") from None
+    if twice := repeated_columns(header_of(path), path.name):
+        raise GaugeError(*twice)
     return validate_gauges(raw, source=path.name)
 
 

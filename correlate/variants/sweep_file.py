@@ -22,7 +22,6 @@ that variant's failure and goes on with the others.
 
 from __future__ import annotations
 
-import csv
 import math
 import tomllib
 from dataclasses import dataclass, field
@@ -31,6 +30,7 @@ from pathlib import Path
 import pandas as pd
 
 from correlate.core.errors import StudyError
+from correlate.core.headers import header_of, repeated_columns
 from correlate.readers.records import Study
 from correlate.readers.study import read_study
 from correlate.variants.surface import KINDS
@@ -148,16 +148,13 @@ def _table(table_file: Path, parameters: tuple[str, ...], study: Study) -> tuple
         # a spreadsheet saved with semicolons (and decimal commas) where the comma is the decimal
         semicolon = head.count(";") > head.count(",")
         sep = ";" if semicolon else ","
-        header = [c.strip() for c in next(csv.reader([head], delimiter=sep), [])]
         df = pd.read_csv(table_file, dtype=str, keep_default_na=False, skipinitialspace=True,
                          sep=sep, encoding="utf-8-sig")
     except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
         raise StudyError(f"{name}: cannot be read as CSV ({str(exc).strip()}); one row per "
                          "variant with columns name, file and the parameters") from None
-    twice = sorted({c for c in header if c and header.count(c) > 1})
-    if twice:   # pandas would rename the second 'k' to 'k.1' and the first would be used
-        raise StudyError(f"{name}: column(s) {', '.join(twice)} appear more than once in the "
-                         "header; keep one column of each name")
+    if twice := repeated_columns(header_of(table_file, sep), name):
+        raise StudyError(*twice)
     df.columns = [str(c).strip() for c in df.columns]
     cases = {c.name for c in study.cases}
     missing = [c for c in ("name", *parameters) if c not in df.columns]

@@ -551,6 +551,9 @@ CATALOGUE: dict[str, Bad] = {
     "gauges-duplicate-id": Bad(
         _gauge_edit(lambda g: set_cell(g, 1, gauge="S00")),
         ("gauges.csv", "gauge id 'S00'", "rows [2, 3]", "unique")),
+    "gauges-repeated-column": Bad(   # pandas would read the second 'x' as 'x.1', unused
+        _gauge_edit(lambda g: g.insert(2, "x", "9", allow_duplicates=True) or g),
+        ("gauges.csv", "column 'x' appears 2 times in the header (columns 2, 3)", "rename")),
     "gauges-zero-direction": Bad(
         _gauge_edit(lambda g: set_cell(g, 1, dir_x=0, dir_y=0, dir_z=0)),
         ("gauges.csv row 3", "gauge 'S01'", "zero length")),

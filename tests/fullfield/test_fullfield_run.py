@@ -216,6 +216,20 @@ def test_points_off_the_model_exit_2_with_one_line(tmp_path, capsys):
     assert before == {p: p.read_bytes() for p in tmp_path.rglob("*") if p.is_file()}
 
 
+def test_a_frame_with_a_column_given_twice_is_refused_in_one_line(tmp_path, capsys):
+    # pandas would rename the second 'E11' to 'E11.1' and the first would be compared silently
+    study = _study(tmp_path)
+    frame = tmp_path / "dic" / "frame_3.csv"
+    df = pd.read_csv(frame)
+    df.insert(4, "E11", df["E22"], allow_duplicates=True)
+    df.to_csv(frame, index=False)
+    assert main(["run", "--quiet", str(study), "--out", str(tmp_path / "o"), "--no-report"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert err == ["error: frame_3.csv: column 'E11' appears 2 times in the header (columns 4, "
+                   "5); rename or remove the others"]
+    assert not (tmp_path / "o").exists()
+
+
 @pytest.mark.render
 def test_report_has_the_fullfield_section(tmp_path):
     from PIL import Image

@@ -325,8 +325,8 @@ def test_a_parameter_column_given_twice_is_refused(tmp_path, capsys):
     (tmp_path / "variants.csv").write_text("name,file,k,k\na,a.vtu,1,2\n")
     assert main(["--quiet", "sweep", str(write_sweep(tmp_path)), "--out", str(tmp_path / "o")]) == 2
     assert capsys.readouterr().err.strip() == (
-        "error: variants.csv: column(s) k appear more than once in the header; keep one column "
-        "of each name")
+        "error: variants.csv: column 'k' appears 2 times in the header (columns 3, 4); rename "
+        "or remove the others")
     assert not (tmp_path / "o").exists()
 
 
