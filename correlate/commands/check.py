@@ -141,7 +141,7 @@ def _raw_channels(gauges_file: Path) -> dict[str, str]:
     """Readings column of each gauge id of a gauge map that failed validation ({}: unreadable)."""
     try:
         raw = pd.read_csv(gauges_file, dtype=str, keep_default_na=False, skipinitialspace=True,
-                          encoding="utf-8-sig")
+                          encoding="utf-8-sig", index_col=False)
     except (ValueError, OSError, UnicodeDecodeError):
         return {}
     if "gauge" not in raw:

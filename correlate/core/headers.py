@@ -1,8 +1,9 @@
-"""The header row of a CSV table as written, and the column names it gives more than once.
+"""The header row of a CSV table as written: names given twice, rows longer than the header.
 
-Stage: core. pandas renames a repeated column name ``x`` to ``x.1`` and the tables' readers
-would then use the first ``x`` without a word, so the readers check the header as the file
-gives it first.
+Stage: core. pandas renames a repeated column name ``x`` to ``x.1`` (the readers would then use
+the first ``x`` without a word), and reads a file whose rows have one field more than the header
+with the first column as its index (every value one column off), so the readers check the table
+as the file gives it first (:func:`table_problems`) and read it with ``index_col=False``.
 """
 
 from __future__ import annotations
@@ -11,7 +12,7 @@ import csv
 from collections.abc import Collection
 from pathlib import Path
 
-__all__ = ["header_of", "repeated_columns"]
+__all__ = ["header_of", "long_rows", "repeated_columns", "table_problems"]
 
 
 def header_of(path: Path, sep: str = ",") -> list[str]:
@@ -31,3 +32,29 @@ def repeated_columns(header: list[str], source: str,
             lines.append(f"{source}: column {name!r} appears {len(where)} times in the header "
                          f"(columns {', '.join(map(str, where))}); rename or remove the others")
     return lines
+
+
+def long_rows(path: Path, sep: str, width: int, source: str) -> list[str]:
+    """One line for the rows with more fields than the header's ``width`` (trailing empty
+    fields, a spreadsheet's stray delimiters, do not count): the first three by line number."""
+    with path.open(encoding="utf-8-sig", errors="replace", newline="") as f:
+        reader = csv.reader(f, delimiter=sep)
+        next(reader, None)
+        long = []
+        for row in reader:
+            while row and not row[-1].strip():
+                row.pop()
+            if len(row) > width:
+                long.append((reader.line_num, len(row)))
+    if not long:
+        return []
+    shown = ", ".join(f"line {n} has {k}" for n, k in long[:3])
+    more = f" and {len(long) - 3} more rows" if len(long) > 3 else ""
+    return [f"{source}: {len(long)} row(s) have more fields than the header's {width} "
+            f"({shown}{more}); remove the extra delimiters or name the extra columns in the header"]
+
+
+def table_problems(path: Path, source: str, sep: str = ",") -> list[str]:
+    """Names the header gives twice and rows longer than the header, one line each."""
+    header = header_of(path, sep)
+    return repeated_columns(header, source) + long_rows(path, sep, len(header), source)

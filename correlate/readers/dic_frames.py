@@ -23,7 +23,7 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from correlate.core.errors import ReadingsFormatError, StudyError
-from correlate.core.headers import header_of, repeated_columns
+from correlate.core.headers import table_problems
 from correlate.readers.fullfield_study import STRAIN_UNITS, FullFieldSettings, natural_key
 
 LANDMARK_COLUMNS = ("landmark", "dic_x", "dic_y", "dic_z", "model_x", "model_y", "model_z")
@@ -56,13 +56,13 @@ def _read_csv(path: Path) -> pd.DataFrame:
     semicolon = header.count(";") > header.count(",")
     try:
         table = pd.read_csv(path, sep=";" if semicolon else ",", decimal="," if semicolon else ".",
-                            skipinitialspace=True, encoding="utf-8-sig")
+                            skipinitialspace=True, encoding="utf-8-sig", index_col=False)
     except (pd.errors.ParserError, UnicodeDecodeError, ValueError) as exc:
         first = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
         raise ReadingsFormatError(f"{path.name}: not a readable CSV table ({first}); export the "
                                   "DIC frame as CSV with one header row") from None
-    if twice := repeated_columns(header_of(path, ";" if semicolon else ","), path.name):
-        raise ReadingsFormatError(*twice)
+    if problems := table_problems(path, path.name, ";" if semicolon else ","):
+        raise ReadingsFormatError(*problems)
     return table
 
 

@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 
 from correlate.core.errors import CorrelateWarning, GaugeError
-from correlate.core.headers import header_of, repeated_columns
+from correlate.core.headers import table_problems
 from correlate.readers.bridge_map import BRIDGE_COLUMNS
 from correlate.readers.gauge_chain import CHAIN_COLUMNS, CHAIN_NUMERIC, CHAIN_TEXT, chain_problems
 
@@ -36,12 +36,12 @@ def read_gauges(path: str | Path) -> pd.DataFrame:
                          "map CSV in [gauges] file")
     try:
         raw = pd.read_csv(path, dtype=str, keep_default_na=False, skipinitialspace=True,
-                          encoding="utf-8-sig")
+                          encoding="utf-8-sig", index_col=False)
     except (pd.errors.ParserError, UnicodeDecodeError, pd.errors.EmptyDataError) as exc:
         raise GaugeError(f"{path.name}: cannot be read as CSV ({exc}); save the gauge map as "
                          "comma-separated UTF-8 text with a header row") from None
-    if twice := repeated_columns(header_of(path), path.name):
-        raise GaugeError(*twice)
+    if problems := table_problems(path, path.name):
+        raise GaugeError(*problems)
     return validate_gauges(raw, source=path.name)
 
 

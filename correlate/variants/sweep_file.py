@@ -30,7 +30,7 @@ from pathlib import Path
 import pandas as pd
 
 from correlate.core.errors import StudyError
-from correlate.core.headers import header_of, repeated_columns
+from correlate.core.headers import table_problems
 from correlate.readers.records import Study
 from correlate.readers.study import read_study
 from correlate.variants.surface import KINDS
@@ -149,12 +149,12 @@ def _table(table_file: Path, parameters: tuple[str, ...], study: Study) -> tuple
         semicolon = head.count(";") > head.count(",")
         sep = ";" if semicolon else ","
         df = pd.read_csv(table_file, dtype=str, keep_default_na=False, skipinitialspace=True,
-                         sep=sep, encoding="utf-8-sig")
+                         sep=sep, encoding="utf-8-sig", index_col=False)
     except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
         raise StudyError(f"{name}: cannot be read as CSV ({str(exc).strip()}); one row per "
                          "variant with columns name, file and the parameters") from None
-    if twice := repeated_columns(header_of(table_file, sep), name):
-        raise StudyError(*twice)
+    if problems := table_problems(table_file, name, sep):
+        raise StudyError(*problems)
     df.columns = [str(c).strip() for c in df.columns]
     cases = {c.name for c in study.cases}
     missing = [c for c in ("name", *parameters) if c not in df.columns]

@@ -66,6 +66,17 @@ def with_gauges(folder: Path, change: Callable[[pd.DataFrame], pd.DataFrame], **
     return study
 
 
+def _gauge_lines(suffix: str):
+    """A small study whose gauge map's data lines each end in ``suffix`` (text, as written)."""
+    def build(folder: Path) -> Path:
+        study = with_gauges(folder, lambda g: g)
+        path = folder / "gauges.csv"
+        head, *rows = path.read_text(encoding="utf-8").splitlines()
+        path.write_text("\n".join([head] + [r + suffix for r in rows]) + "\n", encoding="utf-8")
+        return study
+    return build
+
+
 def set_cell(df: pd.DataFrame, row: int, **values) -> pd.DataFrame:
     df = df.copy()
     for k, v in values.items():
@@ -554,6 +565,10 @@ CATALOGUE: dict[str, Bad] = {
     "gauges-repeated-column": Bad(   # pandas would read the second 'x' as 'x.1', unused
         _gauge_edit(lambda g: g.insert(2, "x", "9", allow_duplicates=True) or g),
         ("gauges.csv", "column 'x' appears 2 times in the header (columns 2, 3)", "rename")),
+    "gauges-rows-longer-than-header": Bad(   # pandas made the ids its index: all one column off
+        _gauge_lines(",extra"),
+        ("gauges.csv", "3 row(s) have more fields than the header's", "line 2 has", "extra"),
+        lines=1),
     "gauges-zero-direction": Bad(
         _gauge_edit(lambda g: set_cell(g, 1, dir_x=0, dir_y=0, dir_z=0)),
         ("gauges.csv row 3", "gauge 'S01'", "zero length")),
@@ -874,3 +889,15 @@ def test_indicated_reference_agrees_with_the_tool(tmp_path):
     # tolerance: linear fields are exact on hexahedra; round-off on ~1000 ue
     np.testing.assert_allclose(got[list(g["gauge"])].to_numpy(), block_indicated(g, "pull"),
                                rtol=1e-9, atol=0)
+
+
+def test_a_gauge_map_with_stray_delimiters_at_the_line_ends_is_read_as_without(tmp_path, capsys):
+    # a spreadsheet's empty trailing fields are no extra column: the same gauges located at the
+    # same places as the plain map (model_readings.csv byte for byte)
+    for name, build in (("plain", _gauge_lines("")), ("stray", _gauge_lines(",,"))):
+        (tmp_path / name).mkdir()
+        study = build(tmp_path / name)
+        assert main(["--quiet", "predict", str(study), "--out", str(tmp_path / name / "o")]) == 0
+    capsys.readouterr()
+    assert (tmp_path / "stray" / "o" / "model_readings.csv").read_bytes() == \
+        (tmp_path / "plain" / "o" / "model_readings.csv").read_bytes()
