@@ -3,8 +3,9 @@
 Stage: comparison (orchestration). The steps, in order: read and tare the test data, with the
 channels' health and dispositions (:func:`measured_side`, which depends on the test only), the
 model readings for the test loads (:func:`model_readings`), statuses and statistics, diagnosis of
-the failing gauges (and the installation flags it raises), rosettes and the summary. The maths lives in the stage modules; the
-result is a :class:`Correlation` that the outputs and the report read.
+the failing gauges (and the installation flags it raises), rosettes and the summary. The maths
+lives in the stage modules; the result is a :class:`Correlation` that the outputs and the report
+read.
 """
 
 from __future__ import annotations

@@ -9,7 +9,6 @@ as the file gives it first (:func:`table_problems`) and read it with ``index_col
 from __future__ import annotations
 
 import csv
-from collections.abc import Collection
 from pathlib import Path
 
 __all__ = ["header_of", "long_rows", "repeated_columns", "table_problems"]
@@ -21,14 +20,13 @@ def header_of(path: Path, sep: str = ",") -> list[str]:
         return [c.strip() for c in next(csv.reader(f, delimiter=sep), [])]
 
 
-def repeated_columns(header: list[str], source: str,
-                     only: Collection[str] | None = None) -> list[str]:
-    """One line per non-blank column name the header gives more than once (of ``only``, the
-    names the reader uses, when given), naming the columns by position."""
+def repeated_columns(header: list[str], source: str) -> list[str]:
+    """One line per non-blank column name the header gives more than once, naming the columns
+    by position."""
     lines = []
     for name in dict.fromkeys(header):
         where = [j + 1 for j, h in enumerate(header) if h == name]
-        if name and len(where) > 1 and (only is None or name in only):
+        if name and len(where) > 1:
             lines.append(f"{source}: column {name!r} appears {len(where)} times in the header "
                          f"(columns {', '.join(map(str, where))}); rename or remove the others")
     return lines
