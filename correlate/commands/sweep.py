@@ -16,6 +16,7 @@ import shutil
 import sys
 import tempfile
 from collections.abc import Callable
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 from typing import Any
 
@@ -93,14 +94,23 @@ def collect(sweep: Sweep, out: Path, args: argparse.Namespace) -> tuple[dict, in
     cache = out / CACHE
     fingerprint = study_fingerprint(sweep.study)
     results: dict[str, VariantResult] = {}
-    keys: dict[str, str | None] = {}
+    problems = {v.name: v.problem or missing_file(v) for v in sweep.variants}
+    ready = [v for v in sweep.variants if not problems[v.name]]
+    # one file per thread: hashlib releases the GIL, so the variants' files (hundreds of MB
+    # each) are hashed on every core at once
+    with ThreadPoolExecutor(max_workers=os.cpu_count() or 1) as pool:
+        hashed = pool.map(lambda v: variant_key(v, fingerprint), ready)
+        keys: dict[str, str | None] = dict(zip(
+            [v.name for v in ready],
+            progress.bar(hashed, desc="hashing the variant files", total=len(ready)),
+            strict=True))
     todo: list[Variant] = []
-    for v in progress.bar(sweep.variants, desc="hashing the variant files"):
-        problem = v.problem or missing_file(v)
-        if problem:   # recorded as the variant's failure; nothing to compute
-            results[v.name], keys[v.name] = VariantResult(name=v.name, failure=problem), None
+    for v in sweep.variants:
+        if problems[v.name]:   # recorded as the variant's failure; nothing to compute
+            results[v.name] = VariantResult(name=v.name, failure=problems[v.name])
+            keys[v.name] = None
             continue
-        keys[v.name] = key = variant_key(v, fingerprint)
+        key = keys[v.name]
         cached = load_result(cache, key, v.name) if key is not None else None
         if cached is not None:
             results[v.name] = cached
