@@ -254,6 +254,7 @@ class MeasuredSide:
     (:func:`measured_side`); the comparison adds to ``flags`` and ``excl`` in place, so each
     variant is given a copy."""
 
+    names: tuple[str, ...]               # the channels, in the order of the columns below
     readings: Any
     steps: Steps
     measured: NDArray[np.float64]        # (s, g) microstrain
@@ -274,8 +275,8 @@ def measured_side(study: Study, gauges: pd.DataFrame) -> MeasuredSide:
                          chain_rows=None if chain is None else range_flags(chain, steps))
     excl = dispose_health(flags, study, names, steps)
     progress.pause("health")
-    return MeasuredSide(readings=readings, steps=steps, measured=measured, chain=chain,
-                        flags=flags, excl=excl)
+    return MeasuredSide(names=tuple(names), readings=readings, steps=steps, measured=measured,
+                        chain=chain, flags=flags, excl=excl)
 
 
 def _compare_test(study: Study, model: Model | None, side: MeasuredSide | None) -> _Compared:
@@ -283,6 +284,9 @@ def _compare_test(study: Study, model: Model | None, side: MeasuredSide | None) 
     model = compared_model(model or prepare(study))
     names = model.gauges["gauge"].tolist()
     side = side or measured_side(study, model.gauges)
+    if side.names != tuple(names):   # made for another gauge map: the columns would not pair
+        raise RuntimeError(f"internal error: the test's readings are of the channels "
+                           f"{side.names[:3]}..., the model's are {tuple(names[:3])}...")
     steps, measured, flags, excl = side.steps, side.measured, side.flags, side.excl
     m = model_readings(study, model, steps)
     progress.pause("model")

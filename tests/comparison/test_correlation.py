@@ -260,3 +260,43 @@ def test_a_sweeps_test_side_made_once_serves_every_variant_unchanged(faulty_run)
     for name in ("steps", "gauges", "text"):
         np.testing.assert_array_equal(getattr(located.measured.excl, name),
                                       getattr(before.excl, name))
+
+
+def test_a_variant_on_another_mesh_pairs_its_bridge_channels_with_the_tests(tmp_path):
+    # The demo (two bridges, the measurement chain, [uncertainty]) with its model renumbered
+    # (the points reversed: another mesh to the sweep, so its gauges are located anew) gives the
+    # base model's readings channel for channel: the test's half, made once with the base
+    # model's channels, pairs with the new model's channels (rtol 1e-9: the same interpolation
+    # in another order of nodes; the located points agree to the Newton tolerance).
+    import shutil
+
+    import meshio
+
+    from correlate.comparison.correlation import rank_study
+    from correlate.variants.evaluate import correlate_variant, locate_base
+    from correlate.variants.sweep_file import Variant
+
+    study = read_study(DEMO_STUDY)
+    block = meshio.read(study.model_file)
+    order = np.arange(len(block.points))[::-1]
+    moved = meshio.Mesh(block.points[::-1].copy(),
+                        [meshio.CellBlock(c.type, order[c.data]) for c in block.cells],
+                        point_data={k: v[::-1].copy() for k, v in block.point_data.items()},
+                        cell_data=block.cell_data)
+    meshio.write(tmp_path / "renumbered.vtu", moved)
+    shutil.copy(study.model_file, tmp_path / "same.vtu")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        located = locate_base(study)
+        base = rank_study(study)
+        results = {name: correlate_variant(study, Variant(name=name, row=2, file=tmp_path / name,
+                                                          case_files={}, parameters={}), located)
+                   for name in ("same.vtu", "renumbered.vtu")}
+    assert located.bridges, "the demo has bridge channels"
+    for name, result in results.items():
+        assert not result.failure, result.failure
+        assert result.same_mesh == (name == "same.vtu")
+        assert result.gauges == tuple(base.gauges)
+        np.testing.assert_allclose(result.predicted, base.predicted, rtol=1e-9, atol=1e-9)
+        np.testing.assert_array_equal(result.measured, base.measured)
+        np.testing.assert_array_equal(result.evaluated, base.status.evaluated)
