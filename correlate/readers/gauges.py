@@ -23,6 +23,7 @@ NUMERIC_OPTIONAL = ("length", "kt", "position_tol", "angle_tol", "nu0", "normal_
                     "normal_z", "gauge_factor", "daq_gauge_factor", "polarity", "range_ue")
 TEXT_OPTIONAL = ("rosette", "face", "mount", "grid", "channel")
 KNOWN = REQUIRED + NUMERIC_OPTIONAL + TEXT_OPTIONAL + CHAIN_COLUMNS + BRIDGE_COLUMNS
+NUMERIC = REQUIRED[1:] + NUMERIC_OPTIONAL + CHAIN_NUMERIC + ("arm",)
 FACES = ("", "top", "bottom")
 MOUNTS = ("", "surface", "embedded")
 KT_LIMIT = 0.1  # |kt| above this is almost surely a percentage
@@ -35,13 +36,22 @@ def read_gauges(path: str | Path) -> pd.DataFrame:
         raise GaugeError(f"gauge map '{path}' is a folder, not a file; give the path of the gauge "
                          "map CSV in [gauges] file")
     try:
-        raw = pd.read_csv(path, dtype=str, keep_default_na=False, skipinitialspace=True,
-                          encoding="utf-8-sig", index_col=False)
+        with path.open(encoding="utf-8-sig") as f:
+            head = f.readline()
+        # a spreadsheet saved with semicolons (and decimal commas) where the comma is the decimal
+        semicolon = head.count(";") > head.count(",")
+        sep = ";" if semicolon else ","
+        raw = pd.read_csv(path, sep=sep, dtype=str, keep_default_na=False,
+                          skipinitialspace=True, encoding="utf-8-sig", index_col=False)
     except (pd.errors.ParserError, UnicodeDecodeError, pd.errors.EmptyDataError) as exc:
         raise GaugeError(f"{path.name}: cannot be read as CSV ({exc}); save the gauge map as "
                          "comma-separated UTF-8 text with a header row") from None
-    if problems := table_problems(path, path.name):
+    if problems := table_problems(path, path.name, sep):
         raise GaugeError(*problems)
+    if semicolon:
+        for col in NUMERIC:
+            if col in raw.columns:
+                raw[col] = raw[col].str.replace(",", ".", regex=False)
     return validate_gauges(raw, source=path.name)
 
 

@@ -901,3 +901,27 @@ def test_a_gauge_map_with_stray_delimiters_at_the_line_ends_is_read_as_without(t
     capsys.readouterr()
     assert (tmp_path / "stray" / "o" / "model_readings.csv").read_bytes() == \
         (tmp_path / "plain" / "o" / "model_readings.csv").read_bytes()
+
+
+def test_a_gauge_map_saved_with_semicolons_and_decimal_commas_reads_as_the_comma_one(tmp_path,
+                                                                                   capsys):
+    # a spreadsheet in a locale whose decimal mark is the comma saves ';'-separated text with
+    # decimal commas, often with a byte-order mark: the same gauges at the same places
+    # (model_readings.csv byte for byte)
+    import re
+
+    def semicolons(folder: Path) -> Path:
+        study = with_gauges(folder, lambda g: g)
+        path = folder / "gauges.csv"
+        text = re.sub(r"(?<=\d)\.(?=\d)", ",", path.read_text(encoding="utf-8").replace(",", ";"))
+        assert ";" in text and "0,6" in text
+        path.write_bytes(("\ufeff" + text).encode("utf-8"))
+        return study
+
+    for name, build in (("plain", lambda f: with_gauges(f, lambda g: g)), ("semi", semicolons)):
+        (tmp_path / name).mkdir()
+        study = build(tmp_path / name)
+        assert main(["--quiet", "predict", str(study), "--out", str(tmp_path / name / "o")]) == 0
+    capsys.readouterr()
+    assert (tmp_path / "semi" / "o" / "model_readings.csv").read_bytes() == \
+        (tmp_path / "plain" / "o" / "model_readings.csv").read_bytes()
