@@ -11,7 +11,15 @@ from __future__ import annotations
 import csv
 from pathlib import Path
 
-__all__ = ["header_of", "long_rows", "repeated_columns", "table_problems"]
+__all__ = ["header_of", "long_rows", "repeated_columns", "separator", "table_problems"]
+
+
+def separator(path: Path) -> str:
+    """``;`` for a table saved with semicolons (a spreadsheet where the comma is the decimal
+    mark: its numbers then have decimal commas), else ``,``; judged on the header row."""
+    with path.open(encoding="utf-8-sig", errors="replace") as f:
+        head = f.readline()
+    return ";" if head.count(";") > head.count(",") else ","
 
 
 def header_of(path: Path, sep: str = ",") -> list[str]:

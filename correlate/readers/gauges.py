@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 
 from correlate.core.errors import CorrelateWarning, GaugeError
-from correlate.core.headers import table_problems
+from correlate.core.headers import separator, table_problems
 from correlate.readers.bridge_map import BRIDGE_COLUMNS
 from correlate.readers.gauge_chain import CHAIN_COLUMNS, CHAIN_NUMERIC, CHAIN_TEXT, chain_problems
 
@@ -36,11 +36,7 @@ def read_gauges(path: str | Path) -> pd.DataFrame:
         raise GaugeError(f"gauge map '{path}' is a folder, not a file; give the path of the gauge "
                          "map CSV in [gauges] file")
     try:
-        with path.open(encoding="utf-8-sig") as f:
-            head = f.readline()
-        # a spreadsheet saved with semicolons (and decimal commas) where the comma is the decimal
-        semicolon = head.count(";") > head.count(",")
-        sep = ";" if semicolon else ","
+        sep = separator(path)
         raw = pd.read_csv(path, sep=sep, dtype=str, keep_default_na=False,
                           skipinitialspace=True, encoding="utf-8-sig", index_col=False)
     except (pd.errors.ParserError, UnicodeDecodeError, pd.errors.EmptyDataError) as exc:
@@ -48,7 +44,7 @@ def read_gauges(path: str | Path) -> pd.DataFrame:
                          "comma-separated UTF-8 text with a header row") from None
     if problems := table_problems(path, path.name, sep):
         raise GaugeError(*problems)
-    if semicolon:
+    if sep == ";":   # decimal commas
         for col in NUMERIC:
             if col in raw.columns:
                 raw[col] = raw[col].str.replace(",", ".", regex=False)

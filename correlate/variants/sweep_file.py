@@ -30,7 +30,7 @@ from pathlib import Path
 import pandas as pd
 
 from correlate.core.errors import StudyError
-from correlate.core.headers import table_problems
+from correlate.core.headers import separator, table_problems
 from correlate.readers.records import Study
 from correlate.readers.study import read_study
 from correlate.variants.surface import KINDS
@@ -143,11 +143,7 @@ def _existing(base: Path, value: object, name: str, key: str) -> Path:
 def _table(table_file: Path, parameters: tuple[str, ...], study: Study) -> tuple[Variant, ...]:
     name = table_file.name
     try:
-        with table_file.open(encoding="utf-8-sig") as f:
-            head = f.readline()
-        # a spreadsheet saved with semicolons (and decimal commas) where the comma is the decimal
-        semicolon = head.count(";") > head.count(",")
-        sep = ";" if semicolon else ","
+        sep = separator(table_file)
         df = pd.read_csv(table_file, dtype=str, keep_default_na=False, skipinitialspace=True,
                          sep=sep, encoding="utf-8-sig", index_col=False)
     except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
@@ -183,7 +179,7 @@ def _table(table_file: Path, parameters: tuple[str, ...], study: Study) -> tuple
         seen[vname] = row
         values, problems = {}, []
         for p in parameters:
-            text = rec[p].replace(",", ".") if semicolon else rec[p]
+            text = rec[p].replace(",", ".") if sep == ";" else rec[p]   # decimal commas
             values[p], problem = _number(text, name, row, p)
             problems += [problem] if problem else []
         files = {c[len(FILE_PREFIX):]: _relative(table_file, rec[c], name, row, c)
