@@ -49,7 +49,9 @@ def _alternatives(study: Study, model: Model, steps: Steps, rows_by_case: dict, 
     f = steps.factors * MICROSTRAIN
     bridge = isinstance(model, ChannelModel) and model.is_bridge(j)
     out = {} if bridge else {"rotated_90": f @ indicated_strain(tr, ax, kt, nu0)}
-    out["no_kt"] = f @ (indicated_strain(ax, tr, kt, nu0) if study.kt_corrected else ax)
+    if not (study.kt_corrected and bridge and _arms_differ_in_kt(model, j)):
+        # a bridge's combined rows hold its first arm's Kt: exact only when the arms share it
+        out["no_kt"] = f @ (indicated_strain(ax, tr, kt, nu0) if study.kt_corrected else ax)
     other = _other_face(study, model, steps, j)
     if other is not None:
         out["other_face"] = other
@@ -57,6 +59,15 @@ def _alternatives(study: Study, model: Model, steps: Steps, rows_by_case: dict, 
         out["nodal_average"] = f @ np.array([rows_by_case[c]["averaged_indicated"][nominal]
                                              for c in names])
     return out
+
+
+def _arms_differ_in_kt(model: ChannelModel, j: int) -> bool:
+    """Whether bridge channel j's arms have different transverse sensitivities or calibration
+    Poisson's ratios."""
+    assert model.base is not None
+    arms = [k for k, _ in model.arm_weights[j]]
+    op = model.base.operator
+    return bool(np.ptp(op.kt[arms]) > 0 or np.ptp(op.nu0[arms]) > 0)
 
 
 def _other_face(study: Study, model: Model, steps: Steps, j: int) -> NDArray | None:

@@ -231,3 +231,43 @@ def test_a_study_without_bridges_writes_the_same_files(tmp_path):
         assert (tmp_path / "plain" / "out" / name).read_bytes() == \
             (tmp_path / "blank" / "out" / name).read_bytes(), name
     assert "arms" not in pd.read_csv(tmp_path / "plain" / "out" / "gauges.csv").columns
+
+
+@pytest.mark.parametrize("kts,offered", [((0.02, 0.02), True), ((0.0, 0.02), False)],
+                         ids=["arms-share-kt", "arms-differ"])
+def test_a_kt_corrected_bridge_is_offered_no_kt_only_when_its_arms_share_kt(tmp_path, kts,
+                                                                             offered):
+    # With [readings] kt_corrected = true the diagnosis's "no Kt" alternative re-applies Kt to
+    # the channel's combined rows, which carry the first arm's Kt: exact when the arms share it
+    # (the reading is linear in the arms' strains; checked against the sum over the arms, each
+    # with its own Kt, rtol 1e-12: the same sums in another order), not otherwise, so it is then
+    # not offered (an alternative the tool cannot compute is better left out than wrong).
+    from correlate.comparison import evidence
+    from correlate.comparison.correlation import correlate_study
+    from correlate.mechanics.gauge import indicated_strain
+    from correlate.model_readings.model import case_rows
+    from correlate.readers.study import read_study
+
+    gauges = [dict(g) for g in POISSON_HALF]
+    gauges[0]["kt"], gauges[1]["kt"] = kts
+    zeros = np.zeros(len(LOADS))
+    study = write_block_study(tmp_path, gauges=pd.DataFrame(gauges),
+                              readings_rows=_readings({"PB": zeros + 1.0, "Q1": zeros + 1.0}))
+    study.write_text(study.read_text().replace('zero = "first"\n',
+                                               'zero = "first"\nkt_corrected = true\n'))
+    s = read_study(study)
+    corr = correlate_study(s)
+    model, j = corr.model, corr.gauges.index("PB")
+    alternatives = evidence._alternatives(s, model, corr.steps, corr.rows_by_case, j)
+    assert ("no_kt" in alternatives) is offered
+    if offered:
+        base = model.base.operator
+        nominal = np.flatnonzero(base.row_kind == 0)
+        rows = {c.name: case_rows(model.base, c, c.fe_index) for c in s.cases}
+        exact = 0.0
+        for k, w in model.arm_weights[j]:
+            ind = np.array([indicated_strain(rows[c.name]["axial"][nominal[k]],
+                                             rows[c.name]["transverse"][nominal[k]],
+                                             base.kt[k], base.nu0[k]) for c in s.cases])
+            exact = exact + w * (corr.steps.factors * 1e6) @ ind
+        np.testing.assert_allclose(alternatives["no_kt"], exact, rtol=1e-12)
