@@ -7,6 +7,7 @@ tests/comparison/test_revisions.py); the page is parsed with the standard librar
 from __future__ import annotations
 
 import json
+import re
 from pathlib import Path
 
 import pandas as pd
@@ -72,3 +73,26 @@ def test_page_uses_the_report_stylesheet(tmp_path: Path) -> None:
 ], ids=["no-revision", "one-revision", "same-revision"])
 def test_names_fall_back_to_the_folder(tmp_path: Path, old_rev, new_rev, expected) -> None:
     assert run_names(_run(tmp_path / "a", old_rev), _run(tmp_path / "b", new_rev)) == expected
+
+
+@pytest.mark.browser
+def test_a_tablet_window_needs_no_sideways_scrolling(tmp_path: Path) -> None:
+    # Run folders with long paths (as on a shared drive) and the gauges table's long headings:
+    # at 800 px the runs and gauges tables scroll in their own box, not the page (headless
+    # Chromium lays the page out; a script writes the document's scroll and client widths).
+    from test_print import _chromium
+
+    deep = tmp_path / "projects" / "bracket-proof-test-campaign-2026" / "correlation-runs"
+    html, _ = _page(_run(deep / "model-revision-A-baseline", "A"),
+                    _run(deep / "model-revision-B-clamp-update", "B"))
+    probe = tmp_path / "compare_probe.html"
+    probe.write_text(html.replace("</body>", (
+        "<script>window.addEventListener('load', () => { const d = document.documentElement;"
+        " const p = document.createElement('pre'); p.id = 'widths';"
+        " p.textContent = d.scrollWidth + ' ' + d.clientWidth; document.body.appendChild(p);"
+        " });</script></body>")), encoding="utf-8")
+    dom = _chromium(tmp_path, "--window-size=800,900", "--virtual-time-budget=3000",
+                    "--dump-dom", probe.as_uri())
+    scroll, client = map(int, re.search(r'<pre id="widths">(\d+) (\d+)</pre>', dom).groups())
+    assert 720 <= client <= 800
+    assert scroll <= client, f"the page is {scroll - client} px wider than the window"
