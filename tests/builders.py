@@ -297,3 +297,15 @@ def chain_study(folder, gauges, *, shunt=False, wiring_rows=CHAIN_LEADS):
                                                          + ["ue"] * len(names)) + "\n")
         raw.to_csv(fh, index=False, header=False, lineterminator="\n", float_format="%.12g")
     return study, truth, raw
+
+
+def renumbered(mesh):
+    """The same meshio mesh with its points numbered backwards (cells and point data follow):
+    another mesh to a comparison of arrays, the same part to the physics."""
+    import meshio
+
+    order = np.arange(len(mesh.points))[::-1]
+    return meshio.Mesh(mesh.points[::-1].copy(),
+                       [meshio.CellBlock(c.type, order[c.data]) for c in mesh.cells],
+                       point_data={k: v[::-1].copy() for k, v in mesh.point_data.items()},
+                       cell_data=mesh.cell_data)

@@ -228,25 +228,6 @@ def _require_pairs(study: Study, steps: Steps, measured: NDArray) -> None:
 
 
 @dataclass(frozen=True)
-class _Compared:
-    """A study's test against its model up to the statuses, the pooled fits and the diagnosis:
-    what both a run (:func:`correlate_study`) and a variant's ranking (:func:`rank_study`) need."""
-
-    model: Model
-    names: list[str]
-    readings: Any
-    steps: Steps
-    measured: NDArray[np.float64]
-    chain: ChainApplied | None
-    m: ModelForTest
-    flags: pd.DataFrame
-    out_of_fit: NDArray[np.bool_]    # the gauges reversed or suspect, out of the pooled fit
-    status: Statuses
-    core: dict[str, Any]             # :func:`core_fits` of the final statuses
-    diagnoses: pd.DataFrame
-
-
-@dataclass(frozen=True)
 class MeasuredSide:
     """The test's half of a comparison, which depends on the test and the gauge map only: the
     readings as compared (tared, corrected by the measurement chain), their channel-health flags
@@ -261,6 +242,20 @@ class MeasuredSide:
     chain: ChainApplied | None
     flags: pd.DataFrame
     excl: Exclusions
+
+
+@dataclass(frozen=True)
+class _Compared:
+    """A study's test against its model up to the statuses, the pooled fits and the diagnosis:
+    what both a run (:func:`correlate_study`) and a variant's ranking (:func:`rank_study`) need."""
+
+    model: Model
+    side: MeasuredSide               # the test's half (its channels' names, readings, flags)
+    m: ModelForTest
+    out_of_fit: NDArray[np.bool_]    # the gauges reversed or suspect, out of the pooled fit
+    status: Statuses
+    core: dict[str, Any]             # :func:`core_fits` of the final statuses
+    diagnoses: pd.DataFrame
 
 
 def measured_side(study: Study, gauges: pd.DataFrame) -> MeasuredSide:
@@ -296,9 +291,8 @@ def _compare_test(study: Study, model: Model | None, side: MeasuredSide | None) 
     excl.text[m.not_modelled] = "not-modelled"
     st, core, diag, out_of_fit = _compare(study, model, steps, names, measured, m, excl, flags,
                                           reversed_)
-    return _Compared(model=model, names=names, readings=side.readings, steps=steps,
-                     measured=measured, chain=side.chain, m=m, flags=flags,
-                     out_of_fit=out_of_fit, status=st, core=core, diagnoses=diag)
+    return _Compared(model=model, side=side, m=m, out_of_fit=out_of_fit, status=st, core=core,
+                     diagnoses=diag)
 
 
 def correlate_study(study: Study, model: Model | None = None, *,
@@ -306,7 +300,8 @@ def correlate_study(study: Study, model: Model | None = None, *,
     """Run the correlation of a study; nothing is written. ``hashes``: input files' SHA-256
     already computed (the provenance hashes the others)."""
     c = _compare_test(study, model, None)
-    model, names, steps, measured, m, st = c.model, c.names, c.steps, c.measured, c.m, c.status
+    model, names, m, st = c.model, list(c.side.names), c.m, c.status
+    steps, measured, readings, chain = c.side.steps, c.side.measured, c.side.readings, c.side.chain
     ref = reference_step(m.predicted, steps)
     detail = detail_fits(steps, names, measured, m.predicted, st, c.out_of_fit, ref)
     result = {**detail, "fit": c.core["fit"],
@@ -315,9 +310,9 @@ def correlate_study(study: Study, model: Model | None = None, *,
     ros = rosette_table(study, model, model.gauges, steps, measured, m.axial, st.evaluated)
     result["load_checks"] = load_checks(study, steps, measured, st, m.rows_by_case,
                                         model.operator)
-    summary = summarise(study, model, c.readings, steps, names, result, per_gauge, c.flags,
+    summary = summarise(study, model, readings, steps, names, result, per_gauge, c.side.flags,
                         c.diagnoses, ref, st, c.out_of_fit, hashes=hashes)
-    corrections = None if c.chain is None else corrections_table(c.chain, ref, m.height)
+    corrections = None if chain is None else corrections_table(chain, ref, m.height)
     if corrections is not None:
         summary["measurement_chain"] = {
             "order": CHAIN_ORDER, "reference_step": summary["reference_step"],
@@ -328,14 +323,14 @@ def correlate_study(study: Study, model: Model | None = None, *,
     return Correlation(study=study, model=model, steps=steps, gauges=names, measured=measured,
                        predicted=m.predicted, predicted_axial=m.axial, band_low=m.low.T,
                        band_high=m.high.T, contributions=m.contributions, status=st,
-                       flags=c.flags,
-                       gauge_table=with_arms(gauge_table(names, steps, measured, m, st, c.chain,
+                       flags=c.side.flags,
+                       gauge_table=with_arms(gauge_table(names, steps, measured, m, st, chain,
                                                          budget), model.gauges),
                        per_gauge=per_gauge, rosettes=ros, diagnoses=c.diagnoses,
-                       summary=summary, rows_by_case=m.rows_by_case, chain=c.chain,
+                       summary=summary, rows_by_case=m.rows_by_case, chain=chain,
                        corrections=corrections, validation=budget,
-                       readings_info={"ignored": list(c.readings.ignored),
-                                      "load_units": c.readings.load_units})
+                       readings_info={"ignored": list(readings.ignored),
+                                      "load_units": readings.load_units})
 
 
 @dataclass(frozen=True)
@@ -365,13 +360,14 @@ def rank_study(study: Study, model: Model | None = None, *,
     test's half already made for this study's test and gauge map (:func:`measured_side`; it is
     changed in place), else made here."""
     c = _compare_test(study, model, side)
-    ref = reference_step(c.m.predicted, c.steps)
+    names, steps, measured = list(c.side.names), c.side.steps, c.side.measured
+    ref = reference_step(c.m.predicted, steps)
     summary: dict[str, Any] = {"fit": c.core["fit"], "metrics": c.core["metrics"],
-                               "verdict": judge(study, c.names, c.core["fit"], c.status,
-                                                c.flags)}
-    budget = _budget(study, c.model, c.steps, c.names, c.measured, c.m, c.status, ref, summary,
+                               "verdict": judge(study, names, c.core["fit"], c.status,
+                                                c.side.flags)}
+    budget = _budget(study, c.model, steps, names, measured, c.m, c.status, ref, summary,
                      rosettes=False)
-    return Ranking(steps=c.steps, gauges=c.names, measured=c.measured, predicted=c.m.predicted,
+    return Ranking(steps=steps, gauges=names, measured=measured, predicted=c.m.predicted,
                    status=c.status, summary=summary, rows_by_case=c.m.rows_by_case,
                    validation=budget)
 

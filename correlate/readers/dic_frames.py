@@ -23,7 +23,7 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from correlate.core.errors import ReadingsFormatError, StudyError
-from correlate.core.headers import separator, table_problems
+from correlate.core.headers import read_csv_table
 from correlate.readers.fullfield_study import STRAIN_UNITS, FullFieldSettings, natural_key
 
 LANDMARK_COLUMNS = ("landmark", "dic_x", "dic_y", "dic_z", "model_x", "model_y", "model_z")
@@ -51,15 +51,13 @@ class Landmarks:
 
 
 def _read_csv(path: Path) -> pd.DataFrame:
-    sep = separator(path)
     try:
-        table = pd.read_csv(path, sep=sep, decimal="," if sep == ";" else ".",
-                            skipinitialspace=True, encoding="utf-8-sig", index_col=False)
+        table, _, problems = read_csv_table(path, path.name)
     except (pd.errors.ParserError, UnicodeDecodeError, ValueError) as exc:
         first = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
         raise ReadingsFormatError(f"{path.name}: not a readable CSV table ({first}); export the "
                                   "DIC frame as CSV with one header row") from None
-    if problems := table_problems(path, path.name, sep):
+    if problems:
         raise ReadingsFormatError(*problems)
     return table
 

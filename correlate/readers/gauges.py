@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 
 from correlate.core.errors import CorrelateWarning, GaugeError
-from correlate.core.headers import separator, table_problems
+from correlate.core.headers import read_csv_table
 from correlate.readers.bridge_map import BRIDGE_COLUMNS
 from correlate.readers.gauge_chain import CHAIN_COLUMNS, CHAIN_NUMERIC, CHAIN_TEXT, chain_problems
 
@@ -36,13 +36,11 @@ def read_gauges(path: str | Path) -> pd.DataFrame:
         raise GaugeError(f"gauge map '{path}' is a folder, not a file; give the path of the gauge "
                          "map CSV in [gauges] file")
     try:
-        sep = separator(path)
-        raw = pd.read_csv(path, sep=sep, dtype=str, keep_default_na=False,
-                          skipinitialspace=True, encoding="utf-8-sig", index_col=False)
+        raw, sep, problems = read_csv_table(path, path.name, dtype=str, keep_default_na=False)
     except (pd.errors.ParserError, UnicodeDecodeError, pd.errors.EmptyDataError) as exc:
         raise GaugeError(f"{path.name}: cannot be read as CSV ({exc}); save the gauge map as "
                          "comma-separated UTF-8 text with a header row") from None
-    if problems := table_problems(path, path.name, sep):
+    if problems:
         raise GaugeError(*problems)
     if sep == ";":   # decimal commas
         for col in NUMERIC:

@@ -149,7 +149,8 @@ def read_vtu(path: Path, names: Collection[str]) -> PartialRead | None:
     if grid is None or grid.GetPoints() is None or grid.GetNumberOfCells() == 0:
         return _whole(path, pieces)
     types = vtk_to_numpy(grid.GetCellTypes()).astype(np.int64)
-    kinds = np.unique(types) if (types != types[0]).any() else types[:1]
+    uniform = not (types != types[0]).any()
+    kinds = types[:1] if uniform else np.unique(types)
     if any(int(t) not in vtk_to_meshio_type or t == 42 for t in kinds):
         return _whole(path, pieces)
     cell_array = grid.GetCells()
@@ -158,8 +159,8 @@ def read_vtu(path: Path, names: Collection[str]) -> PartialRead | None:
     try:
         point_data = _vtk_arrays(grid.GetPointData(), listing, "point", vtk_to_numpy)
         raw = _vtk_arrays(grid.GetCellData(), listing, "cell", vtk_to_numpy)
-        cells, cell_data = (_one_block(connectivity, offsets, types, raw)
-                            or _blocks(vtk_cells_from_data(connectivity, offsets, types, raw)))
+        one = _one_block(connectivity, offsets, types, raw) if uniform else None
+        cells, cell_data = one or _blocks(vtk_cells_from_data(connectivity, offsets, types, raw))
     except (ValueError, TypeError, IndexError, KeyError):
         return _whole(path, pieces)   # an array of another size or kind than its header says
     return PartialRead(points=vtk_to_numpy(grid.GetPoints().GetData()), cells=cells,
@@ -178,18 +179,17 @@ def _blocks(split: tuple[list[Any], dict[str, list[NDArray[Any]]]]) -> Blocks:
 
 def _one_block(connectivity: NDArray[Any], offsets: NDArray[Any], types: NDArray[np.int64],
                raw: dict[str, NDArray[Any]]) -> Blocks | None:
-    """The cells of a mesh of one fixed-size cell type that meshio keeps in VTK's node order
-    (most solver results): the connectivity cut into rows of the cell's node count, the block
-    meshio's ``vtk_cells_from_data`` gives, without gathering every cell's indices (5 ms at
-    300,000 cells). None for any other mesh (meshio's function is used)."""
+    """The cells of a mesh of one cell type (``types`` all equal) of fixed size that meshio
+    keeps in VTK's node order (most solver results): the connectivity cut into rows of the
+    cell's node count, the block meshio's ``vtk_cells_from_data`` gives, without gathering every
+    cell's indices (5 ms at 300,000 cells). None otherwise (meshio's function is used)."""
     from meshio._common import num_nodes_per_cell
     from meshio._vtk_common import vtk_to_meshio_order, vtk_to_meshio_type
 
     kind = vtk_to_meshio_type[int(types[0])]
     n = num_nodes_per_cell.get(kind)
     if (n is None or vtk_to_meshio_order(int(types[0])) is not None or kind == "polygon"
-            or kind.startswith("VTK_LAGRANGE") or (types != types[0]).any()
-            or connectivity.size != n * len(types)
+            or kind.startswith("VTK_LAGRANGE") or connectivity.size != n * len(types)
             or not np.array_equal(offsets, np.arange(n, connectivity.size + 1, n))):
         return None
     return ((kind, connectivity.reshape(len(types), n)),), {k: [v] for k, v in raw.items()}

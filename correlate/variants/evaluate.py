@@ -2,9 +2,9 @@
 
 Stage: variants. In: the base :class:`~correlate.readers.records.Study`, a
 :class:`~correlate.variants.sweep_file.Variant` and the base model's located gauges
-(:class:`Located`, shared by every variant on the same mesh, with the test's data read once). Out: a :class:`VariantResult`
-holding the variant's model readings (gauges x steps, and the operator rows per case) and the
-metrics of the base study's comparison run on them (:func:`rank_study`: the statuses, health,
+(:class:`Located`, shared by every variant on the same mesh, with the test's half made
+once). Out: a :class:`VariantResult` holding the variant's model readings (gauges x steps, and
+the operator rows per case) and the metrics of the base study's comparison run on them (:func:`rank_study`: the statuses, health,
 dispositions, diagnosis and fits of ``correlate run``, without the tables and per-step figures
 only a report shows), a few kB; or the one-line reason it failed.
 
@@ -48,8 +48,8 @@ class Located:
     gauges: pd.DataFrame
     operator: GaugeOperator
     locator: Locator
+    measured: MeasuredSide             # the test's readings and their health, made once
     bridges: tuple[Bridge, ...] = ()   # the gauge map's bridge channels (compared as channels)
-    measured: MeasuredSide | None = None   # the test's readings and their health, made once
 
 
 @dataclass(frozen=True)

@@ -30,7 +30,7 @@ from pathlib import Path
 import pandas as pd
 
 from correlate.core.errors import StudyError
-from correlate.core.headers import separator, table_problems
+from correlate.core.headers import read_csv_table
 from correlate.readers.records import Study
 from correlate.readers.study import read_study
 from correlate.variants.surface import KINDS
@@ -143,14 +143,12 @@ def _existing(base: Path, value: object, name: str, key: str) -> Path:
 def _table(table_file: Path, parameters: tuple[str, ...], study: Study) -> tuple[Variant, ...]:
     name = table_file.name
     try:
-        sep = separator(table_file)
-        df = pd.read_csv(table_file, dtype=str, keep_default_na=False, skipinitialspace=True,
-                         sep=sep, encoding="utf-8-sig", index_col=False)
+        df, sep, faults = read_csv_table(table_file, name, dtype=str, keep_default_na=False)
     except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
         raise StudyError(f"{name}: cannot be read as CSV ({str(exc).strip()}); one row per "
                          "variant with columns name, file and the parameters") from None
-    if problems := table_problems(table_file, name, sep):
-        raise StudyError(*problems)
+    if faults:
+        raise StudyError(*faults)
     df.columns = [str(c).strip() for c in df.columns]
     cases = {c.name for c in study.cases}
     missing = [c for c in ("name", *parameters) if c not in df.columns]

@@ -14,7 +14,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
-from builders import write_block_study
+from builders import renumbered, write_block_study
 from scipy import stats as sps
 
 from correlate.commands.cli import main
@@ -277,13 +277,7 @@ def test_a_variant_on_another_mesh_pairs_its_bridge_channels_with_the_tests(tmp_
     from correlate.variants.sweep_file import Variant
 
     study = read_study(DEMO_STUDY)
-    block = meshio.read(study.model_file)
-    order = np.arange(len(block.points))[::-1]
-    moved = meshio.Mesh(block.points[::-1].copy(),
-                        [meshio.CellBlock(c.type, order[c.data]) for c in block.cells],
-                        point_data={k: v[::-1].copy() for k, v in block.point_data.items()},
-                        cell_data=block.cell_data)
-    meshio.write(tmp_path / "renumbered.vtu", moved)
+    meshio.write(tmp_path / "renumbered.vtu", renumbered(meshio.read(study.model_file)))
     shutil.copy(study.model_file, tmp_path / "same.vtu")
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")

@@ -19,7 +19,7 @@ import meshio
 import numpy as np
 import pandas as pd
 import pytest
-from builders import block_readings, default_gauges, write_small_study
+from builders import block_readings, default_gauges, renumbered, write_small_study
 
 from correlate.commands import sweep as sweep_command
 from correlate.commands.cli import main
@@ -457,12 +457,7 @@ def test_the_worker_neither_hashes_files_nor_reads_the_test_again(tmp_path, monk
     moved[0, 0] += 1e-12
     assert same_mesh(mesh, located.operator.mesh)
     assert not same_mesh(dataclasses.replace(mesh, points=moved), located.operator.mesh)
-    block = meshio.read(variant.file)
-    block.points = block.points[::-1].copy()                 # the same cells, points renumbered
-    block.point_data = {k: v[::-1].copy() for k, v in block.point_data.items()}
-    order = np.arange(len(block.points))[::-1]
-    block.cells = [meshio.CellBlock(c.type, order[c.data]) for c in block.cells]
-    meshio.write(tmp_path / "a.vtu", block)
+    meshio.write(tmp_path / "a.vtu", renumbered(meshio.read(variant.file)))
     anew = correlate_variant(sweep.study, variant, located)
     assert not anew.failure and not anew.same_mesh
     # tolerance: located anew on renumbered points, the interpolation sums the same terms in
