@@ -15,7 +15,10 @@ the same run, side by side:
 3. baseline   - the straightforward way: `correlate run --no-report` on each variant, one after
                 another, each in a fresh process;
 4. memory     - the peak resident memory of one worker process (read from /proc while the
-                2-worker sweep runs: the largest of its worker processes).
+                2-worker sweep runs: the largest of its worker processes); and one worker
+                sampled every millisecond from inside (resident, private = resident less
+                file-backed pages, and the file-backed libraries' pages), beside the target's
+                one variant's arrays + the operator + 200 MB.
    plain        - the same task (``correlate_variant``) in 1 and 2 plain processes
                 (``multiprocessing``, no Dask): what the two cores allow without a cluster.
 
@@ -198,6 +201,75 @@ def worker_floor(folder: Path, n: int) -> float:
         cluster.close()
 
 
+def _start_sampler(dask_worker: object) -> None:
+    """On a worker: sample its resident memory every millisecond from /proc/self/statm
+    (resident and file-backed pages; their difference is the process's private memory)."""
+    page = os.sysconf("SC_PAGE_SIZE") / 1e6
+    peak = {"rss": 0.0, "private": 0.0, "shared_at_end": 0.0}
+    stop = threading.Event()
+
+    def sample() -> None:
+        while not stop.wait(0.001):
+            resident, shared = (int(v) for v in Path("/proc/self/statm").read_text().split()[1:3])
+            peak["rss"] = max(peak["rss"], resident * page)
+            peak["private"] = max(peak["private"], (resident - shared) * page)
+            peak["shared_at_end"] = shared * page
+
+    thread = threading.Thread(target=sample, daemon=True)
+    dask_worker.memory_sampler = (peak, stop, thread)   # kept on the worker between calls
+    thread.start()
+
+
+def _stop_sampler(dask_worker: object) -> dict:
+    peak, stop, thread = dask_worker.memory_sampler
+    stop.set()
+    thread.join()
+    return dict(peak)
+
+
+def worker_memory(folder: Path, n: int) -> dict[str, float]:
+    """Peak memory [MB] of one worker of a local cluster started as the sweep starts its own,
+    sampled every millisecond inside the worker from before its imports to after n variants
+    run through the sweep's own ``compute_variants``: resident (as /proc's VmHWM counts it),
+    private (resident less file-backed pages: what the process allocated itself) and the
+    file-backed part at the end (the libraries' code and data mapped from their files, the same
+    pages for every worker on a machine). Beside them what the target counts: one variant's
+    decoded arrays and the located operator (pickled, as it is scattered)."""
+    import pickle
+    import warnings
+
+    from dask.distributed import Client
+
+    from correlate.readers.named_arrays import read_named
+    from correlate.variants.cluster import compute_variants, local_cluster
+    from correlate.variants.evaluate import locate_base
+    from correlate.variants.sweep_file import read_sweep
+
+    sweep = read_sweep(folder / "sweep.toml")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        located = locate_base(sweep.study)
+    part = read_named(folder / "v000.vtu", {"E"})
+    arrays = (part.points.nbytes + sum(c.nbytes for _, c in part.cells)
+              + sum(a.nbytes for a in part.point_data.values())) / 1e6
+    operator = len(pickle.dumps(located, protocol=5)) / 1e6
+    cluster = local_cluster(1)
+    client = Client(cluster)
+    try:
+        client.run(_start_sampler)
+        failed: list[str] = []
+        compute_variants(sweep.study, sweep.variants[:n], located,
+                         lambda v, r: failed.append(r.failure) if r.failure else None,
+                         scheduler=cluster.scheduler_address)
+        peak = next(iter(client.run(_stop_sampler).values()))
+    finally:
+        client.close()
+        cluster.close()
+    if failed:
+        raise RuntimeError(f"a variant failed in the memory measurement: {failed[0]}")
+    return {**peak, "arrays": arrays, "operator": operator}
+
+
 _PLAIN: dict = {}
 
 
@@ -324,6 +396,7 @@ def main() -> None:
         one = timed_sweep(sweep, scratch / "out1", 1)
         two = timed_sweep(sweep, scratch / "out2", 2)
         plain = plain_processes(scratch, n)
+        memory = worker_memory(scratch, min(n, 16))
         other = None
         if args.other_meshes:
             other_sweep = build_other_meshes(scratch, cells, args.other_meshes)
@@ -360,6 +433,13 @@ def main() -> None:
               f"meshio's read of its file, {one[1] / n / read_named:.2f} x the partial read, "
               f"{one[1] / n / in_worker:.2f} x the partial read in a worker")
         print(f"peak memory of one worker: {one[2]:.0f} MB (1 worker), {two[2]:.0f} MB (2 workers)")
+        target = memory["arrays"] + memory["operator"] + 200.0
+        print(f"one worker sampled every ms over {min(n, 16)} variants: peak resident "
+              f"{memory['rss']:.0f} MB, peak private (resident less file-backed) "
+              f"{memory['private']:.0f} MB, file-backed at the end {memory['shared_at_end']:.0f} MB "
+              f"(libraries' code and data, shared by the workers of a machine); target: one "
+              f"variant's arrays {memory['arrays']:.1f} MB + the operator "
+              f"{memory['operator']:.1f} MB + 200 MB = {target:.0f} MB")
         print(f"sweep with 2 workers against the baseline: {serial / two[0]:.2f} x faster")
         if other is not None:
             m = args.other_meshes
