@@ -27,7 +27,13 @@ from correlate.core.folders import check_target, output_path
 from correlate.core.names import CAUTION
 from correlate.core.tables import write_csv, write_json
 from correlate.report.sweep_page import FIGURES, render_sweep_page
-from correlate.variants.cache import load_result, save_result, study_fingerprint, variant_key
+from correlate.variants.cache import (
+    load_result,
+    repeated_results,
+    save_result,
+    study_fingerprint,
+    variant_key,
+)
 from correlate.variants.cluster import compute_variants
 from correlate.variants.evaluate import VariantResult, locate_base, missing_file
 from correlate.variants.results import identify_sweep, variants_table
@@ -88,8 +94,9 @@ def collect(sweep: Sweep, out: Path, args: argparse.Namespace) -> tuple[dict, in
     """Every variant's result: from the cache, or computed (and cached as each finishes).
 
     Returns the results by name, how many variants went to the workers and how many came from
-    the cache; a variant whose file is missing or whose parameters are not numbers is failed
-    here and counted in neither.
+    the cache; a variant whose file is missing or whose parameters are not numbers, or whose
+    model result another row names too (:func:`repeated_results`), is failed here and counted
+    in neither.
     """
     cache = out / CACHE
     fingerprint = study_fingerprint(sweep.study)
@@ -104,6 +111,7 @@ def collect(sweep: Sweep, out: Path, args: argparse.Namespace) -> tuple[dict, in
             [v.name for v in ready],
             progress.bar(hashed, desc="hashing the variant files", total=len(ready)),
             strict=True))
+    problems.update(repeated_results(ready, keys))
     todo: list[Variant] = []
     for v in sweep.variants:
         if problems[v.name]:   # recorded as the variant's failure; nothing to compute

@@ -18,6 +18,7 @@ import json
 import os
 import tempfile
 import zipfile
+from collections.abc import Sequence
 from pathlib import Path
 
 import numpy as np
@@ -28,7 +29,7 @@ from correlate.readers.records import Study
 from correlate.variants.evaluate import VariantResult
 from correlate.variants.sweep_file import Variant
 
-__all__ = ["load_result", "save_result", "study_fingerprint", "variant_key"]
+__all__ = ["load_result", "repeated_results", "save_result", "study_fingerprint", "variant_key"]
 
 
 def study_fingerprint(study: Study) -> str:
@@ -68,6 +69,39 @@ def variant_key(variant: Variant, fingerprint: str) -> str | None:
         h.update(label.encode())
         h.update(sha256(path).encode())
     return h.hexdigest()
+
+
+def repeated_results(variants: Sequence[Variant], keys: dict[str, str | None]) -> dict[str, str]:
+    """Why rows of the table that name the same model result (the same key: the same file
+    contents) cannot all be used, by variant name; empty when no result is named twice.
+
+    Given different parameters, every row of the group is refused: the same model cannot be two
+    parameter sets, and the response surface would fit both. Given the same parameters, the
+    first row is kept and the later ones are refused, so that the result is not counted twice
+    (twice the weight in the identification, and a leave-one-out error that leaves out only one
+    copy). The sweep goes on with the others.
+    """
+    groups: dict[str, list[Variant]] = {}
+    for v in variants:
+        if (key := keys.get(v.name)) is not None:
+            groups.setdefault(key, []).append(v)
+    out: dict[str, str] = {}
+    for group in (g for g in groups.values() if len(g) > 1):
+        first = group[0]
+        if all(v.parameters == first.parameters for v in group):
+            for v in group[1:]:
+                out[v.name] = (f"the same model result (file contents) and parameters as "
+                               f"variant '{first.name}' (row {first.row}); left out so that it "
+                               "is not counted twice; remove the row")
+            continue
+        for v in group:
+            other = group[1] if v is first else first
+            differ = ", ".join(f"{k} {v.parameters[k]:g} against {other.parameters[k]:g}"
+                               for k in v.parameters if v.parameters[k] != other.parameters[k])
+            out[v.name] = (f"the same model result (file contents) as variant '{other.name}' "
+                           f"(row {other.row}) but other parameters ({differ}); one of the rows "
+                           "is wrong: check the table's file and parameter columns")
+    return out
 
 
 def save_result(folder: Path, key: str, result: VariantResult) -> None:

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import dataclasses
 import json
+import shutil
 import socket
 import subprocess
 import sys
@@ -237,6 +238,37 @@ def test_bad_variants_are_recorded_and_the_sweep_goes_on(tmp_path, capsys):
         assert f"error: variant '{name}'" in captured.err
     assert "7 variants: 5 computed, 0 from the cache, 4 failed" in captured.out
     assert {p.name: p.read_bytes() for p in tmp_path.iterdir() if p.is_file()} == inputs
+
+
+def test_rows_naming_the_same_model_result_are_refused_with_their_reason(tmp_path, capsys):
+    # Two rows whose files have the same bytes (the same SHA-256) are the same model: with other
+    # parameters one row must be wrong (a copy-paste slip in the file column), and fitting both
+    # would bend the response surface; with the same parameters the second row would count the
+    # result twice (double weight, and a leave-one-out that leaves out only one copy).
+    k_study(tmp_path)
+    write_variants(tmp_path, [(f"k{i}", {"k": k}) for i, k in enumerate(K_VALUES[:3])])
+    shutil.copyfile(tmp_path / "k1.vtu", tmp_path / "k1_copy.vtu")   # other name, same bytes
+    table = tmp_path / "variants.csv"
+    table.write_text(table.read_text() + f"copy,k1_copy.vtu,{K_VALUES[1]}\nslip,k2.vtu,9.5\n")
+    out = tmp_path / "out"
+    code = main(["--quiet", "sweep", str(write_sweep(tmp_path)), "--out", str(out),
+                 "--workers", "1"])
+    captured = capsys.readouterr()
+    assert code == 0
+    df = pd.read_csv(out / "variants.csv", keep_default_na=False).set_index("variant")
+    assert df.loc["copy", "failure"] == (
+        "the same model result (file contents) and parameters as variant 'k1' (row 3); left "
+        "out so that it is not counted twice; remove the row")
+    assert df.loc["slip", "failure"].startswith(
+        "the same model result (file contents) as variant 'k2' (row 4) but other parameters "
+        f"(k 9.5 against {K_VALUES[2]:g})")
+    assert df.loc["k2", "failure"].startswith("the same model result (file contents) as "
+                                              "variant 'slip' (row 6)")
+    assert df.loc["k1", "failure"] == "" and df.loc["k0", "failure"] == ""
+    assert sorted(df.loc[["k0", "k1"], "rank"]) == ["1", "2"]
+    assert list(df.loc[["copy", "slip", "k2"], "rank"]) == [""] * 3
+    assert "5 variants: 2 computed, 0 from the cache, 3 failed" in captured.out
+    assert "error: variant 'slip' (row 6)" in captured.err
 
 
 def test_every_variant_failing_exits_2(tmp_path, capsys):
