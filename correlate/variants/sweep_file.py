@@ -154,7 +154,8 @@ def _table(table_file: Path, parameters: tuple[str, ...], study: Study) -> tuple
     missing = [c for c in ("name", *parameters) if c not in df.columns]
     if missing:
         raise StudyError(f"{name}: column(s) {', '.join(missing)} missing; found "
-                         f"{', '.join(df.columns)}")
+                         f"{', '.join(df.columns)}; add the column, or correct the names in "
+                         "the sweep file's parameters")
     per_case = [c for c in df.columns if c.startswith(FILE_PREFIX)]
     for col in per_case:
         if col[len(FILE_PREFIX):] not in cases:

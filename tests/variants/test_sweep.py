@@ -349,6 +349,11 @@ def test_sweep_file_errors_name_the_file_and_key(tmp_path, capsys):
     assert main(["--quiet", "sweep", str(path), "--out", str(tmp_path / "o")]) == 2
     assert "[identify] parameters E are not sweep parameters" in capsys.readouterr().err
     assert not (tmp_path / "o").exists()
+    (tmp_path / "variants.csv").write_text("name,file,stiffness\na,a.vtu,1\n")
+    assert main(["--quiet", "sweep", str(write_sweep(tmp_path)), "--out", str(tmp_path / "o")]) == 2
+    assert capsys.readouterr().err.strip() == (
+        "error: variants.csv: column(s) k missing; found name, file, stiffness; add the column, "
+        "or correct the names in the sweep file's parameters")
 
 
 def test_a_parameter_column_given_twice_is_refused(tmp_path, capsys):
