@@ -115,7 +115,7 @@ def read_sweep(path: str | Path) -> Sweep:
         held = [p for p in parameters if p not in identify.parameters and p not in base]
         if held:
             raise StudyError(f"{name}: [identify] holds {', '.join(held)} fixed but [base] gives "
-                             "no value for them; add base = {{ {held[0]} = ... }} or list them "
+                             f"no value for them; add base = {{ {held[0]} = ... }} or list them "
                              "in [identify] parameters")
     return Sweep(path=path, study=study, table_file=table_file, parameters=parameters,
                  variants=variants, identify=identify, base=base)

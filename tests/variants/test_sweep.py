@@ -349,6 +349,12 @@ def test_sweep_file_errors_name_the_file_and_key(tmp_path, capsys):
     assert main(["--quiet", "sweep", str(path), "--out", str(tmp_path / "o")]) == 2
     assert "[identify] parameters E are not sweep parameters" in capsys.readouterr().err
     assert not (tmp_path / "o").exists()
+    (tmp_path / "variants.csv").write_text("name,file,k,t\na,a.vtu,1,2\nb,b.vtu,2,2\n")
+    path = write_sweep(tmp_path, '[identify]\nparameters = ["k"]\n', parameters='["k", "t"]')
+    assert main(["--quiet", "sweep", str(path), "--out", str(tmp_path / "o")]) == 2
+    assert capsys.readouterr().err.strip() == (
+        "error: sweep.toml: [identify] holds t fixed but [base] gives no value for them; add "
+        "base = { t = ... } or list them in [identify] parameters")
     (tmp_path / "variants.csv").write_text("name,file,stiffness\na,a.vtu,1\n")
     assert main(["--quiet", "sweep", str(write_sweep(tmp_path)), "--out", str(tmp_path / "o")]) == 2
     assert capsys.readouterr().err.strip() == (
