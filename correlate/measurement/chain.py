@@ -306,6 +306,7 @@ def correct_channels(
     e = raw * c.factors.multiplier
     nl = np.full(raw.shape, np.nan)
     on = ~np.isnan(c.bridge_gf)
+    _check_bridge_range(raw, e, c.bridge_gf, on, c.gauges)
     nl[:, on] = quarter_bridge_true_strain(e[:, on], c.bridge_gf[on]) - e[:, on]
     e = e + np.where(on, nl, 0.0)
     e = e - np.where(np.isnan(c.thermal_ue), 0.0, c.thermal_ue)
@@ -320,6 +321,25 @@ def correct_channels(
         e,
         c.factors.notes,
     )
+
+
+def _check_bridge_range(raw: NDArray[np.float64], e: NDArray[np.float64], bridge_gf: NDArray,
+                        on: NDArray[np.bool_], gauges: Sequence[str]) -> None:
+    """Refuse a quarter-bridge reading at or past the pole of its correction: the bridge's output
+    ``GF e / (4 + 2 GF e)`` stays below 1/2, so it cannot indicate ``2 / GF`` (Vishay TN-507),
+    and the inversion there would turn it into a plausible-looking strain."""
+    with np.errstate(invalid="ignore"):
+        beyond = on & (bridge_gf * e * 1e-6 >= 2.0)
+    problems = []
+    for j in np.flatnonzero(beyond.any(axis=0)):
+        i = int(np.flatnonzero(beyond[:, j])[0])
+        problems.append(f"gauge '{gauges[j]}': reading {raw[i, j]:g} µε is at or beyond what a "
+                        f"constant-voltage quarter bridge can indicate ({2e6 / bridge_gf[j]:.6g} "
+                        "µε at its gauge factor and leads); it is an overrange code, or the "
+                        "channel is not a quarter bridge: list the value in [readings] sentinels "
+                        "or set the channel's nonlinearity to none in the gauge map")
+    if problems:
+        raise GaugeError(*problems)
 
 
 def raw_from_true(

@@ -27,7 +27,8 @@ from numpy.typing import NDArray
 
 from correlate.core.errors import CorrelateWarning, ReadingsFormatError
 
-__all__ = ["DEFAULT_SENTINELS", "MICROSTRAIN_UNITS", "STRAIN_LIMIT", "Readings", "read_readings"]
+__all__ = ["DEFAULT_SENTINELS", "GAUGE_RANGE_UE", "MICROSTRAIN_UNITS", "STRAIN_LIMIT", "Readings",
+           "read_readings"]
 
 # Values a data-acquisition system writes for an open, overranged or unread channel (common
 # practice; 9.9e37 and 9.91e37 are the overload and not-a-number codes of SCPI instruments, from
@@ -45,6 +46,11 @@ MICROSTRAIN_UNITS: tuple[str, ...] = (
     "ustrain", "µstrain", "μstrain",
 )
 STRAIN_LIMIT = 0.05  # every |reading| below this while the loads vary: strain, not microstrain
+# No strain gauge reading reaches 1e6 µε (100 % strain): foil gauges are rated to a few percent
+# and post-yield gauges to about 10-20 % (from memory), and a constant-voltage quarter bridge
+# cannot indicate 2/GF = 1e6 µε at GF 2 (its output GF e / (4 + 2 GF e) stays below 1/2, Vishay
+# TN-507). A value there is an instrument's code or not microstrain.
+GAUGE_RANGE_UE = 1e6
 _STEP, _SEQUENCE = "step", "sequence"
 PARQUET_SUFFIXES = (".parquet", ".pq")
 _PYARROW_MIN_BYTES = 1 << 18  # measured: below about 250 kB pandas' C engine is faster
@@ -181,6 +187,7 @@ def _readings(path: str | PathLike[str], cells: pd.DataFrame, header: list[str],
     name = Path(path).name
     labels = [(ld, columns[ld]) for ld in loads] + [(g, columns[g]) for g in gauge_map]
     table, flags = _convert(cells, header, columns, labels, lines, decimal_comma, codes, name)
+    _check_range(table, {g: header[columns[g]] for g in gauge_map}, lines, name)
     _warn_if_strain(table, loads, tuple(gauge_map), name)
     used = set(columns.values())
     ignored = tuple(h or f"(column {j + 1})" for j, h in enumerate(header) if j not in used)
@@ -526,6 +533,21 @@ def _check_duplicates(step: NDArray[np.int64], sequence: NDArray[np.int64],
             f"{len(group)} times (lines {', '.join(map(str, group['line']))}); give each load "
             "step one row, and number repeated load runs in a 'sequence' column"
             for (seq, stp), group in repeated.groupby([_SEQUENCE, _STEP], sort=True)], name)
+
+
+def _check_range(table: pd.DataFrame, gauge_columns: dict[str, str], lines: NDArray[np.int64],
+                 name: str) -> None:
+    """Refuse a gauge reading of :data:`GAUGE_RANGE_UE` or more in magnitude: no gauge reads it,
+    and passed on it would come out of the quarter-bridge correction as a plausible number."""
+    problems = []
+    for gauge, column in gauge_columns.items():
+        values = table[gauge].to_numpy(dtype=float)
+        for i in np.flatnonzero(np.abs(values) >= GAUGE_RANGE_UE):
+            problems.append((i, f"{name} line {lines[i]}, column {column}: {values[i]:g} µε is "
+                                f"beyond any strain gauge's range ({GAUGE_RANGE_UE:g} µε is 100 % "
+                                "strain): an instrument's overrange code or not microstrain; "
+                                "list the value in [readings] sentinels or correct the cell"))
+    _raise([msg for _, msg in sorted(problems, key=lambda p: p[0])], name)
 
 
 def _warn_if_strain(table: pd.DataFrame, loads: tuple[str, ...], gauges: tuple[str, ...],

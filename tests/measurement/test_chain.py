@@ -450,6 +450,24 @@ def test_nonlinearity_without_gauge_factor_is_refused():
         correct_channels(np.zeros((1, 1)), gauges=["SG-5"], nonlinear=[True])
 
 
+def test_a_quarter_bridge_reading_at_the_pole_of_its_correction_is_refused():
+    # Vishay TN-507: a constant-voltage quarter bridge gives Vo/Vex = GF e / (4 + 2 GF e) < 1/2,
+    # so it never indicates 2/GF or more; at GF 2.1, 952,381 µε. The inversion 2 e / (2 - GF e)
+    # there is meaningless (negative or infinite), and must not become a number.
+    raw = np.array([[0.0, 0.0], [900_000.0, 960_000.0]])
+    with pytest.raises(GaugeError) as err:
+        correct_channels(raw, gauges=["SG-1", "SG-2"], nonlinear=[True, True],
+                         gauge_factor=[2.1, 2.1])
+    assert list(err.value.problems) == [
+        "gauge 'SG-2': reading 960000 µε is at or beyond what a constant-voltage quarter bridge "
+        "can indicate (952381 µε at its gauge factor and leads); it is an overrange code, or the "
+        "channel is not a quarter bridge: list the value in [readings] sentinels or set the "
+        "channel's nonlinearity to none in the gauge map"]
+    ok = correct_channels(raw[:, :1], gauges=["SG-1"], nonlinear=[True], gauge_factor=[2.1])
+    e = 0.9   # the closed form of TN-507 at 900,000 µε indicated
+    assert_allclose(ok.corrected_ue[1, 0], 2 * e / (2 - 2.1 * e) * 1e6, rtol=1e-12)
+
+
 def test_readings_must_be_two_dimensional():
     with pytest.raises(ReadingsFormatError, match="steps, channels"):
         correct_channels(np.zeros(3))

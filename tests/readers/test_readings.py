@@ -184,6 +184,31 @@ def test_custom_sentinels_replace_the_defaults(tmp_path, engine):
     assert result.flags["value"].tolist() == ["-9999"]
 
 
+def test_a_reading_no_strain_gauge_can_give_is_refused(tmp_path, engine):
+    # 1e6 µε is 100 % strain: foil gauges are rated to a few percent (common practice) and a
+    # constant-voltage quarter bridge cannot indicate 2/GF = 1e6 µε at GF 2 (Vishay TN-507's
+    # output GF e / (4 + 2 GF e) < 1/2). Such a cell is an instrument code the sentinels do not
+    # list, or not microstrain; passed on, the quarter-bridge correction turned 1e300 into a
+    # plausible 272 µε. A load of 2e6 (newtons, say) is not a strain and is read.
+    lines = _comma_lines()
+    lines[2] = "2,2e6,1e300,-48.125,250.0"
+    lines[4] = "4,37.5,1.0e3,-1.5e6,7.31e-1"
+    with pytest.raises(ReadingsFormatError) as err:
+        _read(tmp_path, lines)
+    assert list(err.value.problems) == [
+        "readings.csv line 3, column SG-01: 1e+300 µε is beyond any strain gauge's range "
+        "(1e+06 µε is 100 % strain): an instrument's overrange code or not microstrain; list the "
+        "value in [readings] sentinels or correct the cell",
+        "readings.csv line 5, column SG-02: -1.5e+06 µε is beyond any strain gauge's range "
+        "(1e+06 µε is 100 % strain): an instrument's overrange code or not microstrain; list the "
+        "value in [readings] sentinels or correct the cell"]
+    lines[2], lines[4] = "2,2e6,999999.5,-48.125,250.0", _comma_lines()[4]
+    assert _read(tmp_path, lines).table.loc[1, "SG-01"] == 999999.5   # just inside: read
+    result = _read(tmp_path, lines[:2] + ["2,12.5,1e300,-48.125,250.0"] + lines[3:],
+                   sentinels=[1e300])
+    assert np.isnan(result.table.loc[1, "SG-01"])   # listed as a sentinel: flagged, not refused
+
+
 def test_blank_cell_is_nan_without_flag(tmp_path, engine):
     lines = _comma_lines()
     lines[2] = "2,12.5,101.37,,250.0"
