@@ -40,6 +40,10 @@ from correlate.readers.model import Mesh, ModelSource, find_array, open_model
 from correlate.readers.named_arrays import arrays_of_cases
 from correlate.readers.study import Case, Study
 
+# 100 % strain [m/m]: no strain gauge reads it (the readings refuse 1e6 µε likewise), so a model
+# strain there at a gauge is an array in other units
+STRAIN_RANGE = 1.0
+
 
 @dataclass
 class Model:
@@ -345,6 +349,8 @@ def case_rows(model: Model, case: Case, fe_index: int | None,
     op = operator or model.operator
     fld = model.case_field(case, fe_index, op)
     rows = evaluate_rows(op, fld)
+    if operator is None:   # the gauges themselves (a search's moved grids may pass a singularity)
+        check_range(op, fld, rows)
     if operator is None and fld.kind == "displacement":
         if fld.index is not None:  # the checks average over whole cells: read the whole step
             fld = model.case_field(case, fe_index)
@@ -363,6 +369,20 @@ def case_rows(model: Model, case: Case, fe_index: int | None,
         return rows
     rows["location"] = fld.location  # type: ignore[assignment]
     return rows
+
+
+def check_range(op: GaugeOperator, fld: Any, rows: dict[str, NDArray[np.float64]]) -> None:
+    """Refuse model strains of :data:`STRAIN_RANGE` or more along or across a gauge's grid."""
+    own = op.row_kind != 2
+    size = np.fmax(np.abs(rows["axial"]), np.abs(rows["transverse"]))
+    big = own & (size >= STRAIN_RANGE)
+    if big.any():
+        gauges = [op.gauges[g] for g in np.unique(op.row_gauge[big])]   # in the map's order
+        shown = ", ".join(gauges[:8]) + (f" and {len(gauges) - 8} more" if len(gauges) > 8 else "")
+        raise ModelError(f"case '{fld.case}': array '{fld.array}' gives strains up to "
+                         f"{np.nanmax(size[big]):.3g} at {len(gauges)} gauge(s): {shown}; the "
+                         "model's strain is read in m/m, and 1 is 100 % strain, beyond any strain "
+                         "gauge: the array looks like microstrain or percent; write it in m/m")
 
 
 def _heights(model: Model, op: GaugeOperator) -> NDArray[np.float64] | None:

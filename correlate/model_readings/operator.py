@@ -198,6 +198,7 @@ class _Centres:
     direction: NDArray[np.float64]
     across: NDArray[np.float64]
     out_of_plane: NDArray[np.float64]   # degrees
+    off_plane: NDArray[np.bool_]        # grid along the normal (non-strict builds: marked invalid)
 
 
 @dataclass(frozen=True)
@@ -254,7 +255,8 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
     if locator is None:
         locator = gauge_locator(mesh, gauges, snap_tol=snap_tol, position_tol=position_tol,
                                 band=band)
-    c = _locate_centres(mesh, locator, gauges, snap_tol=snap_tol, length_unit=length_unit)
+    c = _locate_centres(mesh, locator, gauges, snap_tol=snap_tol, length_unit=length_unit,
+                        strict=strict)
     n = len(c.names)
     ptol = gauges["position_tol"].fillna(position_tol).to_numpy(dtype=float) if band else np.zeros(n)
     atol = gauges["angle_tol"].fillna(angle_tol).to_numpy(dtype=float) if band else np.zeros(n)
@@ -271,9 +273,13 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
 
 
 def _locate_centres(mesh: Mesh, locator: Locator, gauges: pd.DataFrame, *, snap_tol: float,
-                    length_unit: str) -> _Centres:
+                    length_unit: str, strict: bool = True) -> _Centres:
     """Project each gauge centre onto the surface (embedded ones: inside their cell), check the
-    snap distance and the grid direction, and turn the grid into the tangent plane."""
+    snap distance and the grid direction, and turn the grid into the tangent plane.
+
+    Not strict (a model search moving a grid past an edge onto a face its direction crosses), a
+    grid along the normal is marked ``off_plane`` instead of refused, and given any tangent
+    direction so that its (NaN) readings can be laid out."""
     names = gauges["gauge"].tolist()
     faces = gauges["face"].to_numpy(dtype=str)
     if mesh.family == "solid" and any(faces):
@@ -306,13 +312,17 @@ def _locate_centres(mesh: Mesh, locator: Locator, gauges: pd.DataFrame, *, snap_
         xi_c[embedded] = xi_e
     cos_out = np.abs(np.sum(d_in * normal, axis=1))
     out_deg = np.degrees(np.arcsin(np.clip(cos_out, 0, 1)))
+    off_plane = ~embedded & (out_deg > OUT_OF_PLANE_ERROR)
     problems = [f"gauge '{names[i]}': grid direction is {out_deg[i]:.0f} degrees out of the "
                 f"surface plane (limit {OUT_OF_PLANE_ERROR:.0f}); it points along the surface "
                 "normal: check dir_x, dir_y, dir_z or the face the gauge is on"
-                for i in np.flatnonzero(~embedded & (out_deg > OUT_OF_PLANE_ERROR))]
-    if problems:
+                for i in np.flatnonzero(off_plane)]
+    if problems and strict:
         raise GaugeError(*problems)
-    warn = [names[i] for i in np.flatnonzero(~embedded & (out_deg > OUT_OF_PLANE_WARN))]
+    if off_plane.any():
+        d_in = d_in.copy()
+        d_in[off_plane] = _any_tangent(normal[off_plane])
+    warn = [names[i] for i in np.flatnonzero(~embedded & ~off_plane & (out_deg > OUT_OF_PLANE_WARN))]
     if warn:
         warnings.warn(f"grid directions more than {OUT_OF_PLANE_WARN:.0f} degrees out of the surface "
                       f"plane were projected into it: {', '.join(warn)}", CorrelateWarning,
@@ -320,7 +330,14 @@ def _locate_centres(mesh: Mesh, locator: Locator, gauges: pd.DataFrame, *, snap_
     direction = _tangent(d_in, normal, embedded)
     return _Centres(names=names, faces=faces, embedded=embedded, distance=sp.distance,
                     cell=cell_c, xi=xi_c, centre=centre, normal=normal, direction=direction,
-                    across=np.cross(normal, direction), out_of_plane=out_deg)
+                    across=np.cross(normal, direction), out_of_plane=out_deg,
+                    off_plane=off_plane)
+
+
+def _any_tangent(n: NDArray[np.float64]) -> NDArray[np.float64]:
+    """A unit vector normal to each row of n (the axis least along n, made normal to it)."""
+    axis = np.eye(3)[np.argmin(np.abs(n), axis=1)]
+    return _tangent(axis, n)
 
 
 def _row_frames(mesh: Mesh, locator: Locator, c: _Centres, row_gauge: NDArray,
@@ -437,7 +454,7 @@ def _sample_points(mesh: Mesh, locator: Locator, c: _Centres, row_gauge: NDArray
     p_xi[at_centre] = rxi[p_row[at_centre]]
     need = ~at_centre & ~p_emb
     valid_row = np.ones(len(row_kind), dtype=bool)
-    invalid = np.zeros(len(c.names), dtype=bool)
+    invalid = c.off_plane.copy()
     if need.any():
         spg = locator.project(p_x[need], prefer=rn[p_row[need]])
         xig = parent_coordinates(mesh, spg)

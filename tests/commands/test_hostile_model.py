@@ -71,3 +71,22 @@ def test_odd_values_far_from_the_gauges_are_warned_and_change_nothing(tmp_path, 
     pd.testing.assert_frame_equal(got, ref, check_exact=False, atol=1e-3, rtol=0)
     if report:
         assert "<html" in (tmp_path / "odd-out" / "report.html").read_text(encoding="utf-8")
+
+
+def test_a_model_strain_written_in_microstrain_is_refused_naming_case_and_array(tmp_path, capsys):
+    # 1 m/m is 100 % strain: no strain gauge reads it (foil gauges are rated to a few percent,
+    # common practice), so strains of hundreds at the gauges are an array in microstrain. Before,
+    # the run compared them (ratio 0.000) and its failure diagnosis stopped on a moved grid.
+    write_small_study(tmp_path)
+    block = meshio.read(tmp_path / "block.vtu")
+    meshio.write(tmp_path / "block.vtu", meshio.Mesh(block.points, block.cells, point_data={
+        "E_pull": block.point_data["E_pull"] * 1e6, "E_side": block.point_data["E_side"]}))
+    before = _hashes(tmp_path)
+    out = tmp_path / "out"
+    code = main(["--quiet", "run", str(tmp_path / "study.toml"), "--out", str(out), "--no-report"])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert code == 2
+    assert len(err) == 1 and err[0].startswith("error: case 'pull': array 'E_pull' gives strains "
+                                               "up to ")
+    assert err[0].endswith("the array looks like microstrain or percent; write it in m/m")
+    assert not out.exists() and _hashes(tmp_path) == before

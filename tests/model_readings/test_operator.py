@@ -145,6 +145,31 @@ def test_direction_along_normal_is_refused():
         build_operator(mesh, gauges)
 
 
+def test_a_search_grid_moved_onto_a_face_its_direction_crosses_reads_nan():
+    # A diagnosis moves a failing gauge's grid about its place (non-strict builds); moved past
+    # the top face's edge x = 4 of the box onto the side face x = 4, a grid along x points along
+    # that face's normal (geometry of a box). The search must read NaN there, as for a grid that
+    # overhangs an edge, not stop the run: on the demo bracket with its strains scaled, such a
+    # candidate of gauge G07 ended `correlate run` with "G07#55 ... out of the surface plane".
+    mesh = solid_mesh("hexahedron")
+    gauges = gauge_frame([dict(gauge="TOP", x=2.0, y=1.5, z=2.0, dir_x=1, dir_y=0, dir_z=0,
+                               normal_x=0, normal_y=0, normal_z=1),
+                          dict(gauge="SIDE", x=4.0, y=1.5, z=1.0, dir_x=1, dir_y=0, dir_z=0,
+                               normal_x=1, normal_y=0, normal_z=0)])
+    with pytest.raises(GaugeError, match=r"SIDE.*out of the surface plane"):
+        build_operator(mesh, gauges)   # strict (the gauge map itself): refused as before
+    op = build_operator(mesh, gauges, strict=False)
+    assert op.invalid.tolist() == [False, True]
+    rows = evaluate_rows(op, Field("c", "strain", "point", linear_strain(mesh.points), "strain",
+                                   "E"))
+    nominal = op.row_kind == 0
+    axial = rows["axial"][nominal]
+    assert np.isnan(axial[1])
+    # the other gauge is read as the field: E_xx at (2, 1.5, 2), exact for a linear field
+    np.testing.assert_allclose(axial[0], linear_strain(np.array([[2.0, 1.5, 2.0]]))[0, 0, 0],
+                               rtol=1e-12, atol=0)
+
+
 def test_grid_overhanging_an_edge_is_refused():
     mesh = solid_mesh("hexahedron")
     gauges = gauge_frame([dict(gauge="EDGE", x=3.9, y=1.5, z=2.0, dir_x=1, dir_y=0, dir_z=0,
