@@ -17,6 +17,7 @@ convention, common practice) on both sides.
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass
 from typing import Any
 
@@ -27,7 +28,7 @@ from numpy.typing import NDArray
 from correlate.comparison.correlation import Correlation
 from correlate.comparison.criteria import allowed_difference
 from correlate.comparison.pairing import pair_series
-from correlate.core.errors import ReadingsFormatError
+from correlate.core.errors import CorrelateWarning, ReadingsFormatError
 from correlate.core.units import LENGTH_UNITS, MICROSTRAIN
 from correlate.fullfield.levelling import (
     apply_weights,
@@ -52,6 +53,8 @@ from correlate.model_readings.evaluate import centre_strain
 from correlate.readers.dic_frames import DicFrames, read_frames, read_landmarks
 
 COMPONENTS = ("exx", "eyy", "exy", "e1", "e2", "eeq")
+# measured/model slopes of about 100 or 1/100 (within this factor range): one side in percent
+PERCENT_LIKE = (30.0, 300.0)
 GAUSSIAN_BLOCK = 6.0   # blocks of 6 sigma: the full width of a Gaussian strain window
 UNFILTERED_BLOCK = 5.0  # unfiltered: blocks of 5 point spacings (errors still correlate, subsets)
 
@@ -297,6 +300,9 @@ def correlate_fullfield(corr: Correlation) -> FullFieldResult:
     points = pd.DataFrame({"point": np.arange(len(pm.kept)), "x": pm.position[:, 0],
                            "y": pm.position[:, 1], "z": pm.position[:, 2]})
     ref = ff.reference_frame if ff.reference_frame in frames.frames else _reference(parts)
+    notes = unit_warnings(pd.DataFrame(stats), ref, ff.strain_unit)
+    for line in notes:
+        warnings.warn(line, CorrelateWarning, stacklevel=2)
     summary = {"registration": {"method": reg.method, "matrix": reg.matrix.tolist(),
                                 "rotation_deg": reg.rotation_deg,
                                 "landmark_rms": reg.landmark_rms, "rms_distance": reg.rms,
@@ -307,9 +313,30 @@ def correlate_fullfield(corr: Correlation) -> FullFieldResult:
                                 "snap_tol": reg.snap_tol, "points_kept": len(pm.kept)},
                "levelling": rule, "block_size": block, "measure": ff.measure,
                "reference_frame": ref, "hot_spots": hots,
-               "levelling_effect_ue": _levelling_effect(parts)}
+               "levelling_effect_ue": _levelling_effect(parts), "warnings": notes}
     return FullFieldResult(points=points, frames=tuple(parts), stats=pd.DataFrame(stats),
                            registration=reg, summary=summary, reference_frame=ref)
+
+
+def unit_warnings(stats: pd.DataFrame, frame: str, strain_unit: str) -> list[str]:
+    """A warning when the frame's measured/model slopes (median over the strain components) are
+    about 100 or 1/100: the DIC export or the model's strain array in percent."""
+    rows = stats[(stats["frame"].astype(str) == str(frame))
+                 & stats["component"].isin(["exx", "eyy", "exy"])]
+    slopes = rows["slope_origin"].dropna() if "slope_origin" in rows else pd.Series(dtype=float)
+    if slopes.empty:
+        return []
+    f = float(np.median(np.abs(slopes)))
+    lo, hi = PERCENT_LIKE
+    said = (f"[fullfield]: at frame {frame} the DIC strains are {f:.3g} x the model's (median "
+            "of the components' measured/model slopes)")
+    if lo <= f <= hi:
+        return [f"{said}: the DIC export looks like percent read as strain_unit = "
+                f"\"{strain_unit}\"; set strain_unit to the export's unit"]
+    if f > 0 and lo <= 1.0 / f <= hi:
+        return [f"{said}: one of them looks like percent (the model's strain array is read in "
+                f"m/m, the DIC export as strain_unit = \"{strain_unit}\"); check both units"]
+    return []
 
 
 def _reference(parts: list[pd.DataFrame]) -> str:

@@ -130,6 +130,15 @@ def _standard(raw: pd.DataFrame, path: Path, ff: FullFieldSettings) -> pd.DataFr
     scale = STRAIN_UNITS[ff.strain_unit]
     for k in STRAINS:
         out[k] = out[k] * scale
+        big = np.flatnonzero(np.abs(out[k].to_numpy()) >= 1.0)
+        if len(big):   # 100 % strain: as for the gauges, no measurement here reads it
+            row = int(big[0])
+            raise ReadingsFormatError(
+                f"{path.name}: row {row + 2}, column '{names[k]}' holds "
+                f"{out[k].iloc[row] / scale:g}, a strain of {abs(out[k].iloc[row]) * 100:.3g} % "
+                f"read as strain_unit = \"{ff.strain_unit}\" ({len(big)} value(s) of 100 % or "
+                "more in the column): set [fullfield] strain_unit to the export's unit "
+                f"({', '.join(STRAIN_UNITS)})")
     if ff.shear == "engineering":
         out["exy"] = out["exy"] / 2.0     # tensor shear inside the package
     for extra in ("frame", "step"):

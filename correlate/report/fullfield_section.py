@@ -157,6 +157,7 @@ def fullfield_context(corr: Correlation, result: FullFieldResult | None, folder:
         note = f"The maps could not be drawn here ({str(exc).splitlines()[0]})."
     return {
         "pictures": pictures, "note": note, "frame": result.reference_frame,
+        "warnings": s.get("warnings", []),
         "frames": len(result.frames), "method": reg["method"],
         "rotation": num(reg["rotation_deg"], ".3f"),
         "translation": ", ".join(num(v, ".3f") for v in np.asarray(reg["matrix"])[:3, 3]),

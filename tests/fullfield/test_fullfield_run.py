@@ -12,6 +12,7 @@ form, not from the tool.
 from __future__ import annotations
 
 import json
+import re
 
 import numpy as np
 import pandas as pd
@@ -331,3 +332,68 @@ def test_points_on_an_inverted_element_are_refused_in_one_line(tmp_path, capsys)
     assert "fix the mesh" in err[0]
     assert not (tmp_path / "o").exists()                       # nothing half-written
     assert before == {p: p.read_bytes() for p in tmp_path.rglob("*") if p.is_file()}
+
+
+def _scaled_frames(tmp_path, factor: float) -> None:
+    """Multiply the exported strains of every frame by ``factor`` (another unit's export)."""
+    for frame in sorted((tmp_path / "dic").glob("frame_*.csv")):
+        semicolon = ";" in frame.read_text().splitlines()[0]
+        df = pd.read_csv(frame, sep=";" if semicolon else ",", decimal="," if semicolon else ".")
+        df[["E11", "E22", "E12"]] *= factor
+        df.to_csv(frame, sep=";" if semicolon else ",", decimal="," if semicolon else ".",
+                  index=False)
+
+
+def test_frames_in_microstrain_read_as_fractions_are_refused(tmp_path, capsys):
+    # 1 m/m is 100 % strain, beyond what a DIC of a structural test measures (common
+    # practice); such values are an export in another unit than [fullfield] strain_unit says
+    study = _study(tmp_path)
+    _scaled_frames(tmp_path, 1e6)
+    assert main(["run", "--quiet", str(study), "--out", str(tmp_path / "o"), "--no-report"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith("error: frame_1.csv: row 2, column 'E11' holds ")
+    assert err[0].endswith("set [fullfield] strain_unit to the export's unit (fraction, "
+                           "percent, ue)")
+    assert not (tmp_path / "o").exists()
+
+
+@pytest.mark.render
+def test_frames_in_percent_read_as_fractions_are_warned_in_the_report(tmp_path, capsys):
+    # The block's exact field: the DIC/model slope is 1 (test_statistics_per_frame_give_a_unit_
+    # slope); exported in percent and read as fractions it is about 100 (not exactly: the
+    # export is Green-Lagrange strain, whose conversion to small strain is not linear), which
+    # the run names on stderr, in fullfield.json and in the report's full-field section;
+    # declared, it is 1 again.
+    study = _study(tmp_path, edge=0.2)
+    _scaled_frames(tmp_path, 100.0)
+    assert main(["run", "--quiet", str(study), "--out", str(tmp_path / "o")]) == 0
+    err = capsys.readouterr().err
+    factor = float(re.search(r"the DIC strains are ([0-9.]+) x the model's", err).group(1))
+    assert 80 < factor < 120
+    assert "the DIC export looks like percent" in err
+    summary = json.loads((tmp_path / "o" / "fullfield.json").read_text())
+    assert len(summary["warnings"]) == 1 and "looks like percent" in summary["warnings"][0]
+    html = (tmp_path / "o" / "report.html").read_text(encoding="utf-8")
+    assert '<p class="box caution">Warning: [fullfield]: at frame' in html
+    study.write_text(study.read_text().replace("[fullfield]\n",
+                                               '[fullfield]\nstrain_unit = "percent"\n'))
+    assert main(["run", "--quiet", str(study), "--out", str(tmp_path / "p"), "--no-report"]) == 0
+    assert "looks like percent" not in capsys.readouterr().err
+    stats = pd.read_csv(tmp_path / "p" / "fullfield_stats.csv")
+    # the exact field in a filter-free comparison: unit slope to the DIC's position noise
+    np.testing.assert_allclose(stats.loc[stats["component"] == "exx", "slope_origin"], 1.0,
+                               rtol=0, atol=5e-3)
+
+
+def test_unit_warnings_read_the_strain_components_of_the_frame():
+    from correlate.fullfield.comparison import unit_warnings
+
+    stats = pd.DataFrame({"frame": ["F"] * 4 + ["G"] * 3,
+                          "component": ["exx", "eyy", "exy", "eeq", "exx", "eyy", "exy"],
+                          "slope_origin": [0.0102, 0.0098, 0.011, 1.0, 1.0, 1.0, 1.0]})
+    lines = unit_warnings(stats, "F", "fraction")
+    assert len(lines) == 1 and "one of them looks like percent" in lines[0]
+    assert unit_warnings(stats, "G", "fraction") == []
+    # the median of the components: one component's stray slope does not decide
+    stats.loc[4, "slope_origin"] = 100.0
+    assert unit_warnings(stats, "G", "fraction") == []
