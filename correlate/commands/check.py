@@ -13,7 +13,7 @@ from typing import Any
 import pandas as pd
 
 from correlate.comparison.correlation import chain_readings
-from correlate.comparison.pairing import gauge_channels, load_columns
+from correlate.comparison.pairing import load_columns
 from correlate.core.errors import CorrelateError, StudyError
 from correlate.model_readings.channels import channel_gauges
 from correlate.model_readings.conventions import convention_warnings
@@ -121,7 +121,12 @@ def _beside_the_study(path: Path) -> list[str]:
     if gauges_file is None:
         return problems
     _, gauges = _attempt(problems, read_gauges, gauges_file)
-    channels = _raw_channels(gauges_file) if gauges is None else gauge_channels(gauges)
+    tables = raw.get("bridge", [])
+    named_channels = {t["name"]: t["channel"] for t in (tables if isinstance(tables, list) else [])
+                      if isinstance(t, dict) and isinstance(t.get("name"), str)
+                      and isinstance(t.get("channel"), str) and t["channel"]}
+    channels = (_raw_channels(gauges_file, named_channels) if gauges is None else
+                _channels(gauges["gauge"], gauges["channel"], gauges["bridge"], named_channels))
     if not channels or readings_file is None:
         return problems
     loads = raw.get("load", [])
@@ -137,7 +142,8 @@ def _beside_the_study(path: Path) -> list[str]:
     return problems
 
 
-def _raw_channels(gauges_file: Path) -> dict[str, str]:
+def _raw_channels(gauges_file: Path, bridge_channels: dict[str, str] | None = None
+                  ) -> dict[str, str]:
     """Readings column of each gauge id of a gauge map that failed validation ({}: unreadable)."""
     try:
         raw = pd.read_csv(gauges_file, dtype=str, keep_default_na=False, skipinitialspace=True,
@@ -149,9 +155,16 @@ def _raw_channels(gauges_file: Path) -> dict[str, str]:
     ids = raw["gauge"].str.strip()
     channel = raw["channel"].str.strip() if "channel" in raw else ids
     bridge = raw["bridge"].str.strip() if "bridge" in raw else pd.Series("", index=raw.index)
-    # a bridge arm has no readings column of its own: the bridge's id stands for its channel
+    return _channels(ids, channel, bridge, bridge_channels or {})
+
+
+def _channels(ids: Any, channel: Any, bridge: Any, bridge_channels: dict[str, str]
+              ) -> dict[str, str]:
+    """Readings column of each channel: a gauge's ``channel`` (or its id); a bridge arm has no
+    column of its own, its bridge's channel (the ``[[bridge]]`` table's, or the bridge's id)
+    stands for it."""
     out = {g: (c or g) for g, c, b in zip(ids, channel, bridge, strict=True) if g and not b}
-    out.update({b: b for b in dict.fromkeys(bridge) if b})
+    out.update({b: bridge_channels.get(b, b) for b in dict.fromkeys(bridge) if b})
     return out
 
 

@@ -165,6 +165,29 @@ def test_a_bridge_channel_missing_from_the_readings_is_named(tmp_path, capsys):
     assert not (tmp_path / "out").exists()
 
 
+def test_check_of_a_bad_study_reads_a_bridge_as_its_one_channel(tmp_path, capsys):
+    # With the study itself refused, `check` still reads the gauge map and the readings the raw
+    # study names, to report their problems in the same pass; a bridge's arms have no readings
+    # column of their own (the bridge's channel, here CH7 of its [[bridge]] table, stands for
+    # them): before, each arm was reported missing from readings.csv.
+    extra = ('[[bridge]]\nname = "PB"\nchannel = "CH7"\n'
+             '[uncertainty]\ngauge_factor = -0.01\n')
+    strain = 100.0 * np.arange(len(LOADS))   # microstrain, any values (nothing is compared)
+    _run(tmp_path, POISSON_HALF, _readings({"CH7": strain, "Q1": strain}), extra)
+    capsys.readouterr()
+    assert main(["--quiet", "check", str(tmp_path / "study.toml")]) == 2
+    assert capsys.readouterr().err.strip().splitlines() == [
+        "error: study.toml: [uncertainty] gauge_factor = -0.01 is negative; a standard "
+        "uncertainty is 0 or more"]
+    # a readings problem beside it is still reported in the same pass
+    text = (tmp_path / "readings.csv").read_text().splitlines()
+    (tmp_path / "readings.csv").write_text("\n".join(
+        [text[0].replace("CH7", "CH8")] + text[1:]) + "\n")
+    assert main(["--quiet", "check", str(tmp_path / "study.toml")]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 2 and "no column 'CH7' for gauge 'PB'" in err[1]
+
+
 def test_diagnosis_moves_the_arms_of_a_bridge_together(tmp_path):
     # Readings of the bending half bridge made at x = 2 + 0.15 for both arms (beam theory, as in
     # _cantilever): the position search, which moves every arm by the same offset along its own
