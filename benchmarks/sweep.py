@@ -11,11 +11,12 @@ the same run, side by side:
                 conditions: this process's heap is warm from building the files);
 2. sweep      - `correlate sweep` in a fresh process with 1 and with 2 local workers (cluster
                 start-up included; the per-variant time is the sweep's "correlating the variants"
-                stage divided by the variants);
+                stage divided by the variants), ``--repeats`` alternating pairs, the median shown
+                (these runs are not watched: the memory scan shares the two cores);
 3. baseline   - the straightforward way: `correlate run --no-report` on each variant, one after
                 another, each in a fresh process;
-4. memory     - the peak resident memory of one worker process (read from /proc while the
-                2-worker sweep runs: the largest of its worker processes); and one worker
+4. memory     - the peak resident memory of one worker process (read from /proc while a 1-
+                and a 2-worker sweep of their own run: the largest worker); and one worker
                 sampled every millisecond from inside (resident, private = resident less
                 file-backed pages, and the file-backed libraries' pages), beside the target's
                 one variant's arrays + the operator + 200 MB.
@@ -335,21 +336,23 @@ def _children_rss(pid: int) -> dict[int, float]:
     return out
 
 
-def timed_sweep(sweep: Path, out: Path, workers: int) -> tuple[float, float, float]:
-    """Wall time, the 'correlating the variants' stage and the largest worker peak [MB]."""
+def timed_sweep(sweep: Path, out: Path, workers: int, watch: bool = True
+                ) -> tuple[float, float, float]:
+    """Wall time, the 'correlating the variants' stage and the largest worker peak [MB] (NaN
+    unless ``watch``: the /proc scan every 0.2 s runs on the same two cores as the workers)."""
     cmd = CORRELATE + ["--quiet", "--timings", "sweep", str(sweep), "--out", str(out),
                        "--workers", str(workers), "--force"]
     t = time.perf_counter()
     proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
     peaks: dict[int, float] = {}
 
-    def watch() -> None:
-        while proc.poll() is None:
+    def scan() -> None:
+        while watch and proc.poll() is None:
             for p, mb in _children_rss(proc.pid).items():
                 peaks[p] = max(peaks.get(p, 0.0), mb)
             time.sleep(0.2)
 
-    watcher = threading.Thread(target=watch)
+    watcher = threading.Thread(target=scan)
     watcher.start()
     _, err = proc.communicate()
     watcher.join()
@@ -381,6 +384,8 @@ def main() -> None:
                         help="also sweep this many variants each on a slightly different mesh")
     parser.add_argument("--other-arrays", action="store_true",
                         help="variant files hold 11 arrays the study does not use beside its one")
+    parser.add_argument("--repeats", type=int, default=3,
+                        help="alternating pairs of 1- and 2-worker sweeps for the throughput")
     parser.add_argument("--no-serial", action="store_true",
                         help="skip the baseline of one `correlate run` per variant")
     args = parser.parse_args()
@@ -393,8 +398,17 @@ def main() -> None:
         size = (scratch / "v000.vtu").stat().st_size / 1e6
         read, read_named = floor(scratch, n)
         in_worker = worker_floor(scratch, n)
-        one = timed_sweep(sweep, scratch / "out1", 1)
-        two = timed_sweep(sweep, scratch / "out2", 2)
+        # throughput: 1 and 2 workers alternately, unwatched; the median run of each
+        pairs = [(timed_sweep(sweep, scratch / "out1", 1, watch=False),
+                  timed_sweep(sweep, scratch / "out2", 2, watch=False))
+                 for _ in range(args.repeats)]
+        ratios = [a[1] / b[1] for a, b in pairs]
+        one = min((a for a, _ in pairs), key=lambda r: abs(r[1] - statistics.median(
+            x[1] for x, _ in pairs)))
+        two = min((b for _, b in pairs), key=lambda r: abs(r[1] - statistics.median(
+            y[1] for _, y in pairs)))
+        peaks = (timed_sweep(sweep, scratch / "out1", 1)[2],
+                 timed_sweep(sweep, scratch / "out2", 2)[2])
         plain = plain_processes(scratch, n)
         memory = worker_memory(scratch, min(n, 16))
         other = None
@@ -426,13 +440,16 @@ def main() -> None:
         ]
         for what, value in rows:
             print(f"{what:58s} {value:9.2f}")
-        print(f"throughput 2 workers / 1 worker (correlating stage): {one[1] / two[1]:.2f} x")
+        print(f"throughput 2 workers / 1 worker (correlating stage, {args.repeats} alternating "
+              f"pairs of runs): median {statistics.median(ratios):.2f} x, each "
+              f"{', '.join(f'{r:.2f}' for r in ratios)}")
         print(f"the same tasks in plain processes (no Dask): {plain[0] / n:.3f} s per variant "
               f"in 1, {plain[1] / n:.3f} s in 2: throughput {plain[0] / plain[1]:.2f} x")
         print(f"cost per variant, 1 worker: {one[1] / n:.3f} s = {one[1] / n / read:.2f} x "
               f"meshio's read of its file, {one[1] / n / read_named:.2f} x the partial read, "
               f"{one[1] / n / in_worker:.2f} x the partial read in a worker")
-        print(f"peak memory of one worker: {one[2]:.0f} MB (1 worker), {two[2]:.0f} MB (2 workers)")
+        print(f"peak memory of one worker: {peaks[0]:.0f} MB (1 worker), {peaks[1]:.0f} MB "
+              "(2 workers; runs of their own, watched)")
         target = memory["arrays"] + memory["operator"] + 200.0
         print(f"one worker sampled every ms over {min(n, 16)} variants: peak resident "
               f"{memory['rss']:.0f} MB, peak private (resident less file-backed) "
