@@ -340,8 +340,14 @@ def case_problems(study: Study, sources: dict[Path, ModelSource], case: Case) ->
 
 
 def case_rows(model: Model, case: Case, fe_index: int | None,
-              operator: GaugeOperator | None = None) -> dict[str, NDArray[np.float64]]:
-    """Operator rows of one case (one FE state), in m/m; mechanical for a thermal case."""
+              operator: GaugeOperator | None = None,
+              heights: NDArray[np.float64] | None = None) -> dict[str, NDArray[np.float64]]:
+    """Operator rows of one case (one FE state), in m/m; mechanical for a thermal case.
+
+    ``operator``: another operator on the model's mesh (a search's moved grids); ``heights``
+    its gauges' grid heights (g,), which it cannot find by name in the gauge map (default:
+    the gauge map's ``height`` by gauge id).
+    """
     if operator is None:
         combined = model.channel_rows(case, fe_index)
         if combined is not None:
@@ -355,7 +361,8 @@ def case_rows(model: Model, case: Case, fe_index: int | None,
         if fld.index is not None:  # the checks average over whole cells: read the whole step
             fld = model.case_field(case, fe_index)
         rows.update(_displacement_checks(model, case, fld))
-    heights = _heights(model, op)
+    heights = _heights(model, op) if heights is None else (
+        heights if np.nan_to_num(heights).any() else None)
     if heights is not None:
         whole = fld if fld.index is None else model.case_field(case, fe_index)
         delta = height_strain(op, whole, heights, thickness=model.study.model_info.get(

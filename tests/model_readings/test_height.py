@@ -9,6 +9,8 @@ solids reproduce them exactly, and a shell's two faces bound the same line.
 
 from __future__ import annotations
 
+import json
+
 import meshio
 import numpy as np
 import pandas as pd
@@ -130,3 +132,31 @@ def test_run_reports_the_height_correction_per_gauge(tmp_path):
     assert c.loc["FLAT", "height_ue"] == 0.0
     g = pd.read_csv(tmp_path / "run" / "gauges.csv")
     assert g["difference_ue"].abs().max() < 1e-3
+
+
+def test_a_failure_diagnosis_moves_a_raised_grid_at_its_height(tmp_path):
+    # The grid TOP stands 0.3 mm high on a 2 mm beam in bending, so the model reads
+    # (c + h)/c = 1.3 x the surface strain; the readings are the surface strain (as if the grid
+    # were flat), so TOP fails by 30 %. The strain does not vary along the beam (uniform
+    # curvature, Euler-Bernoulli): no move of the grid explains it; a grid turned by theta in
+    # the uniaxial field reads e (cos^2 - 0.3 sin^2), which gives 1/1.3 of it at
+    # cos^2 theta = (1/1.3 + 0.3)/1.3 (strain transformation, a closed form). The diagnosis's
+    # moved grids must stand as high as the gauge: before, they were read on the surface, so
+    # every move "explained" the failure (position offset 1.63 mm, grid turned -0.00 deg).
+    from correlate.commands.cli import main
+
+    study = bending_block(tmp_path, heights=(0.3, 0.3, 0.0))
+    loads = np.array([0.0, 0.25, 0.5, 0.75, 1.0, 0.0])
+    surface = {"TOP": KAPPA * 1e6, "BOTTOM": -KAPPA * 1e6 * 1.3, "FLAT": KAPPA * 1e6}
+    pd.DataFrame({"step": np.arange(6), "P": loads, **{g: loads * v for g, v in surface.items()}}
+                 ).to_csv(tmp_path / "readings.csv", index=False)
+    with open(study, "a", encoding="utf-8") as fh:
+        fh.write('[readings]\nfile = "readings.csv"\n[[load]]\ncolumn = "P"\ncase = "bend"\n'
+                 "reference = 1.0\n")
+    assert main(["--quiet", "run", str(study), "--out", str(tmp_path / "run"), "--no-report"]) == 0
+    found = json.loads((tmp_path / "run" / "summary.json").read_text())["diagnoses"]
+    assert [d["gauge"] for d in found] == ["TOP"]
+    assert found[0]["explanation"] == "grid angle"
+    theta = np.degrees(np.arccos(np.sqrt((1 / 1.3 + 0.3) / 1.3)))
+    # tolerance 0.05 deg: the search's resolution on the angle, the field being exact on hex20
+    assert abs(found[0]["parameter"]) == pytest.approx(theta, abs=0.05)
