@@ -81,15 +81,22 @@ def check_finite(op: GaugeOperator, field: Field, strain: NDArray) -> None:
                          f"{len(gauges)} gauge(s): {shown}; check the result file there")
 
 
-def evaluate_rows(op: GaugeOperator, field: Field) -> dict[str, NDArray[np.float64]]:
-    """Axial, transverse and indicated strain [m/m] of every operator row for one field."""
+def evaluate_rows(op: GaugeOperator, field: Field, *, strict: bool = True
+                  ) -> dict[str, NDArray[np.float64]]:
+    """Axial, transverse and indicated strain [m/m] of every operator row for one field.
+
+    ``strict``: refuse NaN or infinite values under any gauge (:func:`check_finite`); not strict
+    (a search's moved grids, which may reach a region the result leaves undefined), the rows
+    over such values read NaN.
+    """
     eps = strain_at_points(op, field)
-    check_finite(op, field, eps)
+    if strict:
+        check_finite(op, field, eps)
     ea = np.einsum("pi,pij,pj->p", op.direction, eps, op.direction)
     et = np.einsum("pi,pij,pj->p", op.transverse, eps, op.transverse)
     axial = op.weights @ ea
     trans = op.weights @ et
-    bad = op.invalid[op.row_gauge]
+    bad = op.invalid[op.row_gauge] | ~np.isfinite(axial) | ~np.isfinite(trans)
     axial, trans = np.where(bad, np.nan, axial), np.where(bad, np.nan, trans)
     return {"axial": axial, "transverse": trans,
             "indicated": indicated_strain(axial, trans, op.kt[op.row_gauge],

@@ -354,7 +354,7 @@ def case_rows(model: Model, case: Case, fe_index: int | None,
             return combined
     op = operator or model.operator
     fld = model.case_field(case, fe_index, op)
-    rows = evaluate_rows(op, fld)
+    rows = evaluate_rows(op, fld, strict=operator is None)
     if operator is None:   # the gauges themselves (a search's moved grids may pass a singularity)
         check_range(op, fld, rows)
     if operator is None and fld.kind == "displacement":

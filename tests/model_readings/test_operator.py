@@ -170,6 +170,29 @@ def test_a_search_grid_moved_onto_a_face_its_direction_crosses_reads_nan():
                                rtol=1e-12, atol=0)
 
 
+def test_a_search_grid_over_undefined_values_reads_nan_and_the_gauges_own_are_refused():
+    # A result may leave a region undefined (NaN: failed or unexported elements). A gauge over
+    # it is refused, naming it (a model reading there would be invented); a failure search's
+    # moved grid that reaches it reads NaN and the search goes on: before, the whole run
+    # stopped with "NaN or infinite values at 168 gauge(s): G09#1, G09#6, ...".
+    mesh = solid_mesh("hexahedron", n=(4, 3, 2))
+    gauges = gauge_frame([dict(gauge="NEAR", x=3.0, y=1.5, z=2.0, dir_x=1, dir_y=0, dir_z=0,
+                               length=0.5),
+                          dict(gauge="FAR", x=0.5, y=1.5, z=2.0, dir_x=1, dir_y=0, dir_z=0,
+                               length=0.5)])
+    values = linear_strain(mesh.points)
+    values[mesh.points[:, 0] > 3.5] = np.nan      # the region x > 3.5 left undefined
+    field = Field("c", "strain", "point", values, "strain", "E")
+    with pytest.raises(ModelError, match=r"NaN or infinite values at 1 gauge\(s\): NEAR"):
+        evaluate_rows(build_operator(mesh, gauges), field)
+    rows = evaluate_rows(build_operator(mesh, gauges, strict=False), field, strict=False)
+    axial = rows["axial"][build_operator(mesh, gauges, strict=False).row_kind == 0]
+    assert np.isnan(axial[0]) and np.isnan(rows["indicated"][0])
+    # the other gauge reads the linear field exactly (round-off on 1e-4 strains)
+    np.testing.assert_allclose(axial[1], linear_strain(np.array([[0.5, 1.5, 2.0]]))[0, 0, 0],
+                               rtol=1e-12, atol=0)
+
+
 def test_grid_overhanging_an_edge_is_refused():
     mesh = solid_mesh("hexahedron")
     gauges = gauge_frame([dict(gauge="EDGE", x=3.9, y=1.5, z=2.0, dir_x=1, dir_y=0, dir_z=0,
