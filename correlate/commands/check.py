@@ -126,7 +126,9 @@ def _beside_the_study(path: Path) -> list[str]:
                       if isinstance(t, dict) and isinstance(t.get("name"), str)
                       and isinstance(t.get("channel"), str) and t["channel"]}
     channels = (_raw_channels(gauges_file, named_channels) if gauges is None else
-                _channels(gauges["gauge"], gauges["channel"], gauges["bridge"], named_channels))
+                _channels(gauges["gauge"], gauges["channel"],
+                          gauges["bridge"] if "bridge" in gauges else [""] * len(gauges),
+                          named_channels))
     if not channels or readings_file is None:
         return problems
     loads = raw.get("load", [])

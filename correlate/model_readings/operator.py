@@ -27,7 +27,7 @@ from scipy import sparse
 
 from correlate.core.errors import CorrelateWarning, GaugeError, GaugeOutsideMeshError
 from correlate.mechanics import elements, mapping
-from correlate.model_readings.cell_checks import check_cells
+from correlate.model_readings.cell_checks import bad_cells, check_cells
 from correlate.model_readings.locator import Locator, locate_inside, parent_coordinates
 from correlate.model_readings.surface import build_surface
 from correlate.readers.model import Mesh
@@ -269,7 +269,7 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
                        strict=strict)
     kt = gauges["kt"].to_numpy(dtype=float)
     nu0 = gauges["nu0"].fillna(calibration_poisson).to_numpy(dtype=float)
-    return _assemble(mesh, c, s, row_gauge, row_kind, row_off, kt, nu0)
+    return _assemble(mesh, c, s, row_gauge, row_kind, row_off, kt, nu0, strict=strict)
 
 
 def _locate_centres(mesh: Mesh, locator: Locator, gauges: pd.DataFrame, *, snap_tol: float,
@@ -494,9 +494,11 @@ def _overhang_line(mesh: Mesh, gauge: str, flipped: bool, length: float) -> str:
 
 
 def _assemble(mesh: Mesh, c: _Centres, s: _Samples, row_gauge: NDArray, row_kind: NDArray,
-              row_off: NDArray, kt: NDArray, nu0: NDArray) -> GaugeOperator:
+              row_off: NDArray, kt: NDArray, nu0: NDArray, *, strict: bool = True
+              ) -> GaugeOperator:
     """Weight the sample points into rows, dropping band rows whose grid left the face (a
-    misplaced gauge cannot overhang an edge either); check the cells under each gauge."""
+    misplaced gauge cannot overhang an edge either); check the cells under each gauge (not
+    strict: a gauge over an inverted or collapsed element is marked invalid instead)."""
     embedded = c.embedded[row_gauge[s.row]]
     p_d = _tangent(s.direction, s.normal, embedded)
     p_t = np.cross(s.normal, p_d)
@@ -508,13 +510,18 @@ def _assemble(mesh: Mesh, c: _Centres, s: _Samples, row_gauge: NDArray, row_kind
                           shape=(len(keep_rows), keep_pt.sum()))
     # cells under the gauge itself (nominal and centre rows; band samples are what-ifs)
     own = keep_pt & (row_kind[s.row] != 2)
-    check_cells(mesh, s.cell[own], s.xi[own], [c.names[g] for g in row_gauge[s.row[own]]])
+    invalid = s.invalid
+    if strict:
+        check_cells(mesh, s.cell[own], s.xi[own], [c.names[g] for g in row_gauge[s.row[own]]])
+    elif own.any():
+        invalid = s.invalid.copy()
+        invalid[row_gauge[s.row[own][bad_cells(mesh, s.cell[own], s.xi[own]) != ""]]] = True
     centre_rows = np.flatnonzero(row_kind[keep_rows] == 1)   # one per gauge, of one sample
     return GaugeOperator(mesh=mesh, placement=_placement(mesh, c), cell=s.cell[keep_pt],
                          xi=s.xi[keep_pt], direction=p_d[keep_pt], transverse=p_t[keep_pt],
                          face=c.faces[row_gauge[s.row[keep_pt]]], weights=W,
                          row_gauge=row_gauge[keep_rows], row_kind=row_kind[keep_rows],
-                         row_offset=row_off[keep_rows], kt=kt, nu0=nu0, invalid=s.invalid,
+                         row_offset=row_off[keep_rows], kt=kt, nu0=nu0, invalid=invalid,
                          centre_points=W[centre_rows].indices)
 
 

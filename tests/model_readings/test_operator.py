@@ -193,6 +193,28 @@ def test_a_search_grid_over_undefined_values_reads_nan_and_the_gauges_own_are_re
                                rtol=1e-12, atol=0)
 
 
+def test_a_search_grid_over_an_inverted_element_is_marked_invalid_not_refused():
+    # An inverted element (an inner node pulled up through the top face: the Jacobian changes
+    # sign) under a gauge is refused, naming the gauge and the element; a failure search's moved
+    # grid over it is marked invalid (NaN readings) so that the search, and the run, go on.
+    mesh = solid_mesh("hexahedron", n=(4, 3, 2))
+    conn = mesh.blocks[0][1]
+    pts = mesh.points
+    centre = pts[conn].mean(axis=1)
+    cell = int(np.argmin(np.linalg.norm(centre - [3.5, 1.5, 1.5], axis=1)))   # top layer
+    low = conn[cell][np.argsort(pts[conn[cell], 2])[:4]]
+    inner = low[np.argmin(np.abs(pts[low, 0] - 3.0) + np.abs(pts[low, 1] - 1.0))]
+    pts[inner] = [pts[inner, 0], pts[inner, 1], 6.0]   # det J < 0 at the cell centre
+    gauges = gauge_frame([dict(gauge="OVER", x=3.5, y=1.5, z=2.0, dir_x=1, dir_y=0, dir_z=0,
+                               normal_x=0, normal_y=0, normal_z=1),
+                          dict(gauge="AWAY", x=0.5, y=1.5, z=2.0, dir_x=1, dir_y=0, dir_z=0,
+                               normal_x=0, normal_y=0, normal_z=1)])
+    with pytest.raises(ModelError, match=r"gauge 'OVER': element \d+ under it is inverted"):
+        build_operator(mesh, gauges)
+    op = build_operator(mesh, gauges, strict=False)
+    assert op.invalid.tolist() == [True, False]
+
+
 def test_grid_overhanging_an_edge_is_refused():
     mesh = solid_mesh("hexahedron")
     gauges = gauge_frame([dict(gauge="EDGE", x=3.9, y=1.5, z=2.0, dir_x=1, dir_y=0, dir_z=0,
