@@ -120,6 +120,7 @@ def identify_sweep(sweep: Sweep, results: dict[str, VariantResult], measured: ND
         raise StudyError(f"{sweep.path.name}: no gauge-step is evaluated in the best variant "
                          f"'{best.name}'; nothing to identify")
     Y = np.stack([results[v.name].predicted[use] for v in ok])            # (V, N)
+    notes = same_parameters(ok, P, Y, sweep.table_file.name)
     log_all = np.array([p in spec.log for p in names])
     full = fit_response(P, Y, kind=spec.response, log=log_all, names=names)
     loo = leave_one_out_error(P, Y, kind=spec.response, log=log_all)
@@ -147,7 +148,7 @@ def identify_sweep(sweep: Sweep, results: dict[str, VariantResult], measured: ND
         "bounds": {"lower": ident.lower.tolist(), "upper": ident.upper.tolist()},
         "extrapolated": ident.extrapolated,
         "identifiable": not ident.warnings,
-        "warnings": list(ident.warnings),
+        "warnings": list(ident.warnings) + notes,
         "variants_used": len(ok),
         "surface_loo_rms_ue": dict(zip([v.name for v in ok], loo.tolist(), strict=True)),
         "surface_loo_rms_ue_max": float(loo.max()),
@@ -160,6 +161,29 @@ def identify_sweep(sweep: Sweep, results: dict[str, VariantResult], measured: ND
                                               results[best.name].predicted[use], strict=True)],
         "caution": CAUTION,
     }
+
+
+def same_parameters(variants: list[Any], P: NDArray, Y: NDArray, table: str,
+                    tol_ue: float = 0.01) -> list[str]:
+    """A warning for each set of variants with the same parameters but other model readings.
+
+    Their difference cannot come from the parameters, so something the table does not list
+    changed between them (or a value is wrong); the response surface fits their mean. Readings
+    within ``tol_ue`` (the CSV precision) count as the same.
+    """
+    out = []
+    _, group = np.unique(P, axis=0, return_inverse=True)
+    for g in np.unique(group.ravel()):
+        members = np.flatnonzero(group.ravel() == g)
+        if len(members) < 2:
+            continue
+        spread = float(np.max(np.ptp(Y[members], axis=0)))
+        if spread > tol_ue:
+            named = ", ".join(f"'{variants[i].name}' (row {variants[i].row})" for i in members)
+            out.append(f"{table}: variants {named} have the same parameters but model readings "
+                       f"up to {spread:.3g} ue apart: something the table does not list changed "
+                       "between them, or a value is wrong; the response surface fits their mean")
+    return out
 
 
 def _rms(result: VariantResult) -> float:

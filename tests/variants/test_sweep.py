@@ -271,6 +271,40 @@ def test_rows_naming_the_same_model_result_are_refused_with_their_reason(tmp_pat
     assert "error: variant 'slip' (row 6)" in captured.err
 
 
+def test_variants_with_the_same_parameters_but_other_readings_are_warned(tmp_path, capsys):
+    # Two variants with the same k whose readings differ (here by a factor c the table does not
+    # list as a parameter): the difference cannot come from k, so the response surface fits
+    # their mean; the identification says so (stderr, identified.json, sweep.html).
+    k_study(tmp_path, k_true=1.04, noise=1.0)
+    rows = [(f"k{i}", {"k": k, "c": 1.0}) for i, k in enumerate(K_VALUES)]
+    rows.append(("hidden", {"k": K_VALUES[2], "c": 1.05}))
+    write_variants(tmp_path, rows, scale=lambda p: p["k"] * p["c"])
+    path = write_sweep(tmp_path, '[identify]\nparameters = ["k"]\nresponse = "quadratic"\n')
+    assert main(["--quiet", "sweep", str(path), "--out", str(tmp_path / "o"),
+                 "--workers", "1"]) == 0
+    ident = json.loads((tmp_path / "o" / "identified.json").read_text())
+    said = [w for w in ident["warnings"] if "have the same parameters" in w]
+    assert len(said) == 1 and "'k2' (row 4), 'hidden' (row 7)" in said[0]
+    assert said[0] in capsys.readouterr().err
+    assert ident["identifiable"]   # a warning about the table, not about identifiability
+    assert "have the same parameters" in (tmp_path / "o" / "sweep.html").read_text()
+    # readings the same to the CSV's precision (0.01 ue) are the same model: no warning
+    from correlate.variants.results import same_parameters
+
+    variants = [dataclasses.replace(v, name=n, row=r) for v, n, r in
+                [(_variant_stub(), "a", 2), (_variant_stub(), "b", 3)]]
+    P = np.array([[1.0], [1.0]])
+    assert same_parameters(variants, P, np.array([[100.0, 5.0], [100.005, 5.0]]), "t.csv") == []
+    assert len(same_parameters(variants, P, np.array([[100.0, 5.0], [100.02, 5.0]]),
+                               "t.csv")) == 1
+
+
+def _variant_stub():
+    from correlate.variants.sweep_file import Variant
+
+    return Variant(name="", row=0, file=Path("x.vtu"), case_files={}, parameters={"k": 1.0})
+
+
 def test_every_variant_failing_exits_2(tmp_path, capsys):
     k_study(tmp_path)
     (tmp_path / "variants.csv").write_text("name,file,k\na,none.vtu,1\nb,nothing.vtu,2\n")
