@@ -10,7 +10,7 @@ from correlate.core.errors import OutputError, RunFolderError
 from correlate.core.folders import check_target, output_path, staged_folder
 from correlate.core.names import CAUTION
 from correlate.core.tables import write_csv
-from correlate.readers.run_folder import read_run, readings_hash
+from correlate.readers.run_folder import input_hash, read_run, readings_hash
 from correlate.report.compare_page import cell_text, render_compare_page
 
 
@@ -44,16 +44,25 @@ def run(args: argparse.Namespace) -> int:
     rows = [(k, f"{o:.4g} -> {n:.4g}") for k, (o, n) in overall.items()]
     print("overall: " + "; ".join(f"{k} {t}" for k, t in rows))
     ref = b.summary["reference_step"]
+    notes = []
     if [a.summary["reference_step"][k] for k in ("step", "sequence")] != [ref["step"],
                                                                           ref["sequence"]]:
-        print(f"note: the reference steps differ; both runs are read at NEW's step {ref['step']} "
-              f"(sequence {ref['sequence']})")
+        notes.append(f"the reference steps differ; both runs are read at NEW's step "
+                     f"{ref['step']} (sequence {ref['sequence']})")
+    ga, gb = input_hash(a, "gauges"), input_hash(b, "gauges")
+    if ga and gb and ga != gb:   # runs made before the hash was kept say nothing
+        notes.append(f"the gauge maps differ (sha256 {str(ga)[:12]}... in '{old}', "
+                     f"{str(gb)[:12]}... in '{new}'): gauge positions, directions, properties "
+                     "or the gauge set changed between the runs, so their differences are not "
+                     "the model's alone")
+    for note in notes:
+        print(f"note: {note}")
     print(line + (": " + "; ".join(reasons) if reasons else ""))
     print(CAUTION)
     if out is not None:
         html = render_compare_page(title=f"Comparison of {new} with {old}", verdict=line,
                                    reasons=reasons, old=str(old), new=str(new), reference=ref,
-                                   overall=overall, table=table)
+                                   overall=overall, table=table, notes=notes)
         with staged_folder(out, force=args.force, inputs=(old, new)) as tmp:
             write_csv(table, tmp / "compare.csv")
             (tmp / "compare.html").write_text(html, encoding="utf-8")

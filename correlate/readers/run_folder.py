@@ -87,4 +87,12 @@ def readings_hash(run: RunFolder) -> str:
                              "run`") from exc
 
 
-__all__ = ["RunFolder", "read_run", "readings_hash"]
+def input_hash(run: RunFolder, name: str) -> str | None:
+    """The sha256 of input ``name`` (gauges, model, ...) in the run's provenance, if recorded."""
+    try:
+        return str(run.summary["provenance"]["inputs"][name]["sha256"])
+    except (KeyError, TypeError):
+        return None
+
+
+__all__ = ["RunFolder", "input_hash", "read_run", "readings_hash"]

@@ -44,7 +44,8 @@ tr.improved td, tr.fixed td { background: #eef7f0; }
 <div class="result">{{ verdict }}</div>
 {% if reasons %}<ul class="reasons">{% for r in reasons %}<li>{{ r }}</li>{% endfor %}</ul>{% endif %}
 </div>
-</section>
+{% for n in notes %}<p class="box caution">Note: {{ n }}</p>
+{% endfor %}</section>
 <section id="runs">
 <h2>2. Runs</h2>
 <div class="wide"><table class="runs">
@@ -138,7 +139,7 @@ def _run_row(name: str, folder: str, summary: dict[str, Any]) -> dict[str, str]:
 
 def render_compare_page(*, title: str, verdict: str, reasons: list[str], old: str, new: str,
                         reference: dict[str, Any], overall: dict[str, tuple[float, float]],
-                        table: pd.DataFrame) -> str:
+                        table: pd.DataFrame, notes: list[str] | None = None) -> str:
     """The HTML text of ``compare.html``.
 
     ``old`` and ``new`` are the run folders; the page names each run by its model revision, and
@@ -155,6 +156,7 @@ def render_compare_page(*, title: str, verdict: str, reasons: list[str], old: st
     return Environment(autoescape=True).from_string(_HTML).render(
         title=_named(title, paths, names), verdict=line, word=word, css_class=css_class,
         reasons=[_named(r, paths, names) for r in reasons], old=names[0], new=names[1],
+        notes=[_named(n, paths, names) for n in notes or []],
         runs=[_run_row(n, f, s) for n, f, s in zip(names, paths, summaries, strict=True)],
         step=reference["step"], seq=reference["sequence"], columns=COLUMNS,
         css=(HERE / "report.css").read_text(encoding="utf-8"),

@@ -164,6 +164,29 @@ def two_runs(tmp_path: Path) -> tuple[Path, Path, pd.DataFrame, pd.DataFrame]:
     return a, b, write_run(a, old), write_run(b, new)
 
 
+def test_runs_with_other_gauge_maps_are_compared_with_a_note(real_runs: Path, tmp_path: Path,
+                                                             capsys) -> None:
+    # the same test data, but NEW was run with another gauge map (its sha256 in the
+    # provenance): a gauge moved or added changes the readings too, so the page and the
+    # terminal say that the differences are not the model's alone
+    import json
+    import shutil
+
+    other = tmp_path / "revC-moved"
+    shutil.copytree(real_runs / "revC", other)
+    summary = json.loads((other / "summary.json").read_text())
+    summary["provenance"]["inputs"]["gauges"]["sha256"] = "0" * 64
+    (other / "summary.json").write_text(json.dumps(summary))
+    assert main(["--quiet", "compare", str(real_runs / "revB"), str(real_runs / "revC")]) == 0
+    assert "gauge maps differ" not in capsys.readouterr().out
+    assert main(["--quiet", "compare", str(real_runs / "revB"), str(other), "--out",
+                 str(tmp_path / "cmp")]) == 0
+    out = capsys.readouterr().out
+    assert "note: the gauge maps differ (sha256 " in out and "000000000000... in" in out
+    html = (tmp_path / "cmp" / "compare.html").read_text(encoding="utf-8")
+    assert '<p class="box caution">Note: the gauge maps differ' in html
+
+
 def test_synthetic_runs_report_exactly_the_fixed_and_the_broken_gauge(tmp_path: Path) -> None:
     a, b, _, _ = two_runs(tmp_path)
     assert main(["compare", str(a), str(b), "--out", str(tmp_path / "cmp")]) == 0
