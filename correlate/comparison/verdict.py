@@ -31,7 +31,7 @@ DEFAULT_CRITERIA_SOURCE = "tool defaults (no criteria given in the study)"
 STATES = ("meets", "does not meet", "provisional")
 
 
-def _direction(ratio: Any, st: Statuses, names: list[str]) -> tuple[str, list[str]]:
+def overall_direction(ratio: Any, st: Statuses, names: list[str]) -> tuple[str, list[str]]:
     """Which way the model errs overall, and the gauges unconservative beyond the criterion.
 
     measured/predicted above 1: the test strains are larger than the model's, so the model
@@ -98,7 +98,7 @@ def judge(study: Study, names: list[str], fit: dict[str, Any], st: Statuses,
     state = "provisional" if provisional else leaning
     if provisional:
         provisional.append(f"the criteria alone would say the model {leaning} them")
-    direction, beyond = _direction(fit["slope_origin"], st, names)
+    direction, beyond = overall_direction(fit["slope_origin"], st, names)
     given = study.criteria_given
     return {
         "result": result, "state": state, "leaning": leaning, "reasons": reasons + provisional,

@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 
 from correlate.comparison.criteria import Statuses
-from correlate.comparison.verdict import _direction
+from correlate.comparison.verdict import overall_direction
 
 
 def _statuses(unconservative: list[bool]) -> Statuses:
@@ -24,7 +24,7 @@ def _statuses(unconservative: list[bool]) -> Statuses:
     (1.0004, "within 0.05 %"), (0.9996, "within 0.05 %"), (1.0, "within 0.05 %"),
     (1.0006, "under-predicts"), (0.9994, "over-predicts")])
 def test_direction_follows_the_printed_ratio(ratio, words):
-    text, _ = _direction(ratio, _statuses([False, False]), ["A", "B"])
+    text, _ = overall_direction(ratio, _statuses([False, False]), ["A", "B"])
     assert words in text
     assert f"{ratio:.3f}" in text
     # the printed figure and the sign written beside it never contradict each other
@@ -32,7 +32,7 @@ def test_direction_follows_the_printed_ratio(ratio, words):
 
 
 def test_unconservative_gauges_are_named_whatever_the_overall_ratio():
-    _, beyond = _direction(0.9, _statuses([False, True]), ["A", "B"])
+    _, beyond = overall_direction(0.9, _statuses([False, True]), ["A", "B"])
     assert beyond == ["B"]
-    assert _direction(float("nan"), _statuses([True, False]), ["A", "B"]) == (
+    assert overall_direction(float("nan"), _statuses([True, False]), ["A", "B"]) == (
         "the overall ratio is not defined", ["A"])
