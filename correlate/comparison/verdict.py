@@ -54,6 +54,22 @@ def overall_direction(ratio: Any, st: Statuses, names: list[str]) -> tuple[str, 
     return text, beyond
 
 
+def unit_hint(ratio: Any) -> str:
+    """A clause naming a unit slip when the overall measured/predicted ratio is about 1e-4
+    (readings in percent: 1 % is 10,000 µε) or about 1/100 or 100 (a strain in percent on one
+    side); empty otherwise."""
+    if ratio is None or not np.isfinite(ratio) or ratio == 0:
+        return ""
+    r = abs(float(ratio))
+    if 3e-5 <= r <= 3e-4:
+        return ("; about 1e-4: the readings look like percent strain (1 % is 10,000 µε), "
+                "export them in µε")
+    if 1 / 300 <= r <= 1 / 30 or 30 <= r <= 300:
+        return ("; about 100 times off: a strain in percent on one side? the model's strain is "
+                "read in m/m and the readings in µε")
+    return ""
+
+
 def judge(study: Study, names: list[str], fit: dict[str, Any], st: Statuses,
           flags: pd.DataFrame) -> dict[str, Any]:
     """The verdict: the criteria's result, and a state that is ``provisional`` while a flag
@@ -78,7 +94,7 @@ def judge(study: Study, names: list[str], fit: dict[str, Any], st: Statuses,
     reasons = []
     if not slope_ok:
         reasons.append(f"measured/predicted ratio {fit['slope_origin']:.3f} outside "
-                       f"[{crit.slope[0]:g}, {crit.slope[1]:g}]")
+                       f"[{crit.slope[0]:g}, {crit.slope[1]:g}]{unit_hint(fit['slope_origin'])}")
     if not frac_ok:
         reasons.append(f"{passing.sum()} of {n_healthy} healthy gauges pass ({frac:.0%}); "
                        f"{crit.pass_fraction:.0%} required")

@@ -46,6 +46,7 @@ MICROSTRAIN_UNITS: tuple[str, ...] = (
     "ustrain", "µstrain", "μstrain",
 )
 STRAIN_LIMIT = 0.05  # every |reading| below this while the loads vary: strain, not microstrain
+PERCENT_LIMIT = 1.0  # every |reading| below 1 µε while the loads vary: percent (or strain)
 # No strain gauge reading reaches 1e6 µε (100 % strain): foil gauges are rated to a few percent
 # and post-yield gauges to about 10-20 % (from memory), and a constant-voltage quarter bridge
 # cannot indicate 2/GF = 1e6 µε at GF 2 (its output GF e / (4 + 2 GF e) stays below 1/2, Vishay
@@ -556,8 +557,15 @@ def _warn_if_strain(table: pd.DataFrame, loads: tuple[str, ...], gauges: tuple[s
     readings = readings[np.isfinite(readings)]
     load_values = [v[np.isfinite(v)] for v in (table[ld].to_numpy(dtype=float) for ld in loads)]
     loads_vary = any(v.size and np.ptp(v) > 0 for v in load_values)
-    if readings.size and readings.max() < STRAIN_LIMIT and loads_vary:
+    if not (readings.size and loads_vary) or readings.max() >= PERCENT_LIMIT:
+        return
+    if readings.max() < STRAIN_LIMIT:
         msg = (f"{name}: every gauge reading is below {STRAIN_LIMIT} in magnitude (largest "
                f"|value| {readings.max():.3g}) while the loads vary; the channels look like "
                "strain, not microstrain: export in µε or multiply by 1e6")
-        warnings.warn(msg, CorrelateWarning, stacklevel=3)
+    else:
+        msg = (f"{name}: every gauge reading is below {PERCENT_LIMIT:g} in magnitude (largest "
+               f"|value| {readings.max():.3g}) while the loads vary; the channels look like "
+               "percent strain (1 % is 10,000 µε), not microstrain: export in µε or multiply "
+               "by 10,000")
+    warnings.warn(msg, CorrelateWarning, stacklevel=3)

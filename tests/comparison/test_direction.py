@@ -4,6 +4,8 @@ strain-based margins), and never a printed "1.000 < 1"."""
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pytest
 
@@ -36,3 +38,33 @@ def test_unconservative_gauges_are_named_whatever_the_overall_ratio():
     assert beyond == ["B"]
     assert overall_direction(float("nan"), _statuses([True, False]), ["A", "B"]) == (
         "the overall ratio is not defined", ["A"])
+
+
+@pytest.mark.parametrize(("ratio", "words"), [
+    (1.2e-4, "readings look like percent"), (0.0098, "about 100 times off"),
+    (104.0, "about 100 times off"), (1.25, ""), (0.5, ""), (float("nan"), ""), (None, ""),
+    (0.0, "")])
+def test_a_ratio_of_about_one_hundredth_or_1e4_names_the_unit_slip(ratio, words):
+    # 1 % strain is 10,000 microstrain (the definition of the units): readings exported in
+    # percent against a model in m/m give measured/predicted ~1e-4; a strain in percent on one
+    # side and m/m or microstrain on the other, ~100 or ~1/100
+    from correlate.comparison.verdict import unit_hint
+
+    hint = unit_hint(ratio)
+    assert (words in hint) if words else hint == ""
+
+
+def test_the_verdict_gives_the_unit_hint_with_the_ratio_outside_the_criterion(tmp_path):
+    from builders import block_readings, default_gauges, write_block_study
+
+    from correlate.commands.cli import main
+
+    gauges = default_gauges()
+    rows = block_readings(gauges)
+    names = list(gauges["gauge"])
+    rows[names] = rows[names] * 100.0     # readings 100 times the model's: a unit slip
+    study = write_block_study(tmp_path, readings_rows=rows, gauges=gauges)
+    assert main(["--quiet", "run", str(study), "--out", str(tmp_path / "o"), "--no-report"]) == 0
+    reasons = json.loads((tmp_path / "o" / "summary.json").read_text())["verdict"]["reasons"]
+    assert any(r.startswith("measured/predicted ratio 100.000 outside") and
+               "about 100 times off" in r for r in reasons)

@@ -297,6 +297,20 @@ def test_readings_in_strain_instead_of_microstrain_warn(tmp_path):
         _read(tmp_path, lines, gauges={"SG-01": "SG-01"})
 
 
+def test_readings_in_percent_instead_of_microstrain_warn(tmp_path):
+    # 1 % is 10,000 µε (the units' definition): percent readings of an elastic test stay below
+    # 1 in magnitude while the loads change, which no gauge read in µε does outside the noise
+    lines = ["step,load_kN,SG-01"]
+    lines += [f"{i},{10 * i},{v}" for i, v in enumerate(["0", "0.042", "-0.12"])]
+    with pytest.warns(CorrelateWarning, match=r"largest \|value\| 0\.12\) while the loads "
+                      r"vary; the channels look like percent strain"):
+        _read(tmp_path, lines, gauges={"SG-01": "SG-01"})
+    lines = ["step,load_kN,SG-01"] + [f"{i},{10 * i},{v}" for i, v in enumerate(["0", "4.2", "-12"])]
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        _read(tmp_path, lines, gauges={"SG-01": "SG-01"})   # microstrain: no warning
+
+
 def test_small_microstrain_readings_without_load_change_do_not_warn(tmp_path):
     lines = ["step,load_kN,SG-01"] + [f"{i},5,{v}" for i, v in enumerate(["0.01", "-0.02"])]
     with warnings.catch_warnings():
