@@ -40,6 +40,7 @@ from correlate.comparison.uncertainty import (
     ratio_interval,
     validation,
 )
+from correlate.core.errors import StudyError
 from correlate.core.folders import sha256
 from correlate.readers.records import Numerical, Uncertainty
 from correlate.readers.study import Study
@@ -132,9 +133,25 @@ def model_inputs(u: Uncertainty, predict: Predict) -> dict[str, ModelInput]:
     return out
 
 
-def numerical_budget(num: Numerical, S: NDArray, predict: Predict) -> GridConvergence:
-    """The GCI of each gauge and step on the combined prediction (1 = the study's own model)."""
+def numerical_budget(num: Numerical, S: NDArray, predict: Predict, source: str = "study"
+                     ) -> GridConvergence:
+    """The GCI of each gauge and step on the combined prediction (1 = the study's own model).
+
+    Raises
+    ------
+    StudyError
+        A mesh of ``[numerical]`` reads exactly as the study's own model (``source``: the study
+        file's name, for the message).
+    """
     others = [predict(mesh.file).T for mesh in num.meshes]     # one mesh at a time
+    for mesh, other in zip(num.meshes, others, strict=True):
+        # no other mesh reads the same at every gauge and step, to the last digit: the same
+        # results (the model file itself, or a copy) would give a numerical uncertainty of 0
+        if np.allclose(other, S, rtol=1e-12, atol=1e-9, equal_nan=True):
+            raise StudyError(f"{source}: [numerical] meshes: '{mesh.file.name}' gives the "
+                             "model's own readings at every gauge and step, so its grid "
+                             "convergence index would be 0: the model file or a copy of it? give "
+                             "the results on a mesh of other element sizes")
     sizes = [num.h] + [mesh.h for mesh in num.meshes]
     r32 = sizes[2] / sizes[1] if len(others) == 2 else None
     return grid_convergence(S, *others, r21=sizes[1] / sizes[0], r32=r32,
@@ -285,8 +302,17 @@ def validation_budget(study: Study, names: list[str], steps: Steps, measured: ND
     S, D = predicted.T, measured.T
     meas = measurement_budget(u, study, kt, measured, axial, transverse, *band, steps)
     inputs = model_inputs(u, predict)
+    for name, item in inputs.items():
+        # a variant that reads as the model itself has no sensitivity: its term would be 0
+        if item.variant is not None and np.allclose(item.variant, S, rtol=1e-12, atol=1e-9,
+                                                    equal_nan=True):
+            raise StudyError(f"{study.path.name}: [[uncertainty.input]] '{name}': its variant "
+                             "gives the model's own readings at every gauge and step, so its "
+                             "term would be 0: the model file or a copy of it? give the result "
+                             "solved with the input changed by its step")
     inp = input_uncertainty(S, inputs, load=u.load or None)
-    gc = numerical_budget(study.numerical, S, predict) if study.numerical else None
+    gc = numerical_budget(study.numerical, S, predict, study.path.name) if study.numerical \
+        else None
     u_num = gc.u_num if gc is not None else np.zeros_like(S)
     E = S - np.nan_to_num(D)
     v = validation(E, u_num, inp, meas, k=u.coverage, allowed=st.allowed.T)

@@ -227,6 +227,22 @@ def test_an_input_variant_gives_its_sensitivity_by_difference(tmp_path):
     np.testing.assert_allclose(rows["u_input_ue"], expect, rtol=0, atol=2e-3)  # 3 decimals
 
 
+def test_an_input_variant_that_reads_as_the_model_itself_is_refused(tmp_path, capsys):
+    # the model file named as its own variant (or a copy of it): the difference quotient of
+    # JCGM 100:2008 5.1.4 is 0 at every gauge, so the input's term would silently vanish
+    import shutil
+
+    study = _study(tmp_path, '[uncertainty]\n[[uncertainty.input]]\nname = "E"\nrelative = 0.02\n'
+                   'variant = "copy.vtu"\nstep = 0.05\n')
+    shutil.copyfile(tmp_path / "block.vtu", tmp_path / "copy.vtu")
+    assert main(["--quiet", "run", str(study), "--out", str(tmp_path / "out"), "--no-report"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert err == ["error: study.toml: [[uncertainty.input]] 'E': its variant gives the model's "
+                   "own readings at every gauge and step, so its term would be 0: the model file "
+                   "or a copy of it? give the result solved with the input changed by its step"]
+    assert not (tmp_path / "out").exists()
+
+
 def test_the_terminal_summary_gives_the_validation_line_beside_the_verdict(tmp_path, capsys):
     study = _study(tmp_path, UNCERTAINTY)
     assert main(["--quiet", "run", str(study), "--out", str(tmp_path / "out"), "--no-report"]) == 0

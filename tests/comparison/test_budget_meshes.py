@@ -134,3 +134,26 @@ def test_a_mesh_that_does_not_hold_a_case_is_refused_in_one_line(tmp_path, capsy
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and "bare.vtu" in err[0] and "E_pull" in err[0], err
     assert not (tmp_path / "out").exists()
+
+
+def test_a_mesh_that_reads_as_the_model_itself_is_refused(tmp_path, capsys):
+    # A copy of the model file given as the coarser mesh: S2 = S1 at every gauge and step, so
+    # GCI = Fs |S2 - S1| / (r^p - 1) = 0 (Roache) and the budget would claim no numerical
+    # uncertainty at all; no other mesh reads the same to the last digit
+    import shutil
+
+    gauges = _gauges()
+    study = write_block_study(tmp_path, readings_rows=block_readings(gauges), gauges=gauges,
+                              ctype="hexahedron")
+    _write_mesh(tmp_path / "block.vtu", 1.0)
+    shutil.copyfile(tmp_path / "block.vtu", tmp_path / "coarse.vtu")
+    study.write_text(study.read_text() + "[uncertainty]\n[numerical]\nh = 1.0\n"
+                     'meshes = [ { file = "coarse.vtu", h = 2.0 } ]\n')
+    assert main(["--quiet", "run", str(study), "--out", str(tmp_path / "out"),
+                 "--no-report"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert err == ["error: study.toml: [numerical] meshes: 'coarse.vtu' gives the model's own "
+                   "readings at every gauge and step, so its grid convergence index would be 0: "
+                   "the model file or a copy of it? give the results on a mesh of other element "
+                   "sizes"]
+    assert not (tmp_path / "out").exists()
