@@ -12,7 +12,7 @@ from typing import Any
 
 import pandas as pd
 
-from correlate.comparison.correlation import chain_readings
+from correlate.comparison.correlation import chain_readings, require_loads
 from correlate.comparison.pairing import load_columns
 from correlate.core.errors import CorrelateError, StudyError
 from correlate.model_readings.channels import channel_gauges
@@ -82,6 +82,8 @@ def check_study(study: Study) -> tuple[Model, pd.DataFrame, list[str]]:
             if case.name not in bad_cases:
                 for fe_index, _ in case_steps(model, case)[:1]:
                     _attempt(problems, case_rows, model, case, fe_index)
+        if study.readings_file is not None and study.loads:   # a study `run` can take
+            _attempt(problems, require_loads, study)
         if study.readings_file is not None and channels is not None:
             _attempt(problems, chain_readings, study, channels)  # the chain's inputs too
         elif study.readings_file is not None and (channels := _raw_channels(study.gauges_file)):

@@ -200,7 +200,9 @@ def height_correction(study: Study, model: Model, steps: Steps,
     return out
 
 
-def _require_loads(study: Study) -> None:
+def require_loads(study: Study) -> None:
+    """Refuse a run without readings or [[load]], or with a superposed case no [[load]] drives
+    (also used by `check`)."""
     matched = [c.match["column"] for c in study.cases if c.match and "column" in c.match]
     if study.readings_file is None or not (study.loads or matched):
         raise StudyError(f"{study.path.name}: run needs [readings] file = \"...\" and at least one "
@@ -275,7 +277,7 @@ def measured_side(study: Study, gauges: pd.DataFrame) -> MeasuredSide:
 
 
 def _compare_test(study: Study, model: Model | None, side: MeasuredSide | None) -> _Compared:
-    _require_loads(study)
+    require_loads(study)
     model = compared_model(model or prepare(study))
     names = model.gauges["gauge"].tolist()
     side = side or measured_side(study, model.gauges)

@@ -9,10 +9,11 @@ from __future__ import annotations
 
 import difflib
 import tomllib
+import warnings
 from pathlib import Path
 from typing import Any
 
-from correlate.core.errors import StudyError
+from correlate.core.errors import CorrelateWarning, StudyError
 from correlate.core.units import LENGTH_UNITS
 from correlate.readers._values import boolean as _boolean
 from correlate.readers._values import number as _number
@@ -323,6 +324,25 @@ def _loads(raw: dict[str, Any], cases: list[Case], declared: set[str], name: str
     return loads
 
 
+def _warn_loads(loads: list[Load], cases: list[Case], name: str) -> None:
+    """Warn of a superposed case that several load columns drive (added once per column):
+    usually a case name slip in one of them."""
+    if not loads:   # a study for `predict` only
+        return
+    driven: dict[str, list[str]] = {}
+    for ld in loads:
+        driven.setdefault(ld.case, []).append(ld.column)
+    for case in cases:
+        if case.is_series:   # matched to the readings by load, not superposed
+            continue
+        columns = driven.get(case.name, [])
+        if len(columns) > 1:   # none: refused by `run` and `check` (correlation.require_loads)
+            warnings.warn(f"{name}: case '{case.name}' is driven by {len(columns)} load columns "
+                          f"({', '.join(columns)}), so the model readings add it once per "
+                          "column; if a column was meant for another case, correct its [[load]] "
+                          "case", CorrelateWarning, stacklevel=3)
+
+
 def _criteria(raw: dict[str, Any], name: str, problems: list[str]) -> Criteria:
     """[criteria]: the pass rule and the verdict's thresholds."""
     crit = _table(raw, "criteria")
@@ -443,6 +463,7 @@ def parse_study(text: str, path: Path) -> Study:
     fullfield = fullfield_table(raw, base, name, problems)
     if problems:
         raise StudyError(*problems)
+    _warn_loads(loads, cases, name)
     info = {k: v for k, v in model.items() if k not in ("file", "length_unit", "stress_unit", "plane")}
     return Study(
         path=path, title=str(raw.get("title", path.stem)), model_file=model_file,  # type: ignore[arg-type]

@@ -242,3 +242,28 @@ def test_check_reports_the_problems_of_study_gauge_map_and_readings_together(tmp
     assert re.search(r"\[criteria\] relative = 10", err)
     assert re.search(r"S01.*nu0 = 28\.5", err)
     assert re.search(r"readings\.csv.*S00", err)
+
+
+def test_check_reports_a_case_no_load_drives_as_run_does(tmp_path, capsys):
+    # `check` reads everything and reports every problem `run` would refuse: a superposed case
+    # that no [[load]] drives adds nothing to any step
+    study = _study(tmp_path)
+    _toml('[[load]]\ncolumn = "S_kN"\ncase = "side"\nreference = 2.0\n', "")(study)
+    assert main(["--quiet", "check", str(study)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert err == ["error: study.toml: case 'side' has no [[load]], so it would add nothing to "
+                   "any step; add a [[load]] naming it, or remove the case from the study"]
+
+
+def test_a_case_two_load_columns_drive_is_warned(tmp_path, capsys):
+    # the side load's [[load]] names case 'pull' by a slip: 'pull' is superposed once per
+    # column (P_kN / 10 + S_kN / 2 of it) and 'side' not at all; run refuses the undriven case,
+    # and the warning says why
+    study = _study(tmp_path)
+    _toml('[[load]]\ncolumn = "S_kN"\ncase = "side"', '[[load]]\ncolumn = "S_kN"\ncase = "pull"')(
+        study)
+    assert main(["--quiet", "run", str(study), "--out", str(tmp_path / "out"), "--no-report"]) == 2
+    err = capsys.readouterr().err
+    assert ("warning: study.toml: case 'pull' is driven by 2 load columns (P_kN, S_kN), so the "
+            "model readings add it once per column") in err
+    assert "case 'side' has no [[load]]" in err
