@@ -244,6 +244,7 @@ def correlate_fullfield(corr: Correlation) -> FullFieldResult:
     R = reg.matrix[:3, :3]
     parts: list[pd.DataFrame] = []
     stats, hots = [], []
+    emptied: list[str] = []   # frames whose every point was dropped
     lead = ["frame", "step", "point", "x", "y", "z"]
     rim = 0
     last: tuple[NDArray, NDArray] | None = None      # the previous frame's points and mask
@@ -285,6 +286,9 @@ def correlate_fullfield(corr: Correlation) -> FullFieldResult:
         xyz = pm.position[k]
         stats += _stats(frame, step, corr.steps.loads[srow], corr.steps.load_names, meas, lev_k,
                         xyz, block, corr)
+        if not len(k):   # every point of the frame dropped: its statistics say so (0 points)
+            emptied.append(str(frame))
+            continue
         hots.append(_hot(frame, meas["eeq"], lev_k["eeq"], xyz))
         part = {"frame": frame, "step": step, "point": k, "x": pm.position[k, 0],
                 "y": pm.position[k, 1], "z": pm.position[k, 2]}
@@ -294,9 +298,19 @@ def correlate_fullfield(corr: Correlation) -> FullFieldResult:
             part[f"{c}_levelled_ue"] = lev_k[c] * MICROSTRAIN
             part[f"{c}_diff_ue"] = (meas[c] - lev_k[c]) * MICROSTRAIN
         parts.append(pd.DataFrame(part)[lead + [c for c in part if c not in lead]])
+    if not parts and emptied:
+        raise ReadingsFormatError(
+            f"[fullfield]: no DIC point is left to compare in any frame ({reg.n_points} distinct "
+            f"points read; {reg.dropped_snap} beyond snap_tol, {reg.dropped_edge} near a part "
+            f"edge, up to {rim} per frame near the region's boundary, edge = {ff.edge:g}); check "
+            "the registration, the DIC length_unit and edge")
     if not parts:
         raise ReadingsFormatError("[fullfield]: no frame belongs to a step the model covers; "
                                   "check the frames' steps")
+    if emptied:
+        warnings.warn(f"[fullfield]: frame(s) {', '.join(emptied)} have no point left to compare "
+                      "(all dropped near edges or the region's boundary); the other frames are "
+                      "compared", CorrelateWarning, stacklevel=2)
     points = pd.DataFrame({"point": np.arange(len(pm.kept)), "x": pm.position[:, 0],
                            "y": pm.position[:, 1], "z": pm.position[:, 2]})
     ref = ff.reference_frame if ff.reference_frame in frames.frames else _reference(parts)

@@ -68,7 +68,27 @@ class PointModel:
     operator: GaugeOperator
 
 
-def _landmark_start(lm: Landmarks, scale: float) -> tuple[NDArray, float]:
+# the distances between landmarks agree within this factor in DIC and model (a rigid transform
+# keeps them; picking errors are a small part of their spread): beyond it a unit is wrong
+LANDMARK_SCALE = 1.25
+
+
+def landmark_scale(dic: NDArray[np.float64], model: NDArray[np.float64]) -> float:
+    """The median ratio of the distances between landmarks, DIC (in model units) over model."""
+    i, j = np.triu_indices(len(dic), k=1)
+    d_dic = np.linalg.norm(dic[i] - dic[j], axis=1)
+    d_model = np.linalg.norm(model[i] - model[j], axis=1)
+    keep = d_model > 0
+    return float(np.median(d_dic[keep] / d_model[keep])) if keep.any() else float("nan")
+
+
+def _landmark_start(lm: Landmarks, scale: float, source: str = "landmarks") -> tuple[NDArray, float]:
+    ratio = landmark_scale(lm.dic * scale, lm.model)
+    if np.isfinite(ratio) and not 1 / LANDMARK_SCALE <= ratio <= LANDMARK_SCALE:
+        raise StudyError(f"{source}: the distances between the DIC landmarks are {ratio:.2g} x "
+                         "those between their model points, and a rigid registration keeps "
+                         "distances: the [fullfield] length_unit of the DIC export is probably "
+                         "wrong (or the landmarks do not match their model points); correct it")
     fit = rigid_from_landmarks(lm.dic * scale, lm.model)
     return np.asarray(fit.matrix), float(fit.rms_residual)
 
@@ -92,7 +112,8 @@ def register(points: NDArray[np.float64], ff: FullFieldSettings, locator: Locato
                              "(orthonormal, determinant +1); give a rigid transform")
         return M, None, "the study's matrix"
     assert landmarks is not None
-    M, lm_rms = _landmark_start(landmarks, scale)
+    M, lm_rms = _landmark_start(landmarks, scale,
+                                ff.landmarks.name if ff.landmarks is not None else "landmarks")
     method = (f"least-squares rigid fit to {len(landmarks.names)} landmarks (Kabsch / Horn, "
               "closed form)")
     if ff.refine != "icp":

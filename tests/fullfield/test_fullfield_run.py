@@ -397,3 +397,52 @@ def test_unit_warnings_read_the_strain_components_of_the_frame():
     # the median of the components: one component's stray slope does not decide
     stats.loc[4, "slope_origin"] = 100.0
     assert unit_warnings(stats, "G", "fraction") == []
+
+
+def test_landmarks_whose_distances_disagree_name_the_unit(tmp_path, capsys):
+    # a rigid transform keeps distances (Kabsch / Horn fit rotation and shift only): DIC
+    # landmarks written in metres while [fullfield] says mm are 1000 times too close together
+    study = _study(tmp_path)
+    lm = pd.read_csv(tmp_path / "dic" / "landmarks.csv")
+    lm[["dic_x", "dic_y", "dic_z"]] /= 1000.0
+    lm.to_csv(tmp_path / "dic" / "landmarks.csv", index=False)
+    assert main(["run", "--quiet", str(study), "--out", str(tmp_path / "o"), "--no-report"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith(
+        "error: landmarks.csv: the distances between the DIC landmarks are 0.001 x those between "
+        "their model points")
+    assert not (tmp_path / "o").exists()
+
+
+def test_frames_with_no_point_left_are_said_so(tmp_path, capsys):
+    # one frame exported with its points 100 mm beside the part (an export of another region):
+    # every point is beyond snap_tol, so it has nothing to compare; the run goes on with the
+    # others and says which. With every point of every frame dropped, the run stops in one
+    # line (before: an IndexError, an internal error).
+    study = _study(tmp_path)
+    frame = tmp_path / "dic" / "frame_3.csv"
+    df = pd.read_csv(frame)
+    df["Xc"] += 100.0
+    df.to_csv(frame, index=False)
+    assert main(["run", "--quiet", str(study), "--out", str(tmp_path / "o"), "--no-report"]) == 0
+    assert "frame(s) frame_3 have no point left to compare" in capsys.readouterr().err
+    stats = pd.read_csv(tmp_path / "o" / "fullfield_stats.csv")
+    assert (stats.loc[stats["frame"] == "frame_3", "points"] == 0).all()
+    assert (stats.loc[stats["frame"] != "frame_3", "points"] > 0).all()
+    # every frame in metres read as mm, placed by a given matrix (no landmarks to check the
+    # scale): the points cover a region 0.004 mm wide, all within edge of its boundary
+    for path in (tmp_path / "dic").glob("frame_*.csv"):
+        semicolon = ";" in path.read_text().splitlines()[0]
+        sep, dec = (";", ",") if semicolon else (",", ".")
+        df = pd.read_csv(path, sep=sep, decimal=dec)
+        df[["Xc", "Yc", "Zc"]] /= 1000.0
+        df.to_csv(path, sep=sep, decimal=dec, index=False)
+    M = np.eye(4)
+    M[:3, :3], M[:3, 3] = ROT, TRANSLATION
+    study.write_text(study.read_text().replace(
+        'register = { landmarks = "dic/landmarks.csv", refine = "icp" }',
+        f"register = {{ matrix = {M.tolist()} }}"))
+    assert main(["run", "--quiet", str(study), "--out", str(tmp_path / "p"), "--no-report"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "no DIC point is left to compare in any frame" in err[0], err
+    assert not (tmp_path / "p").exists()
