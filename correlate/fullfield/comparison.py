@@ -313,7 +313,9 @@ def correlate_fullfield(corr: Correlation) -> FullFieldResult:
                       "compared", CorrelateWarning, stacklevel=2)
     points = pd.DataFrame({"point": np.arange(len(pm.kept)), "x": pm.position[:, 0],
                            "y": pm.position[:, 1], "z": pm.position[:, 2]})
-    ref = ff.reference_frame if ff.reference_frame in frames.frames else _reference(parts)
+    # the study's frame for the report, unless it has no point left (said above)
+    ref = ff.reference_frame if ff.reference_frame in frames.frames and \
+        str(ff.reference_frame) not in emptied else _reference(parts)
     notes = unit_warnings(pd.DataFrame(stats), ref, ff.strain_unit)
     for line in notes:
         warnings.warn(line, CorrelateWarning, stacklevel=2)

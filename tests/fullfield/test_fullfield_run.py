@@ -424,8 +424,13 @@ def test_frames_with_no_point_left_are_said_so(tmp_path, capsys):
     df = pd.read_csv(frame)
     df["Xc"] += 100.0
     df.to_csv(frame, index=False)
+    study.write_text(study.read_text().replace("[fullfield]\n",
+                                               '[fullfield]\nreference_frame = "frame_3"\n'))
     assert main(["run", "--quiet", str(study), "--out", str(tmp_path / "o"), "--no-report"]) == 0
     assert "frame(s) frame_3 have no point left to compare" in capsys.readouterr().err
+    # the frame the study asked the report to show has nothing: the largest other one is shown
+    assert json.loads((tmp_path / "o" / "fullfield.json").read_text())["reference_frame"] != \
+        "frame_3"
     stats = pd.read_csv(tmp_path / "o" / "fullfield_stats.csv")
     assert (stats.loc[stats["frame"] == "frame_3", "points"] == 0).all()
     assert (stats.loc[stats["frame"] != "frame_3", "points"] > 0).all()
