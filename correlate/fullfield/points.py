@@ -82,7 +82,8 @@ def landmark_scale(dic: NDArray[np.float64], model: NDArray[np.float64]) -> floa
     return float(np.median(d_dic[keep] / d_model[keep])) if keep.any() else float("nan")
 
 
-def _landmark_start(lm: Landmarks, scale: float, source: str = "landmarks") -> tuple[NDArray, float]:
+def _landmark_start(lm: Landmarks, scale: float, source: str = "landmarks"
+                    ) -> tuple[NDArray, float]:
     ratio = landmark_scale(lm.dic * scale, lm.model)
     if np.isfinite(ratio) and not 1 / LANDMARK_SCALE <= ratio <= LANDMARK_SCALE:
         raise StudyError(f"{source}: the distances between the DIC landmarks are {ratio:.2g} x "
