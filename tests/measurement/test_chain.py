@@ -465,6 +465,7 @@ def test_a_quarter_bridge_reading_at_the_pole_of_its_correction_is_refused():
         "channel's nonlinearity to none in the gauge map"]
     ok = correct_channels(raw[:, :1], gauges=["SG-1"], nonlinear=[True], gauge_factor=[2.1])
     e = 0.9   # the closed form of TN-507 at 900,000 µε indicated
+    # rtol 1e-12: the same few operations in double precision, round-off only
     assert_allclose(ok.corrected_ue[1, 0], 2 * e / (2 - 2.1 * e) * 1e6, rtol=1e-12)
 
 
