@@ -133,6 +133,13 @@ def model_inputs(u: Uncertainty, predict: Predict) -> dict[str, ModelInput]:
     return out
 
 
+def _reads_as_model(other: NDArray, S: NDArray) -> bool:
+    """Whether a prediction on another result file equals the model's at every gauge and step,
+    to round-off. No other mesh or input variant does: the model file itself or a copy, whose
+    GCI or input term would be 0."""
+    return bool(np.allclose(other, S, rtol=1e-12, atol=1e-9, equal_nan=True))
+
+
 def numerical_budget(num: Numerical, S: NDArray, predict: Predict, source: str = "study"
                      ) -> GridConvergence:
     """The GCI of each gauge and step on the combined prediction (1 = the study's own model).
@@ -145,9 +152,7 @@ def numerical_budget(num: Numerical, S: NDArray, predict: Predict, source: str =
     """
     others = [predict(mesh.file).T for mesh in num.meshes]     # one mesh at a time
     for mesh, other in zip(num.meshes, others, strict=True):
-        # no other mesh reads the same at every gauge and step, to the last digit: the same
-        # results (the model file itself, or a copy) would give a numerical uncertainty of 0
-        if np.allclose(other, S, rtol=1e-12, atol=1e-9, equal_nan=True):
+        if _reads_as_model(other, S):
             raise StudyError(f"{source}: [numerical] meshes: '{mesh.file.name}' gives the "
                              "model's own readings at every gauge and step, so its grid "
                              "convergence index would be 0: the model file or a copy of it? give "
@@ -303,9 +308,7 @@ def validation_budget(study: Study, names: list[str], steps: Steps, measured: ND
     meas = measurement_budget(u, study, kt, measured, axial, transverse, *band, steps)
     inputs = model_inputs(u, predict)
     for name, item in inputs.items():
-        # a variant that reads as the model itself has no sensitivity: its term would be 0
-        if item.variant is not None and np.allclose(item.variant, S, rtol=1e-12, atol=1e-9,
-                                                    equal_nan=True):
+        if item.variant is not None and _reads_as_model(item.variant, S):
             raise StudyError(f"{study.path.name}: [[uncertainty.input]] '{name}': its variant "
                              "gives the model's own readings at every gauge and step, so its "
                              "term would be 0: the model file or a copy of it? give the result "

@@ -86,11 +86,16 @@ def _other_face(study: Study, model: Model, steps: Steps, j: int) -> NDArray | N
                             grid_points=study.grid_points, locator=model.locator, strict=False)
     key = "axial" if study.kt_corrected else "indicated"
     nominal = op.row_kind == 0
-    heights = mini["height"].to_numpy(dtype=float) if "height" in mini else None
     R = np.array([0.0 if c.is_series else
                   case_rows(model, c, c.fe_index, operator=op,
-                            heights=heights)[key][nominal][0] for c in study.cases])
+                            heights=_grid_heights(mini))[key][nominal][0] for c in study.cases])
     return steps.factors @ R * MICROSTRAIN
+
+
+def _grid_heights(grids: pd.DataFrame) -> NDArray | None:
+    """The gauge map's grid heights of a search's moved grids (the gauge's own, copied): their
+    names are not the map's, so :func:`case_rows` cannot look them up."""
+    return grids["height"].to_numpy(dtype=float) if "height" in grids else None
 
 
 def _evaluator(study: Study, model: Model, steps: Steps, j: int
@@ -127,8 +132,7 @@ def _evaluator(study: Study, model: Model, steps: Steps, j: int
                                  strict=False)
         key = "axial" if study.kt_corrected else "indicated"
         nominal = mini_op.row_kind == 0
-        # the moved grids stand as high above the surface as the gauge's own
-        heights = mini["height"].to_numpy(dtype=float) if "height" in mini else None
+        heights = _grid_heights(mini)
         R = np.stack([np.zeros(int(nominal.sum())) if c.is_series else
                       case_rows(model, c, c.fe_index, operator=mini_op,
                                 heights=heights)[key][nominal] for c in study.cases], axis=1)

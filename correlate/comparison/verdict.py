@@ -23,6 +23,7 @@ from correlate.comparison.dispositions import PENDING
 from correlate.comparison.pairing import Steps
 from correlate.core.folders import sha256
 from correlate.core.names import CAUTION
+from correlate.core.units import percent_off
 from correlate.model_readings.model import Model
 from correlate.readers.study import Study
 
@@ -60,11 +61,10 @@ def unit_hint(ratio: Any) -> str:
     side); empty otherwise."""
     if ratio is None or not np.isfinite(ratio) or ratio == 0:
         return ""
-    r = abs(float(ratio))
-    if 3e-5 <= r <= 3e-4:
+    if percent_off(float(ratio) * 100.0) == -1:    # about 1e-4 = (1/100) / 100
         return ("; about 1e-4: the readings look like percent strain (1 % is 10,000 µε), "
                 "export them in µε")
-    if 1 / 300 <= r <= 1 / 30 or 30 <= r <= 300:
+    if percent_off(ratio):
         return ("; about 100 times off: a strain in percent on one side? the model's strain is "
                 "read in m/m and the readings in µε")
     return ""

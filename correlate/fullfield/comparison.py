@@ -29,7 +29,7 @@ from correlate.comparison.correlation import Correlation
 from correlate.comparison.criteria import allowed_difference
 from correlate.comparison.pairing import pair_series
 from correlate.core.errors import CorrelateWarning, ReadingsFormatError
-from correlate.core.units import LENGTH_UNITS, MICROSTRAIN
+from correlate.core.units import LENGTH_UNITS, MICROSTRAIN, percent_off
 from correlate.fullfield.levelling import (
     apply_weights,
     grid_filter,
@@ -53,8 +53,6 @@ from correlate.model_readings.evaluate import centre_strain
 from correlate.readers.dic_frames import DicFrames, read_frames, read_landmarks
 
 COMPONENTS = ("exx", "eyy", "exy", "e1", "e2", "eeq")
-# measured/model slopes of about 100 or 1/100 (within this factor range): one side in percent
-PERCENT_LIKE = (30.0, 300.0)
 GAUSSIAN_BLOCK = 6.0   # blocks of 6 sigma: the full width of a Gaussian strain window
 UNFILTERED_BLOCK = 5.0  # unfiltered: blocks of 5 point spacings (errors still correlate, subsets)
 
@@ -343,13 +341,12 @@ def unit_warnings(stats: pd.DataFrame, frame: str, strain_unit: str) -> list[str
     if slopes.empty:
         return []
     f = float(np.median(np.abs(slopes)))
-    lo, hi = PERCENT_LIKE
     said = (f"[fullfield]: at frame {frame} the DIC strains are {f:.3g} x the model's (median "
             "of the components' measured/model slopes)")
-    if lo <= f <= hi:
+    if percent_off(f) == 1:
         return [f"{said}: the DIC export looks like percent read as strain_unit = "
                 f"\"{strain_unit}\"; set strain_unit to the export's unit"]
-    if f > 0 and lo <= 1.0 / f <= hi:
+    if percent_off(f) == -1:
         return [f"{said}: one of them looks like percent (the model's strain array is read in "
                 f"m/m, the DIC export as strain_unit = \"{strain_unit}\"); check both units"]
     return []

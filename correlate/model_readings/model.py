@@ -22,6 +22,7 @@ from correlate.core.errors import (
     GaugeError,
     ModelError,
 )
+from correlate.core.units import FULL_STRAIN
 from correlate.model_readings.conventions import convention_warnings
 from correlate.model_readings.evaluate import evaluate_rows
 from correlate.model_readings.gradients import nodal_strain, rotation_at_points
@@ -39,10 +40,6 @@ from correlate.readers.gauges import read_gauges
 from correlate.readers.model import Mesh, ModelSource, find_array, open_model
 from correlate.readers.named_arrays import arrays_of_cases
 from correlate.readers.study import Case, Study
-
-# 100 % strain [m/m]: no strain gauge reads it (the readings refuse 1e6 µε likewise), so a model
-# strain there at a gauge is an array in other units
-STRAIN_RANGE = 1.0
 
 
 @dataclass
@@ -379,10 +376,11 @@ def case_rows(model: Model, case: Case, fe_index: int | None,
 
 
 def check_range(op: GaugeOperator, fld: Any, rows: dict[str, NDArray[np.float64]]) -> None:
-    """Refuse model strains of :data:`STRAIN_RANGE` or more along or across a gauge's grid."""
+    """Refuse model strains of 100 % (``core.units.FULL_STRAIN``) or more along or across a
+    gauge's grid: no gauge reads them, so the array is in other units."""
     own = op.row_kind != 2
     size = np.fmax(np.abs(rows["axial"]), np.abs(rows["transverse"]))
-    big = own & (size >= STRAIN_RANGE)
+    big = own & (size >= FULL_STRAIN)
     if big.any():
         gauges = [op.gauges[g] for g in np.unique(op.row_gauge[big])]   # in the map's order
         shown = ", ".join(gauges[:8]) + (f" and {len(gauges) - 8} more" if len(gauges) > 8 else "")

@@ -24,6 +24,7 @@ from numpy.typing import NDArray
 
 from correlate.core.errors import ReadingsFormatError, StudyError
 from correlate.core.headers import read_csv_table
+from correlate.core.units import FULL_STRAIN
 from correlate.readers.fullfield_study import STRAIN_UNITS, FullFieldSettings, natural_key
 
 LANDMARK_COLUMNS = ("landmark", "dic_x", "dic_y", "dic_z", "model_x", "model_y", "model_z")
@@ -130,7 +131,7 @@ def _standard(raw: pd.DataFrame, path: Path, ff: FullFieldSettings) -> pd.DataFr
     scale = STRAIN_UNITS[ff.strain_unit]
     for k in STRAINS:
         out[k] = out[k] * scale
-        big = np.flatnonzero(np.abs(out[k].to_numpy()) >= 1.0)
+        big = np.flatnonzero(np.abs(out[k].to_numpy()) >= FULL_STRAIN)
         if len(big):   # 100 % strain: as for the gauges, no measurement here reads it
             row = int(big[0])
             raise ReadingsFormatError(

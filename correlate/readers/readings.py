@@ -26,6 +26,7 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from correlate.core.errors import CorrelateWarning, ReadingsFormatError
+from correlate.core.units import FULL_STRAIN, MICROSTRAIN
 
 __all__ = ["DEFAULT_SENTINELS", "GAUGE_RANGE_UE", "MICROSTRAIN_UNITS", "STRAIN_LIMIT", "Readings",
            "read_readings"]
@@ -47,11 +48,7 @@ MICROSTRAIN_UNITS: tuple[str, ...] = (
 )
 STRAIN_LIMIT = 0.05  # every |reading| below this while the loads vary: strain, not microstrain
 PERCENT_LIMIT = 1.0  # every |reading| below 1 µε while the loads vary: percent (or strain)
-# No strain gauge reading reaches 1e6 µε (100 % strain): foil gauges are rated to a few percent
-# and post-yield gauges to about 10-20 % (from memory), and a constant-voltage quarter bridge
-# cannot indicate 2/GF = 1e6 µε at GF 2 (its output GF e / (4 + 2 GF e) stays below 1/2, Vishay
-# TN-507). A value there is an instrument's code or not microstrain.
-GAUGE_RANGE_UE = 1e6
+GAUGE_RANGE_UE = FULL_STRAIN * MICROSTRAIN   # no gauge reads 100 % strain (core.units)
 _STEP, _SEQUENCE = "step", "sequence"
 PARQUET_SUFFIXES = (".parquet", ".pq")
 _PYARROW_MIN_BYTES = 1 << 18  # measured: below about 250 kB pandas' C engine is faster
@@ -540,15 +537,14 @@ def _check_range(table: pd.DataFrame, gauge_columns: dict[str, str], lines: NDAr
                  name: str) -> None:
     """Refuse a gauge reading of :data:`GAUGE_RANGE_UE` or more in magnitude: no gauge reads it,
     and passed on it would come out of the quarter-bridge correction as a plausible number."""
-    problems = []
-    for gauge, column in gauge_columns.items():
-        values = table[gauge].to_numpy(dtype=float)
-        for i in np.flatnonzero(np.abs(values) >= GAUGE_RANGE_UE):
-            problems.append((i, f"{name} line {lines[i]}, column {column}: {values[i]:g} µε is "
-                                f"beyond any strain gauge's range ({GAUGE_RANGE_UE:g} µε is 100 % "
-                                "strain): an instrument's overrange code or not microstrain; "
-                                "list the value in [readings] sentinels or correct the cell"))
-    _raise([msg for _, msg in sorted(problems, key=lambda p: p[0])], name)
+    values = table[list(gauge_columns)].to_numpy(dtype=float)
+    with np.errstate(invalid="ignore"):
+        rows, cols = np.nonzero(np.abs(values) >= GAUGE_RANGE_UE)   # row by row
+    columns = list(gauge_columns.values())
+    _raise([f"{name} line {lines[i]}, column {columns[j]}: {values[i, j]:g} µε is beyond any "
+            f"strain gauge's range ({GAUGE_RANGE_UE:g} µε is 100 % strain): an instrument's "
+            "overrange code or not microstrain; list the value in [readings] sentinels or "
+            "correct the cell" for i, j in zip(rows, cols, strict=True)], name)
 
 
 def _warn_if_strain(table: pd.DataFrame, loads: tuple[str, ...], gauges: tuple[str, ...],

@@ -79,12 +79,12 @@ def _check_summary(summary: Any, path: Path) -> None:
 
 def readings_hash(run: RunFolder) -> str:
     """The sha256 of the readings input recorded in the run's provenance."""
-    try:
-        return str(run.summary["provenance"]["inputs"]["readings"]["sha256"])
-    except (KeyError, TypeError) as exc:
+    found = input_hash(run, "readings")
+    if found is None:
         raise RunFolderError(f"{run.path / 'summary.json'}: provenance.inputs.readings.sha256 is "
                              "missing, so the test data cannot be checked; rerun `correlate "
-                             "run`") from exc
+                             "run`")
+    return found
 
 
 def input_hash(run: RunFolder, name: str) -> str | None:

@@ -380,9 +380,10 @@ def test_frames_in_percent_read_as_fractions_are_warned_in_the_report(tmp_path, 
     assert main(["run", "--quiet", str(study), "--out", str(tmp_path / "p"), "--no-report"]) == 0
     assert "looks like percent" not in capsys.readouterr().err
     stats = pd.read_csv(tmp_path / "p" / "fullfield_stats.csv")
-    # the exact field in a filter-free comparison: unit slope to the DIC's position noise
+    # the exact field, unfiltered: slope 1 within 1e-3, as in test_statistics_per_frame_give_a_
+    # unit_slope (2 um position noise on the points; the percent round trip adds only round-off)
     np.testing.assert_allclose(stats.loc[stats["component"] == "exx", "slope_origin"], 1.0,
-                               rtol=0, atol=5e-3)
+                               rtol=0, atol=1e-3)
 
 
 def test_unit_warnings_read_the_strain_components_of_the_frame():

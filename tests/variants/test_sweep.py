@@ -288,21 +288,20 @@ def test_variants_with_the_same_parameters_but_other_readings_are_warned(tmp_pat
     assert said[0] in capsys.readouterr().err
     assert ident["identifiable"]   # a warning about the table, not about identifiability
     assert "have the same parameters" in (tmp_path / "o" / "sweep.html").read_text()
-    # readings the same to the CSV's precision (0.01 ue) are the same model: no warning
+
+
+def test_readings_within_the_csv_precision_count_as_the_same_model():
+    # 0.01 ue, the precision readings are written to: a re-export of the same result with other
+    # bytes reads within it and gets no warning; beyond it, the readings differ
     from correlate.variants.results import same_parameters
-
-    variants = [dataclasses.replace(v, name=n, row=r) for v, n, r in
-                [(_variant_stub(), "a", 2), (_variant_stub(), "b", 3)]]
-    P = np.array([[1.0], [1.0]])
-    assert same_parameters(variants, P, np.array([[100.0, 5.0], [100.005, 5.0]]), "t.csv") == []
-    assert len(same_parameters(variants, P, np.array([[100.0, 5.0], [100.02, 5.0]]),
-                               "t.csv")) == 1
-
-
-def _variant_stub():
     from correlate.variants.sweep_file import Variant
 
-    return Variant(name="", row=0, file=Path("x.vtu"), case_files={}, parameters={"k": 1.0})
+    variants = [Variant(name=n, row=r, file=Path("x.vtu"), case_files={}, parameters={"k": 1.0})
+                for n, r in (("a", 2), ("b", 3))]
+    P = np.array([[1.0], [1.0]])
+    assert same_parameters(variants, P, np.array([[100.0, 5.0], [100.005, 5.0]]), "t.csv") == []
+    lines = same_parameters(variants, P, np.array([[100.0, 5.0], [100.02, 5.0]]), "t.csv")
+    assert len(lines) == 1 and "'a' (row 2), 'b' (row 3)" in lines[0]
 
 
 def test_every_variant_failing_exits_2(tmp_path, capsys):
