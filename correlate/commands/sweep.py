@@ -48,7 +48,7 @@ def sweep_inputs(sweep: Sweep) -> list[Path]:
     """Every file the sweep reads: the sweep file, its table, the study's inputs, the variants."""
     files = [sweep.path, sweep.table_file, *study_inputs(sweep.study)]
     for v in sweep.variants:
-        files += [v.file, *v.case_files.values()]
+        files += [*([v.file] if v.file else []), *v.case_files.values()]
     return files
 
 

@@ -49,7 +49,7 @@ def variants_table(sweep: Sweep, results: dict[str, VariantResult]) -> pd.DataFr
     rows = []
     for v in sweep.variants:
         r = results[v.name]
-        row: dict[str, Any] = {"variant": v.name, "file": str(v.file)}
+        row: dict[str, Any] = {"variant": v.name, "file": str(v.file or "")}
         row.update(v.parameters)
         row.update({c: r.metrics.get(c) for c in [*(c for c, _ in METRICS), *validation]})
         row["failure"] = r.failure

@@ -48,7 +48,8 @@ class Variant:
 
     name: str
     row: int                             # spreadsheet row (header = 1)
-    file: Path                           # the model result standing for the study's [model] file
+    file: Path | None                    # the model result standing for the study's [model]
+                                         # file; None when the table's cell is empty
     case_files: dict[str, Path]          # per-case files (``file:<case>`` columns)
     parameters: dict[str, float]         # NaN where the table's cell is not a number
     problem: str = ""                    # why the row cannot be a variant (recorded, not raised)
@@ -181,11 +182,14 @@ def _table(table_file: Path, parameters: tuple[str, ...], study: Study) -> tuple
             text = rec[p].replace(",", ".") if sep == ";" else rec[p]   # decimal commas
             values[p], problem = _number(text, name, row, p)
             problems += [problem] if problem else []
-        files = {c[len(FILE_PREFIX):]: _relative(table_file, rec[c], name, row, c)
+        files = {c[len(FILE_PREFIX):]: _relative(table_file, rec[c])
                  for c in per_case if rec[c].strip()}
-        out.append(Variant(name=vname, row=row, file=_relative(table_file, rec["file"], name, row,
-                                                               "file"),
-                           case_files=files, parameters=values, problem="; ".join(problems)))
+        file = _relative(table_file, rec["file"]) if rec["file"].strip() else None
+        if file is None:   # fails this variant only, as a missing file does
+            problems.insert(0, f"{name}: row {row}, column file: empty; give the variant's model "
+                               "result file (relative to the table)")
+        out.append(Variant(name=vname, row=row, file=file, case_files=files, parameters=values,
+                           problem="; ".join(problems)))
     return tuple(out)
 
 
@@ -202,10 +206,7 @@ def _number(text: str, name: str, row: int, column: str) -> tuple[float, str]:
     return value, ""
 
 
-def _relative(table_file: Path, text: str, name: str, row: int, column: str) -> Path:
-    if not text.strip():
-        raise StudyError(f"{name}: row {row}, column {column}: empty; give the variant's model "
-                         "result file (relative to the table)")
+def _relative(table_file: Path, text: str) -> Path:
     # not checked for existence: a missing file fails that variant only (recorded, not fatal)
     return (table_file.parent / text.strip()).resolve()
 

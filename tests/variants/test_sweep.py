@@ -212,7 +212,7 @@ def test_bad_variants_are_recorded_and_the_sweep_goes_on(tmp_path, capsys):
                                                      point_data=block.point_data))
     table = tmp_path / "variants.csv"
     table.write_text(table.read_text() + "gone,missing.vtu,1.0\nwords,k0.vtu,stiff\n"
-                     "short,short.vtu,1.0\nnoarray,k0.vtu,1.0\n")
+                     "short,short.vtu,1.0\nnoarray,k0.vtu,1.0\nblank,,2.0\n")
     # the array-less variant: a file without E_side
     meshio.write(tmp_path / "noarray.vtu", meshio.Mesh(block.points, block.cells,
                                                        point_data={"E_pull": block.point_data[
@@ -232,11 +232,15 @@ def test_bad_variants_are_recorded_and_the_sweep_goes_on(tmp_path, capsys):
                                           "number; parameter columns hold numbers only")
     assert "S00" in df.loc["short", "failure"]
     assert "E_side" in df.loc["noarray", "failure"]
-    assert list(df.loc[["gone", "words", "short", "noarray"], "rank"]) == [""] * 4
+    # an empty file cell fails its row only, as a missing file does (it stopped the sweep)
+    assert df.loc["blank", "failure"] == ("variants.csv: row 9, column file: empty; give the "
+                                          "variant's model result file (relative to the table)")
+    assert df.loc["blank", "file"] == ""
+    assert list(df.loc[["gone", "words", "short", "noarray", "blank"], "rank"]) == [""] * 5
     assert sorted(df.loc[["k0", "k1", "k2"], "rank"]) == ["1", "2", "3"]
-    for name in ("gone", "words", "short", "noarray"):
+    for name in ("gone", "words", "short", "noarray", "blank"):
         assert f"error: variant '{name}'" in captured.err
-    assert "7 variants: 5 computed, 0 from the cache, 4 failed" in captured.out
+    assert "8 variants: 5 computed, 0 from the cache, 5 failed" in captured.out
     assert {p.name: p.read_bytes() for p in tmp_path.iterdir() if p.is_file()} == inputs
 
 
