@@ -103,12 +103,24 @@ def read_table(path: Path) -> pd.DataFrame:
                               "Parquet, VTP or VTU")
 
 
+def _cell(path: Path, row: int, column: str) -> str:
+    """Where value ``row`` (from 0) of ``column`` stands in the file, as its viewers count: the
+    spreadsheet row of a CSV (header = 1), the record of a Parquet table and the point of a VTK
+    cloud (both from 0, as pandas and VTK number them)."""
+    suffix = path.suffix.lower()
+    if suffix == ".parquet":
+        return f"record {row} (from 0), column '{column}'"
+    if suffix in (".vtp", ".vtu"):
+        return f"point {row} (from 0), array '{column}'"
+    return f"row {row + 2}, column '{column}'"
+
+
 def _numeric(raw: pd.DataFrame, col: str, path: Path) -> NDArray[np.float64]:
     values = pd.to_numeric(raw[col], errors="coerce")
     bad = values.isna() & raw[col].notna() & (raw[col].astype(str).str.strip() != "")
     if bad.any():
         row = int(np.flatnonzero(bad.to_numpy())[0])
-        raise ReadingsFormatError(f"{path.name}: row {row + 2}, column '{col}' holds "
+        raise ReadingsFormatError(f"{path.name}: {_cell(path, row, col)} holds "
                                   f"{raw[col].iloc[row]!r}, not a number; fix or blank it")
     return values.to_numpy(dtype=float)
 
@@ -135,7 +147,7 @@ def _standard(raw: pd.DataFrame, path: Path, ff: FullFieldSettings) -> pd.DataFr
         if len(big):   # 100 % strain: as for the gauges, no measurement here reads it
             row = int(big[0])
             raise ReadingsFormatError(
-                f"{path.name}: row {row + 2}, column '{names[k]}' holds "
+                f"{path.name}: {_cell(path, row, names[k])} holds "
                 f"{out[k].iloc[row] / scale:g}, a strain of {abs(out[k].iloc[row]) * 100:.3g} % "
                 f"read as strain_unit = \"{ff.strain_unit}\" ({len(big)} value(s) of 100 % or "
                 "more in the column): set [fullfield] strain_unit to the export's unit "

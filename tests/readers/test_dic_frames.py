@@ -113,6 +113,31 @@ def test_non_numeric_value_names_row_and_column(tmp_path):
         read_frames(_settings(tmp_path, _toml("f_1.csv")))
 
 
+def test_a_bad_value_of_a_parquet_table_or_vtk_cloud_is_named_as_its_viewers_count(tmp_path):
+    # a CSV's rows are counted as a spreadsheet shows them (header = 1); a Parquet table has no
+    # header row and pandas numbers its records from 0, a VTK cloud its points from 0 (VTK's
+    # own point ids, common practice in its viewers): "row 4" there pointed two places off
+    import pyvista as pv
+
+    df = _export().assign(step=1)
+    df["eps_xx"] = df["eps_xx"].astype(str)     # a text column, as some exports write
+    df.loc[2, "eps_xx"] = "n/a?"
+    df.to_parquet(tmp_path / "f_1.parquet")
+    with pytest.raises(ReadingsFormatError,
+                       match=r"f_1.parquet: record 2 \(from 0\), column 'eps_xx' holds 'n/a\?'"):
+        read_frames(_settings(tmp_path, _toml("f_1.parquet")))
+    df = _export()
+    cloud = pv.PolyData(np.c_[df["X [mm]"], df["Y [mm]"], np.zeros(len(df))])
+    for col in ("eps_xx", "eps_yy", "gamma_xy"):
+        cloud.point_data[col] = df[col].to_numpy()
+    cloud.point_data["eps_yy"][3] = 250.0      # 250 % in percent: past 100 % strain
+    cloud.point_data["step"] = np.full(len(df), 2.0)
+    cloud.save(str(tmp_path / "f_1.vtp"))
+    with pytest.raises(ReadingsFormatError,
+                       match=r"f_1.vtp: point 3 \(from 0\), array 'eps_yy' holds 250, "):
+        read_frames(_settings(tmp_path, _toml("f_1.vtp")))
+
+
 def test_bad_table_entries_each_get_a_line(tmp_path):
     problems: list[str] = []
     _settings(tmp_path, '[fullfield]\nfiles = "none_*.csv"\nmeasure = "log"\n'
