@@ -87,15 +87,10 @@ def _other_face(study: Study, model: Model, steps: Steps, j: int) -> NDArray | N
     key = "axial" if study.kt_corrected else "indicated"
     nominal = op.row_kind == 0
     R = np.array([0.0 if c.is_series else
-                  case_rows(model, c, c.fe_index, operator=op,
-                            heights=_grid_heights(mini))[key][nominal][0] for c in study.cases])
+                  case_rows(model, c, c.fe_index, operator=op)[key][nominal][0]
+                  for c in study.cases])
     return steps.factors @ R * MICROSTRAIN
 
-
-def _grid_heights(grids: pd.DataFrame) -> NDArray | None:
-    """The gauge map's grid heights of a search's moved grids (the gauge's own, copied): their
-    names are not the map's, so :func:`case_rows` cannot look them up."""
-    return grids["height"].to_numpy(dtype=float) if "height" in grids else None
 
 
 def _evaluator(study: Study, model: Model, steps: Steps, j: int
@@ -132,10 +127,9 @@ def _evaluator(study: Study, model: Model, steps: Steps, j: int
                                  strict=False)
         key = "axial" if study.kt_corrected else "indicated"
         nominal = mini_op.row_kind == 0
-        heights = _grid_heights(mini)
         R = np.stack([np.zeros(int(nominal.sum())) if c.is_series else
-                      case_rows(model, c, c.fe_index, operator=mini_op,
-                                heights=heights)[key][nominal] for c in study.cases], axis=1)
+                      case_rows(model, c, c.fe_index, operator=mini_op)[key][nominal]
+                      for c in study.cases], axis=1)
         return R @ steps.factors.T * MICROSTRAIN   # (k, s)
 
     return evaluate

@@ -250,7 +250,8 @@ def point_operator(mesh: Mesh, on: SurfacePoints, ex: NDArray[np.float64],
                          face=np.full(n, "", dtype="<U1"), weights=ident,
                          row_gauge=np.arange(n, dtype=np.int64),
                          row_kind=np.ones(n, dtype=np.int64), row_offset=np.zeros((n, 3)),
-                         kt=np.zeros(n), nu0=np.zeros(n), invalid=np.zeros(n, dtype=bool),
+                         kt=np.zeros(n), nu0=np.zeros(n), height=np.zeros(n),
+                         invalid=np.zeros(n, dtype=bool),
                          centre_points=np.arange(n, dtype=np.int64))
 
 

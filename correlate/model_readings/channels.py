@@ -116,6 +116,7 @@ def compared_model(model: Model) -> Model:
         row_kind=np.r_[op.row_kind[keep_rows], combo.row_kind],
         row_offset=np.vstack([op.row_offset[keep_rows], combo.row_offset]),
         kt=np.r_[op.kt[keep], op.kt[first]], nu0=np.r_[op.nu0[keep], op.nu0[first]],
+        height=np.r_[op.height[keep], op.height[first]],
         invalid=np.r_[op.invalid[keep], [op.invalid[m].any() for m in members]],
         centre_points=np.r_[op.centre_points[keep], op.centre_points[first]])
     arm_weights = [[(i, 1.0)] for i in keep] + [

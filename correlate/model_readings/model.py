@@ -337,13 +337,11 @@ def case_problems(study: Study, sources: dict[Path, ModelSource], case: Case) ->
 
 
 def case_rows(model: Model, case: Case, fe_index: int | None,
-              operator: GaugeOperator | None = None,
-              heights: NDArray[np.float64] | None = None) -> dict[str, NDArray[np.float64]]:
-    """Operator rows of one case (one FE state), in m/m; mechanical for a thermal case.
+              operator: GaugeOperator | None = None) -> dict[str, NDArray[np.float64]]:
+    """Operator rows of one case (one FE state), in m/m; mechanical for a thermal case; read at
+    each grid's height when the operator's gauges have one (gauge-map column ``height``).
 
-    ``operator``: another operator on the model's mesh (a search's moved grids); ``heights``
-    its gauges' grid heights (g,), which it cannot find by name in the gauge map (default:
-    the gauge map's ``height`` by gauge id).
+    ``operator``: another operator on the model's mesh (a search's moved grids).
     """
     if operator is None:
         combined = model.channel_rows(case, fe_index)
@@ -358,11 +356,9 @@ def case_rows(model: Model, case: Case, fe_index: int | None,
         if fld.index is not None:  # the checks average over whole cells: read the whole step
             fld = model.case_field(case, fe_index)
         rows.update(_displacement_checks(model, case, fld))
-    heights = _heights(model, op) if heights is None else (
-        heights if np.nan_to_num(heights).any() else None)
-    if heights is not None:
+    if np.nan_to_num(op.height).any():
         whole = fld if fld.index is None else model.case_field(case, fe_index)
-        delta = height_strain(op, whole, heights, thickness=model.study.model_info.get(
+        delta = height_strain(op, whole, op.height, thickness=model.study.model_info.get(
             "thickness"), warn=operator is None)
         rows = raised_rows(op, rows, delta)
     if case.thermal is not None:
@@ -389,14 +385,6 @@ def check_range(op: GaugeOperator, fld: Any, rows: dict[str, NDArray[np.float64]
                          "model's strain is read in m/m, and 1 is 100 % strain, beyond any strain "
                          "gauge: the array looks like microstrain or percent; write it in m/m")
 
-
-def _heights(model: Model, op: GaugeOperator) -> NDArray[np.float64] | None:
-    """Grid height per gauge of ``op`` (gauge-map column ``height``), None when none is given."""
-    if "height" not in model.gauges or not np.nan_to_num(
-            model.gauges["height"].to_numpy(dtype=float)).any():
-        return None
-    h = model.gauges.set_index("gauge")["height"].reindex(op.gauges).to_numpy(dtype=float)
-    return h if np.nan_to_num(h).any() else None
 
 
 def _displacement_checks(model: Model, case: Case, fld: Any) -> dict[str, Any]:

@@ -74,6 +74,7 @@ class GaugeOperator:
     row_offset: NDArray[np.float64]  # (r, 3): along-grid offset, across offset, angle [deg]
     kt: NDArray[np.float64]          # (g,)
     nu0: NDArray[np.float64]         # (g,)
+    height: NDArray[np.float64]      # (g,) grid height above the surface, 0 for none [length]
     invalid: NDArray[np.bool_]       # (g,) gauges whose grid left the face (non-strict builds)
     centre_points: NDArray[np.int64]  # (g,) each gauge's centre sample (a bridge: its 1st arm's)
     _store: dict = field(default_factory=dict, repr=False, compare=False)
@@ -269,7 +270,9 @@ def build_operator(mesh: Mesh, gauges: pd.DataFrame, *, position_tol: float = 0.
                        strict=strict)
     kt = gauges["kt"].to_numpy(dtype=float)
     nu0 = gauges["nu0"].fillna(calibration_poisson).to_numpy(dtype=float)
-    return _assemble(mesh, c, s, row_gauge, row_kind, row_off, kt, nu0, strict=strict)
+    height = (gauges["height"].fillna(0.0).to_numpy(dtype=float) if "height" in gauges
+              else np.zeros(n))
+    return _assemble(mesh, c, s, row_gauge, row_kind, row_off, kt, nu0, height, strict=strict)
 
 
 def _locate_centres(mesh: Mesh, locator: Locator, gauges: pd.DataFrame, *, snap_tol: float,
@@ -494,7 +497,8 @@ def _overhang_line(mesh: Mesh, gauge: str, flipped: bool, length: float) -> str:
 
 
 def _assemble(mesh: Mesh, c: _Centres, s: _Samples, row_gauge: NDArray, row_kind: NDArray,
-              row_off: NDArray, kt: NDArray, nu0: NDArray, *, strict: bool = True
+              row_off: NDArray, kt: NDArray, nu0: NDArray, height: NDArray, *,
+              strict: bool = True
               ) -> GaugeOperator:
     """Weight the sample points into rows, dropping band rows whose grid left the face (a
     misplaced gauge cannot overhang an edge either); check the cells under each gauge (not
@@ -521,7 +525,8 @@ def _assemble(mesh: Mesh, c: _Centres, s: _Samples, row_gauge: NDArray, row_kind
                          xi=s.xi[keep_pt], direction=p_d[keep_pt], transverse=p_t[keep_pt],
                          face=c.faces[row_gauge[s.row[keep_pt]]], weights=W,
                          row_gauge=row_gauge[keep_rows], row_kind=row_kind[keep_rows],
-                         row_offset=row_off[keep_rows], kt=kt, nu0=nu0, invalid=invalid,
+                         row_offset=row_off[keep_rows], kt=kt, nu0=nu0, height=height,
+                         invalid=invalid,
                          centre_points=W[centre_rows].indices)
 
 
