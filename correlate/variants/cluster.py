@@ -50,13 +50,19 @@ def local_cluster(workers: int) -> Any:
     threshold at 128 kB: every array a variant reads is then mapped afresh and page-faulted,
     about 25 % of a one-array variant's task (benchmarks/RESULTS.md). One task at a time per
     worker reuses the same sizes, so glibc's own threshold is kept.
+
+    No dashboard; the scheduler's small HTTP server (health and metrics routes, always started)
+    listens on a free port of this machine's loopback, not on 8787 of every interface: with
+    another Dask dashboard running, 8787 was taken and the sweep printed Dask's "Port 8787 is
+    already in use" and an unclosed-socket warning.
     """
     import dask
     from dask.distributed import LocalCluster
 
     with dask.config.set({"distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_": None}):
         return LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
-                            dashboard_address=None, silence_logs=logging.ERROR)
+                            dashboard_address=None, silence_logs=logging.ERROR,
+                            scheduler_kwargs={"dashboard_address": "127.0.0.1:0"})
 
 
 def compute_variants(

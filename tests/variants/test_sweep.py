@@ -545,3 +545,29 @@ def test_the_worker_neither_hashes_files_nor_reads_the_test_again(tmp_path, monk
     np.testing.assert_allclose(anew.predicted, reused.predicted, rtol=1e-9, atol=1e-9)
     np.testing.assert_array_equal(anew.measured, reused.measured)
     assert anew.metrics["verdict"] == reused.metrics["verdict"]
+
+
+def test_a_sweeps_cluster_leaves_port_8787_alone(recwarn):
+    # Dask's scheduler starts an HTTP server even without a dashboard, on 8787 by default; with
+    # another Dask dashboard on the machine the sweep printed "Port 8787 is already in use" and
+    # an unclosed-socket warning (distributed.node.start_http_server, read in site-packages)
+    from correlate.variants.cluster import local_cluster
+
+    holder = socket.socket()
+    try:
+        holder.bind(("0.0.0.0", 8787))   # when it is free; taken by another process is the same
+        holder.listen()
+    except OSError:
+        pass
+    try:
+        cluster = local_cluster(1)
+        try:
+            http = cluster.scheduler.http_server
+            ports = {s.getsockname()[:2] for s in http._sockets.values()}
+        finally:
+            cluster.close()
+    finally:
+        holder.close()
+    assert all(host == "127.0.0.1" and port != 8787 for host, port in ports), ports
+    said = [str(w.message) for w in recwarn.list]
+    assert not [m for m in said if "8787" in m or "unclosed" in m], said
