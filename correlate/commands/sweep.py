@@ -158,7 +158,8 @@ def run(args: argparse.Namespace) -> int:
     for line, names in _warnings(sweep, results).items():
         which = names[0] if len(names) == 1 else f"{len(names)} variants, e.g. {names[0]}"
         print(f"warning: ({which}) {line}", file=sys.stderr)
-    print(f"{len(sweep.variants)} variants: {computed} computed, {cached} from the cache, "
+    n = len(sweep.variants)
+    print(f"{n} variant{'s' if n != 1 else ''}: {computed} computed, {cached} from the cache, "
           f"{len(failed)} failed")
     if len(failed) == len(sweep.variants):
         print(f"error: {sweep.path.name}: every variant failed (reasons above and in "

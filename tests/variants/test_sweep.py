@@ -316,6 +316,10 @@ def test_every_variant_failing_exits_2(tmp_path, capsys):
     err = capsys.readouterr().err
     assert code == 2
     assert "every variant failed" in err and "none.vtu" in err and "nothing.vtu" in err
+    (tmp_path / "variants.csv").write_text("name,file,k\na,none.vtu,1\n")
+    assert main(["--quiet", "sweep", str(write_sweep(tmp_path)), "--out", str(tmp_path / "o"),
+                 "--workers", "1"]) == 2
+    assert "1 variant: 0 computed, 0 from the cache, 1 failed" in capsys.readouterr().out
 
 
 def test_a_folder_of_another_sweep_is_refused_without_force(tmp_path, capsys):
