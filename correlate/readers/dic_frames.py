@@ -104,12 +104,12 @@ def read_table(path: Path) -> pd.DataFrame:
 
 
 def _cell(path: Path, row: int, column: str) -> str:
-    """Where value ``row`` (from 0) of ``column`` stands in the file, as its viewers count: the
-    spreadsheet row of a CSV (header = 1), the record of a Parquet table and the point of a VTK
-    cloud (both from 0, as pandas and VTK number them)."""
+    """Where value ``row`` (from 0) of ``column`` stands in the file: the spreadsheet row of a
+    CSV (header = 1), the row of a Parquet table counted from 1 (as the readings' messages count
+    them) and the point of a VTK cloud counted from 0 (VTK's point ids)."""
     suffix = path.suffix.lower()
     if suffix == ".parquet":
-        return f"record {row} (from 0), column '{column}'"
+        return f"row {row + 1} (from 1, no header row), column '{column}'"
     if suffix in (".vtp", ".vtu"):
         return f"point {row} (from 0), array '{column}'"
     return f"row {row + 2}, column '{column}'"

@@ -115,8 +115,8 @@ def test_non_numeric_value_names_row_and_column(tmp_path):
 
 def test_a_bad_value_of_a_parquet_table_or_vtk_cloud_is_named_as_its_viewers_count(tmp_path):
     # a CSV's rows are counted as a spreadsheet shows them (header = 1); a Parquet table has no
-    # header row and pandas numbers its records from 0, a VTK cloud its points from 0 (VTK's
-    # own point ids, common practice in its viewers): "row 4" there pointed two places off
+    # header row, so its rows count from 1 as the readings' Parquet messages count them, and a
+    # VTK cloud's points from 0 (VTK's own point ids): "row 4" there pointed one or two off
     import pyvista as pv
 
     df = _export().assign(step=1)
@@ -124,7 +124,8 @@ def test_a_bad_value_of_a_parquet_table_or_vtk_cloud_is_named_as_its_viewers_cou
     df.loc[2, "eps_xx"] = "n/a?"
     df.to_parquet(tmp_path / "f_1.parquet")
     with pytest.raises(ReadingsFormatError,
-                       match=r"f_1.parquet: record 2 \(from 0\), column 'eps_xx' holds 'n/a\?'"):
+                       match=r"f_1.parquet: row 3 \(from 1, no header row\), column 'eps_xx' "
+                             r"holds 'n/a\?'"):
         read_frames(_settings(tmp_path, _toml("f_1.parquet")))
     df = _export()
     cloud = pv.PolyData(np.c_[df["X [mm]"], df["Y [mm]"], np.zeros(len(df))])
