@@ -1,10 +1,16 @@
 """Convention checks: evidence that a strain array's component order or shear convention is wrong.
 
-Stage: model readings (used by ``check``, ``predict`` and ``run``; they warn, never refuse). Two tests:
+Stage: model readings (used by ``check``, ``predict`` and ``run``; they warn, never refuse). Three
+tests:
 
 * Hooke's law against a stress array the case names (``check_stress``): the strain read with the
   declared order and convention must match the strain from the stress; if another common order or
   convention fits far better, say which.
+* Compatibility with a displacement array the case names (``check_displacement``): the same
+  comparison against the small strain of the displacement field, ``(grad u + grad u^T) / 2`` from
+  the elements' shape-function gradients at the gauge centres. It needs no material, and it sees
+  what the traction-free test cannot: the in-plane shear of a face whose normal is an axis (a
+  tensor shear read as engineering shear there leaves the traction-free condition as it was).
 * The traction-free condition at free-surface gauges: the normal components of stress vanish, so for
   an isotropic material e_nt = 0 and e_nn = -nu/(1 - nu) (e_11 + e_22) in the gauge's surface frame.
   Near load introduction it fails for good reasons, hence a warning only.
@@ -25,6 +31,7 @@ from typing import Any
 
 import numpy as np
 from numpy.typing import NDArray
+from scipy import sparse
 
 from correlate.core.errors import CorrelateError
 from correlate.mechanics.tensors import DEFAULT_ORDER, from_voigt, strain_from_stress
@@ -234,23 +241,23 @@ def convention_warnings(model: Any) -> list[str]:
     """
     study, op = model.study, model.operator
     mat = study.material
-    if op.mesh.family != "solid" or mat is None:
+    if op.mesh.family != "solid":
         return []
     surface = (op.placement.table["mount"] == "surface").to_numpy()
     out = []
     for case in study.cases:
         if case.kind != "strain" or isinstance(case.array, dict):
             continue
+        if mat is None and not case.check_displacement:
+            continue   # the traction-free and Hooke tests need the material
         try:
-            line = _case_warning(model, case, surface, mat)
+            out += _case_warnings(model, case, surface, mat)
         except CorrelateError:
             continue
-        if line:
-            out.append(line)
     return out
 
 
-def _case_warning(model: Any, case: Any, surface: NDArray, mat: Any) -> str | None:
+def _case_warnings(model: Any, case: Any, surface: NDArray, mat: Any) -> list[str]:
     op = model.operator
     src = model.source(case)
     pts = op.centre_points
@@ -269,18 +276,54 @@ def _case_warning(model: Any, case: Any, surface: NDArray, mat: Any) -> str | No
             return (op.interpolation() @ values)[pts]
         return (touched.compact @ values)[pts]
 
+    def gradient_strain(name: str) -> NDArray | str:
+        """Small strain of displacement array ``name`` at the gauge centres (g, 3, 3), or why
+        it cannot be had."""
+        location, values = find_array(src, name, fe_index, case=case.name, rows=rows)
+        if location != "point" or values.ndim != 2 or values.shape[1] != 3:
+            return (f"case '{case.name}': check_displacement array '{name}' is "
+                    f"{'cell' if location == 'cell' else 'point'} data of "
+                    f"{values.shape[1] if values.ndim == 2 else 1} component(s); the check needs "
+                    "the nodal displacement (3 components)")
+        whole = len(values) == len(op.mesh.points)
+        grads = []
+        for G in op.gradients():   # d/dx, d/dy, d/dz of the shape functions (points x nodes)
+            G = G[pts]
+            if not whole:   # the nodes a time-series step was read at (the cells' nodes)
+                assert touched is not None
+                G = sparse.csr_matrix((G.data, np.searchsorted(touched.point, G.indices),
+                                       G.indptr), shape=(len(pts), len(touched.point)))
+            grads.append(G @ values)
+        H = np.stack(grads, axis=2)                 # H[g, i, k] = d u_i / d x_k
+        return 0.5 * (H + H.transpose(0, 2, 1))
+
     raw_g = at_gauges(case.array)[surface]
     if raw_g.shape[1] != 6:
-        return None
-    stress_strain = None
-    if case.check_stress:
+        return []
+    references: list[tuple[str, NDArray | None]] = []
+    if case.check_stress and mat is not None:
         s_raw = at_gauges(case.check_stress)[surface]
         if s_raw.shape[1] == 6:
             sig = from_voigt(s_raw, _stress_order(src, case.check_stress), shear="tensor")
-            stress_strain = strain_from_stress(sig, mat.E, mat.nu)
-    ev = convention_evidence(raw_g, case.components, case.shear, op.placement.normal[surface],
-                             op.placement.direction[surface], mat.nu,
-                             stress_strain=stress_strain)
+            references.append(("Hooke's law against the stress array",
+                               strain_from_stress(sig, mat.E, mat.nu)))
+    if case.check_displacement:
+        got = gradient_strain(case.check_displacement)
+        if isinstance(got, str):
+            return [got]
+        references.append(("displacement-gradient", got[surface]))
+    if not references:
+        references.append(("traction-free surface", None))
     names = [g for g, keep in zip(op.gauges, surface, strict=True) if keep]
-    return describe(case.name, ev, array=case.array, components=case.components,
-                    shear=case.shear, gauges=names)
+    nu = mat.nu if mat is not None else 0.0   # only the traction-free test reads it
+    out = []
+    for method, reference in references:
+        ev = convention_evidence(raw_g, case.components, case.shear,
+                                 op.placement.normal[surface], op.placement.direction[surface],
+                                 nu, stress_strain=reference)
+        if reference is not None:
+            ev["method"] = method
+        line = describe(case.name, ev, array=case.array, components=case.components,
+                        shear=case.shear, gauges=names)
+        out += [line] if line else []
+    return out

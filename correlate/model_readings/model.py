@@ -311,9 +311,9 @@ def source_steps(src: ModelSource, case: Case) -> list[tuple[int | None, float |
 def case_problems(study: Study, sources: dict[Path, ModelSource], case: Case) -> list[str]:
     """Every problem with the arrays a case names, found without the gauges (one line each).
 
-    Each named array (per face, the axes, the stress of ``check_stress``) is looked up in the
-    case's first FE state; when all are there, the field is read as a run would read it
-    (component count and names, shear, axes, material).
+    Each named array (per face, the axes, those of ``check_stress`` and ``check_displacement``)
+    is looked up in the case's first FE state; when all are there, the field is read as a run
+    would read it (component count and names, shear, axes, material).
     """
     src = sources[case.file or study.model_file]
     try:
@@ -321,7 +321,7 @@ def case_problems(study: Study, sources: dict[Path, ModelSource], case: Case) ->
     except CorrelateError as exc:
         return list(exc.problems)
     names = list(case.array.values()) if isinstance(case.array, dict) else [case.array]
-    names += [n for n in (case.axes, case.check_stress) if n]
+    names += [n for n in (case.axes, case.check_stress, case.check_displacement) if n]
     problems: list[str] = []
     for name in names:
         try:

@@ -57,12 +57,13 @@ class PartialRead:
 
 def arrays_of_cases(cases: Collection[Case], model_file: Path) -> dict[Path, frozenset[str]]:
     """The array names the cases read, per model file: the case arrays (each face of a shell),
-    the material axes, the stress of ``check_stress`` and the temperature of a thermal case."""
+    the material axes, the arrays of ``check_stress`` and ``check_displacement`` and the
+    temperature of a thermal case."""
     named: dict[Path, set[str]] = {model_file: set()}
     for case in cases:
         names = named.setdefault(case.file or model_file, set())
         names.update(case.array.values() if isinstance(case.array, dict) else [case.array])
-        names.update(n for n in (case.axes, case.check_stress) if n)
+        names.update(n for n in (case.axes, case.check_stress, case.check_displacement) if n)
         if case.thermal is not None:
             names.add(case.thermal.temperature)
     return {path: frozenset(names) for path, names in named.items()}

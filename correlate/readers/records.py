@@ -36,6 +36,7 @@ class Case:
     average: str = "cell"                    # for cell data: "cell" (constant) or "nodal"
     axes: str | None = None
     check_stress: str | None = None
+    check_displacement: str | None = None     # a displacement array: the strain checked against it
     match: dict[str, Any] | None = None
     thermal: CaseThermal | None = None       # thermo-mechanical: mechanical strain is read
 

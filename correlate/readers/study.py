@@ -39,7 +39,7 @@ SCHEMA: dict[str, set[str]] = {
     "model": {"file", "length_unit", "stress_unit", "plane", "revision", "description", "solver",
               "element", "mesh_size", "materials", "thickness", "kind"},
     "case": {"name", "strain", "displacement", "stress", "components", "shear", "time_index", "file",
-             "average", "axes", "check_stress", "match", "thermal"},
+             "average", "axes", "check_stress", "check_displacement", "match", "thermal"},
     "material": {"E", "nu", "blocks", "name"},
     "gauges": {"file", "position_tol", "angle_tol", "snap_tol", "calibration_poisson", "grid_points",
                "band", "nonlinearity"},
@@ -136,14 +136,16 @@ def _read_case(raw: dict[str, Any], i: int, base: Path, name: str, problems: lis
     average = raw.get("average", "cell")
     if average not in ("cell", "nodal"):
         problems.append(f"{name}: {where} average = '{average}'; expected 'cell' or 'nodal'")
-    for key in ("axes", "check_stress"):
+    for key in ("axes", "check_stress", "check_displacement"):
         if key in raw and not (isinstance(raw[key], str) and raw[key]):
             problems.append(f"{name}: {where} {key} = {raw[key]!r}; expected an array name")
     file = _path(base, raw["file"], where, name, problems) if "file" in raw else None
     thermal = parse_case_thermal(raw, where, name, kind, problems)
     return Case(name=case_name, kind=kind, array=array, components=components, shear=shear,
                 time_index=time_index, file=file, average=average, axes=raw.get("axes"),
-                check_stress=raw.get("check_stress"), match=raw.get("match"), thermal=thermal)
+                check_stress=raw.get("check_stress"),
+                check_displacement=raw.get("check_displacement"), match=raw.get("match"),
+                thermal=thermal)
 
 
 def _check_tables(raw: dict[str, Any], name: str, problems: list[str]) -> None:

@@ -229,15 +229,17 @@ def test_shipped_variants_stay_small():
     assert (demo_folder() / CLAMP_FILE).stat().st_size < 3.5e6
 
 
-def test_sweep_study_drops_only_the_grid_study_and_the_stress_check():
+def test_sweep_study_drops_only_the_grid_study_and_the_stress_and_displacement_checks():
     text = (demo_folder() / "study.toml").read_text()
     derived = sweep_study_text(text)
     assert "[numerical]" in text and "[numerical]" not in derived
     assert "check_stress" in text and "check_stress" not in derived
+    assert "check_displacement" in text and "check_displacement" not in derived
     assert "[uncertainty]" in derived and "[[uncertainty.input]]" in derived
     # every other line is kept as written
     dropped = set(text.splitlines()) - set(derived.splitlines())
-    assert all(line.startswith(("check_stress", "meshes", "h ", "formal_order", "[numerical]", "#"))
+    assert all(line.startswith(("check_stress", "check_displacement", "meshes", "h ",
+                                "formal_order", "[numerical]", "#"))
                or not line.strip() for line in dropped)
 
 

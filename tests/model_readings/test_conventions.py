@@ -168,6 +168,70 @@ def test_a_convention_that_changes_no_reading_is_not_reported():
 
 
 # ---------------------------------------------------------------------------------------------
+# (c) in-plane shear on a face whose normal is an axis: only the displacement field tells
+
+# u = (A x + G y, G x + B y, C z): small strain eps = (grad u + grad u^T) / 2 (Timoshenko &
+# Goodier, Theory of Elasticity, ch. 1) is uniform, eps_xx = A, eps_yy = B, eps_xy = G, eps_zz = C,
+# with C = -nu / (1 - nu) (A + B) so the top face z = 2 is traction-free (plane stress there).
+# Trilinear hexahedra reproduce a linear displacement exactly, so its gradient at any point is.
+A_, B_, G_ = 8e-4, -2e-4, 6e-4
+C_ = -NU / (1 - NU) * (A_ + B_)
+
+
+def write_shear_study(folder: Path, *, file_shear: str, case_toml: str) -> Path:
+    mesh = solid_mesh("hexahedron", n=(8, 6, 4), size=(4.0, 3.0, 2.0))
+    x = mesh.points
+    u = np.c_[A_ * x[:, 0] + G_ * x[:, 1], G_ * x[:, 0] + B_ * x[:, 1], C_ * x[:, 2]]
+    eps = np.zeros((len(x), 3, 3))
+    eps[:, 0, 0], eps[:, 1, 1], eps[:, 2, 2] = A_, B_, C_
+    eps[:, 0, 1] = eps[:, 1, 0] = G_
+    meshio.write(folder / "block.vtu", meshio.Mesh(x, [("hexahedron", mesh.blocks[0][1])],
+                                                   point_data={"E": to_voigt(
+                                                       eps, ("xx", "yy", "zz", "xy", "yz", "xz"),
+                                                       shear=file_shear), "U": u}))
+    beam_gauges().iloc[:10].to_csv(folder / "gauges.csv", index=False)   # the top face only
+    study = folder / "study.toml"
+    study.write_text('title = "Sheared block"\n[model]\nfile = "block.vtu"\nlength_unit = "mm"\n'
+                     '[[case]]\nname = "shear"\nstrain = "E"\n' + case_toml
+                     + f"[material]\nE = {E}\nnu = {NU}\n"
+                     '[gauges]\nfile = "gauges.csv"\nposition_tol = 0.0\nangle_tol = 0.0\n',
+                     encoding="utf-8")
+    return study
+
+
+def test_tensor_shear_on_an_axis_face_is_named_by_the_displacement_check_alone(tmp_path, capsys):
+    # tensor shear in the file, engineering (the default) declared: the top gauges at angles read
+    # eps_xy halved, yet e_xz = e_yz = 0 and e_zz = -nu/(1-nu)(e_xx + e_yy) hold either way, so
+    # the traction-free check cannot see it (no warning: the blind spot the new check covers)
+    study = write_shear_study(tmp_path, file_shear="tensor", case_toml="")
+    assert not [ln for ln in warnings_of(["check", str(study)], capsys) if "case 'shear'" in ln]
+    study = write_shear_study(tmp_path, file_shear="tensor", case_toml='check_displacement = "U"\n')
+    for command in (["check", str(study)], ["predict", str(study), "--out", str(tmp_path / "p")]):
+        lines = [ln for ln in warnings_of(command, capsys) if "case 'shear'" in ln]
+        assert len(lines) == 1, lines
+        assert "displacement-gradient check" in lines[0] and 'shear = "tensor"' in lines[0]
+        # T0 (0 deg) and T5 (90 deg) read no shear at all: no evidence there, the other 8 are
+        assert "on the 8 gauge(s) whose readings the convention changes (T1, T2," in lines[0]
+        assert "(residual 0% of the strain)" in lines[0]     # exact: a linear field on hexahedra
+
+
+def test_the_displacement_check_passes_a_strain_declared_right(tmp_path, capsys):
+    for shear in ("tensor", "engineering"):
+        toml = f'shear = "{shear}"\ncheck_displacement = "U"\n'
+        study = write_shear_study(tmp_path, file_shear=shear, case_toml=toml)
+        assert not [ln for ln in warnings_of(["check", str(study)], capsys)
+                    if "case 'shear'" in ln]
+
+
+def test_a_check_displacement_array_of_strain_is_named(tmp_path, capsys):
+    study = write_shear_study(tmp_path, file_shear="engineering",
+                              case_toml='check_displacement = "E"\n')
+    lines = [ln for ln in warnings_of(["check", str(study)], capsys) if "case 'shear'" in ln]
+    assert lines == ["warning: case 'shear': check_displacement array 'E' is point data of 6 "
+                     "component(s); the check needs the nodal displacement (3 components)"]
+
+
+# ---------------------------------------------------------------------------------------------
 # grid averaging over many small elements
 
 
