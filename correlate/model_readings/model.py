@@ -383,7 +383,8 @@ def check_range(op: GaugeOperator, fld: Any, rows: dict[str, NDArray[np.float64]
         raise ModelError(f"case '{fld.case}': array '{fld.array}' gives strains up to "
                          f"{np.nanmax(size[big]):.3g} at {len(gauges)} gauge(s): {shown}; the "
                          "model's strain is read in m/m, and 1 is 100 % strain, beyond any strain "
-                         "gauge: the array looks like microstrain or percent; write it in m/m")
+                         "gauge: the array looks like microstrain or percent, or is not a strain "
+                         "(a stress?); write the strain in m/m")
 
 
 

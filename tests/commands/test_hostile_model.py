@@ -88,5 +88,6 @@ def test_a_model_strain_written_in_microstrain_is_refused_naming_case_and_array(
     assert code == 2
     assert len(err) == 1 and err[0].startswith("error: case 'pull': array 'E_pull' gives strains "
                                                "up to ")
-    assert err[0].endswith("the array looks like microstrain or percent; write it in m/m")
+    assert err[0].endswith("the array looks like microstrain or percent, or is not a strain (a "
+                           "stress?); write the strain in m/m")
     assert not out.exists() and _hashes(tmp_path) == before
