@@ -10,7 +10,7 @@ from correlate.core.errors import OutputError, RunFolderError
 from correlate.core.folders import check_target, output_path, staged_folder
 from correlate.core.names import CAUTION
 from correlate.core.tables import write_csv
-from correlate.readers.run_folder import input_hash, read_run, readings_hash
+from correlate.readers.run_folder import RunFolder, input_hash, read_run, readings_hash
 from correlate.report.compare_page import cell_text, render_compare_page
 
 
@@ -21,6 +21,20 @@ def _check_out(out: Path, runs: tuple[Path, ...], *, force: bool) -> None:
             raise OutputError(f"--out '{out}' is, lies inside or contains the run folder '{r}'; "
                               "compare never writes into run folders: choose another --out")
     check_target(out, force=force, inputs=runs)
+
+
+def _same_model(a: RunFolder, b: RunFolder, old: Path, new: Path) -> str | None:
+    """A note when the two runs cannot show a model revision: one folder twice, or the same
+    model result files (by their sha256) in both runs."""
+    if old.resolve() == new.resolve():
+        return f"OLD and NEW are the same folder '{old}': compare a run with an earlier one"
+    names = [k for k in a.summary.get("provenance", {}).get("inputs", {})
+             if k == "model" or k.startswith("case ")]
+    hashes = [(input_hash(a, k), input_hash(b, k)) for k in names]
+    if hashes and all(x is not None and x == y for x, y in hashes):
+        return ("both runs were made from the same model result file(s) (same sha256): their "
+                "differences come from the study or the gauge map, not from a model revision")
+    return None
 
 
 def run(args: argparse.Namespace) -> int:
@@ -55,6 +69,9 @@ def run(args: argparse.Namespace) -> int:
                      f"{str(gb)[:12]}... in '{new}'): gauge positions, directions, properties "
                      "or the gauge set changed between the runs, so their differences are not "
                      "the model's alone")
+    same = _same_model(a, b, old, new)
+    if same:
+        notes.append(same)
     for note in notes:
         print(f"note: {note}")
     print(line + (": " + "; ".join(reasons) if reasons else ""))

@@ -1,4 +1,4 @@
-"""Elements a reading must not be taken on: inverted or collapsed cells.
+"""Elements a reading must not be taken on: inverted or collapsed cells, and unmerged nodes.
 
 Stage: evaluation. In: a mesh, the cells under sample points and the points' natural
 coordinates. Out: per sample point, what is wrong with its cell (empty when nothing), and the
@@ -68,3 +68,15 @@ def check_cells(mesh: Mesh, cells: NDArray[np.int64], xi: NDArray[np.float64],
 
 
 __all__ = ["COLLAPSED", "DEGENERATE", "INVERTED", "bad_cells", "check_cells"]
+
+
+def coincident_nodes(points: NDArray, centre: NDArray, radius: float, scale: float) -> int:
+    """How many nodes within ``radius`` of ``centre`` sit where another node is (within 1e-9 of
+    the model size): elements exported without merging their nodes, or a tied interface. Such
+    elements share no faces, so each one's faces are outer faces."""
+    from scipy.spatial import cKDTree
+    near = points[np.linalg.norm(points - centre, axis=1) <= max(radius, 1e-6 * scale)]
+    if len(near) < 2:
+        return 0
+    pairs = cKDTree(near).query_pairs(1e-9 * scale, output_type="ndarray")
+    return len(np.unique(pairs))

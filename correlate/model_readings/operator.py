@@ -27,7 +27,7 @@ from scipy import sparse
 
 from correlate.core.errors import CorrelateWarning, GaugeError, GaugeOutsideMeshError
 from correlate.mechanics import elements, mapping
-from correlate.model_readings.cell_checks import bad_cells, check_cells
+from correlate.model_readings.cell_checks import bad_cells, check_cells, coincident_nodes
 from correlate.model_readings.locator import Locator, locate_inside, parent_coordinates
 from correlate.model_readings.surface import build_surface
 from correlate.readers.model import Mesh
@@ -480,7 +480,8 @@ def _sample_points(mesh: Mesh, locator: Locator, c: _Centres, row_gauge: NDArray
         elif len(nominal_bad):
             flipped = set(p_row[need][turned & (np.sum(new_n * rn[p_row[need]], axis=1) < 0)])
             raise GaugeError(*[_overhang_line(mesh, c.names[row_gauge[r]], r in flipped,
-                                              length[row_gauge[r]]) for r in nominal_bad])
+                                              length[row_gauge[r]], c.centre[row_gauge[r]],
+                                              locator.surface.scale) for r in nominal_bad])
         valid_row[bad_rows] = False
     if (need & p_emb).any():
         raise GaugeError("embedded gauges with a grid length are not supported; give length 0")
@@ -488,10 +489,17 @@ def _sample_points(mesh: Mesh, locator: Locator, c: _Centres, row_gauge: NDArray
                     valid_row=valid_row, invalid=invalid)
 
 
-def _overhang_line(mesh: Mesh, gauge: str, flipped: bool, length: float) -> str:
+def _overhang_line(mesh: Mesh, gauge: str, flipped: bool, length: float, centre: NDArray,
+                   scale: float) -> str:
     if mesh.family == "shell" and flipped:
         return (f"gauge '{gauge}': its grid crosses shell elements with opposed normals, so top "
                 "and bottom swap under it; orient the shell normals consistently in the model")
+    twins = coincident_nodes(mesh.points, centre, length, scale)
+    if twins:
+        return (f"gauge '{gauge}': the elements under its grid share no nodes ({twins} nodes "
+                "within a grid length sit where another node is), so the grid runs off an "
+                "element's face; merge coincident nodes in the pre-processor or, where the split "
+                "is real (a crack, a tied interface), move the gauge")
     return (f"gauge '{gauge}': its grid (length {length:g}) overhangs an edge of the face it is "
             "on; check the position, direction and length")
 

@@ -91,3 +91,54 @@ def test_a_model_strain_written_in_microstrain_is_refused_naming_case_and_array(
     assert err[0].endswith("the array looks like microstrain or percent, or is not a strain (a "
                            "stress?); write the strain in m/m")
     assert not out.exists() and _hashes(tmp_path) == before
+
+
+def _explode(mesh: meshio.Mesh) -> meshio.Mesh:
+    """Every cell with nodes of its own (a mesh exported without merging coincident nodes); the
+    nodal values are copied, so the field is the same wherever it is read."""
+    cells, data, offset = [], {k: [] for k in mesh.point_data}, 0
+    for block in mesh.cells:
+        flat = block.data.ravel()
+        for k, v in mesh.point_data.items():
+            data[k].append(v[flat])
+        cells.append((block.type, offset + np.arange(flat.size).reshape(block.data.shape)))
+        offset += flat.size
+    points = np.vstack([mesh.points[b.data.ravel()] for b in mesh.cells])
+    return meshio.Mesh(points, cells, point_data={k: np.concatenate(v) for k, v in data.items()})
+
+
+def test_a_mesh_whose_elements_share_no_nodes_is_named_as_such_not_as_an_overhang(tmp_path,
+                                                                                capsys):
+    # Exported meshes with unmerged nodes are common (a mesh written per part or per element set,
+    # common practice). Every face of every element is then an outer face, and the demo's gauge
+    # G09, whose grid crosses an element boundary, was refused as overhanging an edge, which sent
+    # the analyst to check its position. The reference count is the demo mesh's own: every
+    # exploded node has at least one twin, so the count is the nodes near the gauge.
+    import shutil
+
+    import correlate
+    shutil.copytree(Path(correlate.__file__).parent / "data" / "demo", tmp_path / "d")
+    model = tmp_path / "d" / "bracket.vtu"
+    meshio.write(model, _explode(meshio.read(model)))
+    before = _hashes(tmp_path / "d")
+    out = tmp_path / "out"
+    code = main(["--quiet", "run", str(tmp_path / "d" / "study.toml"), "--out", str(out),
+                 "--no-report"])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert code == 2 and len(err) == 1
+    assert err[0].startswith("error: gauge 'G09': the elements under its grid share no nodes (")
+    assert "overhangs" not in err[0] and "merge coincident nodes in the pre-processor" in err[0]
+    assert not out.exists() and _hashes(tmp_path / "d") == before
+
+
+def test_coincident_nodes_counts_each_node_with_a_twin_once():
+    # Reference: a brute-force distance matrix (numpy) over the same points.
+    from correlate.model_readings.cell_checks import coincident_nodes
+    rng = np.random.default_rng(5)
+    base = rng.uniform(0.0, 10.0, size=(40, 3))
+    points = np.vstack([base, base[:6], base[:2], base[20:21] + 1e-3])  # 6 twins, 2 of them triple
+    d = np.linalg.norm(points[:, None] - points[None], axis=2)
+    near = np.linalg.norm(points - [5.0, 5.0, 5.0], axis=1) <= 20.0
+    twin = ((d < 1e-8) & ~np.eye(len(points), dtype=bool))[np.ix_(near, near)].any(axis=1)
+    assert coincident_nodes(points, np.array([5.0, 5.0, 5.0]), 20.0, 10.0) == int(twin.sum()) == 14
+    assert coincident_nodes(base, np.array([5.0, 5.0, 5.0]), 20.0, 10.0) == 0

@@ -65,6 +65,13 @@ def _paused(pid: int) -> bool:
         return False
 
 
+def _default_sigint() -> None:
+    # a suite started as a background job of a non-interactive shell inherits SIGINT ignored
+    # (POSIX shells do that to background jobs), and Python keeps an ignored SIGINT ignored: the
+    # child would sleep through the signal. Ctrl-C reaches an interactive run; so must the test's.
+    signal.signal(signal.SIGINT, signal.SIG_DFL)
+
+
 @pytest.fixture(scope="module")
 def campaign(tmp_path_factory):
     """A small study, and one completed run folder of it to copy as the 'previous' DIR."""
@@ -94,7 +101,8 @@ def interrupted(campaign):
         proc = subprocess.Popen(
             [sys.executable, "-m", "correlate", "--quiet", "run", str(campaign["study"]),
              "--out", str(out), "--force", "--no-report"],
-            cwd=work, env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+            cwd=work, env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+            preexec_fn=_default_sigint)
         runs.append({"stage": stage, "signal": sig, "name": name, "out": out, "proc": proc,
                      "before": snapshot(out), "held": False, "staged_seen": False})
     deadline = time.monotonic() + WAIT

@@ -187,6 +187,26 @@ def test_runs_with_other_gauge_maps_are_compared_with_a_note(real_runs: Path, tm
     assert '<p class="box caution">Note: the gauge maps differ' in html
 
 
+def test_a_run_compared_with_itself_or_its_own_model_says_so(real_runs: Path, tmp_path: Path,
+                                                                capsys) -> None:
+    # 'about the same' of one folder twice, or of two runs of one model file, reads as a model
+    # revision that changed nothing; the note says what was compared (provenance sha256)
+    import shutil
+
+    assert main(["--quiet", "compare", str(real_runs / "revB"), str(real_runs / "revB")]) == 0
+    out = capsys.readouterr().out
+    assert f"note: OLD and NEW are the same folder '{real_runs / 'revB'}'" in out
+    assert "about the same" in out
+    again = tmp_path / "revB-again"
+    shutil.copytree(real_runs / "revB", again)
+    assert main(["--quiet", "compare", str(real_runs / "revB"), str(again)]) == 0
+    out = capsys.readouterr().out
+    assert "note: both runs were made from the same model result file(s)" in out
+    assert main(["--quiet", "compare", str(real_runs / "revB"), str(real_runs / "revC")]) == 0
+    out = capsys.readouterr().out
+    assert "same folder" not in out and "same model result" not in out
+
+
 def test_synthetic_runs_report_exactly_the_fixed_and_the_broken_gauge(tmp_path: Path) -> None:
     a, b, _, _ = two_runs(tmp_path)
     assert main(["compare", str(a), str(b), "--out", str(tmp_path / "cmp")]) == 0
