@@ -181,7 +181,7 @@ def convention_evidence(raw_at_gauges: NDArray, components: tuple[str, ...] | No
     declared = scores[0][2]
     best = min(scores, key=lambda s: np.inf if np.isnan(s[2]) else s[2])
     return {"declared": declared, "best": best, "weighted": weighted,
-            "method": "Hooke's law against the stress array" if stress_strain is not None
+            "method": "stress-array (Hooke's law)" if stress_strain is not None
             else "traction-free surface"}
 
 
@@ -199,10 +199,14 @@ def describe(case: str, evidence: dict[str, Any], *, array: str = "",
         names = [gauges[k] for k in alt.gauges] if gauges else [f"#{k + 1}" for k in alt.gauges]
         shown = ", ".join(names[:6]) + (f" and {len(names) - 6} more" if len(names) > 6 else "")
         declared = list(components or DEFAULT_ORDER)
+        # the components named only when they differ: the same list twice hides the change
+        fit, given = f'shear = "{alt.shear}"', f'shear = "{shear}"'
+        if list(alt.order) != declared:
+            fit, given = f"components = {list(alt.order)} with {fit}", \
+                f"components = {declared} with {given}"
         return (f"{where}: on the {len(names)} gauge(s) whose readings the convention changes "
-                f"({shown}), the {evidence['method']} check fits components = {list(alt.order)} "
-                f"with shear = \"{alt.shear}\" (residual {alt.residual:.0%} of the strain) far "
-                f"better than the declared components = {declared} with shear = \"{shear}\" "
+                f"({shown}), the {evidence['method']} check fits {fit} (residual "
+                f"{alt.residual:.0%} of the strain) far better than the declared {given} "
                 f"({alt.declared:.0%}); check components and shear in the [[case]]")
     declared = evidence["declared"]
     order, best_shear, best = evidence["best"]
@@ -305,7 +309,7 @@ def _case_warnings(model: Any, case: Any, surface: NDArray, mat: Any) -> list[st
         s_raw = at_gauges(case.check_stress)[surface]
         if s_raw.shape[1] == 6:
             sig = from_voigt(s_raw, _stress_order(src, case.check_stress), shear="tensor")
-            references.append(("Hooke's law against the stress array",
+            references.append(("stress-array (Hooke's law)",
                                strain_from_stress(sig, mat.E, mat.nu)))
     if case.check_displacement:
         got = gradient_strain(case.check_displacement)

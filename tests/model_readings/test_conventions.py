@@ -94,6 +94,8 @@ def test_tensor_shear_left_at_the_default_is_named_by_the_hooke_check(tmp_path, 
         lines = [ln for ln in warnings_of(command, capsys) if "case 'beam'" in ln]
         assert len(lines) == 1, lines
         assert "array 'E'" in lines[0] and 'shear = "tensor"' in lines[0]
+        assert "the stress-array (Hooke's law) check fits shear" in lines[0]
+        assert "components =" not in lines[0]   # only the shear differs, so only it is named
         assert "S0" in lines[0] and "S1" in lines[0] and "T3" not in lines[0]
 
 
